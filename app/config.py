@@ -1,0 +1,67 @@
+"""Every setting and limit of pairlens, in one place."""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+from pathlib import Path
+
+# Analysis defaults -------------------------------------------------------
+DEFAULT_MEASURES: tuple[str, ...] = ("pearson", "spearman", "kendall", "dcor")
+DEFAULT_CONFIDENCE = 0.95
+DEFAULT_ADJUST = "bh"
+DEFAULT_MISSING = "pairwise"
+DEFAULT_SEED = 20261201
+ADJUST_METHODS: tuple[str, ...] = ("bh", "holm", "none")
+MISSING_POLICIES: tuple[str, ...] = ("pairwise", "complete")
+MIN_ROWS = 3                      # fewer usable rows than this gives NaN with a note
+SIGNIFICANCE_LEVEL = 0.05         # q-value below which a pair counts as significant
+
+# Limits ------------------------------------------------------------------
+MAX_UPLOAD_MB = 200
+MAX_ROWS = 5_000_000
+MAX_COLUMNS = 5_000
+MAX_PERMUTATIONS = 100_000
+# Column groups need pairwise distances; above this many rows the n x n
+# blocks would not fit comfortably in memory, so the user is told to sample.
+MAX_GROUP_ROWS = 20_000
+# Above this many points the pair view draws a density layer under a sample.
+SCATTER_DENSITY_THRESHOLD = 20_000
+# Kendall's exact null distribution is used up to this many untied rows.
+KENDALL_EXACT_MAX_N = 50
+
+# Server ------------------------------------------------------------------
+DEFAULT_HOST = "127.0.0.1"
+DEFAULT_PORT = 8000
+MAX_CONCURRENT_ANALYSES = 2
+
+PACKAGE_DIR = Path(__file__).resolve().parent
+PROJECT_DIR = PACKAGE_DIR.parent
+TEMPLATES_DIR = PROJECT_DIR / "templates"
+STATIC_DIR = PROJECT_DIR / "static"
+SAMPLE_DATA_DIR = PROJECT_DIR / "sample_data"
+DEMO_FILE = SAMPLE_DATA_DIR / "vineyard_blocks.csv"
+
+
+def default_data_dir() -> Path:
+    """Per-user workspace directory (``PAIRLENS_DATA_DIR`` overrides it)."""
+    env = os.environ.get("PAIRLENS_DATA_DIR")
+    if env:
+        return Path(env)
+    try:
+        from platformdirs import user_data_dir
+
+        return Path(user_data_dir("pairlens", appauthor=False))
+    except ImportError:  # pragma: no cover - platformdirs is a dependency
+        return Path.home() / ".local" / "share" / "pairlens"
+
+
+@dataclass(frozen=True)
+class ServerSettings:
+    host: str = DEFAULT_HOST
+    port: int = DEFAULT_PORT
+    data_dir: Path | None = None
+    max_upload_mb: int = MAX_UPLOAD_MB
+    demo: bool = False
+    token: str | None = None
+    cluster: str | None = None

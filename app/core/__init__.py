@@ -1,0 +1,4 @@
+"""Numerical core: pure functions on NumPy arrays.
+
+Nothing in this package knows about pandas, HTTP, SQLite or files.
+"""
