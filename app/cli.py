@@ -1,0 +1,255 @@
+"""The ``pairlens`` command: serve, pairs, inspect, report.
+
+Bad input ends with exit status 2 and one line on stderr; no traceback reaches
+the user (set PAIRLENS_DEBUG=1 to see one).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import os
+import shlex
+import sys
+import time
+from pathlib import Path
+
+from . import __version__, config
+
+EXIT_BAD_INPUT = 2
+EXIT_INTERNAL = 1
+
+
+class UsageError(Exception):
+    """A problem with the command line itself; reported on one line with exit status 2."""
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message: str):  # argparse prints usage + exits 2; we want one line
+        raise UsageError(f"{self.prog}: {message}")
+
+
+def _add_analysis_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("data", metavar="DATA", help="table file: .csv .tsv .txt .csv.gz .xlsx .parquet")
+    p.add_argument("--sheet", help="worksheet of an .xlsx file (default: the first)")
+    p.add_argument("--measures", help="comma-separated measures (default: %s)" % ",".join(config.DEFAULT_MEASURES))
+    p.add_argument("--columns", help="comma-separated numeric columns to use (default: all)")
+    p.add_argument("--group", action="append", default=[], metavar="NAME=COL,COL",
+                   help="analyse several columns as one multivariate variable (repeatable)")
+    p.add_argument("--missing", choices=config.MISSING_POLICIES, default=config.DEFAULT_MISSING)
+    p.add_argument("--adjust", choices=config.ADJUST_METHODS, default=config.DEFAULT_ADJUST)
+    p.add_argument("--confidence", type=float, default=config.DEFAULT_CONFIDENCE)
+    p.add_argument("--permutations", type=int, default=0, metavar="B")
+    p.add_argument("--seed", type=int, default=config.DEFAULT_SEED)
+    p.add_argument("--workers", type=int, default=None, metavar="N", help="local worker processes (default: all cores)")
+    p.add_argument("--cluster", default=None, metavar="ADDRESS", help="Dask scheduler, e.g. tcp://127.0.0.1:8786")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(prog="pairlens", description="Association analysis for every pair of columns.")
+    parser.add_argument("--version", action="version", version=f"pairlens {__version__}")
+    sub = parser.add_subparsers(dest="command", required=True, parser_class=_Parser)
+
+    serve = sub.add_parser("serve", help="start the local dashboard")
+    serve.add_argument("--host", default=config.DEFAULT_HOST)
+    serve.add_argument("--port", type=int, default=config.DEFAULT_PORT)
+    serve.add_argument("--data-dir", default=None)
+    serve.add_argument("--demo", action="store_true", help="open with the invented vineyard demo dataset")
+    serve.add_argument("--max-upload-mb", type=int, default=config.MAX_UPLOAD_MB)
+    serve.add_argument("--cluster", default=None, metavar="ADDRESS")
+
+    pairs = sub.add_parser("pairs", help="the pair table for every pair of columns")
+    _add_analysis_options(pairs)
+    pairs.add_argument("-o", "--output", default=None, metavar="OUT.csv|OUT.json")
+
+    inspect = sub.add_parser("inspect", help="everything about one pair")
+    inspect.add_argument("data", metavar="DATA")
+    inspect.add_argument("--sheet")
+    inspect.add_argument("--x", required=True, metavar="COL")
+    inspect.add_argument("--y", required=True, metavar="COL")
+    inspect.add_argument("--json", action="store_true", help="machine-readable output")
+    inspect.add_argument("--confidence", type=float, default=config.DEFAULT_CONFIDENCE)
+    inspect.add_argument("--permutations", type=int, default=0)
+    inspect.add_argument("--seed", type=int, default=config.DEFAULT_SEED)
+
+    report = sub.add_parser("report", help="a self-contained HTML report")
+    _add_analysis_options(report)
+    report.add_argument("-o", "--output", required=True, metavar="REPORT.html")
+    return parser
+
+
+def _load(args):
+    from .ingest import load_table
+
+    return load_table(args.data, sheet=getattr(args, "sheet", None))
+
+
+def _settings(args):
+    from .engine import AnalysisSettings
+
+    return AnalysisSettings.from_options(
+        measures=args.measures, columns=args.columns, groups=args.group, missing=args.missing,
+        adjust=args.adjust, confidence=args.confidence, permutations=args.permutations, seed=args.seed)
+
+
+class _ProgressBar:
+    """A one-line bar on stderr, only when stderr is a terminal and the run is long."""
+
+    def __init__(self) -> None:
+        self.enabled = sys.stderr.isatty()
+        self.started = time.monotonic()
+        self.shown = False
+
+    def __call__(self, fraction: float, seconds_left: float) -> None:
+        if not self.enabled or time.monotonic() - self.started < 1.0:
+            return
+        width = 30
+        filled = int(round(fraction * width))
+        left = "" if not math.isfinite(seconds_left) else f" {seconds_left:5.0f} s left"
+        sys.stderr.write(f"\r[{'#' * filled}{'.' * (width - filled)}] {fraction * 100:5.1f}%{left}")
+        sys.stderr.flush()
+        self.shown = True
+
+    def finish(self) -> None:
+        if self.shown:
+            sys.stderr.write("\r" + " " * 60 + "\r")
+            sys.stderr.flush()
+
+
+def _run(args, table):
+    from .engine import run_analysis
+
+    settings = _settings(args)
+    bar = _ProgressBar()
+    try:
+        result = run_analysis(table.data, table.columns, settings, workers=args.workers,
+                              cluster=args.cluster, progress=bar)
+    finally:
+        bar.finish()
+    return settings, result
+
+
+def _write_text(path: str | None, text: str) -> None:
+    if path is None:
+        sys.stdout.write(text)
+        return
+    target = Path(path)
+    tmp = target.with_name(target.name + ".partial")
+    tmp.write_text(text, encoding="utf-8")
+    os.replace(tmp, target)
+
+
+def cmd_pairs(args) -> int:
+    from .export import pairs_to_csv, pairs_to_json
+
+    out = args.output
+    if out is not None and not out.lower().endswith((".csv", ".json")):
+        raise UsageError(f"pairlens pairs: output {out!r} must end in .csv or .json")
+    table = _load(args)
+    _, result = _run(args, table)
+    records = result.records()
+    text = pairs_to_json(records) + "\n" if out and out.lower().endswith(".json") else pairs_to_csv(records)
+    _write_text(out, text)
+    return 0
+
+
+def cmd_inspect(args) -> int:
+    from .engine import AnalysisSettings, pair_detail
+    from .core.registry import MEASURES
+
+    table = _load(args)
+    settings = AnalysisSettings.from_options(measures=list(MEASURES), confidence=args.confidence,
+                                             permutations=args.permutations, seed=args.seed)
+    detail = pair_detail(table.data, table.columns, args.x, args.y, settings)
+    if args.json:
+        sys.stdout.write(json.dumps(detail, indent=1, ensure_ascii=False, allow_nan=False) + "\n")
+    else:
+        sys.stdout.write(format_detail(detail))
+    return 0
+
+
+def _fmt(v, digits: int = 4) -> str:
+    return "-" if v is None else f"{v:.{digits}g}"
+
+
+def format_detail(d: dict) -> str:
+    """A readable text form of :func:`app.engine.pair_detail`."""
+    lines = [f"{d['x']}  vs  {d['y']}    (n = {d['n']} rows with both values)", ""]
+    lines.append(f"{'measure':<10} {'estimate':>10} {'interval':>22} {'p-value':>10}  method / note")
+    for name, m in d["measures"].items():
+        interval = "" if m["ci_low"] is None else f"[{_fmt(m['ci_low'])}, {_fmt(m['ci_high'])}]"
+        extra = m.get("note") or m.get("method") or ""
+        lines.append(f"{name:<10} {_fmt(m['estimate']):>10} {interval:>22} {_fmt(m['p_value']):>10}  {extra}")
+    g = d["gaussian"]
+    lines += ["", "Bivariate Gaussian fit"]
+    lines.append(f"  mean = ({_fmt(g['mean'][0])}, {_fmt(g['mean'][1])}), rho = {_fmt(g['rho'])}")
+    c = g["conditional"]
+    lines.append(f"  E[{d['y']} | {d['x']}] = {_fmt(c['intercept'])} + {_fmt(c['slope'])} * {d['x']}, "
+                 f"residual sd {_fmt(c['residual_sd'])}")
+    implied = ", ".join(f"{k} {_fmt(v, 3)}" for k, v in g["implied"].items())
+    lines.append(f"  a Gaussian with this rho implies: {implied}")
+    nm = g["normality"]
+    lines.append(f"  joint normality (Henze-Zirkler): statistic {_fmt(nm['statistic'])}, p = {_fmt(nm['p_value'])}")
+    p = d["pattern"]
+    lines += ["", f"Verdict: {p['label']}"]
+    lines += [f"  - {r}" for r in p["reasons"]]
+    lines += ["", "Association is not causation; check outliers and missing data before relying on this.", ""]
+    return "\n".join(lines)
+
+
+def cmd_report(args) -> int:
+    from .report import build_report
+
+    if not args.output.lower().endswith((".html", ".htm")):
+        raise UsageError(f"pairlens report: output {args.output!r} must end in .html")
+    table = _load(args)
+    settings, result = _run(args, table)
+    command = "pairlens report " + " ".join(shlex.quote(a) for a in
+                                            [args.data, "-o", args.output, *settings.cli_arguments()])
+    html = build_report(table, result, command=command)
+    _write_text(args.output, html)
+    return 0
+
+
+def cmd_serve(args) -> int:
+    from .web.server import serve
+
+    return serve(host=args.host, port=args.port, data_dir=args.data_dir, demo=args.demo,
+                 max_upload_mb=args.max_upload_mb, cluster=args.cluster)
+
+
+COMMANDS = {"pairs": cmd_pairs, "inspect": cmd_inspect, "report": cmd_report, "serve": cmd_serve}
+
+
+def main(argv: list[str] | None = None) -> int:
+    from .engine import SettingsError
+    from .ingest import IngestError
+
+    try:
+        args = build_parser().parse_args(argv)
+        return COMMANDS[args.command](args)
+    except SystemExit as exc:  # --help and --version
+        return int(exc.code or 0)
+    except (UsageError, IngestError, SettingsError) as exc:
+        print(_one_line(str(exc)), file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        print("pairlens: interrupted", file=sys.stderr)
+        return 130
+    except BrokenPipeError:
+        return 0
+    except Exception as exc:  # noqa: BLE001 - the user gets one line, developers a traceback on request
+        if os.environ.get("PAIRLENS_DEBUG"):
+            raise
+        print(_one_line(f"pairlens: internal error ({type(exc).__name__}: {exc}); "
+                        "rerun with PAIRLENS_DEBUG=1 and report it"), file=sys.stderr)
+        return EXIT_INTERNAL
+
+
+def _one_line(text: str) -> str:
+    return " ".join(text.split())
+
+
+if __name__ == "__main__":
+    sys.exit(main())

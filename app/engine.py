@@ -1,0 +1,487 @@
+"""The analysis engine: plans the pairs, runs the core kernels on an executor, adjusts p-values.
+
+The engine works on plain NumPy data and column names; it knows nothing of
+files or HTTP. The web app, the CLI and the report all call :func:`run_analysis`
+and :func:`pair_detail`.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import time
+from dataclasses import asdict, dataclass, field
+from typing import Callable, Iterable, Sequence
+
+import numpy as np
+
+from . import config
+from .core import gaussian as gaussian_mod
+from .core import verdict as verdict_mod
+from .core.registry import MEASURES, PairContext, get_measure
+from .core.results import TestResult, undefined
+from .core.testing import adjust_pvalues, pair_seed
+from .executors import Executor, make_executor
+from .export import PAIR_FIELDS
+
+__all__ = [
+    "SettingsError",
+    "AnalysisCancelled",
+    "AnalysisSettings",
+    "Variable",
+    "PairRow",
+    "PairTable",
+    "plan_variables",
+    "run_analysis",
+    "pair_detail",
+]
+
+
+
+class SettingsError(ValueError):
+    """Analysis settings that cannot be used; the message says what to change."""
+
+
+class AnalysisCancelled(RuntimeError):
+    """Raised by :func:`run_analysis` when the cancel callback asked to stop."""
+
+
+@dataclass(frozen=True)
+class AnalysisSettings:
+    measures: tuple[str, ...] = config.DEFAULT_MEASURES
+    columns: tuple[str, ...] | None = None
+    groups: tuple[tuple[str, tuple[str, ...]], ...] = ()
+    missing: str = config.DEFAULT_MISSING
+    adjust: str = config.DEFAULT_ADJUST
+    confidence: float = config.DEFAULT_CONFIDENCE
+    permutations: int = 0
+    seed: int = config.DEFAULT_SEED
+
+    @classmethod
+    def from_options(cls, *, measures=None, columns=None, groups=None, missing=None, adjust=None,
+                     confidence=None, permutations=None, seed=None) -> "AnalysisSettings":
+        """Build validated settings from loosely typed options (CLI strings, JSON values)."""
+        if isinstance(measures, str):
+            measures = [m for m in measures.split(",") if m.strip()]
+        measures = tuple(m.strip().lower() for m in (measures or config.DEFAULT_MEASURES))
+        if isinstance(columns, str):
+            columns = [c for c in columns.split(",") if c.strip()]
+        columns = tuple(c.strip() for c in columns) if columns else None
+        group_items: list[tuple[str, tuple[str, ...]]] = []
+        if isinstance(groups, dict):
+            groups = list(groups.items())
+        for item in groups or ():
+            if isinstance(item, str):
+                name, sep, members = item.partition("=")
+                if not sep:
+                    raise SettingsError(f"group {item!r} must look like NAME=COL,COL")
+                item = (name, [m for m in members.split(",") if m.strip()])
+            name, members = item
+            if isinstance(members, str):
+                members = [m for m in members.split(",") if m.strip()]
+            group_items.append((str(name).strip(), tuple(str(m).strip() for m in members)))
+        settings = cls(
+            measures=measures,
+            columns=columns,
+            groups=tuple(group_items),
+            missing=(missing or config.DEFAULT_MISSING).lower(),
+            adjust=(adjust or config.DEFAULT_ADJUST).lower(),
+            confidence=float(config.DEFAULT_CONFIDENCE if confidence is None else confidence),
+            permutations=int(permutations or 0),
+            seed=int(config.DEFAULT_SEED if seed is None else seed),
+        )
+        settings.check()
+        return settings
+
+    def check(self) -> None:
+        if not self.measures:
+            raise SettingsError("choose at least one measure")
+        for m in self.measures:
+            if m not in MEASURES:
+                raise SettingsError(f"unknown measure {m!r}; choose from {', '.join(MEASURES)}")
+        if len(set(self.measures)) != len(self.measures):
+            raise SettingsError("a measure is listed twice")
+        if self.missing not in config.MISSING_POLICIES:
+            raise SettingsError(f"missing must be one of {', '.join(config.MISSING_POLICIES)}, not {self.missing!r}")
+        if self.adjust not in config.ADJUST_METHODS:
+            raise SettingsError(f"adjust must be one of {', '.join(config.ADJUST_METHODS)}, not {self.adjust!r}")
+        if not (0.5 <= self.confidence < 1.0) or not math.isfinite(self.confidence):
+            raise SettingsError(f"confidence must be at least 0.5 and below 1, e.g. 0.95; got {self.confidence}")
+        if not (0 <= self.permutations <= config.MAX_PERMUTATIONS):
+            raise SettingsError(f"permutations must be between 0 and {config.MAX_PERMUTATIONS}; got {self.permutations}")
+        if not (0 <= self.seed < 2**63):
+            raise SettingsError(f"seed must be a non-negative integer; got {self.seed}")
+        for name, members in self.groups:
+            if not name:
+                raise SettingsError("a group needs a name: NAME=COL,COL")
+            if not members:
+                raise SettingsError(f"group {name!r} lists no columns")
+
+    def to_dict(self) -> dict:
+        d = asdict(self)
+        d["measures"] = list(self.measures)
+        d["columns"] = list(self.columns) if self.columns is not None else None
+        d["groups"] = {name: list(members) for name, members in self.groups}
+        return d
+
+    @classmethod
+    def from_dict(cls, d: dict) -> "AnalysisSettings":
+        return cls.from_options(**{k: d.get(k) for k in (
+            "measures", "columns", "groups", "missing", "adjust", "confidence", "permutations", "seed")})
+
+    def cli_arguments(self) -> list[str]:
+        """The options that reproduce these settings on the command line."""
+        args = ["--measures", ",".join(self.measures)]
+        if self.columns is not None:
+            args += ["--columns", ",".join(self.columns)]
+        for name, members in self.groups:
+            args += ["--group", f"{name}={','.join(members)}"]
+        args += ["--missing", self.missing, "--adjust", self.adjust,
+                 "--confidence", repr(self.confidence), "--permutations", str(self.permutations),
+                 "--seed", str(self.seed)]
+        return args
+
+
+@dataclass(frozen=True)
+class Variable:
+    """A single column or a group of columns, analysed as one variable."""
+
+    name: str
+    columns: tuple[int, ...]
+    is_group: bool = False
+
+
+@dataclass
+class PairRow:
+    x: str
+    y: str
+    measure: str
+    estimate: float
+    ci_low: float
+    ci_high: float
+    p_value: float
+    q_value: float
+    n: int
+    note: str
+    method: str = ""
+
+    def record(self) -> dict:
+        return {f: getattr(self, f) for f in PAIR_FIELDS}
+
+
+@dataclass
+class PairTable:
+    variables: list[str]
+    measures: tuple[str, ...]
+    settings: AnalysisSettings
+    rows: list[PairRow] = field(default_factory=list)
+    seconds: float = 0.0
+
+    def records(self) -> list[dict]:
+        return [r.record() for r in self.rows]
+
+    def lookup(self, x: str, y: str) -> dict[str, PairRow]:
+        """Rows of one pair keyed by measure; for asymmetric measures the x -> y row."""
+        out: dict[str, PairRow] = {}
+        for r in self.rows:
+            if r.x == x and r.y == y:
+                out[r.measure] = r
+            elif r.x == y and r.y == x and MEASURES[r.measure].symmetric and r.measure not in out:
+                out[r.measure] = r
+        return out
+
+    def matrix(self, measure: str, value: str = "estimate") -> np.ndarray:
+        """p x p array of one field; symmetric measures mirrored, diagonal NaN."""
+        index = {v: i for i, v in enumerate(self.variables)}
+        k = len(self.variables)
+        out = np.full((k, k), np.nan)
+        symmetric = MEASURES[measure].symmetric
+        for r in self.rows:
+            if r.measure != measure:
+                continue
+            i, j = index[r.x], index[r.y]
+            out[i, j] = getattr(r, value)
+            if symmetric:
+                out[j, i] = out[i, j]
+        return out
+
+
+# Planning -----------------------------------------------------------------
+
+def plan_variables(names: Sequence[str], settings: AnalysisSettings) -> list[Variable]:
+    """Variables in input column order; a group takes the place of its first column."""
+    position = {n: i for i, n in enumerate(names)}
+    selected = set(names) if settings.columns is None else set(settings.columns)
+    unknown = [c for c in (settings.columns or ()) if c not in position]
+    if unknown:
+        raise SettingsError(f"unknown column(s) {', '.join(map(repr, unknown))}; numeric columns are: "
+                            f"{', '.join(names[:20])}{' ...' if len(names) > 20 else ''}")
+    group_of: dict[str, str] = {}
+    members_of: dict[str, tuple[int, ...]] = {}
+    for gname, members in settings.groups:
+        if gname in position:
+            raise SettingsError(f"group name {gname!r} is already a column name; pick another")
+        if gname in members_of:
+            raise SettingsError(f"group {gname!r} is defined twice")
+        bad = [m for m in members if m not in position]
+        if bad:
+            raise SettingsError(f"group {gname!r}: unknown column(s) {', '.join(map(repr, bad))}")
+        if len(set(members)) != len(members):
+            raise SettingsError(f"group {gname!r} lists a column twice")
+        for m in members:
+            if m in group_of:
+                raise SettingsError(f"column {m!r} is in both group {group_of[m]!r} and {gname!r}")
+            group_of[m] = gname
+        members_of[gname] = tuple(sorted(position[m] for m in members))
+    variables: list[Variable] = []
+    emitted: set[str] = set()
+    for name in names:
+        if name in group_of:
+            g = group_of[name]
+            if g not in emitted:
+                emitted.add(g)
+                cols = members_of[g]
+                variables.append(Variable(g, cols, is_group=True))
+        elif name in selected:
+            variables.append(Variable(name, (position[name],)))
+    if len(variables) < 2:
+        raise SettingsError("an analysis needs at least 2 variables (columns or groups); "
+                            f"got {len(variables)}")
+    return variables
+
+
+def _pairs(variables: Sequence[Variable]) -> list[tuple[int, int]]:
+    return [(i, j) for i in range(len(variables)) for j in range(i + 1, len(variables))]
+
+
+def _variable_values(data: np.ndarray, var: Variable) -> np.ndarray:
+    if var.is_group:
+        return data[:, list(var.columns)]
+    return data[:, var.columns[0]]
+
+
+def _observed(values: np.ndarray) -> np.ndarray:
+    return ~np.isnan(values) if values.ndim == 1 else ~np.isnan(values).any(axis=1)
+
+
+# Per-pair work (runs in worker processes) ---------------------------------
+
+def _compute_one(measure_name: str, xv: np.ndarray, yv: np.ndarray, x_name: str, y_name: str,
+                 settings: AnalysisSettings, x_group: bool, y_group: bool) -> TestResult:
+    measure = get_measure(measure_name)
+    n = len(xv)
+    if (x_group or y_group) and not measure.multivariate:
+        return undefined(n, f"{measure.name} is not defined for column groups; use dcor or dcor_bc")
+    if n < config.MIN_ROWS:
+        return undefined(n, f"fewer than {config.MIN_ROWS} rows with both values present ({n})")
+    ctx = PairContext(confidence=settings.confidence, permutations=settings.permutations,
+                      seed=pair_seed(settings.seed, x_name, y_name, measure_name))
+    try:
+        return measure.compute(xv, yv, ctx)
+    except ValueError as exc:  # limits such as the group size cap come back as a note
+        return undefined(n, str(exc))
+
+
+def compute_pair(data: np.ndarray, xvar: Variable, yvar: Variable, settings: AnalysisSettings,
+                 row_mask: np.ndarray | None = None) -> list[PairRow]:
+    """Every chosen measure for one pair of variables (both directions for asymmetric ones)."""
+    xv_all = _variable_values(data, xvar)
+    yv_all = _variable_values(data, yvar)
+    keep = _observed(xv_all) & _observed(yv_all)
+    if row_mask is not None:
+        keep &= row_mask
+    xv, yv = xv_all[keep], yv_all[keep]
+    rows: list[PairRow] = []
+    for m in settings.measures:
+        directions = [(xvar, yvar, xv, yv)]
+        if not MEASURES[m].symmetric:
+            directions.append((yvar, xvar, yv, xv))
+        for a, b, av, bv in directions:
+            res = _compute_one(m, av, bv, a.name, b.name, settings, a.is_group, b.is_group)
+            note = res.note
+            rows.append(PairRow(a.name, b.name, m, res.estimate, res.ci_low, res.ci_high,
+                                res.p_value, math.nan, res.n, note, res.method))
+    return rows
+
+
+_WORKER_STATE: dict = {}
+
+
+def _init_worker(data, variables, settings, row_mask) -> None:
+    _WORKER_STATE.update(data=data, variables=variables, settings=settings, row_mask=row_mask)
+
+
+def _run_tile(tile: list[tuple[int, int]]) -> list[PairRow]:
+    s = _WORKER_STATE
+    out: list[PairRow] = []
+    for i, j in tile:
+        out.extend(compute_pair(s["data"], s["variables"][i], s["variables"][j], s["settings"], s["row_mask"]))
+    return out
+
+
+def _tiles(pairs: list[tuple[int, int]], workers: int) -> list[list[tuple[int, int]]]:
+    # Enough tiles for progress and balance, few enough that per-task overhead stays small.
+    target = max(1, min(len(pairs), max(workers, 1) * 16))
+    size = max(1, math.ceil(len(pairs) / target))
+    return [pairs[k:k + size] for k in range(0, len(pairs), size)]
+
+
+# Public API ----------------------------------------------------------------
+
+ProgressCallback = Callable[[float, float], None]
+
+
+def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSettings, *,
+                 workers: int | None = None, cluster: str | None = None,
+                 executor: Executor | None = None,
+                 progress: ProgressCallback | None = None,
+                 cancel: Callable[[], bool] | None = None) -> PairTable:
+    """Compute the pair table for ``settings`` on ``data`` (n, p) with column ``names``.
+
+    Parameters
+    ----------
+    data : ndarray
+        Float array, NaN for missing values, one column per name.
+    names : sequence of str
+        Unique column names, in input order.
+    settings : AnalysisSettings
+    workers : int, optional
+        Local worker processes (default: all cores). 1 runs in this process.
+    cluster : str, optional
+        Address of a Dask scheduler; the work runs there instead.
+    progress : callable, optional
+        Called as ``progress(fraction_done, seconds_left)`` after each tile.
+    cancel : callable, optional
+        Polled between tiles; when it returns True the run stops with
+        :class:`AnalysisCancelled`.
+    """
+    started = time.perf_counter()
+    data = np.asarray(data, dtype=np.float64)
+    if data.ndim != 2 or data.shape[1] != len(names):
+        raise SettingsError("data must be a 2-D array with one column per name")
+    settings.check()
+    variables = plan_variables(list(names), settings)
+    row_mask = None
+    if settings.missing == "complete":
+        row_mask = np.ones(data.shape[0], dtype=bool)
+        for var in variables:
+            row_mask &= _observed(_variable_values(data, var))
+    pairs = _pairs(variables)
+    workers = workers or os.cpu_count() or 1
+    owned = executor is None
+    if executor is None:
+        executor = make_executor(workers=workers, cluster=cluster, n_tasks=len(pairs), n_rows=data.shape[0])
+    tiles = _tiles(pairs, getattr(executor, "parallelism", workers))
+    results: list[list[PairRow] | None] = [None] * len(tiles)
+    done_pairs = 0
+    try:
+        for index, rows in executor.run(_run_tile, tiles, _init_worker, (data, variables, settings, row_mask),
+                                        cancel=cancel):
+            results[index] = rows
+            done_pairs += len(tiles[index])
+            if progress is not None:
+                elapsed = time.perf_counter() - started
+                frac = done_pairs / max(len(pairs), 1)
+                progress(frac, elapsed / frac * (1 - frac) if frac > 0 else math.nan)
+            if cancel is not None and cancel():
+                raise AnalysisCancelled("analysis cancelled")
+    finally:
+        if owned:
+            executor.close()
+    if any(r is None for r in results):
+        raise AnalysisCancelled("analysis cancelled")
+    rows = [r for tile_rows in results for r in (tile_rows or [])]
+    _fill_q_values(rows, settings.adjust)
+    table = PairTable([v.name for v in variables], settings.measures, settings, rows)
+    table.seconds = time.perf_counter() - started
+    return table
+
+
+def _fill_q_values(rows: list[PairRow], adjust: str) -> None:
+    by_measure: dict[str, list[int]] = {}
+    for k, r in enumerate(rows):
+        by_measure.setdefault(r.measure, []).append(k)
+    for idx in by_measure.values():
+        q = adjust_pvalues(np.array([rows[k].p_value for k in idx], dtype=float), adjust)
+        for k, qv in zip(idx, q):
+            rows[k].q_value = float(qv)
+
+
+def _result_json(res: TestResult | PairRow) -> dict:
+    return {"estimate": _num(res.estimate), "ci_low": _num(res.ci_low), "ci_high": _num(res.ci_high),
+            "p_value": _num(res.p_value), "method": res.method, "n": int(res.n), "note": res.note}
+
+
+def _num(v) -> float | None:
+    v = float(v)
+    return v if math.isfinite(v) else None
+
+
+def pair_detail(data: np.ndarray, names: Sequence[str], x: str, y: str,
+                settings: AnalysisSettings | None = None,
+                table: PairTable | None = None, include_points: bool = False) -> dict:
+    """Everything about one pair: measures, Gaussian fit, verdict (the ``inspect --json`` shape).
+
+    When ``table`` is given its rows (and q-values) are used; otherwise the
+    measures are computed here and each q-value equals its p-value.
+    """
+    settings = settings or AnalysisSettings(measures=tuple(MEASURES))
+    position = {n: i for i, n in enumerate(names)}
+    for col in (x, y):
+        if col not in position:
+            raise SettingsError(f"unknown column {col!r}; numeric columns are: {', '.join(list(names)[:20])}")
+    if x == y:
+        raise SettingsError("x and y must be different columns")
+    xvar, yvar = Variable(x, (position[x],)), Variable(y, (position[y],))
+    xv_all, yv_all = data[:, position[x]], data[:, position[y]]
+    keep = ~np.isnan(xv_all) & ~np.isnan(yv_all)
+    xv, yv = xv_all[keep], yv_all[keep]
+    if table is not None:
+        looked = table.lookup(x, y)
+        rows = {m: r for m, r in looked.items()}
+    else:
+        rows = {}
+        single = AnalysisSettings(measures=tuple(MEASURES), confidence=settings.confidence,
+                                  permutations=settings.permutations, seed=settings.seed)
+        for r in compute_pair(data, xvar, yvar, single):
+            if r.x == x:
+                r.q_value = r.p_value
+                rows[r.measure] = r
+    measures = {m: _result_json(r) | {"q_value": _num(r.q_value)} for m, r in rows.items()}
+    results = {m: TestResult(r.estimate, r.p_value, r.method, r.ci_low, r.ci_high, r.n, r.note)
+               for m, r in rows.items()}
+    q_values = {m: float(r.q_value) for m, r in rows.items()}
+    fit = gaussian_mod.fit_gaussian(xv, yv)
+    pattern = verdict_mod.classify_pair(xv, yv, results, q_values, alpha=config.SIGNIFICANCE_LEVEL)
+    detail = {
+        "x": x,
+        "y": y,
+        "n": int(len(xv)),
+        "measures": measures,
+        "gaussian": _gaussian_json(fit),
+        "pattern": {"label": pattern.label, "reasons": list(pattern.reasons)},
+    }
+    if include_points:
+        detail["points"] = {"x": xv.tolist(), "y": yv.tolist(), "rows": np.flatnonzero(keep).tolist()}
+    return detail
+
+
+def _gaussian_json(fit) -> dict:
+    return {
+        "mean": [_num(fit.mean[0]), _num(fit.mean[1])],
+        "cov": [[_num(fit.cov[0][0]), _num(fit.cov[0][1])], [_num(fit.cov[1][0]), _num(fit.cov[1][1])]],
+        "rho": _num(fit.rho),
+        "conditional": {"slope": _num(fit.slope), "intercept": _num(fit.intercept),
+                        "residual_sd": _num(fit.residual_sd)},
+        "implied": {k: _num(v) for k, v in fit.implied.items()},
+        "normality": {"test": "henze-zirkler", "statistic": _num(fit.normality.estimate),
+                      "p_value": _num(fit.normality.p_value)},
+        "marginal_normality": {k: {"test": v.method, "statistic": _num(v.estimate), "p_value": _num(v.p_value)}
+                               for k, v in fit.marginal_normality.items()},
+        "ellipses": {repr(float(m)): np.asarray(b).tolist() for m, b in fit.ellipses.items()},
+        "note": fit.note,
+    }
+
+
+def iter_pairs(variables: Iterable[Variable]) -> list[tuple[int, int]]:
+    return _pairs(list(variables))
