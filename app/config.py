@@ -27,8 +27,10 @@ MAX_PERMUTATIONS = 100_000
 MAX_GROUP_ROWS = 20_000
 # Above this many points the pair view draws a density layer under a sample.
 SCATTER_DENSITY_THRESHOLD = 20_000
-# Kendall's exact null distribution is used up to this many untied rows.
-KENDALL_EXACT_MAX_N = 50
+# Kendall's exact null distribution is used up to this many untied rows (and
+# beyond it when at most one pair is discordant or concordant): the same rule
+# as scipy.stats.kendalltau(method="auto"), so the two agree.
+KENDALL_EXACT_MAX_N = 33
 
 # Server ------------------------------------------------------------------
 DEFAULT_HOST = "127.0.0.1"
@@ -65,3 +67,18 @@ class ServerSettings:
     demo: bool = False
     token: str | None = None
     cluster: str | None = None
+
+# Chatterjee xi ----------------------------------------------------------
+# Below this many rows the default xi p-value comes from permutations: the
+# asymptotic normal law is conservative there (about 2% rejections at the 5%
+# level for n = 10 in our simulation).
+XI_PERMUTATION_BELOW_N = 20
+XI_SMALL_N_PERMUTATIONS = 9999
+
+# Gaussian fit -----------------------------------------------------------
+# Henze-Zirkler needs all pairwise Mahalanobis distances (O(n^2) time); above
+# this many rows it runs on a seeded random subsample of this size.
+HZ_MAX_ROWS = 5000
+# Shapiro-Wilk up to this many rows, D'Agostino-Pearson above (scipy's
+# Shapiro-Wilk p-value is documented as approximate beyond 5000).
+SHAPIRO_MAX_ROWS = 5000
