@@ -298,7 +298,9 @@ def compute_pair(data: np.ndarray, xvar: Variable, yvar: Variable, settings: Ana
             directions.append((yvar, xvar, yv, xv))
         for a, b, av, bv in directions:
             res = _compute_one(m, av, bv, a.name, b.name, settings, a.is_group, b.is_group)
-            note = res.note
+            # The contract's note column carries the reason for a missing value, and
+            # otherwise names the method behind the p-value.
+            note = res.note or (f"p-value: {res.method}" if res.method else "")
             rows.append(PairRow(a.name, b.name, m, res.estimate, res.ci_low, res.ci_high,
                                 res.p_value, math.nan, res.n, note, res.method))
     return rows

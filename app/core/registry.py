@@ -37,6 +37,7 @@ class Measure:
     lower: float
     upper: float
     multivariate: bool          # accepts column groups (2-D arrays)
+    reflection: str             # effect of x -> -x: "flips sign" or "unchanged"
     default_test: str
     interval: str               # "" where no interval is defined
     formula: str
@@ -73,7 +74,7 @@ MEASURES: dict[str, Measure] = {
     for m in (
         Measure(
             name="pearson", label="Pearson r", family="linear", symmetric=True, signed=True,
-            lower=-1.0, upper=1.0, multivariate=False,
+            lower=-1.0, upper=1.0, multivariate=False, reflection="flips sign",
             default_test="t-test with n-2 degrees of freedom",
             interval="Fisher z, SE = 1/sqrt(n-3)",
             formula="r = sum((x-mean x)(y-mean y)) / sqrt(sum((x-mean x)^2) sum((y-mean y)^2))",
@@ -82,7 +83,7 @@ MEASURES: dict[str, Measure] = {
         ),
         Measure(
             name="spearman", label="Spearman rho", family="rank", symmetric=True, signed=True,
-            lower=-1.0, upper=1.0, multivariate=False,
+            lower=-1.0, upper=1.0, multivariate=False, reflection="flips sign",
             default_test="t approximation with n-2 degrees of freedom",
             interval="Fisher z, SE = sqrt((1 + rho^2/2)/(n-3)) (Bonett & Wright 2000)",
             formula="rho_s = Pearson r of the mid-ranks of x and y",
@@ -92,7 +93,7 @@ MEASURES: dict[str, Measure] = {
         ),
         Measure(
             name="kendall", label="Kendall tau-b", family="rank", symmetric=True, signed=True,
-            lower=-1.0, upper=1.0, multivariate=False,
+            lower=-1.0, upper=1.0, multivariate=False, reflection="flips sign",
             default_test="exact for small untied samples, else normal with tie-corrected variance",
             interval="Fisher z, SE = sqrt(0.437/(n-4)) (Fieller, Hartley & Pearson 1957)",
             formula="tau_b = (C - D) / sqrt((n0 - n1)(n0 - n2)), n0 = n(n-1)/2, n1, n2 tied pairs in x, y",
@@ -103,7 +104,7 @@ MEASURES: dict[str, Measure] = {
         ),
         Measure(
             name="dcor", label="Distance correlation", family="distance", symmetric=True, signed=False,
-            lower=0.0, upper=1.0, multivariate=True,
+            lower=0.0, upper=1.0, multivariate=True, reflection="unchanged",
             default_test="gamma approximation to the null law of n V_n^2 (moment-matched); "
                          "permutation with --permutations",
             interval="",
@@ -114,7 +115,7 @@ MEASURES: dict[str, Measure] = {
         ),
         Measure(
             name="dcor_bc", label="Bias-corrected dCor^2", family="distance", symmetric=True, signed=True,
-            lower=-1.0, upper=1.0, multivariate=True,
+            lower=-1.0, upper=1.0, multivariate=True, reflection="unchanged",
             default_test="as dcor",
             interval="",
             formula="R*_n = <A~, B~> / sqrt(<A~, A~> <B~, B~>), U-centred distance matrices",
@@ -124,7 +125,7 @@ MEASURES: dict[str, Measure] = {
         ),
         Measure(
             name="xi", label="Chatterjee xi (x -> y)", family="rank", symmetric=False, signed=True,
-            lower=-0.5, upper=1.0, multivariate=False,
+            lower=-0.5, upper=1.0, multivariate=False, reflection="unchanged",
             default_test="asymptotic normal with tie-corrected variance",
             interval="",
             formula="xi_n = 1 - n sum|r_{i+1} - r_i| / (2 sum l_i (n - l_i)), rows sorted by x",
