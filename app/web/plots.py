@@ -1,0 +1,425 @@
+"""Plotly figure dicts for heatmaps and the pair view, as pure functions.
+
+Nothing here touches HTTP, SQLite or files: a figure is built from a
+:class:`app.engine.PairTable` or from the dict of :func:`app.engine.pair_detail`
+and returned as a plain ``{"data": [...], "layout": {...}}`` dict that
+``Plotly.newPlot(div, fig.data, fig.layout)`` accepts. The web pages and the
+HTML report both use these builders, so the two always look alike.
+
+Colour scales (both published as perceptually uniform and colour-blind safe):
+
+* signed measures: cmocean "balance", Thyng, K.M., Greene, C.A., Hetland, R.D.,
+  Zimmerle, H.M. & DiMarco, S.F. (2016) True colors of oceanography.
+  Oceanography 29(3):9-13, doi:10.5670/oceanog.2016.66 (the 12 stops shipped
+  in ``plotly.colors.cmocean``), centred on zero;
+* measures in [0, 1]: cividis, Nunez, J.R., Anderton, C.R. & Renslow, R.S.
+  (2018) Optimizing colormaps with consideration for color vision deficiency.
+  PLoS ONE 13(7):e0199239, doi:10.1371/journal.pone.0199239.
+"""
+
+from __future__ import annotations
+
+import html
+import math
+from typing import Sequence
+
+import numpy as np
+
+from .. import config
+from ..core.registry import MEASURES
+
+__all__ = [
+    "SIGNED_SCALE",
+    "UNSIGNED_SCALE",
+    "plot_text",
+    "colour_range",
+    "cluster_order",
+    "heatmap_figure",
+    "difference_figure",
+    "pair_figure",
+    "rank_figure",
+]
+
+
+def _stops(colours: Sequence[str]) -> list[list]:
+    k = len(colours)
+    return [[round(i / (k - 1), 4), c] for i, c in enumerate(colours)]
+
+
+try:  # the stops ship with plotly; copied here so the module works without plotly's Python side
+    from plotly.colors import cmocean as _cmocean
+
+    SIGNED_SCALE: list[list] = _stops(_cmocean.balance)
+except Exception:  # pragma: no cover - plotly is a dependency
+    SIGNED_SCALE = _stops(["rgb(23, 28, 66)", "rgb(41, 58, 143)", "rgb(11, 102, 189)", "rgb(69, 144, 185)",
+                           "rgb(142, 181, 194)", "rgb(210, 216, 219)", "rgb(230, 210, 204)",
+                           "rgb(213, 157, 137)", "rgb(196, 101, 72)", "rgb(172, 43, 36)",
+                           "rgb(120, 14, 40)", "rgb(60, 9, 17)"])
+UNSIGNED_SCALE = "Cividis"
+
+_FONT = "system-ui, -apple-system, 'Segoe UI', Roboto, sans-serif"
+_INK = "#1f2a30"
+_POINT = "rgba(31, 78, 96, 0.55)"
+_FIT = "#b4472b"
+_BAND = "rgba(180, 71, 43, 0.14)"
+
+
+def plot_text(text: str) -> str:
+    """Text for a Plotly label: Plotly reads a small HTML subset, so escape it to show as typed."""
+    return html.escape(str(text), quote=False)
+
+
+def _fmt(v, digits: int = 3) -> str:
+    if v is None:
+        return "–"
+    v = float(v)
+    if not math.isfinite(v):
+        return "–"
+    if v != 0 and (abs(v) < 1e-3 or abs(v) >= 1e5):
+        return f"{v:.{digits - 1}e}"
+    return f"{v:.{digits}g}" if abs(v) >= 1 else f"{v:.{digits}f}"
+
+
+def _num(v):
+    if v is None:
+        return None
+    v = float(v)
+    return v if math.isfinite(v) else None
+
+
+def _nan_to_none(a: np.ndarray) -> list:
+    return [[(float(v) if math.isfinite(v) else None) for v in row] for row in np.asarray(a, dtype=float)]
+
+
+def colour_range(measure: str) -> tuple[object, float, float]:
+    """Colour scale and (zmin, zmax) for a measure, from its registry range and sign."""
+    m = MEASURES[measure]
+    if m.signed:
+        bound = max(abs(m.lower), abs(m.upper))
+        return SIGNED_SCALE, -bound, bound
+    return UNSIGNED_SCALE, m.lower, m.upper
+
+
+def cluster_order(table, measure: str, method: str = "average") -> list[int]:
+    """Leaf order of a hierarchical clustering of the variables on 1 - |estimate| of ``measure``.
+
+    Missing estimates count as no association (distance 1). Returns indices into
+    ``table.variables``.
+    """
+    from scipy.cluster.hierarchy import leaves_list, linkage
+    from scipy.spatial.distance import squareform
+
+    k = len(table.variables)
+    if k < 3:
+        return list(range(k))
+    est = table.matrix(measure)
+    if not MEASURES[measure].symmetric:  # xi: use the stronger direction of each pair
+        est = np.fmax(est, est.T)
+    dist = 1.0 - np.clip(np.abs(np.nan_to_num(est, nan=0.0)), 0.0, 1.0)
+    dist = (dist + dist.T) / 2.0
+    np.fill_diagonal(dist, 0.0)
+    z = linkage(squareform(dist, checks=False), method=method, optimal_ordering=k <= 400)
+    return [int(i) for i in leaves_list(z)]
+
+
+def _axis_font_size(k: int) -> int:
+    return int(max(6, min(12, 360 / max(k, 1))))
+
+
+def _matrix_layout(labels: list[str], title: str) -> dict:
+    k = len(labels)
+    size = _axis_font_size(k)
+    axis = dict(type="category", tickfont=dict(size=size), automargin=True, showgrid=False,
+                ticks="", constrain="domain")
+    return {
+        "title": {"text": plot_text(title), "x": 0.02, "font": {"size": 14}},
+        "font": {"family": _FONT, "color": _INK, "size": 11},
+        "margin": {"l": 10, "r": 10, "t": 36, "b": 10},
+        "xaxis": {**axis, "tickangle": -60 if k > 8 else -30, "side": "bottom"},
+        "yaxis": {**axis, "autorange": "reversed", "scaleanchor": "x"},
+        "paper_bgcolor": "rgba(0,0,0,0)",
+        "plot_bgcolor": "#eef1f2",
+        "hoverlabel": {"font": {"family": _FONT, "size": 12}},
+        "showlegend": False,
+        "dragmode": "zoom",
+    }
+
+
+def _significance_trace(qmat: np.ndarray, labels: list[str], alpha: float) -> dict:
+    xs, ys = [], []
+    k = len(labels)
+    for i in range(k):
+        for j in range(k):
+            q = qmat[i, j]
+            if math.isfinite(q) and q < alpha:
+                xs.append(labels[j])
+                ys.append(labels[i])
+    return {
+        "type": "scatter", "mode": "markers", "x": xs, "y": ys, "hoverinfo": "skip",
+        "marker": {"symbol": "circle", "size": max(2, min(7, 240 // max(k, 1))), "color": "rgba(255,255,255,0.9)",
+                   "line": {"color": "rgba(20,20,20,0.8)", "width": 0.6}},
+        "name": f"q < {alpha:g}", "showlegend": False,
+    }
+
+
+def heatmap_figure(table, measure: str, *, order: Sequence[int] | None = None,
+                   alpha: float = config.SIGNIFICANCE_LEVEL, title: str | None = None) -> dict:
+    """Heatmap of one measure over all pairs of ``table`` (a PairTable).
+
+    Parameters
+    ----------
+    table : app.engine.PairTable
+    measure : str
+        A measure in ``table.measures``.
+    order : sequence of int, optional
+        Order of the variables (indices into ``table.variables``); input order by default.
+        Use the same order for every heatmap on a page.
+    alpha : float
+        Cells whose adjusted q-value is below ``alpha`` get a dot.
+    title : str, optional
+
+    Returns
+    -------
+    dict
+        ``{"data", "layout"}``; ``layout["meta"]["variables"]`` lists the variable
+        names in plotted order, so a click (``points[0].pointNumber = [row, col]``)
+        maps back to ``(x = variables[col], y = variables[row])``.
+    """
+    k = len(table.variables)
+    order = list(range(k)) if order is None else [int(i) for i in order]
+    names = [table.variables[i] for i in order]
+    labels = [plot_text(n) for n in names]
+    idx = np.asarray(order, dtype=int)
+    fields = {f: table.matrix(measure, f)[np.ix_(idx, idx)] for f in
+              ("estimate", "ci_low", "ci_high", "p_value", "q_value", "n")}
+    notes: dict[tuple[int, int], str] = {}
+    if any(r.note for r in table.rows if r.measure == measure):
+        pos = {v: p for p, v in enumerate(names)}
+        sym = MEASURES[measure].symmetric
+        for r in table.rows:
+            if r.measure == measure and r.note:
+                i, j = pos.get(r.x), pos.get(r.y)
+                if i is None or j is None:
+                    continue
+                notes[(i, j)] = r.note
+                if sym:
+                    notes[(j, i)] = r.note
+    m = MEASURES[measure]
+    text = []
+    for i in range(k):
+        row = []
+        for j in range(k):
+            if i == j:
+                row.append("")
+                continue
+            est = fields["estimate"][i, j]
+            if m.symmetric:
+                head = f"<b>{labels[j]}</b> × <b>{labels[i]}</b>"
+            else:  # matrix rows hold x, columns y, for the x -> y direction
+                head = f"<b>{labels[i]}</b> → <b>{labels[j]}</b>"
+            body = f"{m.label} {_fmt(est)}"
+            lo, hi = fields["ci_low"][i, j], fields["ci_high"][i, j]
+            if math.isfinite(lo) and math.isfinite(hi):
+                body += f" [{_fmt(lo)}, {_fmt(hi)}]"
+            n = fields["n"][i, j]
+            body += (f"<br>p {_fmt(fields['p_value'][i, j])}  q {_fmt(fields['q_value'][i, j])}"
+                     f"  n {int(n) if math.isfinite(n) else '–'}")
+            note = notes.get((i, j))
+            if note:
+                body += "<br>" + plot_text(note)
+            row.append(head + "<br>" + body)
+        text.append(row)
+    scale, zmin, zmax = colour_range(measure)
+    heat = {
+        "type": "heatmap", "x": labels, "y": labels, "z": _nan_to_none(fields["estimate"]), "text": text,
+        "hovertemplate": "%{text}<extra></extra>", "colorscale": scale, "zmin": zmin, "zmax": zmax,
+        "xgap": 1 if k <= 40 else 0, "ygap": 1 if k <= 40 else 0, "hoverongaps": False,
+        "colorbar": {"thickness": 10, "len": 0.8, "outlinewidth": 0, "tickfont": {"size": 10}},
+        "name": measure,
+    }
+    layout = _matrix_layout(labels, title or m.label)
+    if not m.symmetric:
+        layout["yaxis"]["title"] = {"text": "from (row)", "font": {"size": 10}}
+        layout["xaxis"]["title"] = {"text": "to (column)", "font": {"size": 10}}
+    layout["meta"] = {"variables": names, "measure": measure, "alpha": alpha}
+    return {"data": [heat, _significance_trace(fields["q_value"], labels, alpha)], "layout": layout}
+
+
+def difference_figure(table, measure_a: str, measure_b: str, *, order: Sequence[int] | None = None,
+                      absolute: bool = True, top: int = 15) -> dict:
+    """Heatmap of ``measure_a - |measure_b|`` (or without the absolute value) plus the top pairs.
+
+    With ``measure_a = "dcor"`` and ``measure_b = "pearson"`` the bright cells are pairs
+    whose dependence the linear coefficient misses (curved, U-shaped, mixtures).
+
+    Returns
+    -------
+    dict
+        A figure dict; ``layout["meta"]["top"]`` lists up to ``top`` pairs
+        ``{"x", "y", "difference", "a", "b"}`` sorted by the difference, largest first.
+    """
+    k = len(table.variables)
+    order = list(range(k)) if order is None else [int(i) for i in order]
+    names = [table.variables[i] for i in order]
+    labels = [plot_text(n) for n in names]
+    idx = np.asarray(order, dtype=int)
+    a = table.matrix(measure_a)
+    b = table.matrix(measure_b)
+    if not MEASURES[measure_a].symmetric:
+        a = np.fmax(a, a.T)
+    if not MEASURES[measure_b].symmetric:
+        b = np.fmax(b, b.T)
+    bb = np.abs(b) if absolute else b
+    diff = (a - bb)[np.ix_(idx, idx)]
+    a_o, b_o = a[np.ix_(idx, idx)], b[np.ix_(idx, idx)]
+    la, lb = MEASURES[measure_a].label, MEASURES[measure_b].label
+    text = [["" if i == j else
+             f"<b>{labels[j]}</b> × <b>{labels[i]}</b><br>{la} {_fmt(a_o[i, j])}  {lb} {_fmt(b_o[i, j])}"
+             f"<br>difference {_fmt(diff[i, j])}" for j in range(k)] for i in range(k)]
+    finite = np.abs(diff[np.isfinite(diff)])
+    bound = float(max(0.05, finite.max() if finite.size else 1.0))
+    top_pairs = []
+    for i in range(k):
+        for j in range(i + 1, k):
+            d = diff[i, j]
+            if math.isfinite(d):
+                top_pairs.append({"x": names[i], "y": names[j], "difference": float(d),
+                                  "a": _num(a_o[i, j]), "b": _num(b_o[i, j])})
+    top_pairs.sort(key=lambda t: -t["difference"])
+    bar = "|" if absolute else ""
+    title = f"{la} − {bar}{lb}{bar}"
+    heat = {
+        "type": "heatmap", "x": labels, "y": labels, "z": _nan_to_none(diff), "text": text,
+        "hovertemplate": "%{text}<extra></extra>", "colorscale": SIGNED_SCALE, "zmin": -bound, "zmax": bound,
+        "xgap": 1 if k <= 40 else 0, "ygap": 1 if k <= 40 else 0, "hoverongaps": False,
+        "colorbar": {"thickness": 10, "len": 0.8, "outlinewidth": 0, "tickfont": {"size": 10}},
+        "name": "difference",
+    }
+    layout = _matrix_layout(labels, title)
+    layout["meta"] = {"variables": names, "measure": f"{measure_a}-{measure_b}", "top": top_pairs[:top]}
+    return {"data": [heat], "layout": layout}
+
+
+def _points(detail: dict) -> tuple[np.ndarray, np.ndarray]:
+    pts = detail.get("points") or {}
+    return np.asarray(pts.get("x", []), dtype=float), np.asarray(pts.get("y", []), dtype=float)
+
+
+def pair_figure(detail: dict, *, density_threshold: int = config.SCATTER_DENSITY_THRESHOLD,
+                band_z: float = 1.959963984540054) -> dict:
+    """Scatter of one pair with the Gaussian picture and marginal histograms.
+
+    Parameters
+    ----------
+    detail : dict
+        :func:`app.engine.pair_detail` output with ``include_points=True``.
+    density_threshold : int
+        Above this many points a 2-D density layer is shown and the points are
+        hidden behind a legend toggle (still in trace 0).
+    band_z : float
+        Half-width of the conditional band in residual standard deviations
+        (1.96: the central 95% of y given x under the fitted Gaussian).
+
+    Returns
+    -------
+    dict
+        Figure dict. Trace 0 is always the points (``customdata`` = row numbers
+        in the file, 0-based, counting data rows only).
+    """
+    x, y = _points(detail)
+    n = len(x)
+    rows = (detail.get("points") or {}).get("rows", list(range(n)))
+    xl, yl = plot_text(detail["x"]), plot_text(detail["y"])
+    dense = n > density_threshold
+    g = detail.get("gaussian") or {}
+    traces: list[dict] = []
+    traces.append({
+        "type": "scattergl" if n > 5000 else "scatter", "mode": "markers", "x": x.tolist(), "y": y.tolist(),
+        "customdata": list(rows), "name": f"rows (n = {n})",
+        "marker": {"size": 4 if n > 2000 else 6, "color": _POINT, "line": {"width": 0}},
+        "hovertemplate": f"row %{{customdata}}<br>{xl} %{{x}}<br>{yl} %{{y}}<extra></extra>",
+        "visible": "legendonly" if dense else True,
+    })
+    if dense:
+        traces.append({"type": "histogram2dcontour", "x": x.tolist(), "y": y.tolist(), "name": "density",
+                       "colorscale": "Cividis", "reversescale": False, "showscale": False,
+                       "contours": {"coloring": "heatmap", "showlines": False}, "ncontours": 20,
+                       "hoverinfo": "skip"})
+    # Gaussian ellipses.
+    ellipses = g.get("ellipses") or {}
+    for mass in sorted(ellipses, key=lambda s: float(s)):
+        pts = np.asarray(ellipses[mass], dtype=float)
+        if pts.ndim != 2 or len(pts) == 0:
+            continue
+        closed = np.vstack([pts, pts[:1]])
+        traces.append({"type": "scatter", "mode": "lines", "x": closed[:, 0].tolist(), "y": closed[:, 1].tolist(),
+                       "line": {"color": _FIT, "width": 1.2, "dash": "dot"}, "hoverinfo": "name",
+                       "name": f"Gaussian {float(mass) * 100:g}% ellipse", "legendgroup": "ellipses"})
+    cond = g.get("conditional") or {}
+    slope, intercept, sd = cond.get("slope"), cond.get("intercept"), cond.get("residual_sd")
+    if n >= 2 and slope is not None and intercept is not None:
+        lo, hi = float(np.min(x)), float(np.max(x))
+        pad = 0.02 * (hi - lo or 1.0)
+        grid = np.linspace(lo - pad, hi + pad, 50)
+        mean_line = intercept + slope * grid
+        if sd is not None:
+            upper = mean_line + band_z * sd
+            lower = mean_line - band_z * sd
+            traces.append({"type": "scatter", "mode": "lines", "x": np.concatenate([grid, grid[::-1]]).tolist(),
+                           "y": np.concatenate([upper, lower[::-1]]).tolist(), "fill": "toself",
+                           "fillcolor": _BAND, "line": {"width": 0}, "hoverinfo": "skip",
+                           "name": "Gaussian 95% band of y given x"})
+        traces.append({"type": "scatter", "mode": "lines", "x": grid.tolist(), "y": mean_line.tolist(),
+                       "line": {"color": _FIT, "width": 2},
+                       "name": "Gaussian conditional mean E[y | x]",
+                       "hovertemplate": f"E[{yl} | {xl}=%{{x:.4g}}] = %{{y:.4g}}<extra></extra>"})
+    bins = int(min(60, max(10, math.sqrt(max(n, 1)))))
+    traces.append({"type": "histogram", "x": x.tolist(), "yaxis": "y2", "nbinsx": bins, "name": f"{xl} histogram",
+                   "marker": {"color": "rgba(31, 78, 96, 0.6)"}, "showlegend": False, "hoverinfo": "y"})
+    traces.append({"type": "histogram", "y": y.tolist(), "xaxis": "x2", "nbinsy": bins, "name": f"{yl} histogram",
+                   "marker": {"color": "rgba(31, 78, 96, 0.6)"}, "showlegend": False, "hoverinfo": "x"})
+    layout = {
+        "font": {"family": _FONT, "color": _INK, "size": 11},
+        "margin": {"l": 60, "r": 10, "t": 10, "b": 50},
+        "xaxis": {"domain": [0, 0.8], "title": {"text": xl}, "zeroline": False, "showgrid": True,
+                  "gridcolor": "#e3e7e9"},
+        "yaxis": {"domain": [0, 0.8], "title": {"text": yl}, "zeroline": False, "showgrid": True,
+                  "gridcolor": "#e3e7e9"},
+        "xaxis2": {"domain": [0.83, 1], "showticklabels": False, "showgrid": False, "zeroline": False},
+        "yaxis2": {"domain": [0.83, 1], "showticklabels": False, "showgrid": False, "zeroline": False},
+        "bargap": 0.04,
+        "legend": {"orientation": "h", "x": 0, "y": -0.16, "font": {"size": 10}},
+        "paper_bgcolor": "rgba(0,0,0,0)", "plot_bgcolor": "#fbfcfc",
+        "hovermode": "closest",
+        "meta": {"x": detail["x"], "y": detail["y"], "n": n, "dense": dense},
+    }
+    return {"data": traces, "layout": layout}
+
+
+def _midranks(v: np.ndarray) -> np.ndarray:
+    from scipy.stats import rankdata
+
+    return rankdata(v, method="average") if len(v) else v
+
+
+def rank_figure(detail: dict) -> dict:
+    """Rank-rank scatter (mid-ranks scaled to (0, 1]) of the pair's complete rows."""
+    x, y = _points(detail)
+    n = len(x)
+    rx = _midranks(x) / max(n, 1)
+    ry = _midranks(y) / max(n, 1)
+    xl, yl = plot_text(detail["x"]), plot_text(detail["y"])
+    trace = {"type": "scattergl" if n > 5000 else "scatter", "mode": "markers", "x": rx.tolist(),
+             "y": ry.tolist(), "marker": {"size": 3 if n > 2000 else 5, "color": _POINT},
+             "hovertemplate": f"rank {xl} %{{x:.3f}}<br>rank {yl} %{{y:.3f}}<extra></extra>",
+             "name": "ranks"}
+    layout = {
+        "font": {"family": _FONT, "color": _INK, "size": 11},
+        "margin": {"l": 50, "r": 10, "t": 10, "b": 45},
+        "xaxis": {"title": {"text": f"rank of {xl} / n"}, "range": [0, 1.02], "zeroline": False,
+                  "gridcolor": "#e3e7e9"},
+        "yaxis": {"title": {"text": f"rank of {yl} / n"}, "range": [0, 1.02], "zeroline": False,
+                  "gridcolor": "#e3e7e9", "scaleanchor": "x"},
+        "paper_bgcolor": "rgba(0,0,0,0)", "plot_bgcolor": "#fbfcfc", "showlegend": False,
+    }
+    return {"data": [trace], "layout": layout}
