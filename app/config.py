@@ -82,3 +82,12 @@ HZ_MAX_ROWS = 5000
 # Shapiro-Wilk up to this many rows, D'Agostino-Pearson above (scipy's
 # Shapiro-Wilk p-value is documented as approximate beyond 5000).
 SHAPIRO_MAX_ROWS = 5000
+
+# Dask cluster -------------------------------------------------------------
+# How long to try reaching a scheduler given with --cluster before giving up
+# with a one-line error, and how long to wait for its first worker.
+DASK_CONNECT_TIMEOUT_SECONDS = 10.0
+DASK_WORKER_WAIT_SECONDS = 10.0
+# Retries of a tile whose task raised on a worker (a tile lost with a dead
+# worker is rescheduled by Dask without using a retry).
+DASK_TASK_RETRIES = 2
