@@ -21,6 +21,11 @@ SIGNIFICANCE_LEVEL = 0.05         # q-value below which a pair counts as signifi
 MAX_UPLOAD_MB = 200
 MAX_ROWS = 5_000_000
 MAX_COLUMNS = 5_000
+# A .csv.gz may not decompress to more than this (guards against gzip bombs).
+MAX_DECOMPRESSED_MB = 2_048
+# A text column counts as numeric when at least this share of its non-missing cells are
+# numbers; the others become missing with a note (app/ingest.py).
+NUMERIC_MIN_SHARE = 0.95
 MAX_PERMUTATIONS = 100_000
 # Column groups need pairwise distances; above this many rows the n x n
 # blocks would not fit comfortably in memory, so the user is told to sample.
