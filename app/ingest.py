@@ -1,13 +1,56 @@
-"""Bytes or a path in, a typed table out; one error type whose message a user can act on."""
+"""Bytes or a path in, a typed table out; one error type whose message a user can act on.
+
+Formats: .csv .tsv .txt (delimiter and encoding sniffed), .csv.gz (also .tsv.gz, .txt.gz),
+.xlsx (first sheet unless ``sheet`` names another) and .parquet.  The extension picks the
+reader and the leading bytes must agree with it, so a renamed image, archive or program is
+refused with a message instead of being parsed as garbage.
+
+Rules a user can rely on (also stated in the README):
+
+* Encoding: a byte-order mark wins (UTF-8, UTF-16 LE/BE, UTF-32); without one, UTF-16 is
+  recognised by its zero bytes, then strict UTF-8 is tried, then Windows-1252, then Latin-1
+  (which accepts any byte sequence).  A file whose byte-order mark promises an encoding its
+  bytes break is refused as unreadable.
+* Delimiter: whichever of comma, semicolon, tab and pipe splits the header and the first
+  rows into the same number of fields (at least two); ties go to that order.
+* Decimal comma: only in files delimited by semicolon, tab or pipe, and only when the first
+  rows hold numbers like ``3,14`` and none like ``3.14``.  When every such number has exactly
+  three digits after the comma (``1,250``) the comma might be a thousands separator, so it is
+  left alone and those columns stay text.
+* A column is numeric when at least ``config.NUMERIC_MIN_SHARE`` (95 %) of its non-missing
+  cells are numbers; the other cells become missing and a note names how many.  Missing
+  cells are empty ones and the usual markers (NA, N/A, NaN, null, None, #N/A, ...).
+* +inf and -inf are counted as missing, with a note per column.
+* True/false columns are categorical, never 0/1 numbers (a column of 0 and 1 is numeric).
+* Constant columns stay numeric and used; the measures report them as undefined.
+* Everything else is listed in ``Table.info`` with ``used=False`` and a plain reason.
+* A row with more fields than the header is an error naming its line (one trailing empty
+  field, from a delimiter at the end of the line, is tolerated).  A row with fewer fields
+  than the header has its last cells missing.  Rows with every cell empty are dropped.
+"""
 
 from __future__ import annotations
 
+import csv
+import gzip
+import hashlib
+import io
+import itertools
+import re
+import warnings
+import zipfile
+import zlib
 from dataclasses import dataclass, field
+from datetime import date, datetime, time
 from pathlib import Path
 
 import numpy as np
 
-__all__ = ["IngestError", "ColumnInfo", "Table", "load_table", "load_bytes"]
+from . import config
+
+__all__ = ["IngestError", "ColumnInfo", "Table", "load_table", "load_bytes", "SUPPORTED_FORMATS"]
+
+SUPPORTED_FORMATS = ".csv, .tsv, .txt, .csv.gz, .xlsx, .parquet"
 
 
 class IngestError(ValueError):
@@ -27,6 +70,7 @@ class ColumnInfo:
     minimum: float = float("nan")
     median: float = float("nan")
     maximum: float = float("nan")
+    non_numeric: int = 0  # cells of a numeric column that were not numbers (now missing)
 
 
 @dataclass
@@ -40,17 +84,934 @@ class Table:
     notes: list[str] = field(default_factory=list)   # e.g. renamed duplicates, inf counted missing
     preview: list[list[str]] = field(default_factory=list)  # first rows, all columns, as text
     preview_header: list[str] = field(default_factory=list)
+    format: str = ""              # "csv" | "csv.gz" | "xlsx" | "parquet"
+    encoding: str = ""            # text formats: the encoding the bytes were read with
+    delimiter: str = ""           # text formats: the field delimiter found
+    decimal: str = "."            # text formats: "," when a decimal comma was detected
+    sheet: str = ""               # xlsx: the sheet read
+    sheets: list[str] = field(default_factory=list)  # xlsx: every sheet in the workbook
 
     @property
     def excluded(self) -> list[tuple[str, str]]:
         return [(c.name, c.reason) for c in self.info if not c.used]
 
 
+# ---------------------------------------------------------------------------
+# private helpers
+# ---------------------------------------------------------------------------
+
+_TEXT_EXTENSIONS = (".csv", ".tsv", ".txt")
+_GZIP_EXTENSIONS = (".csv.gz", ".tsv.gz", ".txt.gz")
+_ARCHIVE_EXTENSIONS = (".tar.gz", ".tgz", ".tar.bz2", ".tbz2", ".tar.xz", ".txz", ".tar.zst",
+                       ".tar", ".zip", ".7z", ".rar")
+_OTHER_HINTS = {
+    ".xls": "old Excel .xls workbooks are not read; save it as .xlsx or .csv",
+    ".xlsm": "save the workbook as .xlsx (without macros) or as .csv",
+    ".ods": "save the spreadsheet as .xlsx or .csv",
+    ".json": "save the table as .csv",
+    ".feather": "save the table as .parquet or .csv",
+    ".gz": "only gzip-compressed text tables (.csv.gz) are read",
+}
+
+# Missing-value markers, the same list pandas uses by default, applied to every format so a
+# workbook cell "NA" means what a CSV cell "NA" means.
+_NA_TOKENS = frozenset(s.lower() for s in (
+    "", "#N/A", "#N/A N/A", "#NA", "-1.#IND", "-1.#QNAN", "-NaN", "-nan", "1.#IND", "1.#QNAN",
+    "<NA>", "N/A", "NA", "NULL", "NaN", "None", "n/a", "nan", "null"))
+_BOOL_TOKENS = frozenset(("true", "false", "yes", "no", "t", "f", "y", "n"))
+
+_TIME = r"\d{1,2}:\d{2}(?::\d{2}(?:[.,]\d+)?)?(?:\s?[AaPp][Mm])?"
+_TZ = r"(?:\s?(?:Z|UTC|[+-]\d{2}:?\d{2}))?"
+_DATETIME_RE = "|".join((
+    rf"\d{{4}}-\d{{1,2}}-\d{{1,2}}(?:[T ]{_TIME})?{_TZ}",          # 2024-05-31 12:00
+    rf"\d{{4}}/\d{{1,2}}/\d{{1,2}}(?:[T ]{_TIME})?{_TZ}",          # 2024/05/31
+    rf"\d{{1,2}}[/.-]\d{{1,2}}[/.-]\d{{2,4}}(?:[T ]{_TIME})?{_TZ}",  # 31.05.2024, 5/31/24
+    rf"\d{{1,2}}[ -][A-Za-z]{{3,9}}\.?[ -]\d{{2,4}}(?: {_TIME})?",   # 31 May 2024
+    rf"[A-Za-z]{{3,9}}\.? \d{{1,2}},? \d{{4}}(?: {_TIME})?",         # May 31, 2024
+    _TIME + _TZ,                                                    # 12:30:05
+))
+_COMMA_DECIMAL_RE = re.compile(r"[+-]?\d*,(\d+)(?:[eE][+-]?\d+)?")
+_DOT_DECIMAL_RE = re.compile(r"[+-]?(?:\d+\.\d*|\.\d+)(?:[eE][+-]?\d+)?")
+_NUMBER_RE = re.compile(r"[+-]?(?:\d+[.,]?\d*|[.,]\d+)(?:[eE][+-]?\d+)?")
+
+_SNIFF_CHARS = 1 << 16
+_SNIFF_RECORDS = 200
+_PREVIEW_ROWS = 20
+_CATEGORICAL_MAX_DISTINCT = 50
+
+
+def _one_line(text: str) -> str:
+    return " ".join(str(text).split())
+
+
+def _fail(file: str, problem: str, fix: str = "") -> IngestError:
+    message = f"{file}: {problem}"
+    if fix:
+        message += f"; {fix}"
+    return IngestError(_one_line(message))
+
+
+def _display_name(name: str | Path | None) -> str:
+    text = str(name or "")
+    base = re.split(r"[\\/]", text)[-1]
+    base = _one_line("".join(ch if ch.isprintable() else " " for ch in base))
+    return base or "uploaded file"
+
+
+def _quote(value: object, limit: int = 40) -> str:
+    text = _one_line(value)
+    if len(text) > limit:
+        text = text[: limit - 3] + "..."
+    return repr(text)
+
+
+def _name_list(names: list[str], limit: int = 6) -> str:
+    shown = ", ".join(_quote(n) for n in names[:limit])
+    if len(names) > limit:
+        shown += f" and {len(names) - limit} more"
+    return shown
+
+
+def _plural(count: int, word: str, plural: str | None = None) -> str:
+    return f"{count} {word if count == 1 else (plural or word + 's')}"
+
+
+def _format_from_name(base: str) -> str:
+    lower = base.lower()
+    for ext in _ARCHIVE_EXTENSIONS:
+        if lower.endswith(ext):
+            raise _fail(base, f"is an archive ({ext})",
+                        "archive: extract the table first and load the .csv, .xlsx or .parquet file inside")
+    if lower.endswith(_GZIP_EXTENSIONS):
+        return "csv.gz"
+    if lower.endswith(_TEXT_EXTENSIONS):
+        return "csv"
+    if lower.endswith(".xlsx"):
+        return "xlsx"
+    if lower.endswith(".parquet") or lower.endswith(".pq"):
+        return "parquet"
+    ext = "." + lower.rsplit(".", 1)[-1] if "." in lower else ""
+    hint = _OTHER_HINTS.get(ext, "save the table in one of those formats")
+    what = f"'{ext}' files" if ext else "files without an extension"
+    raise _fail(base, f"unsupported format: {what} are not read (supported: {SUPPORTED_FORMATS})", hint)
+
+
+def _zip_kind(content: bytes) -> str:
+    try:
+        with zipfile.ZipFile(io.BytesIO(content)) as zf:
+            names = zf.namelist()
+    except (zipfile.BadZipFile, OSError, ValueError, EOFError):
+        return "zip"
+    if "xl/workbook.xml" in names:
+        return "xlsx"
+    if any(n.startswith("content.xml") for n in names) and "mimetype" in names:
+        return "ods"
+    return "zip"
+
+
+def _magic(content: bytes) -> str | None:
+    """Name of a known binary format from the leading bytes, or None for anything else."""
+    head = content[:16]
+    if head.startswith((b"PK\x03\x04", b"PK\x05\x06", b"PK\x07\x08")):
+        return _zip_kind(content)
+    table = (
+        (b"\x1f\x8b", "gzip"), (b"7z\xbc\xaf\x27\x1c", "7z"), (b"Rar!\x1a\x07", "rar"),
+        (b"\xfd7zXZ\x00", "xz"), (b"(\xb5/\xfd", "zstd"), (b"\x89PNG\r\n\x1a\n", "png"),
+        (b"\xff\xd8\xff", "jpeg"), (b"GIF87a", "gif"), (b"GIF89a", "gif"), (b"%PDF-", "pdf"),
+        (b"\x7fELF", "elf"), (b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1", "ole2"), (b"PAR1", "parquet"),
+        (b"SQLite format 3\x00", "sqlite"), (b"\xca\xfe\xba\xbe", "mach-o"),
+        (b"\xcf\xfa\xed\xfe", "mach-o"), (b"\x89HDF\r\n\x1a\n", "hdf5"),
+    )
+    for prefix, kind in table:
+        if head.startswith(prefix):
+            return kind
+    if re.match(rb"BZh[1-9]1AY&SY", head):
+        return "bzip2"
+    if content[257:262] == b"ustar":
+        return "tar"
+    if head.startswith(b"MZ") and b"\x00" in content[:64]:
+        return "exe"
+    return None
+
+
+_MAGIC_WORDS = {
+    "zip": "a ZIP archive", "xlsx": "an Excel workbook", "ods": "an OpenDocument spreadsheet",
+    "gzip": "gzip-compressed", "7z": "a 7-Zip archive", "rar": "a RAR archive",
+    "xz": "xz-compressed", "zstd": "zstd-compressed", "bzip2": "bzip2-compressed",
+    "tar": "a tar archive", "png": "a PNG image", "jpeg": "a JPEG image", "gif": "a GIF image",
+    "pdf": "a PDF document", "elf": "a program (ELF executable)", "exe": "a Windows program",
+    "ole2": "an old Office file (.xls/.doc)", "parquet": "a Parquet file",
+    "sqlite": "an SQLite database", "mach-o": "a program (Mach-O)", "hdf5": "an HDF5 file",
+}
+_ARCHIVE_KINDS = {"zip", "7z", "rar", "tar", "xz", "zstd", "bzip2"}
+
+
+def _refuse_binary(base: str, kind: str, stem: str) -> IngestError:
+    what = _MAGIC_WORDS.get(kind, "binary data")
+    if kind == "xlsx":
+        fix = f"rename it to {stem}.xlsx"
+    elif kind == "parquet":
+        fix = f"rename it to {stem}.parquet"
+    elif kind == "gzip":
+        fix = f"rename it to {stem}.csv.gz"
+    elif kind in _ARCHIVE_KINDS:
+        fix = "archive: extract the table first and load the file inside"
+    elif kind == "ole2":
+        fix = "save it from Excel as .xlsx or .csv"
+    else:
+        fix = "choose the .csv, .xlsx or .parquet file that holds the table"
+    return _fail(base, f"binary or not a table: the content is {what}, not a text table", fix)
+
+
+def _stem(base: str) -> str:
+    lower = base.lower()
+    for ext in _GZIP_EXTENSIONS + _TEXT_EXTENSIONS + (".xlsx", ".parquet", ".pq"):
+        if lower.endswith(ext):
+            return base[: len(base) - len(ext)] or "data"
+    return base
+
+
+def _gunzip(content: bytes, base: str) -> bytes:
+    limit = int(config.MAX_DECOMPRESSED_MB) * 1024 * 1024
+    try:
+        with gzip.GzipFile(fileobj=io.BytesIO(content)) as gz:
+            raw = gz.read(limit + 1)
+    except (OSError, EOFError, zlib.error) as exc:
+        raise _fail(base, f"corrupt gzip data ({_one_line(exc) or 'truncated'})",
+                    "compress the file again, or load the uncompressed .csv") from exc
+    if len(raw) > limit:
+        raise _fail(base, f"decompresses to more than {config.MAX_DECOMPRESSED_MB} MB",
+                    "load a smaller extract of the table")
+    return raw
+
+
+def _looks_like_text(content: bytes) -> bool:
+    head = content[:2048]
+    if b"\x00" in head:
+        return False
+    try:
+        text = head.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        if exc.start < len(head) - 4:  # a multibyte character cut at the end is fine
+            return False
+        text = head[: exc.start].decode("utf-8")
+    return bool(text.strip()) and _control_share(text) == 0.0
+
+
+def _control_share(text: str) -> float:
+    sample = text[:_SNIFF_CHARS]
+    if not sample:
+        return 0.0
+    bad = sum(1 for ch in sample if (ord(ch) < 32 and ch not in "\t\n\r\f\v") or ch == "\x7f")
+    return bad / len(sample)
+
+
+def _utf16_without_bom(raw: bytes) -> str | None:
+    sample = raw[:4096]
+    half = len(sample) // 2
+    if half < 2:
+        return None
+    even_zero = sample[0::2].count(0)
+    odd_zero = sample[1::2].count(0)
+    if odd_zero > 0.4 * half and even_zero < 0.05 * half:
+        return "utf-16-le"
+    if even_zero > 0.4 * half and odd_zero < 0.05 * half:
+        return "utf-16-be"
+    return None
+
+
+def _decode(raw: bytes, base: str, notes: list[str]) -> tuple[str, str]:
+    boms = (
+        (b"\xef\xbb\xbf", "utf-8", "UTF-8"),
+        (b"\xff\xfe\x00\x00", "utf-32-le", "UTF-32 LE"),
+        (b"\x00\x00\xfe\xff", "utf-32-be", "UTF-32 BE"),
+        (b"\xff\xfe", "utf-16-le", "UTF-16 LE"),
+        (b"\xfe\xff", "utf-16-be", "UTF-16 BE"),
+    )
+    for bom, codec, label in boms:
+        if raw.startswith(bom):
+            try:
+                text = raw[len(bom):].decode(codec)
+            except UnicodeDecodeError as exc:
+                raise _fail(base, f"unreadable encoding: it starts with a {label} byte-order mark "
+                                  f"but byte {exc.start + len(bom)} is not valid {label}",
+                            "save the file again as UTF-8") from exc
+            return text, (label + " with BOM")
+    if b"\x00" in raw[:4096]:
+        codec = _utf16_without_bom(raw)
+        if codec is None:
+            raise _fail(base, "binary or not a table: the content has zero bytes, so it is not a text table",
+                        "choose the .csv, .xlsx or .parquet file that holds the table")
+        try:
+            text = raw.decode(codec)
+        except UnicodeDecodeError as exc:
+            raise _fail(base, f"unreadable encoding: it looks like {codec.upper()} without a "
+                              f"byte-order mark but byte {exc.start} is not valid",
+                        "save the file again as UTF-8") from exc
+        label = codec.upper().replace("-LE", " LE").replace("-BE", " BE")
+        notes.append(f"read as {label} (no byte-order mark)")
+        return text, label
+    try:
+        return raw.decode("utf-8"), "UTF-8"
+    except UnicodeDecodeError:
+        pass
+    try:
+        text = raw.decode("cp1252")
+        label = "Windows-1252"
+    except UnicodeDecodeError:
+        text = raw.decode("latin-1")
+        label = "Latin-1"
+    notes.append(f"not valid UTF-8; read as {label}")
+    return text, label
+
+
+def _records(text: str, delimiter: str):
+    """csv records with the physical line each starts on; blank lines skipped."""
+    for start, _end, record in _records_with_end(text, delimiter):
+        yield start, record
+
+
+def _records_with_end(text: str, delimiter: str):
+    reader = csv.reader(io.StringIO(text, newline=""), delimiter=delimiter)
+    previous = 0
+    for record in reader:
+        start = previous + 1
+        previous = reader.line_num
+        if record and any(cell.strip() for cell in record):
+            yield start, previous, record
+
+
+def _sniff_delimiter(text: str) -> str:
+    sample = text[:_SNIFF_CHARS]
+    if len(text) > _SNIFF_CHARS and "\n" in sample:
+        sample = sample[: sample.rfind("\n")]
+    best, best_score = ",", (0.0, 0)
+    for delimiter in (",", ";", "\t", "|"):
+        try:
+            counts = [len(r) for _, r in itertools.islice(_records(sample, delimiter), _SNIFF_RECORDS)]
+        except csv.Error:
+            continue
+        if not counts or counts[0] < 2:
+            continue
+        width = counts[0]
+        agree = sum(1 for c in counts if c == width or c == width + 1) / len(counts)
+        score = (round(agree, 6), width)
+        if score > best_score:
+            best, best_score = delimiter, score
+    return best
+
+
+def _detect_decimal_comma(rows: list[list[str]], delimiter: str) -> bool:
+    if delimiter == ",":
+        return False
+    comma_digits: list[int] = []
+    dot_numbers = 0
+    for row in rows:
+        for cell in row:
+            cell = cell.strip()
+            if not cell:
+                continue
+            m = _COMMA_DECIMAL_RE.fullmatch(cell)
+            if m:
+                comma_digits.append(len(m.group(1)))
+            elif _DOT_DECIMAL_RE.fullmatch(cell):
+                dot_numbers += 1
+    if not comma_digits or dot_numbers:
+        return False
+    # every "1,250" alone could be a thousands separator: refuse to guess
+    return any(d != 3 for d in comma_digits)
+
+
+def _find_long_row(text: str, delimiter: str, width: int) -> tuple[int, int] | None:
+    """(line, fields) of the first data record with more fields than the header."""
+    records = _records(text, delimiter)
+    next(records, None)
+    for line, record in records:
+        if len(record) > width + 1 or (len(record) == width + 1 and record[-1].strip()):
+            return line, len(record)
+    return None
+
+
+def _last_record_line(text: str, delimiter: str) -> int:
+    line = 0
+    try:
+        for line, _ in _records(text, delimiter):
+            pass
+    except csv.Error:
+        pass
+    return line
+
+
+def _delimiter_word(delimiter: str) -> str:
+    return {",": "comma", ";": "semicolon", "\t": "tab", "|": "pipe"}.get(delimiter, repr(delimiter))
+
+
+def _read_text_table(text: str, base: str, notes: list[str]):
+    import pandas as pd
+
+    stripped = text.lstrip()
+    if not stripped:
+        raise _fail(base, "empty file: it holds no table", "choose the file that holds the table")
+    if stripped[:15].lower().startswith(("<!doctype html", "<html")):
+        raise _fail(base, "binary or not a table: the content is a web page (HTML), not a table",
+                    "download the table itself (.csv, .xlsx or .parquet)")
+    if _control_share(text) > 0.01:
+        raise _fail(base, "binary or not a table: the content is mostly control characters",
+                    "choose the .csv, .xlsx or .parquet file that holds the table")
+
+    delimiter = _sniff_delimiter(text)
+    try:
+        head = list(itertools.islice(_records(text, delimiter), _SNIFF_RECORDS + 1))
+    except csv.Error as exc:
+        raise _fail(base, f"cannot split the first lines into fields ({_one_line(exc)})",
+                    "check the quotes in the header and first rows") from exc
+    if not head:
+        raise _fail(base, "empty file: it holds no table", "choose the file that holds the table")
+    header = head[0][1]
+    header_end = next(_records_with_end(text, delimiter))[1]
+    body_start = 0
+    for match in itertools.islice(re.finditer(r"\r\n|\r|\n", text), header_end):
+        body_start = match.end()
+    width = len(header)
+    if width > config.MAX_COLUMNS:
+        raise _fail(base, f"has {width} columns; pairlens reads at most {config.MAX_COLUMNS}",
+                    "keep fewer columns (config.MAX_COLUMNS)")
+    sample_rows = [r for _, r in head[1:]]
+    if not sample_rows:
+        raise _fail(base, "header only: the file has column names but no data rows",
+                    "add data rows below the header")
+    decimal_comma = _detect_decimal_comma(sample_rows, delimiter)
+    if decimal_comma:
+        notes.append("decimal comma detected: numbers like 3,14 read as 3.14")
+    if width >= 2 and all(_NUMBER_RE.fullmatch(h.strip()) for h in header):
+        notes.append("the first row is all numbers but was read as column names; "
+                     "add a header row if it is data")
+
+    names = [f"c{i}" for i in range(width)] + ["__beyond_header__"]
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            frame = pd.read_csv(
+                io.StringIO(text[body_start:]), sep=delimiter, header=None, names=names, index_col=False,
+                nrows=config.MAX_ROWS + 1, decimal="," if decimal_comma else ".",
+                float_precision="round_trip", low_memory=False, skip_blank_lines=True,
+            )
+    except pd.errors.ParserError as exc:
+        message = _one_line(exc)
+        long_row = _find_long_row(text, delimiter, width)
+        if long_row:
+            line, fields = long_row
+            raise _fail(base, f"ragged rows: line {line} has {fields} fields but the header has {width} "
+                              f"({_delimiter_word(delimiter)}-delimited)",
+                        "fix that line: quote cells that contain the delimiter, or add the missing "
+                        "column names") from exc
+        if "EOF inside string" in message or "EOF" in message:
+            line = _last_record_line(text, delimiter)
+            raise _fail(base, f"a quoted cell starting near line {line} is never closed",
+                        "add the closing double quote") from exc
+        raise _fail(base, f"cannot be parsed as a {_delimiter_word(delimiter)}-delimited table ({message})",
+                    "check the quotes and delimiters near that line") from exc
+
+    beyond = frame.pop("__beyond_header__")
+    if beyond.dtype == object or str(beyond.dtype) == "str":
+        beyond = beyond.where(beyond.astype("str").str.strip() != "")
+    if beyond.notna().any():
+        long_row = _find_long_row(text, delimiter, width)
+        if long_row:
+            line, fields = long_row
+            where = f"line {line} has {fields} fields"
+        else:
+            where = f"data row {int(np.flatnonzero(beyond.notna().to_numpy())[0]) + 1} has extra fields"
+        raise _fail(base, f"ragged rows: {where} but the header has {width} "
+                          f"({_delimiter_word(delimiter)}-delimited)",
+                    "fix that line: quote cells that contain the delimiter, or add the missing column names")
+
+    preview = [(r + [""] * width)[:width] for r in sample_rows[:_PREVIEW_ROWS]]
+    columns = [frame[c] for c in names[:-1]]
+    return header, columns, preview, delimiter, decimal_comma
+
+
+def _cell_text(value: object) -> str:
+    if value is None:
+        return ""
+    if isinstance(value, bool):
+        return "TRUE" if value else "FALSE"
+    if isinstance(value, float):
+        return "" if value != value else repr(value)
+    if isinstance(value, datetime):
+        return value.isoformat(sep=" ")
+    if isinstance(value, (date, time)):
+        return value.isoformat()
+    if isinstance(value, (bytes, bytearray)):
+        return value.hex()
+    return str(value)
+
+
+def _read_xlsx(content: bytes, base: str, sheet: str | None, notes: list[str]):
+    import openpyxl
+
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            book = openpyxl.load_workbook(io.BytesIO(content), read_only=True, data_only=True)
+    except Exception as exc:  # openpyxl raises many types for damaged files
+        raise _fail(base, f"corrupt xlsx workbook ({type(exc).__name__}: {_one_line(exc)[:120]})",
+                    "open it in a spreadsheet program and save it again as .xlsx") from exc
+    try:
+        sheets = list(book.sheetnames)
+        if not sheets:
+            raise _fail(base, "the workbook has no sheets", "save a workbook that holds the table")
+        if sheet is None:
+            chosen = sheets[0]
+        elif sheet in sheets:
+            chosen = sheet
+        else:
+            raise _fail(base, f"has no sheet {sheet!r} (sheets: {_name_list(sheets, 20)})",
+                        "pick one of those sheets")
+        worksheet = book[chosen]
+        if not hasattr(worksheet, "iter_rows"):
+            raise _fail(base, f"sheet {chosen!r} is a chart, not a table", "pick a sheet that holds the table")
+        header = None
+        rows: list[tuple] = []
+        try:
+            for row in worksheet.iter_rows(values_only=True):
+                if all(v is None or (isinstance(v, str) and not v.strip()) for v in row):
+                    continue
+                if header is None:
+                    header = row
+                    continue
+                rows.append(row)
+                if len(rows) > config.MAX_ROWS:
+                    raise _fail(base, f"sheet {chosen!r} has more than {config.MAX_ROWS} rows; "
+                                      f"pairlens reads at most {config.MAX_ROWS}",
+                                "load a sample of the rows")
+        except IngestError:
+            raise
+        except Exception as exc:
+            raise _fail(base, f"corrupt xlsx workbook: sheet {chosen!r} cannot be read "
+                              f"({type(exc).__name__}: {_one_line(exc)[:120]})",
+                        "open it in a spreadsheet program and save it again as .xlsx") from exc
+    finally:
+        book.close()
+    if sheet is None and len(sheets) > 1:
+        notes.append(f"read sheet {chosen!r}, the first of {len(sheets)} sheets")
+    if header is None:
+        raise _fail(base, f"empty file: sheet {chosen!r} holds no cells",
+                    "pick the sheet that holds the table" if len(sheets) > 1 else "fill in the table")
+
+    def used_width(row) -> int:
+        for j in range(len(row) - 1, -1, -1):
+            v = row[j]
+            if v is not None and not (isinstance(v, str) and not v.strip()):
+                return j + 1
+        return 0
+
+    width = max([used_width(header)] + [used_width(r) for r in rows])
+    if width > config.MAX_COLUMNS:
+        raise _fail(base, f"sheet {chosen!r} has {width} columns; pairlens reads at most {config.MAX_COLUMNS}",
+                    "keep fewer columns (config.MAX_COLUMNS)")
+    names = [_cell_text(header[j]) if j < len(header) else "" for j in range(width)]
+    import pandas as pd
+
+    columns = []
+    for j in range(width):
+        cells = [(_cell_text(r[j]) if j < len(r) else "") for r in rows]
+        columns.append(pd.Series(cells, dtype="str"))
+    preview = [[(_cell_text(r[j]) if j < len(r) else "") for j in range(width)] for r in rows[:_PREVIEW_ROWS]]
+    return names, columns, preview, chosen, sheets
+
+
+@dataclass
+class _Typed:
+    kind: str
+    values: np.ndarray | None = None
+    reason: str = ""
+    missing: int = 0
+    distinct: int = 0
+    non_numeric: int = 0
+    examples: tuple[str, ...] = ()
+
+
+def _read_parquet(content: bytes, base: str):
+    import pandas as pd
+    import pyarrow as pa
+    import pyarrow.compute as pc
+    import pyarrow.parquet as pq
+
+    try:
+        parquet = pq.ParquetFile(pa.BufferReader(content))
+        n_rows = parquet.metadata.num_rows
+        schema = parquet.schema_arrow
+        if len(schema) > config.MAX_COLUMNS:
+            raise _fail(base, f"has {len(schema)} columns; pairlens reads at most {config.MAX_COLUMNS}",
+                        "keep fewer columns (config.MAX_COLUMNS)")
+        if n_rows > config.MAX_ROWS:
+            raise _fail(base, f"has {n_rows} rows; pairlens reads at most {config.MAX_ROWS}",
+                        "load a sample of the rows")
+        table = parquet.read()
+    except IngestError:
+        raise
+    except Exception as exc:  # pyarrow raises ArrowInvalid, OSError, ... for damaged files
+        raise _fail(base, f"corrupt parquet file ({type(exc).__name__}: {_one_line(exc)[:120]})",
+                    "write the file again, or export the table as .csv") from exc
+
+    names = [str(n) for n in table.schema.names]
+    columns: list = []
+    preview_cols: list[list[str]] = []
+    for column in table.columns:
+        kind = column.type
+        if pa.types.is_dictionary(kind):
+            column = column.cast(kind.value_type)
+            kind = kind.value_type
+        head = column.slice(0, _PREVIEW_ROWS).to_pylist()
+        if pa.types.is_floating(kind) and kind.bit_width < 64:
+            # shortest text of the stored float32, not of its float64 widening
+            head = [None if v is None else str(np.float32(v)) for v in head]
+        preview_cols.append([_cell_text(v) for v in head])
+        missing = column.null_count
+        if pa.types.is_integer(kind) or pa.types.is_floating(kind) or pa.types.is_decimal(kind):
+            values = column.cast(pa.float64(), safe=False).to_numpy()
+            columns.append(pd.Series(values, dtype="float64"))
+        elif pa.types.is_string(kind) or pa.types.is_large_string(kind) or str(kind) == "string_view":
+            columns.append(pd.Series(column.to_pylist(), dtype="str"))
+        elif pa.types.is_boolean(kind):
+            distinct = len(pc.unique(column.drop_null()))
+            columns.append(_Typed("categorical", reason=f"true/false column ({_plural(distinct, 'distinct value')})",
+                                  missing=missing, distinct=distinct))
+        elif pa.types.is_temporal(kind):
+            distinct = len(pc.unique(column.drop_null()))
+            word = "duration" if pa.types.is_duration(kind) else "datetime"
+            columns.append(_Typed("datetime" if word == "datetime" else "text", reason=f"{word} column",
+                                  missing=missing, distinct=distinct))
+        else:
+            columns.append(_Typed("text", reason=f"{kind} column (not numbers)", missing=missing))
+    preview = [list(row) for row in zip(*preview_cols)] if preview_cols else []
+    return names, columns, preview, table.num_rows
+
+
+def _numeric(values: np.ndarray, non_numeric: int = 0, examples: tuple[str, ...] = ()) -> _Typed:
+    values = np.array(values, dtype=np.float64, copy=True)
+    return _Typed("numeric", values=values, non_numeric=non_numeric, examples=examples)
+
+
+def _classify_strings(series, decimal_comma: bool) -> _Typed:
+    import pandas as pd
+
+    series = series.astype("str")
+    clean = series.str.strip()
+    missing = (clean.isna() | clean.str.lower().isin(_NA_TOKENS)).to_numpy(dtype=bool)
+    present = clean[~missing]
+    n_present = len(present)
+    n_missing = int(missing.sum())
+    if n_present == 0:
+        return _Typed("empty", reason="all values missing", missing=n_missing)
+    source = present.str.replace(",", ".", regex=False) if decimal_comma else present
+    numbers = pd.to_numeric(source, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
+    parsed = ~np.isnan(numbers)
+    n_parsed = int(parsed.sum())
+    if n_parsed > 0 and n_parsed >= config.NUMERIC_MIN_SHARE * n_present:
+        full = np.full(len(series), np.nan)
+        full[~missing] = numbers
+        junk = present[~parsed]
+        examples = tuple(pd.unique(junk.to_numpy())[:3].tolist())
+        return _numeric(full, non_numeric=n_present - n_parsed, examples=examples)
+    distinct = int(present.nunique())
+    if present.str.lower().isin(_BOOL_TOKENS).all():
+        return _Typed("categorical", reason=f"true/false column ({_plural(distinct, 'distinct value')})",
+                      missing=n_missing, distinct=distinct)
+    n_dates = int(present.str.fullmatch(_DATETIME_RE).sum())
+    if n_dates >= config.NUMERIC_MIN_SHARE * n_present:
+        return _Typed("datetime", reason="datetime column", missing=n_missing, distinct=distinct)
+    if n_parsed >= 0.5 * n_present:
+        share = f"{n_parsed} of {n_present}"
+        return _Typed("text", reason=f"mixed column: only {share} values are numbers "
+                                     f"(at least {config.NUMERIC_MIN_SHARE:.0%} needed)",
+                      missing=n_missing, distinct=distinct)
+    if distinct <= _CATEGORICAL_MAX_DISTINCT and distinct <= n_present / 2:
+        return _Typed("categorical", reason=f"categorical column ({_plural(distinct, 'distinct value')})",
+                      missing=n_missing, distinct=distinct)
+    return _Typed("text", reason=f"text column ({_plural(distinct, 'distinct value')})",
+                  missing=n_missing, distinct=distinct)
+
+
+def _cell_missing(series) -> np.ndarray:
+    missing = series.isna().to_numpy(dtype=bool)
+    if series.dtype == object or str(series.dtype) == "str":
+        missing = missing | (series.astype("str").str.strip() == "").to_numpy(dtype=bool, na_value=True)
+    return missing
+
+
+def _type_column(series, decimal_comma: bool) -> _Typed:
+    import pandas as pd
+    from pandas.api import types as ptypes
+
+    dtype = series.dtype
+    if ptypes.is_bool_dtype(dtype):
+        distinct = int(series.nunique())
+        return _Typed("categorical", reason=f"true/false column ({_plural(distinct, 'distinct value')})",
+                      missing=int(series.isna().sum()), distinct=distinct)
+    if ptypes.is_numeric_dtype(dtype) and not ptypes.is_complex_dtype(dtype):
+        return _numeric(series.to_numpy(dtype=np.float64, na_value=np.nan))
+    if ptypes.is_datetime64_any_dtype(dtype) or isinstance(dtype, pd.PeriodDtype):
+        return _Typed("datetime", reason="datetime column", missing=int(series.isna().sum()),
+                      distinct=int(series.nunique()))
+    if ptypes.is_timedelta64_dtype(dtype):
+        return _Typed("text", reason="duration column", missing=int(series.isna().sum()),
+                      distinct=int(series.nunique()))
+    if dtype == object or isinstance(dtype, pd.CategoricalDtype):
+        # the CSV parser hands over True/False cells mixed with missing ones as Python bools
+        series = series.astype(object).map(_cell_text, na_action="ignore")
+    return _classify_strings(series, decimal_comma)
+
+
+def _unique_names(originals: list[str], notes: list[str]) -> list[str]:
+    names: list[str] = []
+    taken: set[str] = set()
+    renamed: list[str] = []
+    filled: list[str] = []
+    for position, original in enumerate(originals, start=1):
+        base = _one_line(original)
+        if not base:
+            base = f"column {position}"
+        name, k = base, 2
+        while name in taken:
+            name, k = f"{base} ({k})", k + 1
+        if not _one_line(original):
+            filled.append(name)
+        elif name != base:
+            renamed.append(f"{base!r} -> {name!r}")
+        taken.add(name)
+        names.append(name)
+    if renamed:
+        shown = ", ".join(renamed[:10]) + (f" and {len(renamed) - 10} more" if len(renamed) > 10 else "")
+        notes.append(f"duplicate column names made unique: {shown}")
+    if filled:
+        notes.append(f"empty column names filled in: {_name_list(filled, 10)}")
+    return names
+
+
+def _build_table(base: str, sha: str, originals: list[str], columns: list, preview: list[list[str]],
+                 notes: list[str], decimal_comma: bool, n_rows: int | None = None) -> Table:
+    if not originals:
+        raise _fail(base, "empty file: it holds no table", "choose the file that holds the table")
+    names = _unique_names([_cell_text(o) if not isinstance(o, str) else o for o in originals], notes)
+    if n_rows is None:
+        n_rows = len(columns[0]) if columns and not isinstance(columns[0], _Typed) else 0
+    if n_rows == 0:
+        raise _fail(base, "header only: the file has column names but no data rows",
+                    "add data rows below the header")
+    if n_rows > config.MAX_ROWS:
+        raise _fail(base, f"has more than {config.MAX_ROWS} data rows; pairlens reads at most {config.MAX_ROWS}",
+                    "load a sample of the rows")
+
+    # rows with every cell empty carry nothing (spreadsheet exports often end with ",,,")
+    if columns and not any(isinstance(c, _Typed) for c in columns):
+        empty_rows = np.ones(n_rows, dtype=bool)
+        for c in columns:
+            empty_rows &= _cell_missing(c)
+            if not empty_rows.any():
+                break
+        if empty_rows.any():
+            dropped = int(empty_rows.sum())
+            notes.append(f"dropped {_plural(dropped, 'row')} with every cell empty")
+            keep = ~empty_rows
+            columns = [c[keep].reset_index(drop=True) for c in columns]
+            n_rows -= dropped
+    if n_rows == 0:
+        raise _fail(base, "header only: the file has column names but no data rows",
+                    "add data rows below the header")
+    if n_rows < config.MIN_ROWS:
+        raise _fail(base, f"fewer than {config.MIN_ROWS} data rows: it has only {n_rows}",
+                    f"pairlens needs at least {config.MIN_ROWS} rows to measure an association")
+
+    typed = [c if isinstance(c, _Typed) else _type_column(c, decimal_comma) for c in columns]
+
+    info: list[ColumnInfo] = []
+    used_names: list[str] = []
+    used_values: list[np.ndarray] = []
+    for name, original, t, c in zip(names, originals, typed, columns):
+        original_text = original if isinstance(original, str) else _cell_text(original)
+        if t.kind != "numeric":
+            info.append(ColumnInfo(name, original_text, t.kind, False, t.reason, t.missing, 0, t.distinct))
+            continue
+        values = t.values
+        infinite_mask = np.isinf(values)
+        n_inf = int(infinite_mask.sum())
+        if n_inf:
+            values[infinite_mask] = np.nan
+        finite = values[~np.isnan(values)]
+        n_missing = int(values.size - finite.size)
+        if t.non_numeric:
+            notes.append(f"column {name!r}: {_plural(t.non_numeric, 'non-numeric cell')} "
+                         f"counted as missing (e.g. {', '.join(_quote(e, 20) for e in t.examples)})")
+        if n_inf:
+            notes.append(f"column {name!r}: {_plural(n_inf, 'infinite value')} counted as missing")
+        if finite.size == 0:
+            reason = "all values missing"
+            if n_inf or t.non_numeric:
+                reason += f" ({_plural(n_inf, 'infinite value')}, {_plural(t.non_numeric, 'non-number')})"
+            info.append(ColumnInfo(name, original_text, "empty", False, reason, n_missing, n_inf, 0,
+                                   non_numeric=t.non_numeric))
+            continue
+        distinct = int(np.unique(finite).size)
+        low, mid, high = float(finite.min()), float(np.median(finite)), float(finite.max())
+        if distinct == 1:
+            notes.append(f"column {name!r} is constant (every value {low:g}); its measures will be undefined")
+        info.append(ColumnInfo(name, original_text, "numeric", True, "", n_missing, n_inf, distinct,
+                               low, mid, high, non_numeric=t.non_numeric))
+        used_names.append(name)
+        used_values.append(values)
+
+    if len(used_names) < 2:
+        others = [c for c in info if not c.used]
+        found = f"found {_plural(len(used_names), 'numeric column')}"
+        if used_names:
+            found += f" ({_name_list(used_names)})"
+        if others:
+            listed = "; ".join(f"{_quote(c.name)}: {c.reason}" for c in others[:4])
+            if len(others) > 4:
+                listed += f"; and {len(others) - 4} more"
+            found += f" and {_plural(len(others), 'other column')} ({listed})"
+        fix = "pairlens needs at least 2 numeric columns"
+        if len(info) == 1:
+            fix += "; the whole line became one column, so check the delimiter (comma, semicolon, tab or pipe)"
+        raise _fail(base, f"fewer than 2 numeric columns: {found}", fix)
+
+    data = np.empty((n_rows, len(used_values)), dtype=np.float64)
+    for j, values in enumerate(used_values):
+        data[:, j] = values
+    return Table(name=base, sha256=sha, n_rows=n_rows, columns=used_names, data=data, info=info,
+                 notes=notes, preview=[list(map(str, r)) for r in preview], preview_header=names)
+
+
+def _load(content: bytes, base: str, sheet: str | None) -> Table:
+    sha = hashlib.sha256(content).hexdigest()
+    fmt = _format_from_name(base)
+    if not content.strip():
+        raise _fail(base, "empty file: it holds no table", "choose the file that holds the table")
+    notes: list[str] = []
+    kind = _magic(content)
+    stem = _stem(base)
+    if sheet is not None and fmt != "xlsx":
+        notes.append(f"sheet {sheet!r} ignored: only .xlsx workbooks have sheets")
+
+    if fmt == "xlsx":
+        if kind != "xlsx":
+            if kind == "ole2":
+                raise _fail(base, "is an old Excel .xls workbook with an .xlsx name",
+                            "save it from Excel as .xlsx or .csv")
+            if kind is None and _looks_like_text(content):
+                raise _fail(base, "is not an Excel workbook: the content is text",
+                            f"if it is a delimited table, rename it to {stem}.csv")
+            if kind in (None, "zip"):
+                raise _fail(base, "corrupt xlsx workbook: it is not a valid .xlsx (ZIP) file",
+                            "open it in a spreadsheet program and save it again as .xlsx")
+            raise _refuse_binary(base, kind, stem)
+        names, columns, preview, chosen, sheets = _read_xlsx(content, base, sheet, notes)
+        table = _build_table(base, sha, names, columns, preview, notes, decimal_comma=False)
+        table.format, table.sheet, table.sheets = "xlsx", chosen, sheets
+        return table
+
+    if fmt == "parquet":
+        if not (content[:4] == b"PAR1" and content[-4:] == b"PAR1"):
+            if kind is None and _looks_like_text(content):
+                raise _fail(base, "is not a Parquet file: the content is text",
+                            f"if it is a delimited table, rename it to {stem}.csv")
+            if kind is not None and kind != "parquet":
+                raise _refuse_binary(base, kind, stem)
+            raise _fail(base, "corrupt parquet file: the PAR1 markers at its start and end are missing "
+                              "(truncated or not Parquet)",
+                        "write the file again, or export the table as .csv")
+        names, columns, preview, n_rows = _read_parquet(content, base)
+        table = _build_table(base, sha, names, columns, preview, notes, decimal_comma=False, n_rows=n_rows)
+        table.format = "parquet"
+        return table
+
+    raw = content
+    if fmt == "csv.gz":
+        if kind != "gzip":
+            if kind is None and _looks_like_text(content):
+                raise _fail(base, "is not gzip-compressed: the content is plain text",
+                            f"rename it to {stem}.csv")
+            if kind is None:
+                raise _fail(base, "corrupt gzip data: the gzip header is missing",
+                            "compress the file again, or load the uncompressed .csv")
+            raise _refuse_binary(base, kind, stem)
+        raw = _gunzip(content, base)
+        if not raw.strip():
+            raise _fail(base, "empty file: it decompresses to nothing", "compress the file that holds the table")
+        inner = _magic(raw)
+        if inner is not None:
+            raise _fail(base, f"binary or not a table: it decompresses to {_MAGIC_WORDS.get(inner, 'binary data')}",
+                        "archive: extract the table first" if inner in _ARCHIVE_KINDS | {"gzip"}
+                        else "compress the .csv that holds the table")
+    elif kind is not None:
+        raise _refuse_binary(base, kind, stem)
+
+    text, encoding = _decode(raw, base, notes)
+    names, columns, preview, delimiter, decimal_comma = _read_text_table(text, base, notes)
+    table = _build_table(base, sha, names, columns, preview, notes, decimal_comma)
+    table.format, table.encoding, table.delimiter = fmt, encoding, delimiter
+    table.decimal = "," if decimal_comma else "."
+    return table
+
+
+# ---------------------------------------------------------------------------
+# public API
+# ---------------------------------------------------------------------------
+
+
 def load_bytes(content: bytes, name: str, *, sheet: str | None = None) -> Table:
-    """Parse an uploaded file's bytes; ``name`` only picks the format and labels messages."""
-    raise NotImplementedError
+    """Parse an uploaded file's bytes into a typed table.
+
+    Parameters
+    ----------
+    content : bytes
+        The file exactly as stored (compressed bytes for .csv.gz); ``Table.sha256`` hashes them.
+    name : str
+        The file's name; only its extension picks the format and its base name labels messages.
+    sheet : str, optional
+        Worksheet of an .xlsx workbook (default: the first sheet).
+
+    Returns
+    -------
+    Table
+        Numeric columns in ``data`` (float64, NaN for missing); every column described in ``info``.
+
+    Raises
+    ------
+    IngestError
+        For every file that cannot be used; ``str()`` is one line naming the file, the problem
+        and a fix.  No other exception type leaves this function.
+    """
+    base = _display_name(name)
+    try:
+        if not isinstance(content, (bytes, bytearray, memoryview)):
+            raise _fail(base, f"expected the file's bytes, got {type(content).__name__}",
+                        "pass the raw file content")
+        return _load(bytes(content), base, sheet)
+    except IngestError:
+        raise
+    except MemoryError as exc:
+        raise _fail(base, "too large to load into memory", "load a sample of the rows or fewer columns") from exc
+    except RecursionError as exc:
+        raise _fail(base, "too deeply nested to read", "export the table as a plain .csv") from exc
+    except Exception as exc:  # noqa: BLE001 - parsers raise many types; the user gets one line
+        raise _fail(base, f"could not be read ({type(exc).__name__}: {_one_line(exc)[:160]})",
+                    f"check that it is a valid file of its type ({SUPPORTED_FORMATS})") from exc
 
 
 def load_table(path: str | Path, *, sheet: str | None = None) -> Table:
-    """Read a file from disk (.csv .tsv .txt .csv.gz .xlsx .parquet)."""
-    raise NotImplementedError
+    """Read a file from disk (.csv .tsv .txt .csv.gz .xlsx .parquet); see :func:`load_bytes`."""
+    base = _display_name(path)
+    try:
+        content = Path(path).read_bytes()
+    except FileNotFoundError as exc:
+        raise _fail(base, "file not found", "check the path") from exc
+    except IsADirectoryError as exc:
+        raise _fail(base, "is a directory, not a file", "give the table file inside it") from exc
+    except PermissionError as exc:
+        raise _fail(base, "permission denied", "check that you may read the file") from exc
+    except (OSError, ValueError) as exc:
+        raise _fail(base, f"cannot be opened ({_one_line(exc)})", "check the path") from exc
+    return load_bytes(content, base, sheet=sheet)
