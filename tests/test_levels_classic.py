@@ -22,7 +22,7 @@ from scipy import stats
 
 from app.core import linear, rank
 
-REPS = 5000
+REPS = 10000
 SIZES = (30, 200)
 ALPHAS = (0.05, 0.01)
 SEED = 20261201

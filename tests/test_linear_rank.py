@@ -5,6 +5,7 @@ from __future__ import annotations
 import itertools
 import math
 import warnings
+from fractions import Fraction
 
 import numpy as np
 import pytest
@@ -34,6 +35,10 @@ def _table(n: int, seed: int, missing_fraction: float = 0.1) -> dict[str, np.nda
         "offset": 1e6 + rng.normal(size=n) + 0.3 * base,                     # large offset
         "lognormal": rng.lognormal(size=n),
         "noise": rng.standard_t(3, size=n),
+        # Independent, heavily tied columns: moderate p-values that depend on every tie term.
+        "grade": rng.integers(1, 4, size=n),
+        "coarse": np.round(rng.normal(size=n)),
+        "weak_score": np.clip(np.round(0.15 * base + rng.normal(size=n)), -2, 2),
     }
     for name, values in cols.items():
         values = values.astype(float)
@@ -138,7 +143,8 @@ def test_rank_measures_see_through_monotone_transforms():
     # Reference: scipy.stats.spearmanr / kendalltau give exactly 1 for a strictly increasing relation.
     assert rank.spearman(x, y).estimate == pytest.approx(stats.spearmanr(x, y).statistic, abs=1e-12)
     assert rank.spearman(x, y).estimate == pytest.approx(1.0, abs=1e-12)
-    assert rank.kendall(x, y).estimate == stats.kendalltau(x, y).statistic == 1.0
+    assert rank.kendall(x, y).estimate == pytest.approx(stats.kendalltau(x, y).statistic, abs=1e-12)
+    assert rank.kendall(x, y).estimate == 1.0   # one square root of an exact integer product
     # Pearson is not invariant: r(x, exp x) < 1 (Reference: scipy.stats.pearsonr agrees on the value).
     assert linear.pearson(x, y).estimate == pytest.approx(stats.pearsonr(x, y).statistic, rel=REL)
     assert linear.pearson(x, y).estimate < 0.9
@@ -282,6 +288,45 @@ def test_pearson_matrix_pairwise_matches_per_pair_pearsonr(seed):
         assert r[i, j] == pytest.approx(stats.pearsonr(x, y).statistic, rel=1e-9, abs=1e-12), (i, j)
         assert r[j, i] == r[i, j]
     np.testing.assert_array_equal(np.diag(r), np.ones(p))
+
+
+def _exact_r(x, y):
+    # Reference: the definition of r evaluated in exact rational arithmetic (Python fractions).
+    fx = [Fraction(float(v)) for v in x]
+    fy = [Fraction(float(v)) for v in y]
+    mx, my = sum(fx) / len(fx), sum(fy) / len(fy)
+    sxy = sum((a - mx) * (b - my) for a, b in zip(fx, fy))
+    sxx = sum((a - mx) ** 2 for a in fx)
+    syy = sum((b - my) ** 2 for b in fy)
+    return math.copysign(math.sqrt(sxy * sxy / (sxx * syy)), sxy)
+
+
+def test_large_offsets_agree_with_exact_arithmetic():
+    rng = np.random.default_rng(44)
+    n = 250
+    latent = rng.normal(size=n)
+    data = np.column_stack([1e12 + latent + rng.normal(size=n), 1e12 + latent + rng.normal(size=n),
+                            -3e9 + 1e-3 * (latent + rng.normal(size=n))])
+    data[rng.uniform(size=data.shape) < 0.1] = np.nan
+    r, _ = linear.pearson_matrix(data)
+    for i, j in itertools.combinations(range(3), 2):
+        x, y = _complete(data[:, i], data[:, j])
+        exact = _exact_r(x, y)
+        assert r[i, j] == pytest.approx(exact, rel=1e-12), (i, j)
+        assert linear.pearson(x, y).estimate == pytest.approx(exact, rel=1e-12), (i, j)
+
+
+@pytest.mark.filterwarnings("error")
+@pytest.mark.parametrize("scale", [1e-300, 1e-150, 1e150, 1e300])
+def test_extreme_units_without_overflow(scale):
+    rng = np.random.default_rng(45)
+    x = rng.normal(size=200)
+    y = x + rng.normal(size=200)
+    # r is scale-free (common practice): the same value in any unit, and no overflow warnings.
+    reference = stats.pearsonr(x, y).statistic           # Reference: scipy.stats.pearsonr in unit scale
+    assert linear.pearson(scale * x, scale * y).estimate == pytest.approx(reference, rel=1e-12)
+    r, _ = linear.pearson_matrix(np.column_stack([scale * x, scale * y]))
+    assert r[0, 1] == pytest.approx(reference, rel=1e-12)
 
 
 def test_pearson_matrix_complete_policy_matches_numpy_corrcoef():

@@ -20,7 +20,15 @@ _ILL_CONDITIONED = 1e-8
 
 
 def _centred_unit(v: np.ndarray) -> np.ndarray | None:
+    # Centre before scaling: subtracting nearby values is exact, dividing first is not.
+    # The second pass removes the rounding left in the first mean.
     centred = v - v.mean()
+    centred -= centred.mean()
+    # Scaling by the largest magnitude keeps the squares from overflowing or underflowing.
+    peak = float(np.max(np.abs(centred)))
+    if peak == 0.0 or not math.isfinite(peak):
+        return None
+    centred /= peak
     norm = math.sqrt(float(np.dot(centred, centred)))
     if norm == 0.0 or not math.isfinite(norm):
         return None
@@ -174,6 +182,9 @@ def pearson_matrix(data: np.ndarray, *, missing: str = "pairwise") -> tuple[np.n
         # Second pass removes the rounding left in the first mean.
         means_fix = centred.sum(axis=0) / np.maximum(counts, 1)
         centred = np.where(present, centred - means_fix, 0.0)
+        # Scale by the largest magnitude before squaring so extreme units cannot overflow.
+        peak = np.abs(centred).max(axis=0, initial=0.0)
+        centred = centred / np.where(peak > 0, peak, 1.0)
         scale = np.sqrt((centred * centred).sum(axis=0))
     usable_col = (scale > 0) & np.isfinite(scale)
     if usable_col.any():

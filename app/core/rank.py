@@ -30,39 +30,7 @@ __all__ = [
 _FHP_VARIANCE = 0.437
 
 
-class KendallCounts(NamedTuple):
-    """Pair counts behind tau-b and its tie-corrected variance.
-
-    ``tied_x`` and ``tied_y`` include the pairs tied on both (``tied_xy``).
-    The ``*_t3`` and ``*_t5`` fields are :math:`\\sum t(t-1)(t-2)` and
-    :math:`\\sum t(t-1)(2t+5)` over the tie groups of sizes :math:`t`.
-    """
-
-    n: int
-    discordant: int
-    tied_x: int
-    tied_y: int
-    tied_xy: int
-    x_t3: float
-    x_t5: float
-    y_t3: float
-    y_t5: float
-
-    @property
-    def total(self) -> int:
-        return self.n * (self.n - 1) // 2
-
-    @property
-    def concordant(self) -> int:
-        return self.total - self.tied_x - self.tied_y + self.tied_xy - self.discordant
-
-    @property
-    def score(self) -> int:
-        """Concordant minus discordant pairs, :math:`S`."""
-        return self.concordant - self.discordant
-
-
-# --- compiled kernels ---------------------------------------------------------
+# --- private compiled kernels ---------------------------------------------------------
 
 @numba.njit(cache=True, nogil=True)
 def _tie_runs(sorted_values):
@@ -125,43 +93,6 @@ def _merge_sort_inversions(values):
     if in_buffer:
         values[:] = src
     return inversions
-
-
-@numba.njit(cache=True, nogil=True)
-def knight_counts(x_sorted, y_by_x):
-    """Knight's O(n log n) pair counts from rows already sorted by x.
-
-    Parameters
-    ----------
-    x_sorted : numpy.ndarray
-        x values in ascending order (float64, no NaN).
-    y_by_x : numpy.ndarray
-        y values of the same rows in the same order; within a run of tied x
-        they need not be sorted (the kernel sorts them). Not modified.
-
-    Returns
-    -------
-    tuple
-        ``(discordant, tied_x, tied_y, tied_xy, x_t3, x_t5, y_t3, y_t5)`` as in
-        :class:`KendallCounts`. Meant for an engine that sorts each column
-        once and reuses the order for many pairs.
-    """
-    n = x_sorted.shape[0]
-    work = y_by_x.copy()
-    tied_xy = 0
-    start = 0
-    for i in range(1, n + 1):
-        if i == n or x_sorted[i] != x_sorted[start]:
-            if i - start > 1:
-                # Within a run of tied x, y ascending: these pairs then add no inversions.
-                work[start:i] = np.sort(work[start:i])
-                run_pairs, _, _ = _tie_runs(work[start:i])
-                tied_xy += run_pairs
-            start = i
-    tied_x, x_t3, x_t5 = _tie_runs(x_sorted)
-    discordant = _merge_sort_inversions(work)
-    tied_y, y_t3, y_t5 = _tie_runs(work)
-    return discordant, tied_x, tied_y, tied_xy, x_t3, x_t5, y_t3, y_t5
 
 
 # --- private helpers ----------------------------------------------------------
@@ -249,6 +180,76 @@ def _rank_interval(estimate: float, n: int, variance_numerator: float, min_n: in
 
 
 # --- public functions ---------------------------------------------------------
+
+class KendallCounts(NamedTuple):
+    """Pair counts behind tau-b and its tie-corrected variance.
+
+    ``tied_x`` and ``tied_y`` include the pairs tied on both (``tied_xy``).
+    The ``*_t3`` and ``*_t5`` fields are :math:`\\sum t(t-1)(t-2)` and
+    :math:`\\sum t(t-1)(2t+5)` over the tie groups of sizes :math:`t`.
+    """
+
+    n: int
+    discordant: int
+    tied_x: int
+    tied_y: int
+    tied_xy: int
+    x_t3: float
+    x_t5: float
+    y_t3: float
+    y_t5: float
+
+    @property
+    def total(self) -> int:
+        return self.n * (self.n - 1) // 2
+
+    @property
+    def concordant(self) -> int:
+        return self.total - self.tied_x - self.tied_y + self.tied_xy - self.discordant
+
+    @property
+    def score(self) -> int:
+        """Concordant minus discordant pairs, :math:`S`."""
+        return self.concordant - self.discordant
+
+
+@numba.njit(cache=True, nogil=True)
+def knight_counts(x_sorted, y_by_x):
+    """Knight's O(n log n) pair counts from rows already sorted by x.
+
+    Parameters
+    ----------
+    x_sorted : numpy.ndarray
+        x values in ascending order (float64, no NaN).
+    y_by_x : numpy.ndarray
+        y values of the same rows in the same order; within a run of tied x
+        they need not be sorted (the kernel sorts them). Not modified.
+
+    Returns
+    -------
+    tuple
+        ``(discordant, tied_x, tied_y, tied_xy, x_t3, x_t5, y_t3, y_t5)`` as in
+        :class:`KendallCounts`. Meant for an engine that sorts each column
+        once and reuses the order for many pairs.
+    """
+    n = x_sorted.shape[0]
+    work = y_by_x.copy()
+    tied_xy = 0
+    start = 0
+    for i in range(1, n + 1):
+        if i == n or x_sorted[i] != x_sorted[start]:
+            if i - start > 1:
+                # Within a run of tied x, y ascending: these pairs then add no inversions.
+                work[start:i] = np.sort(work[start:i])
+                run_pairs, _, _ = _tie_runs(work[start:i])
+                tied_xy += run_pairs
+            start = i
+    tied_x, x_t3, x_t5 = _tie_runs(x_sorted)
+    discordant = _merge_sort_inversions(work)
+    tied_y, y_t3, y_t5 = _tie_runs(work)
+    return discordant, tied_x, tied_y, tied_xy, x_t3, x_t5, y_t3, y_t5
+
+
 
 def midranks(x: np.ndarray) -> np.ndarray:
     """Ranks 1..n with ties given the mean of the ranks they span.
@@ -409,8 +410,35 @@ def spearman(x: np.ndarray, y: np.ndarray, *, confidence: float = 0.95) -> TestR
 def kendall_counts(x: np.ndarray, y: np.ndarray, *, method: str = "auto") -> KendallCounts:
     """Concordance and tie counts of complete 1-D arrays.
 
-    ``method``: ``"auto"`` or ``"knight"`` (O(n log n), compiled), ``"naive"``
-    (O(n^2) loop over pairs, the test oracle). Both give identical integers.
+    Parameters
+    ----------
+    x, y : numpy.ndarray
+        1-D float arrays of equal length without NaN.
+    method : {"auto", "knight", "naive"}
+        ``"auto"`` = ``"knight"``: sort once, count ties, count discordant
+        pairs as merge-sort swaps (O(n log n), compiled). ``"naive"``: the
+        sign of every pair (O(n^2)), kept as the test oracle.
+
+    Returns
+    -------
+    KendallCounts
+        Identical integers from both methods.
+
+    Notes
+    -----
+    A pair (i, j) is discordant when
+    :math:`(x_i - x_j)(y_i - y_j) < 0`; after sorting rows by x and, within
+    tied x, by y, these are exactly the inversions of the y sequence.
+
+    References
+    ----------
+    Knight, W.R. (1966). JASA 61:436-439. doi:10.1080/01621459.1966.10480879
+
+    Examples
+    --------
+    >>> c = kendall_counts(np.array([1.0, 2.0, 2.0, 3.0]), np.array([1.0, 3.0, 2.0, 2.0]))
+    >>> c.discordant, c.tied_x, c.tied_y, c.concordant
+    (1, 1, 1, 3)
     """
     if method not in ("auto", "knight", "naive"):
         raise ValueError(f"unknown Kendall method {method!r}; choose auto, knight or naive")
@@ -426,9 +454,30 @@ def kendall_counts(x: np.ndarray, y: np.ndarray, *, method: str = "auto") -> Ken
 def kendall_exact_pvalue(n: int, discordant: int) -> float:
     """Two-sided exact p-value of Kendall's S for n untied rows.
 
-    Under independence every permutation is equally likely and the number of
-    discordant pairs is the number of inversions, whose law is given by the
-    Mahonian numbers. p = min(1, 2 P(D <= min(d, n0 - d))).
+    Parameters
+    ----------
+    n : int
+        Rows (no ties in x or y).
+    discordant : int
+        Discordant pairs :math:`D`.
+
+    Returns
+    -------
+    float
+        :math:`\\min(1, 2 P(D' \\le \\min(D, n_0 - D)))` under independence.
+
+    Notes
+    -----
+    Under independence the y ranks in x order are a uniformly random
+    permutation, and :math:`D` is its number of inversions; the counts of
+    permutations with k inversions (Mahonian numbers) follow from adding one
+    item at a time, the j-th creating 0..j-1 new inversions. Computed in exact
+    integers, the same rule and values as ``scipy.stats.kendalltau``'s exact
+    branch.
+
+    References
+    ----------
+    Kendall, M.G. (1938). Biometrika 30:81-93. doi:10.1093/biomet/30.1-2.81
 
     Examples
     --------
@@ -538,4 +587,6 @@ def kendall(x: np.ndarray, y: np.ndarray, *, confidence: float = 0.95, method: s
     else:
         p_value, test = _kendall_normal_pvalue(c), "normal, tie-corrected variance"
     low, high, note = _rank_interval(tau, n, _FHP_VARIANCE, 4, confidence)
+    if math.isnan(p_value):
+        note = "; ".join(filter(None, [note, "variance of S is zero: no p-value"]))
     return TestResult(tau, p_value, test, low, high, n, note)
