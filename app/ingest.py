@@ -125,6 +125,7 @@ _TZ = r"(?:\s?(?:Z|UTC|[+-]\d{2}:?\d{2}))?"
 _DATETIME_RE = "|".join((
     rf"\d{{4}}-\d{{1,2}}-\d{{1,2}}(?:[T ]{_TIME})?{_TZ}",          # 2024-05-31 12:00
     rf"\d{{4}}/\d{{1,2}}/\d{{1,2}}(?:[T ]{_TIME})?{_TZ}",          # 2024/05/31
+    r"\d{4}-\d{2}",                                                # 2024-05
     rf"\d{{1,2}}[/.-]\d{{1,2}}[/.-]\d{{2,4}}(?:[T ]{_TIME})?{_TZ}",  # 31.05.2024, 5/31/24
     rf"\d{{1,2}}[ -][A-Za-z]{{3,9}}\.?[ -]\d{{2,4}}(?: {_TIME})?",   # 31 May 2024
     rf"[A-Za-z]{{3,9}}\.? \d{{1,2}},? \d{{4}}(?: {_TIME})?",         # May 31, 2024
@@ -340,7 +341,7 @@ def _decode(raw: bytes, base: str, notes: list[str]) -> tuple[str, str]:
     if b"\x00" in raw[:4096]:
         codec = _utf16_without_bom(raw)
         if codec is None:
-            raise _fail(base, "binary or not a table: the content has zero bytes, so it is not a text table",
+            raise _fail(base, "binary or not a table: the content has zero (NUL) bytes, so it is not a text table",
                         "choose the .csv, .xlsx or .parquet file that holds the table")
         try:
             text = raw.decode(codec)
@@ -442,6 +443,13 @@ def _last_record_line(text: str, delimiter: str) -> int:
     return line
 
 
+def _ragged_fix(width: int) -> str:
+    fix = "fix that line: quote cells that contain the delimiter, or add the missing column names"
+    if width == 1:
+        fix += "; if a title or comment line sits above the header, delete it"
+    return fix
+
+
 def _delimiter_word(delimiter: str) -> str:
     return {",": "comma", ";": "semicolon", "\t": "tab", "|": "pipe"}.get(delimiter, repr(delimiter))
 
@@ -502,9 +510,7 @@ def _read_text_table(text: str, base: str, notes: list[str]):
         if long_row:
             line, fields = long_row
             raise _fail(base, f"ragged rows: line {line} has {fields} fields but the header has {width} "
-                              f"({_delimiter_word(delimiter)}-delimited)",
-                        "fix that line: quote cells that contain the delimiter, or add the missing "
-                        "column names") from exc
+                              f"({_delimiter_word(delimiter)}-delimited)", _ragged_fix(width)) from exc
         if "EOF inside string" in message or "EOF" in message:
             line = _last_record_line(text, delimiter)
             raise _fail(base, f"a quoted cell starting near line {line} is never closed",
@@ -514,7 +520,7 @@ def _read_text_table(text: str, base: str, notes: list[str]):
 
     beyond = frame.pop("__beyond_header__")
     if beyond.dtype == object or str(beyond.dtype) == "str":
-        beyond = beyond.where(beyond.astype("str").str.strip() != "")
+        beyond = beyond.where(~_cell_missing(beyond))
     if beyond.notna().any():
         long_row = _find_long_row(text, delimiter, width)
         if long_row:
@@ -523,8 +529,7 @@ def _read_text_table(text: str, base: str, notes: list[str]):
         else:
             where = f"data row {int(np.flatnonzero(beyond.notna().to_numpy())[0]) + 1} has extra fields"
         raise _fail(base, f"ragged rows: {where} but the header has {width} "
-                          f"({_delimiter_word(delimiter)}-delimited)",
-                    "fix that line: quote cells that contain the delimiter, or add the missing column names")
+                          f"({_delimiter_word(delimiter)}-delimited)", _ragged_fix(width))
 
     preview = [(r + [""] * width)[:width] for r in sample_rows[:_PREVIEW_ROWS]]
     columns = [frame[c] for c in names[:-1]]
@@ -593,6 +598,17 @@ def _read_xlsx(content: bytes, base: str, sheet: str | None, notes: list[str]):
                         "open it in a spreadsheet program and save it again as .xlsx") from exc
     finally:
         book.close()
+    def filled(row) -> list:
+        return [v for v in row if v is not None and not (isinstance(v, str) and not v.strip())]
+
+    # a lone text cell above a row of names is a title ("Harvest 2026"), not the header
+    titles = []
+    while (header is not None and rows and len(filled(header)) == 1 and isinstance(filled(header)[0], str)
+           and len(filled(rows[0])) >= 2 and all(isinstance(v, str) for v in filled(rows[0]))):
+        titles.append(filled(header)[0])
+        header = rows.pop(0)
+    if titles:
+        notes.append(f"skipped {_plural(len(titles), 'title row')} above the header: {_name_list(titles)}")
     if sheet is None and len(sheets) > 1:
         notes.append(f"read sheet {chosen!r}, the first of {len(sheets)} sheets")
     if header is None:
@@ -616,7 +632,7 @@ def _read_xlsx(content: bytes, base: str, sheet: str | None, notes: list[str]):
     columns = []
     for j in range(width):
         cells = [(_cell_text(r[j]) if j < len(r) else "") for r in rows]
-        columns.append(pd.Series(cells, dtype="str"))
+        columns.append(pd.Series(cells, dtype=object))
     preview = [[(_cell_text(r[j]) if j < len(r) else "") for j in range(width)] for r in rows[:_PREVIEW_ROWS]]
     return names, columns, preview, chosen, sheets
 
@@ -673,7 +689,7 @@ def _read_parquet(content: bytes, base: str):
             values = column.cast(pa.float64(), safe=False).to_numpy()
             columns.append(pd.Series(values, dtype="float64"))
         elif pa.types.is_string(kind) or pa.types.is_large_string(kind) or str(kind) == "string_view":
-            columns.append(pd.Series(column.to_pylist(), dtype="str"))
+            columns.append(pd.Series(column.to_pylist(), dtype=object))
         elif pa.types.is_boolean(kind):
             distinct = len(pc.unique(column.drop_null()))
             columns.append(_Typed("categorical", reason=f"true/false column ({_plural(distinct, 'distinct value')})",
@@ -697,8 +713,9 @@ def _numeric(values: np.ndarray, non_numeric: int = 0, examples: tuple[str, ...]
 def _classify_strings(series, decimal_comma: bool) -> _Typed:
     import pandas as pd
 
-    series = series.astype("str")
-    clean = series.str.strip()
+    if series.isna().all():
+        return _Typed("empty", reason="all values missing", missing=len(series))
+    clean = _as_text(series).str.strip()
     missing = (clean.isna() | clean.str.lower().isin(_NA_TOKENS)).to_numpy(dtype=bool)
     present = clean[~missing]
     n_present = len(present)
@@ -734,10 +751,26 @@ def _classify_strings(series, decimal_comma: bool) -> _Typed:
                   missing=n_missing, distinct=distinct)
 
 
+def _is_text_dtype(dtype) -> bool:
+    import pandas as pd
+
+    return dtype == object or isinstance(dtype, pd.StringDtype)
+
+
+def _as_text(series):
+    """The same cells as str, missing ones NaN (pandas 2 object columns and pandas 3 str alike)."""
+    import pandas as pd
+
+    if isinstance(series.dtype, pd.StringDtype):
+        return series
+    return series.astype(object).map(_cell_text, na_action="ignore").astype(object)
+
+
 def _cell_missing(series) -> np.ndarray:
     missing = series.isna().to_numpy(dtype=bool)
-    if series.dtype == object or str(series.dtype) == "str":
-        missing = missing | (series.astype("str").str.strip() == "").to_numpy(dtype=bool, na_value=True)
+    if _is_text_dtype(series.dtype) and not missing.all():
+        blank = _as_text(series).str.strip() == ""
+        missing = missing | blank.to_numpy(dtype=bool, na_value=True)
     return missing
 
 
@@ -758,9 +791,8 @@ def _type_column(series, decimal_comma: bool) -> _Typed:
     if ptypes.is_timedelta64_dtype(dtype):
         return _Typed("text", reason="duration column", missing=int(series.isna().sum()),
                       distinct=int(series.nunique()))
-    if dtype == object or isinstance(dtype, pd.CategoricalDtype):
-        # the CSV parser hands over True/False cells mixed with missing ones as Python bools
-        series = series.astype(object).map(_cell_text, na_action="ignore")
+    # object columns may hold Python bools (the CSV parser's True/False cells mixed with
+    # missing ones), numbers or dates: _as_text makes every cell its text
     return _classify_strings(series, decimal_comma)
 
 
@@ -813,7 +845,7 @@ def _build_table(base: str, sha: str, originals: list[str], columns: list, previ
                 break
         if empty_rows.any():
             dropped = int(empty_rows.sum())
-            notes.append(f"dropped {_plural(dropped, 'row')} with every cell empty")
+            notes.append(f"dropped {_plural(dropped, 'row')} with every cell empty or missing")
             keep = ~empty_rows
             columns = [c[keep].reset_index(drop=True) for c in columns]
             n_rows -= dropped

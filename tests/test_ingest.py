@@ -23,6 +23,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from app import config
 from app.ingest import IngestError, Table, load_bytes, load_table
@@ -116,6 +118,36 @@ def test_latin1(files):
     assert table.preview[0][0] == "Côte 0"
     assert any("not valid UTF-8" in n for n in table.notes)
     np.testing.assert_array_equal(table.data, np.column_stack([corpus.SUGAR, corpus.ACIDITY]))
+
+
+def test_bytes_outside_windows_1252_fall_back_to_latin1():
+    # 0x81 is unassigned in Windows-1252 (Python's cp1252 codec table) but is a Latin-1 control
+    table = load_bytes(b"a,b,c\n\x81x,1,2\nb,3,4\nc,5,6\n", "old.csv")
+    assert table.encoding == "Latin-1" and table.columns == ["b", "c"]
+
+
+@settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    values=st.lists(st.lists(st.floats(-1e6, 1e6, allow_nan=False).map(lambda v: round(v, 2)),
+                             min_size=3, max_size=3), min_size=3, max_size=30),
+    delimiter=st.sampled_from([",", ";", "\t", "|"]),
+    encoding=st.sampled_from(["utf-8", "utf-8-sig", "utf-16", "cp1252"]),
+    decimal_comma=st.booleans(),
+    crlf=st.booleans(),
+)
+def test_written_numbers_read_back_exactly(values, delimiter, encoding, decimal_comma, crlf):
+    # Any delimiter, encoding and line ending: the numbers written are the numbers read.
+    decimal_comma = decimal_comma and delimiter != ","
+    # make at least one cell carry two decimals so a decimal comma is unambiguous
+    values[0][0] = 0.25
+    def cell(v: float) -> str:
+        return repr(v).replace(".", ",") if decimal_comma else repr(v)
+    newline = "\r\n" if crlf else "\n"
+    text = newline.join([delimiter.join(["Säure", "x y", "z"])] + [delimiter.join(map(cell, row)) for row in values])
+    table = load_bytes((text + newline).encode(encoding), "roundtrip.csv")
+    assert table.delimiter == delimiter and table.decimal == ("," if decimal_comma else ".")
+    assert table.columns == ["Säure", "x y", "z"]
+    np.testing.assert_array_equal(table.data, np.array(values, dtype=np.float64))
 
 
 def test_gzip_is_sniffed_after_decompression(files):
@@ -238,6 +270,16 @@ def test_xlsx_unknown_sheet_lists_the_sheets(files):
 def test_xlsx_empty_sheet(files):
     with pytest.raises(IngestError, match=r"^blocks\.xlsx: empty file: sheet 'Empty'"):
         load_table(files["blocks.xlsx"][1], sheet="Empty")
+
+
+def test_xlsx_title_row_and_error_cells(files):
+    table = load(files, "titled.xlsx")
+    assert table.columns == ["week", "berry_weight_g", "sugar_per_berry"]
+    assert any("title row" in n and "Harvest 2026" in n for n in table.notes)
+    np.testing.assert_array_equal(table.data[:, 0], np.arange(1, 26))
+    per_berry = info(table, "sugar_per_berry")  # 24 of 25 numbers: 96 % >= 95 %
+    assert (per_berry.non_numeric, per_berry.missing) == (1, 1) and np.isnan(table.data[4, 2])
+    assert any("#DIV/0!" in n for n in table.notes)
 
 
 def test_parquet(files):

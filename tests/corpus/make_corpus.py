@@ -68,6 +68,23 @@ def _xlsx_bytes() -> bytes:
     return out.getvalue()
 
 
+def _titled_xlsx_bytes() -> bytes:
+    """A title line above the header and an Excel error value among the numbers."""
+    import openpyxl
+
+    book = openpyxl.Workbook()
+    sheet = book.active
+    sheet.title = "Harvest"
+    sheet.append(["Harvest 2026, invented vineyard blocks"])
+    sheet.append([])
+    sheet.append(["week", "berry_weight_g", "sugar_per_berry"])
+    for week in range(1, 26):
+        sheet.append([week, 1.0 + week / 10, "#DIV/0!" if week == 5 else round(0.2 * week, 3)])
+    out = io.BytesIO()
+    book.save(out)
+    return out.getvalue()
+
+
 def _parquet_bytes() -> bytes:
     import pyarrow as pa
     import pyarrow.parquet as pq
@@ -141,6 +158,7 @@ def corpus() -> dict[str, tuple[str, bytes]]:
     good("wide_4x3000.csv", _lines([[f"sensor_{j}" for j in range(WIDE_SHAPE[1])]]
                                    + [[repr(float(v)) for v in row] for row in wide]))
     good("blocks.xlsx", _xlsx_bytes())
+    good("titled.xlsx", _titled_xlsx_bytes())
     good("blocks.parquet", _parquet_bytes())
     dates = [["sampled", "sugar", "acidity", "time_of_day"]]
     for i in range(6):
