@@ -1,26 +1,646 @@
-"""A plain-words verdict on the kind of dependence in a pair."""
+"""A plain-words verdict on the kind of dependence in a pair.
+
+The verdict combines what the panel of measures already says (adjusted
+significance and estimates) with three cheap extra looks at the data: the
+Gaussian yardstick (what a bivariate normal with the observed r would imply),
+normality of the marginals and of the pair, and the influence of single
+points on r. Rules are tried in order; the first that holds gives the label.
+
+Rule table (alpha is the significance level applied to the q-values):
+
+==  =========================  ==============================================================
+#   label                      holds when
+==  =========================  ==============================================================
+1   no evidence of dependence  fewer than 3 complete rows, or a constant column
+2   driven by a few points     Pearson's q < alpha; dropping the k most influential points
+                               (k = min(10, max(3, ceil(n/100)), n // 10), chosen greedily,
+                               each the one whose removal shrinks |r| most) leaves
+                               |r| < |r_full| / 2 and takes off at least 0.10; and no rank
+                               correlation backs r (none has q < alpha with a rank-equivalent
+                               |r| of at least |r_full| / 2); and dCor of the remaining points
+                               is not significant (its own unadjusted p >= alpha: a follow-up
+                               question about a pair already found dependent)
+3   no evidence of dependence  no measure with a q-value has q < alpha
+4   non-monotone               a dependence test (dcor, dcor_bc or xi) has q < alpha, and
+                               either no trend test (pearson, spearman, kendall) has, or the
+                               observed dCor exceeds the dCor a Gaussian with the stronger of
+                               |r| and the rank-equivalent r would have by more than 0.15
+5   monotone but curved        a rank correlation has q < alpha and its rank-equivalent r
+                               exceeds |r| by more than 0.10
+6   linear                     a trend test has q < alpha (what is left)
+==  =========================  ==============================================================
+
+The rank-equivalent r is the correlation a bivariate normal would need to
+show the observed rank correlation: 2 sin(pi rho_s / 6) from Spearman, or
+sin(pi tau / 2) from Kendall (Kendall 1948). Under a Gaussian it equals r; a
+monotone curve raises it above |r|, a few outliers leave it below.
+
+Missing measures. Significance comes only from ``q_values`` (or, when a
+measure has a result but no q-value, its unadjusted p-value, and a reason
+says so): a measure that was not tested never counts as significant.
+Estimates that the rules compare (r, Spearman's rho, dCor) are computed here
+with the project's own functions when ``results`` lacks them; they are only
+descriptive and the reasons say "computed here, not tested". A label that
+could have been different had a measure been tested (for example "no
+evidence" with only Pearson) gets a reason naming what is missing.
+
+Normality: both marginals "look normal" when their normality tests (Shapiro-
+Wilk, or D'Agostino-Pearson above 5000 rows) give p >= alpha; Henze-Zirkler
+"rejects" when its p < alpha. When both marginals look normal, r is near 0
+(|r| < 0.3 and either Pearson not significant or dCor above the Gaussian-
+implied dCor of r by more than 0.15) and a dependence test is significant, a
+reason says that zero correlation does not mean independence here because the
+pair is not jointly normal.
+
+Cost: O(n log n) (Spearman, dCor) plus O(k n) for the influence, and the
+Henze-Zirkler test of :func:`app.core.gaussian.fit_gaussian` (capped at
+``config.HZ_MAX_ROWS`` rows) unless a fit is passed in.
+"""
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+import math
+from dataclasses import dataclass, field
+from typing import Callable
 
 import numpy as np
 
+from .. import config
 from .results import TestResult
 
-__all__ = ["Pattern", "LABELS", "classify_pair"]
+__all__ = ["Pattern", "LABELS", "RULES", "Rule", "classify_pair", "influence_on_r", "rank_rank"]
 
 LABELS = ("linear", "monotone but curved", "non-monotone", "driven by a few points",
           "no evidence of dependence")
 
+TREND_MEASURES = ("pearson", "spearman", "kendall")
+RANK_MEASURES = ("spearman", "kendall")
+DEPENDENCE_MEASURES = ("dcor", "dcor_bc", "xi")
+
+# Thresholds of the rule table (see the module docstring). They are effect
+# sizes on the correlation scale, chosen well above the sampling noise of the
+# compared quantities at n of a few hundred (SE of r - rank-equivalent r is
+# about 0.03 at n = 300 for Gaussian data).
+FEW_POINTS_SHRINK = 0.5        # |r| after dropping k points below this fraction of |r|
+FEW_POINTS_MIN_DROP = 0.10     # ... and lower by at least this much
+CURVED_GAP = 0.10              # rank-equivalent r above |r| by more than this
+DCOR_EXCESS = 0.15             # observed dCor above the Gaussian-implied dCor by more than this
+CLOSE_DCOR = 0.05              # observed and Gaussian-implied dCor called "close" in the reasons
+NEAR_ZERO_R = 0.10             # |r| below this is called "near 0" in the reasons
+WEAK_R = 0.30                  # |r| below this can count as "near 0" (see _normality_reasons)
+MAX_DROPPED = 10
+
 
 @dataclass(frozen=True)
 class Pattern:
+    """The label of a pair, the reasons in plain words and the numbers behind them.
+
+    ``rule`` is the number of the rule in the table that fired; ``evidence``
+    holds the quantities the rules used (NaN where not available).
+    """
+
     label: str
     reasons: tuple[str, ...]
+    rule: int = 0
+    evidence: dict[str, float] = field(default_factory=dict)
+
+
+@dataclass
+class _Evidence:
+    n: int = 0
+    degenerate: str = ""
+    q: dict[str, float | None] = field(default_factory=dict)   # None = not tested
+    q_from_p: list[str] = field(default_factory=list)
+    est: dict[str, float] = field(default_factory=dict)
+    computed_here: list[str] = field(default_factory=list)
+    rank_equiv: float = math.nan
+    rank_source: str = ""
+    dcor_implied: float = math.nan
+    dcor_ref_implied: float = math.nan
+    k: int = 0
+    r_drop: float = math.nan
+    dcor_drop: float = math.nan
+    dcor_drop_p: float = math.nan
+    loo_max_change: float = math.nan
+    loo_r_at_max: float = math.nan
+    marg_p: tuple[float, float] = (math.nan, math.nan)
+    hz_p: float = math.nan
+    alpha: float = 0.05
+
+    def sig(self, m: str) -> bool | None:
+        q = self.q.get(m)
+        return None if q is None else bool(q < self.alpha)
+
+    def any_sig(self, names) -> bool:
+        return any(self.sig(m) for m in names)
+
+    def tested(self, names) -> list[str]:
+        return [m for m in names if self.q.get(m) is not None]
+
+    @property
+    def r(self) -> float:
+        return self.est.get("pearson", math.nan)
+
+
+@dataclass(frozen=True)
+class Rule:
+    number: int
+    label: str
+    when: str
+    holds: Callable[[_Evidence], bool]
+
+
+# -- private helpers --------------------------------------------------------
+
+def _fmt(v: float, digits: int = 2) -> str:
+    if v is None or not math.isfinite(v):
+        return "n/a"
+    return f"{v:.{digits}f}"
+
+
+def _fmt_q(q: float | None, name: str = "q") -> str:
+    if q is None or not math.isfinite(q):
+        return f"{name} n/a"
+    if q < 0.001:
+        return f"{name} < 0.001"
+    return f"{name} = {q:.3f}"
+
+
+_PRETTY = {"pearson": "Pearson r", "spearman": "Spearman rho", "kendall": "Kendall tau",
+           "dcor": "dCor", "dcor_bc": "bias-corrected dCor^2", "xi": "xi(x -> y)"}
+
+
+def _r_from_sums(dx: np.ndarray, dy: np.ndarray) -> float:
+    sxx, syy = float(dx @ dx), float(dy @ dy)
+    if sxx <= 0 or syy <= 0:
+        return math.nan
+    return float(dx @ dy) / math.sqrt(sxx * syy)
+
+
+def _loo_r(dx: np.ndarray, dy: np.ndarray) -> np.ndarray:
+    """r without row i, for every i at once, from the sums of the centred data.
+
+    With d = value - mean over the current m rows and S the centred sums,
+    dropping row i gives the cross-product (m-1) S_xy - m dx_i dy_i and the
+    sums of squares (m-1) S_xx - m dx_i^2, (m-1) S_yy - m dy_i^2 (each times
+    (m-1)), so all m leave-one-out correlations cost O(m).
+    """
+    m = dx.size
+    sxx, syy, sxy = float(dx @ dx), float(dy @ dy), float(dx @ dy)
+    num = (m - 1) * sxy - m * dx * dy
+    vx = (m - 1) * sxx - m * dx * dx
+    vy = (m - 1) * syy - m * dy * dy
+    with np.errstate(invalid="ignore", divide="ignore"):
+        out = num / np.sqrt(vx * vy)
+    out[~((vx > 0) & (vy > 0))] = np.nan
+    return out
+
+
+def _rank_equivalent(ev: _Evidence) -> tuple[float, str]:
+    rho_s = ev.est.get("spearman", math.nan)
+    if math.isfinite(rho_s):
+        return 2.0 * math.sin(math.pi * rho_s / 6.0), "spearman"
+    tau = ev.est.get("kendall", math.nan)
+    if math.isfinite(tau):
+        return math.sin(math.pi * tau / 2.0), "kendall"
+    return math.nan, ""
+
+
+def _marginals_normal(ev: _Evidence) -> bool:
+    return all(math.isfinite(p) and p >= ev.alpha for p in ev.marg_p)
+
+
+def _gather(x, y, results, q_values, alpha, fit) -> _Evidence:
+    from . import distance, gaussian, rank
+
+    ev = _Evidence(alpha=alpha)
+    xa = np.asarray(x, dtype=np.float64).ravel()
+    ya = np.asarray(y, dtype=np.float64).ravel()
+    keep = np.isfinite(xa) & np.isfinite(ya)
+    xa, ya = xa[keep], ya[keep]
+    ev.n = n = int(xa.size)
+    if n < config.MIN_ROWS:
+        ev.degenerate = f"only {n} complete rows: nothing can be said about dependence"
+        return ev
+    for name, v in (("x", xa), ("y", ya)):
+        if np.all(v == v[0]):
+            ev.degenerate = f"{name} is constant: it cannot depend on anything"
+            return ev
+
+    for m, res in results.items():
+        q = q_values.get(m) if q_values else None
+        if q is not None and math.isfinite(float(q)):
+            ev.q[m] = float(q)
+        elif res is not None and math.isfinite(res.p_value):
+            ev.q[m] = float(res.p_value)
+            ev.q_from_p.append(m)
+        if res is not None and math.isfinite(res.estimate):
+            ev.est[m] = float(res.estimate)
+    for m, q in (q_values or {}).items():
+        if m not in ev.q and q is not None and math.isfinite(float(q)):
+            ev.q[m] = float(q)
+
+    # Estimates the rules compare, computed here when the panel lacks them.
+    dx, dy = xa - xa.mean(), ya - ya.mean()
+    if "pearson" not in ev.est:
+        ev.est["pearson"] = _r_from_sums(dx, dy)
+        ev.computed_here.append("pearson")
+    if "spearman" not in ev.est and "kendall" not in ev.est:
+        ev.est["spearman"] = float(rank.spearman(xa, ya).estimate)
+        ev.computed_here.append("spearman")
+    if "dcor" not in ev.est:
+        ev.est["dcor"] = float(distance.dcor(xa, ya).estimate)
+        ev.computed_here.append("dcor")
+    ev.rank_equiv, ev.rank_source = _rank_equivalent(ev)
+    r = ev.r
+    if math.isfinite(r):
+        ev.dcor_implied = float(distance.gaussian_dcor(max(-1.0, min(1.0, r))))
+        ref = max(abs(r), abs(ev.rank_equiv)) if math.isfinite(ev.rank_equiv) else abs(r)
+        ev.dcor_ref_implied = float(distance.gaussian_dcor(min(1.0, ref)))
+
+    # Influence of single points and of the k most influential ones on r.
+    loo = _loo_r(dx, dy)
+    if math.isfinite(r) and np.isfinite(loo).any():
+        change = np.abs(loo - r)
+        i = int(np.nanargmax(change))
+        ev.loo_max_change, ev.loo_r_at_max = float(change[i]), float(loo[i])
+    ev.k = min(MAX_DROPPED, max(3, math.ceil(n / 100)), n // 10)
+    if ev.k >= 1 and math.isfinite(r):
+        dropped, path = influence_on_r(xa, ya, ev.k)
+        ev.r_drop = float(path[-1])
+        if _r_collapses(ev):
+            rest = np.ones(n, dtype=bool)
+            rest[dropped] = False
+            # A follow-up question about a pair already found dependent, so
+            # the unadjusted p-value of the remaining points answers it.
+            left = distance.dcor(xa[rest], ya[rest])
+            ev.dcor_drop, ev.dcor_drop_p = float(left.estimate), float(left.p_value)
+
+    if fit is None:
+        fit = gaussian.fit_gaussian(xa, ya)
+    ev.marg_p = (fit.marginal_normality.get("x", TestResult(math.nan, math.nan, "")).p_value,
+                 fit.marginal_normality.get("y", TestResult(math.nan, math.nan, "")).p_value)
+    ev.hz_p = float(fit.normality.p_value)
+    return ev
+
+
+# -- rule predicates ----------------------------------------------------------
+
+def _rule_degenerate(ev: _Evidence) -> bool:
+    return bool(ev.degenerate)
+
+
+def _r_collapses(ev: _Evidence) -> bool:
+    r = ev.r
+    if not ev.sig("pearson") or not (math.isfinite(r) and math.isfinite(ev.r_drop)):
+        return False
+    return abs(ev.r_drop) < FEW_POINTS_SHRINK * abs(r) and abs(r) - abs(ev.r_drop) >= FEW_POINTS_MIN_DROP
+
+
+def _rule_few_points(ev: _Evidence) -> bool:
+    r = ev.r
+    collapses = _r_collapses(ev)
+    backed = (ev.any_sig(RANK_MEASURES) and math.isfinite(ev.rank_equiv)
+              and abs(ev.rank_equiv) >= FEW_POINTS_SHRINK * abs(r))
+    survives = math.isfinite(ev.dcor_drop_p) and ev.dcor_drop_p < ev.alpha
+    return collapses and not backed and not survives
+
+
+def _rule_nothing(ev: _Evidence) -> bool:
+    return not any(ev.sig(m) for m in ev.q)
+
+
+def _rule_non_monotone(ev: _Evidence) -> bool:
+    if not ev.any_sig(DEPENDENCE_MEASURES):
+        return False
+    if not ev.any_sig(TREND_MEASURES):
+        return True
+    d = ev.est.get("dcor", math.nan)
+    return math.isfinite(d) and math.isfinite(ev.dcor_ref_implied) and d - ev.dcor_ref_implied > DCOR_EXCESS
+
+
+def _rule_curved(ev: _Evidence) -> bool:
+    return (ev.any_sig(RANK_MEASURES) and math.isfinite(ev.rank_equiv) and math.isfinite(ev.r)
+            and abs(ev.rank_equiv) - abs(ev.r) > CURVED_GAP)
+
+
+def _rule_linear(ev: _Evidence) -> bool:
+    return ev.any_sig(TREND_MEASURES)
+
+
+RULES: tuple[Rule, ...] = (
+    Rule(1, "no evidence of dependence", "fewer than 3 complete rows or a constant column", _rule_degenerate),
+    Rule(2, "driven by a few points",
+         "Pearson significant; dropping the k most influential points halves |r| (and removes >= 0.10); "
+         "no rank correlation backs it; dCor of the remaining points not significant", _rule_few_points),
+    Rule(3, "no evidence of dependence", "no tested measure has q < alpha", _rule_nothing),
+    Rule(4, "non-monotone",
+         "a dependence test (dcor, dcor_bc, xi) significant and either no trend test is, or dCor exceeds "
+         "the Gaussian-implied dCor of max(|r|, rank-equivalent r) by more than 0.15", _rule_non_monotone),
+    Rule(5, "monotone but curved", "a rank correlation significant and its rank-equivalent r exceeds |r| by > 0.10",
+         _rule_curved),
+    Rule(6, "linear", "a trend test (pearson, spearman, kendall) significant", _rule_linear),
+)
+
+
+# -- reasons ------------------------------------------------------------------
+
+def _describe(ev: _Evidence, m: str) -> str:
+    est = ev.est.get(m, math.nan)
+    text = f"{_PRETTY.get(m, m)} = {_fmt(est)}"
+    if m in ev.computed_here:
+        return text + " (computed here, not tested)"
+    q = ev.q.get(m)
+    return text + (f" ({_fmt_q(q, 'p' if m in ev.q_from_p else 'q')})" if q is not None else " (not tested)")
+
+
+def _trend_reasons(ev: _Evidence) -> list[str]:
+    out = []
+    r, req = ev.r, ev.rank_equiv
+    rank_name = ev.rank_source or "spearman"
+    pair = f"{_describe(ev, 'pearson')} and {_describe(ev, rank_name)}"
+    if math.isfinite(r) and math.isfinite(req):
+        if abs(abs(req) - abs(r)) <= CURVED_GAP:
+            out.append(f"{pair} agree (a Gaussian with this r would give {_PRETTY[rank_name]} = "
+                       f"{_fmt(_implied_rank(r, rank_name))})")
+        elif abs(req) > abs(r):
+            out.append(f"{pair}: the ranks are more strongly related than the values, as for a monotone curve "
+                       f"(the rank correlation corresponds to r = {_fmt(req)} under a Gaussian)")
+        else:
+            out.append(f"{pair}: the values are more strongly related than their ranks "
+                       f"(the rank correlation corresponds to r = {_fmt(req)} under a Gaussian)")
+    else:
+        out.append(pair)
+    return out
+
+
+def _implied_rank(r: float, name: str) -> float:
+    if name == "kendall":
+        return 2.0 / math.pi * math.asin(r)
+    return 6.0 / math.pi * math.asin(r / 2.0)
+
+
+def _dcor_reason(ev: _Evidence) -> str | None:
+    d = ev.est.get("dcor", math.nan)
+    if not (math.isfinite(d) and math.isfinite(ev.dcor_implied)):
+        return None
+    text = (f"{_describe(ev, 'dcor')}; a Gaussian with r = {_fmt(ev.r)} would give dCor = "
+            f"{_fmt(ev.dcor_implied)}")
+    if d - ev.dcor_ref_implied > DCOR_EXCESS:
+        text += ", so the dependence is stronger than any straight-line or monotone summary shows"
+    elif abs(d - ev.dcor_implied) <= CLOSE_DCOR:
+        text += " (close)"
+    return text
+
+
+def _influence_reasons(ev: _Evidence, always: bool) -> list[str]:
+    out = []
+    if math.isfinite(ev.loo_max_change) and (always or ev.loo_max_change > 0.05):
+        out.append(f"Dropping the single most influential point moves r from {_fmt(ev.r)} to "
+                   f"{_fmt(ev.loo_r_at_max)}")
+    if math.isfinite(ev.r_drop) and (always or abs(ev.r) - abs(ev.r_drop) >= FEW_POINTS_MIN_DROP):
+        text = (f"Dropping the {ev.k} most influential points (of {ev.n}) moves r from {_fmt(ev.r)} to "
+                f"{_fmt(ev.r_drop)}")
+        if math.isfinite(ev.dcor_drop_p):
+            text += (f"; without them dCor = {_fmt(ev.dcor_drop)} ({_fmt_q(ev.dcor_drop_p, 'p')}, unadjusted)")
+        out.append(text)
+    return out
+
+
+def _normality_reasons(ev: _Evidence) -> list[str]:
+    out = []
+    r = ev.r
+    d = ev.est.get("dcor", math.nan)
+    dep = [m for m in DEPENDENCE_MEASURES if ev.sig(m)]
+    # Under a Pearson t-test that assumes independence a dependent but
+    # uncorrelated pair often shows a "significant" small r, so a weak r that
+    # leaves most of the dCor unexplained counts as near 0 as well.
+    near_zero = math.isfinite(r) and abs(r) < WEAK_R and (
+        ev.sig("pearson") is not True
+        or (math.isfinite(d) and math.isfinite(ev.dcor_implied) and d - ev.dcor_implied > DCOR_EXCESS))
+    hz = _fmt_q(ev.hz_p, "p")
+    if _marginals_normal(ev) and near_zero and dep:
+        m = dep[0]
+        size = "near 0" if abs(r) < NEAR_ZERO_R else "weak"
+        head = f"Both marginals look normal and r = {_fmt(r)} is {size}, yet {_describe(ev, m)} shows dependence"
+        if math.isfinite(ev.hz_p) and ev.hz_p < ev.alpha:
+            out.append(f"{head}: the pair is not jointly normal (Henze-Zirkler {hz}), so zero correlation "
+                       f"does not mean independence here")
+        else:
+            out.append(f"{head}: the pair cannot be jointly normal (although Henze-Zirkler, {hz}, does not "
+                       f"reject it), so zero correlation does not mean independence here")
+        return out
+    if math.isfinite(ev.hz_p):
+        if ev.hz_p < ev.alpha:
+            out.append(f"Henze-Zirkler rejects joint normality ({hz}): ellipses and the Gaussian band may mislead")
+        else:
+            out.append(f"Henze-Zirkler does not reject joint normality ({hz}): the Gaussian picture fits")
+    return out
+
+
+def _missing_reasons(ev: _Evidence, label: str) -> list[str]:
+    out = []
+    if ev.q_from_p:
+        out.append("No q-value for " + ", ".join(ev.q_from_p) + ": unadjusted p-values used")
+    untested_dep = [m for m in ("dcor", "xi") if ev.q.get(m) is None]
+    untested_rank = [m for m in RANK_MEASURES if ev.q.get(m) is None]
+    if label in ("no evidence of dependence", "linear", "monotone but curved") and len(untested_dep) == 2:
+        out.append("No dependence test (dcor, xi) was run, so a non-monotone dependence could go unseen")
+    if label in ("no evidence of dependence", "linear") and len(untested_rank) == 2:
+        out.append("No rank correlation was tested, so a monotone curve cannot be told from a line")
+    return out
+
+
+def _reasons(rule: Rule, ev: _Evidence) -> list[str]:
+    if rule.number == 1:
+        return [ev.degenerate]
+    label = rule.label
+    out: list[str] = []
+    if label == "driven by a few points":
+        out += _influence_reasons(ev, always=True)
+        out += _trend_reasons(ev)
+        out.append("r rests on a handful of points; look at them before trusting it")
+    elif label == "no evidence of dependence":
+        tested = sorted(ev.q, key=lambda m: list(_PRETTY).index(m) if m in _PRETTY else 99)
+        if tested:
+            out.append("No measure is significant after adjustment: "
+                       + "; ".join(_describe(ev, m) for m in tested))
+        else:
+            out.append("No measure was tested")
+        d = ev.est.get("dcor", math.nan)
+        if "dcor" in ev.computed_here and math.isfinite(d) and d - ev.dcor_implied > DCOR_EXCESS:
+            out.append(f"dCor = {_fmt(d)} (computed here, not tested) is well above the {_fmt(ev.dcor_implied)} "
+                       f"a Gaussian with r = {_fmt(ev.r)} implies; test dcor to check")
+    elif label == "non-monotone":
+        dep = [m for m in DEPENDENCE_MEASURES if ev.sig(m)]
+        out.append("Dependence is significant: " + "; ".join(_describe(ev, m) for m in dep))
+        if not ev.any_sig(TREND_MEASURES):
+            trend = ev.tested(TREND_MEASURES)
+            out.append("but no trend is: " + ("; ".join(_describe(ev, m) for m in trend) if trend
+                                               else "no trend measure was tested")
+                       + ", so y rises and falls with x (or spreads with it)")
+        dr = _dcor_reason(ev)
+        if dr:
+            out.append(dr)
+    else:
+        out += _trend_reasons(ev)
+        dr = _dcor_reason(ev)
+        if dr:
+            out.append(dr)
+        if label == "linear" and math.isfinite(ev.loo_max_change) and ev.loo_max_change <= 0.05:
+            out.append(f"r is stable: no single point moves it by more than {_fmt(ev.loo_max_change, 3)}")
+        out += _influence_reasons(ev, always=False)
+    out += _normality_reasons(ev)
+    out += _missing_reasons(ev, label)
+    return out
+
+
+# -- public functions -------------------------------------------------------
+
+def influence_on_r(x: np.ndarray, y: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
+    """Greedily drop the k points whose removal shrinks |r| most.
+
+    Parameters
+    ----------
+    x, y : array_like, 1-D, complete
+    k : int
+        Number of points to drop (at most n - 3).
+
+    Returns
+    -------
+    dropped : ndarray of int, shape (k,)
+        Indices of the dropped points, in the order they were chosen.
+    r_path : ndarray, shape (k + 1,)
+        r on all points, then after each removal.
+
+    Notes
+    -----
+    Each step evaluates all leave-one-out correlations at once in O(n) (see
+    ``_loo_r``), so the whole path costs O(k n). Greedy removal matters when
+    outliers sit together: one of three far points hardly moves r while the
+    other two remain, but the path removes them one after the other.
+
+    References
+    ----------
+    Belsley, Kuh & Welsch (1980) Regression Diagnostics, ch. 2 (deletion
+    diagnostics); common practice for the greedy multi-point version.
+
+    Examples
+    --------
+    >>> rng = np.random.default_rng(0)
+    >>> x, y = rng.normal(size=200), rng.normal(size=200)
+    >>> x[:3] = y[:3] = [10.0, 11.0, 12.0]
+    >>> dropped, path = influence_on_r(x, y, 3)
+    >>> sorted(dropped.tolist()), bool(path[0] > 0.5 > abs(path[-1]))
+    ([0, 1, 2], True)
+    """
+    xa = np.asarray(x, dtype=np.float64).ravel()
+    ya = np.asarray(y, dtype=np.float64).ravel()
+    n = xa.size
+    k = int(max(0, min(k, n - 3)))
+    active = np.arange(n)
+    dropped = []
+    dx, dy = xa - xa.mean(), ya - ya.mean()
+    path = [_r_from_sums(dx, dy)]
+    for _ in range(k):
+        xs, ys = xa[active], ya[active]
+        dx, dy = xs - xs.mean(), ys - ys.mean()
+        loo = np.abs(_loo_r(dx, dy))
+        if not np.isfinite(loo).any():
+            break
+        j = int(np.nanargmin(loo))
+        dropped.append(int(active[j]))
+        active = np.delete(active, j)
+        xs, ys = xa[active], ya[active]
+        path.append(_r_from_sums(xs - xs.mean(), ys - ys.mean()))
+    return np.asarray(dropped, dtype=np.int64), np.asarray(path)
+
+
+def rank_rank(x: np.ndarray, y: np.ndarray, *, scale: str = "unit") -> tuple[np.ndarray, np.ndarray]:
+    """Rank-rank transform of a pair for the pair view.
+
+    scale "unit": midranks / (n + 1), in (0, 1) (the empirical copula);
+    "normal": the standard normal quantiles of those (normal scores), where a
+    Gaussian copula looks like an ordinary Gaussian cloud.
+
+    Examples
+    --------
+    >>> u, v = rank_rank(np.array([3., 1., 2.]), np.array([1., 1., 5.]))
+    >>> u.tolist(), v.tolist()
+    ([0.75, 0.25, 0.5], [0.375, 0.375, 0.75])
+    """
+    from scipy.special import ndtri
+
+    from .rank import midranks
+
+    xa = np.asarray(x, dtype=np.float64).ravel()
+    ya = np.asarray(y, dtype=np.float64).ravel()
+    n = xa.size
+    u = midranks(xa) / (n + 1.0)
+    v = midranks(ya) / (n + 1.0)
+    if scale == "unit":
+        return u, v
+    if scale == "normal":
+        return ndtri(u), ndtri(v)
+    raise ValueError(f"unknown scale {scale!r}; choose 'unit' or 'normal'")
 
 
 def classify_pair(x: np.ndarray, y: np.ndarray, results: dict[str, TestResult],
-                  q_values: dict[str, float], *, alpha: float = 0.05) -> Pattern:
-    """Combine adjusted significance, estimates, Gaussian gaps and influence into a label."""
-    raise NotImplementedError
+                  q_values: dict[str, float], *, alpha: float = 0.05, fit=None) -> Pattern:
+    """Combine adjusted significance, estimates, Gaussian gaps and influence into a label.
+
+    Parameters
+    ----------
+    x, y : array_like, 1-D
+        The pair (rows with NaN are dropped).
+    results : dict
+        Measure name -> TestResult, any subset of pearson, spearman, kendall,
+        dcor, dcor_bc, xi (xi in the direction x -> y).
+    q_values : dict
+        Measure name -> q-value adjusted over the analysis (for a single pair
+        the p-value itself).
+    alpha : float
+        Level at which a q-value counts as significant.
+    fit : GaussianFit, optional
+        The pair's Gaussian fit if already computed (saves the Henze-Zirkler
+        test); computed here otherwise.
+
+    Returns
+    -------
+    Pattern
+        ``label`` from :data:`LABELS`, ``reasons`` in plain words, the rule
+        number and the evidence used.
+
+    Notes
+    -----
+    The rules are those of :data:`RULES` (table in the module docstring),
+    tried in order.
+
+    References
+    ----------
+    Szekely, Rizzo & Bakirov (2007) doi:10.1214/009053607000000505 (Gaussian
+    dCor); Kendall (1948) Rank Correlation Methods (rank correlations of the
+    normal); Henze & Zirkler (1990) doi:10.1080/03610929008830400.
+
+    Examples
+    --------
+    >>> from app.core import linear, rank
+    >>> rng = np.random.default_rng(1)
+    >>> x = rng.normal(size=300)
+    >>> y = 2 * x + rng.normal(size=300)
+    >>> res = {"pearson": linear.pearson(x, y), "spearman": rank.spearman(x, y)}
+    >>> classify_pair(x, y, res, {m: r.p_value for m, r in res.items()}).label
+    'linear'
+    """
+    ev = _gather(x, y, results or {}, q_values or {}, float(alpha), fit)
+    for rule in RULES:
+        if rule.holds(ev):
+            break
+    evidence = {
+        "n": float(ev.n), "r": ev.r, "rank_equivalent_r": ev.rank_equiv,
+        "dcor": ev.est.get("dcor", math.nan), "dcor_gaussian": ev.dcor_implied,
+        "loo_max_change": ev.loo_max_change, "k_dropped": float(ev.k), "r_after_drop": ev.r_drop,
+        "dcor_after_drop": ev.dcor_drop, "dcor_after_drop_p": ev.dcor_drop_p,
+        "hz_p": ev.hz_p, "x_normality_p": ev.marg_p[0], "y_normality_p": ev.marg_p[1],
+    }
+    return Pattern(rule.label, tuple(_reasons(rule, ev)), rule.number, evidence)
