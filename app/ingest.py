@@ -139,6 +139,7 @@ _SNIFF_CHARS = 1 << 16
 _SNIFF_RECORDS = 200
 _PREVIEW_ROWS = 20
 _CATEGORICAL_MAX_DISTINCT = 50
+_FIELD_SIZE_LIMIT = 2**31 - 1
 
 
 def _one_line(text: str) -> str:
@@ -373,7 +374,7 @@ def _records(text: str, delimiter: str):
 
 
 def _records_with_end(text: str, delimiter: str):
-    reader = csv.reader(io.StringIO(text, newline=""), delimiter=delimiter)
+    reader = csv.reader(io.StringIO(text, newline=""), delimiter=delimiter, skipinitialspace=True)
     previous = 0
     for record in reader:
         start = previous + 1
@@ -467,6 +468,9 @@ def _read_text_table(text: str, base: str, notes: list[str]):
         raise _fail(base, "binary or not a table: the content is mostly control characters",
                     "choose the .csv, .xlsx or .parquet file that holds the table")
 
+    # one long quoted cell (a pasted log) must not trip the csv module's 128 KiB default
+    if csv.field_size_limit() < _FIELD_SIZE_LIMIT:
+        csv.field_size_limit(_FIELD_SIZE_LIMIT)
     delimiter = _sniff_delimiter(text)
     try:
         head = list(itertools.islice(_records(text, delimiter), _SNIFF_RECORDS + 1))
@@ -503,6 +507,7 @@ def _read_text_table(text: str, base: str, notes: list[str]):
                 io.StringIO(text[body_start:]), sep=delimiter, header=None, names=names, index_col=False,
                 nrows=config.MAX_ROWS + 1, decimal="," if decimal_comma else ".",
                 float_precision="round_trip", low_memory=False, skip_blank_lines=True,
+                skipinitialspace=True,  # so `a, "b, c"` is two cells, as a reader of the file means
             )
     except pd.errors.ParserError as exc:
         message = _one_line(exc)
@@ -519,7 +524,7 @@ def _read_text_table(text: str, base: str, notes: list[str]):
                     "check the quotes and delimiters near that line") from exc
 
     beyond = frame.pop("__beyond_header__")
-    if beyond.dtype == object or str(beyond.dtype) == "str":
+    if _is_text_dtype(beyond.dtype):
         beyond = beyond.where(~_cell_missing(beyond))
     if beyond.notna().any():
         long_row = _find_long_row(text, delimiter, width)
@@ -571,8 +576,10 @@ def _read_xlsx(content: bytes, base: str, sheet: str | None, notes: list[str]):
         elif sheet in sheets:
             chosen = sheet
         else:
+            close = [n for n in sheets if n.strip().lower() == str(sheet).strip().lower()]
             raise _fail(base, f"has no sheet {sheet!r} (sheets: {_name_list(sheets, 20)})",
-                        "pick one of those sheets")
+                        f"did you mean {close[0]!r}? sheet names are case-sensitive" if close
+                        else "pick one of those sheets")
         worksheet = book[chosen]
         if not hasattr(worksheet, "iter_rows"):
             raise _fail(base, f"sheet {chosen!r} is a chart, not a table", "pick a sheet that holds the table")
@@ -880,8 +887,9 @@ def _build_table(base: str, sha: str, originals: list[str], columns: list, previ
             notes.append(f"column {name!r}: {_plural(n_inf, 'infinite value')} counted as missing")
         if finite.size == 0:
             reason = "all values missing"
-            if n_inf or t.non_numeric:
-                reason += f" ({_plural(n_inf, 'infinite value')}, {_plural(t.non_numeric, 'non-number')})"
+            parts = [_plural(n, word) for n, word in ((n_inf, "infinite value"), (t.non_numeric, "non-number")) if n]
+            if parts:
+                reason += f" ({', '.join(parts)})"
             info.append(ColumnInfo(name, original_text, "empty", False, reason, n_missing, n_inf, 0,
                                    non_numeric=t.non_numeric))
             continue

@@ -105,6 +105,14 @@ def test_ambiguous_thousands_comma_is_not_taken_as_decimal():
         load_bytes(content, "thousands.csv")
 
 
+def test_spaces_after_delimiters_and_quoted_cells():
+    table = load_bytes(b'block, note, sugar, acidity\nA, "dry, windy", 18.1, 7.2\nB, "wet", 19.4, 6.8\n'
+                       b'C, calm, 21.2, 6.1\n', "spaced.csv")
+    assert table.columns == ["sugar", "acidity"]
+    assert table.preview[0][:2] == ["A", "dry, windy"]
+    np.testing.assert_array_equal(table.data, [[18.1, 7.2], [19.4, 6.8], [21.2, 6.1]])
+
+
 def test_utf8_bom_and_non_ascii_names(files):
     table = load(files, "utf8_bom.csv")
     assert table.encoding == "UTF-8 with BOM"
@@ -265,6 +273,11 @@ def test_xlsx_unknown_sheet_lists_the_sheets(files):
     message = str(caught.value)
     assert message.startswith("blocks.xlsx: ") and "\n" not in message
     assert "'Summary'" in message and "'Blocks', 'Weekly', 'Empty'" in message
+
+
+def test_xlsx_sheet_name_in_the_wrong_case_gets_a_hint(files):
+    with pytest.raises(IngestError, match=r"did you mean 'Weekly'\?"):
+        load_table(files["blocks.xlsx"][1], sheet="weekly")
 
 
 def test_xlsx_empty_sheet(files):
