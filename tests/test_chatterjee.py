@@ -219,3 +219,32 @@ def test_level_small_n_permutation_default():
     # SE 0.004 at 5%: 0.035..0.065 is 3.8 SE
     assert 0.035 <= np.mean(p <= 0.05) <= 0.065
     assert np.mean(p <= 0.01) <= 0.017
+
+
+def test_invariant_under_increasing_transforms():
+    # xi_n depends on the data only through ranks (Chatterjee 2021, Section 1).
+    rng = np.random.default_rng(61)
+    x, y = rng.normal(size=300), rng.normal(size=300)
+    y = y + np.sin(3 * x)
+    base = xi(x, y)
+    other = xi(np.exp(x), y**3 + 5 * y)
+    assert other.estimate == pytest.approx(base.estimate, abs=1e-12)
+    assert other.p_value == pytest.approx(base.p_value, abs=1e-12)
+    assert other.estimate == pytest.approx(stats.chatterjeexi(np.exp(x), y**3 + 5 * y).statistic, abs=1e-12)
+
+
+def test_permutations_do_not_change_tie_breaking():
+    rng = np.random.default_rng(62)
+    x = rng.integers(0, 4, 80).astype(float)
+    y = x + rng.normal(size=80)
+    for s in range(5):
+        assert xi(x, y, seed=s).estimate == xi(x, y, seed=s, permutations=99).estimate
+
+
+def test_bad_arguments():
+    with pytest.raises(ValueError):
+        xi(np.arange(5.0), np.arange(4.0))
+    with pytest.raises(ValueError):
+        xi(np.arange(5.0), np.arange(5.0), method="exact")
+    with pytest.raises(ValueError):
+        xi(np.arange(5.0), np.arange(5.0), permutations=-1)

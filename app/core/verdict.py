@@ -30,6 +30,10 @@ Rule table (alpha is the significance level applied to the q-values):
 6   linear                     a trend test has q < alpha (what is left)
 ==  =========================  ==============================================================
 
+The thresholds (0.5, 0.10, 0.15) are our own choices on the correlation
+scale, set well above the sampling noise at a few hundred rows and checked on
+the synthetic pairs of tests/test_verdict.py; they are not from a paper.
+
 The rank-equivalent r is the correlation a bivariate normal would need to
 show the observed rank correlation: 2 sin(pi rho_s / 6) from Spearman, or
 sin(pi tau / 2) from Kendall (Kendall 1948). Under a Gaussian it equals r; a
