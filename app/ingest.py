@@ -27,6 +27,15 @@ Rules a user can rely on (also stated in the README):
 * A row with more fields than the header is an error naming its line (one trailing empty
   field, from a delimiter at the end of the line, is tolerated).  A row with fewer fields
   than the header has its last cells missing.  Rows with every cell empty are dropped.
+  Spaces after a delimiter are ignored, so ``a, "b, c"`` is two cells.
+* Workbooks: the first non-empty row is the header, except that a lone text cell above a
+  row of names is skipped as a title (with a note).  Formula cells give the value Excel
+  cached when it saved the file; a workbook written by a program that caches nothing has
+  those cells missing.
+* Categorical or text (both left out): at most 50 distinct values and at most half as many
+  distinct values as filled cells is "categorical", anything else "text".  Cells that all
+  look like dates or times (ISO 8601, 31.05.2024, 5/31/24, 31 May 2024, 12:30) make a
+  datetime column, also left out.
 """
 
 from __future__ import annotations
@@ -202,7 +211,7 @@ def _zip_kind(content: bytes) -> str:
     try:
         with zipfile.ZipFile(io.BytesIO(content)) as zf:
             names = zf.namelist()
-    except (zipfile.BadZipFile, OSError, ValueError, EOFError):
+    except Exception:  # noqa: BLE001 - a damaged directory (bad version, bad name bytes) is still "a zip"
         return "zip"
     if "xl/workbook.xml" in names:
         return "xlsx"
