@@ -1,0 +1,368 @@
+"""Background analyses: a queue in the server, one child process per running analysis.
+
+The web server never computes a pair table itself. :class:`JobManager` keeps a
+queue (at most ``config.MAX_CONCURRENT_ANALYSES`` run at once) and starts a
+child process per analysis: a fresh interpreter running ``python -m app.jobs``
+(never a fork of the threaded server, and independent of the server's main
+module). The child (:func:`run_job`) reads the
+dataset's bytes from the store, calls :func:`app.engine.run_analysis` with a
+progress callback that writes to SQLite and a cancel callback that reads the
+analysis's cancel flag, then computes per-pair verdicts within a time budget
+and writes the results and the ``done`` status in one transaction.
+
+States: ``queued -> running -> done | failed | cancelled``; ``interrupted``
+for analyses whose server died (set at the next start-up) or that were still
+running when the server shut down.
+
+A cancel request sets a flag; the child stops at its next check (between
+tiles). If it has not stopped after ``config.CANCEL_GRACE_SECONDS`` the
+manager terminates it and records ``cancelled``.
+"""
+
+from __future__ import annotations
+
+import math
+import argparse
+import os
+import secrets
+import subprocess
+import sys
+import threading
+import time
+import traceback
+
+import numpy as np
+
+from . import config
+from .store import Store
+
+__all__ = ["JobManager", "run_job", "compute_verdicts", "VERDICT_FRACTION"]
+
+# Share of the progress bar given to the verdict pass after the pair table.
+VERDICT_FRACTION = 0.1
+_CANCEL_GRACE = float(getattr(config, "CANCEL_GRACE_SECONDS", 3.0))
+_VERDICT_BUDGET = float(getattr(config, "VERDICT_BUDGET_SECONDS", 20.0))
+
+
+def _pair_key(x: str, y: str) -> str:
+    return f"{x}\u0000{y}"
+
+
+def compute_verdicts(data: np.ndarray, names: list[str], table, *, budget_seconds: float = _VERDICT_BUDGET,
+                     progress=None, cancel=None) -> dict:
+    """Verdict label per pair (``"x\\0y"`` keys) for univariate pairs, until the time budget runs out.
+
+    Returns ``{"labels": {key: label}, "complete": bool, "seconds": float, "per_pair_ms": float}``.
+    Pairs not reached get their verdict when their pair view opens.
+    """
+    from .core.results import TestResult
+    from .core.verdict import classify_pair
+
+    started = time.perf_counter()
+    position = {n: i for i, n in enumerate(names)}
+    seen: dict[tuple[str, str], dict] = {}
+    for r in table.rows:
+        if r.x in position and r.y in position:
+            key = (r.x, r.y) if position[r.x] < position[r.y] else (r.y, r.x)
+            seen.setdefault(key, {})
+    pairs = list(seen)
+    labels: dict[str, str] = {}
+    complete = True
+    last_report = 0.0
+    for k, (x, y) in enumerate(pairs):
+        if time.perf_counter() - started > budget_seconds:
+            complete = False
+            break
+        if cancel is not None and k % 16 == 0 and cancel():
+            from .engine import AnalysisCancelled
+
+            raise AnalysisCancelled("analysis cancelled")
+        rows = table.lookup(x, y)
+        results = {m: TestResult(r.estimate, r.p_value, r.method, r.ci_low, r.ci_high, r.n, r.note)
+                   for m, r in rows.items()}
+        q_values = {m: float(r.q_value) for m, r in rows.items()}
+        xv, yv = data[:, position[x]], data[:, position[y]]
+        keep = ~np.isnan(xv) & ~np.isnan(yv)
+        try:
+            pattern = classify_pair(xv[keep], yv[keep], results, q_values, alpha=config.SIGNIFICANCE_LEVEL)
+            labels[_pair_key(x, y)] = pattern.label
+        except Exception:  # noqa: BLE001 - one odd pair must not fail the analysis; its view shows why
+            labels[_pair_key(x, y)] = ""
+        now = time.perf_counter()
+        if progress is not None and now - last_report > 0.25:
+            last_report = now
+            progress((k + 1) / max(len(pairs), 1))
+    seconds = time.perf_counter() - started
+    done = max(len(labels), 1)
+    return {"labels": labels, "complete": complete and len(labels) == len(pairs), "seconds": seconds,
+            "per_pair_ms": 1000.0 * seconds / done}
+
+
+class _Throttle:
+    """Calls through at most every ``interval`` seconds (the last value wins)."""
+
+    def __init__(self, interval: float) -> None:
+        self.interval = interval
+        self.last = 0.0
+
+    def ready(self) -> bool:
+        now = time.monotonic()
+        if now - self.last >= self.interval:
+            self.last = now
+            return True
+        return False
+
+
+def run_job(data_dir: str, analysis_id: str, *, workers: int | None = None, cluster: str | None = None) -> str:
+    """Run one queued analysis to its end in this process; returns the final status.
+
+    Used as the child-process entry point, and directly by tests.
+    """
+    from .engine import AnalysisCancelled, AnalysisSettings, SettingsError, run_analysis
+    from .ingest import IngestError, load_bytes
+
+    store = Store(data_dir)
+    try:
+        if not store.claim(analysis_id, os.getpid()):
+            row = store.get_analysis(analysis_id)
+            return row.status if row else "failed"
+        row = store.get_analysis(analysis_id)
+        assert row is not None
+        cancel_throttle = _Throttle(0.2)
+        cancel_state = {"flag": False}
+
+        def cancel() -> bool:
+            if not cancel_state["flag"] and cancel_throttle.ready():
+                cancel_state["flag"] = store.cancel_requested(analysis_id)
+            return cancel_state["flag"]
+
+        progress_throttle = _Throttle(0.25)
+
+        def progress(fraction: float, seconds_left: float) -> None:
+            if progress_throttle.ready() or fraction >= 1.0:
+                left = seconds_left if math.isfinite(seconds_left) else None
+                store.update_progress(analysis_id, fraction * (1 - VERDICT_FRACTION), left)
+
+        try:
+            dataset = store.get_dataset(row.dataset_id)
+            if dataset is None:
+                raise SettingsError("the dataset of this analysis is gone")
+            store.update_progress(analysis_id, 0.0, None, phase="reading data")
+            table = load_bytes(store.read_blob(dataset.sha256), dataset.name)
+            settings = AnalysisSettings.from_dict(row.settings)
+            store.update_progress(analysis_id, 0.0, None, phase="pairs")
+            pair_table = run_analysis(table.data, table.columns, settings, workers=workers, cluster=cluster,
+                                      progress=progress, cancel=cancel)
+            store.update_progress(analysis_id, 1 - VERDICT_FRACTION, None, phase="verdicts")
+
+            def verdict_progress(fraction: float) -> None:
+                store.update_progress(analysis_id, 1 - VERDICT_FRACTION + VERDICT_FRACTION * fraction, None)
+
+            verdicts = compute_verdicts(table.data, table.columns, pair_table, progress=verdict_progress,
+                                        cancel=cancel)
+            if cancel():
+                raise AnalysisCancelled("analysis cancelled")
+            from .export import json_records
+
+            saved = store.save_results(analysis_id, variables=list(pair_table.variables),
+                                       records=[r | {"method": m} for r, m in
+                                                zip(json_records(pair_table.records()),
+                                                    (row_.method for row_ in pair_table.rows))],
+                                       verdicts=verdicts, seconds=pair_table.seconds)
+            if not saved:
+                store.finish(analysis_id, "cancelled")
+                return store.get_analysis(analysis_id).status  # type: ignore[union-attr]
+            return "done"
+        except AnalysisCancelled:
+            store.finish(analysis_id, "cancelled")
+            return "cancelled"
+        except (SettingsError, IngestError) as exc:
+            store.finish(analysis_id, "failed", " ".join(str(exc).split()))
+            return "failed"
+        except NotImplementedError as exc:
+            store.finish(analysis_id, "failed", f"a part of pairlens is not available yet ({exc or 'not implemented'})")
+            return "failed"
+        except Exception as exc:  # noqa: BLE001 - the user sees one line; the log keeps the traceback
+            traceback.print_exc()
+            store.finish(analysis_id, "failed", f"internal error: {type(exc).__name__}: {exc}")
+            return "failed"
+    finally:
+        store.close()
+
+
+def _child_command(data_dir: str, analysis_id: str, workers: int | None, cluster: str | None) -> list[str]:
+    cmd = [sys.executable, "-m", "app.jobs", str(data_dir), analysis_id]
+    if workers:
+        cmd += ["--workers", str(int(workers))]
+    if cluster:
+        cmd += ["--cluster", cluster]
+    return cmd
+
+
+def _child_env() -> dict:
+    # The child must import this very package, installed or run from a checkout.
+    env = dict(os.environ)
+    root = str(config.PROJECT_DIR)
+    env["PYTHONPATH"] = root + (os.pathsep + env["PYTHONPATH"] if env.get("PYTHONPATH") else "")
+    return env
+
+
+def _reap(proc: subprocess.Popen, timeout: float) -> None:
+    try:
+        proc.wait(timeout)
+    except subprocess.TimeoutExpired:
+        proc.kill()
+        try:
+            proc.wait(2.0)
+        except subprocess.TimeoutExpired:
+            pass
+
+
+class JobManager:
+    """The analysis queue of one server process.
+
+    Parameters
+    ----------
+    store : Store
+    max_concurrent : int
+        Analyses running at once; the rest wait in ``queued``.
+    workers : int, optional
+        Worker processes each analysis may use (default: cores / max_concurrent).
+    cluster : str, optional
+        Dask scheduler address passed to the engine.
+    """
+
+    def __init__(self, store: Store, *, max_concurrent: int = config.MAX_CONCURRENT_ANALYSES,
+                 workers: int | None = None, cluster: str | None = None, poll_interval: float = 0.2) -> None:
+        self.store = store
+        self.max_concurrent = max(1, int(max_concurrent))
+        self.workers = workers or max(1, (os.cpu_count() or 1) // self.max_concurrent)
+        self.cluster = cluster
+        self.poll_interval = poll_interval
+        self.token = secrets.token_hex(8)
+        self.interrupted_at_start: list[str] = []
+        self._procs: dict[str, subprocess.Popen] = {}
+        self._cancel_seen: dict[str, float] = {}
+        self._wake = threading.Event()
+        self._stop = threading.Event()
+        self._lock = threading.Lock()
+        self._thread: threading.Thread | None = None
+
+    # Life cycle ---------------------------------------------------------------
+
+    def start(self) -> None:
+        self.interrupted_at_start = self.store.mark_interrupted(self.token)
+        self._thread = threading.Thread(target=self._loop, name="pairlens-jobs", daemon=True)
+        self._thread.start()
+
+    def shutdown(self, timeout: float = 5.0) -> None:
+        """Stop the dispatcher; running analyses are terminated and marked ``interrupted``."""
+        self._stop.set()
+        self._wake.set()
+        if self._thread is not None:
+            self._thread.join(timeout)
+        with self._lock:
+            procs = dict(self._procs)
+            self._procs.clear()
+        for aid, proc in procs.items():
+            if proc.poll() is None:
+                proc.terminate()
+        for aid, proc in procs.items():
+            _reap(proc, timeout)
+            self.store.finish(aid, "interrupted", "the server stopped before this analysis finished; run it again")
+        for row in self.store.list_analyses(status=("queued",)):
+            if row.owner_pid == os.getpid():
+                self.store.finish(row.id, "interrupted", "the server stopped before this analysis started")
+
+    # Requests -----------------------------------------------------------------
+
+    def submit(self, dataset_id: str, settings: dict):
+        """Queue an analysis (``settings`` as from ``AnalysisSettings.to_dict``); returns its row."""
+        row = self.store.create_analysis(dataset_id, settings, owner_pid=os.getpid(), owner_token=self.token)
+        self._wake.set()
+        return row
+
+    def cancel(self, analysis_id: str):
+        row = self.store.request_cancel(analysis_id)
+        self._wake.set()
+        return row
+
+    def running_ids(self) -> list[str]:
+        with self._lock:
+            return list(self._procs)
+
+    # Dispatcher ---------------------------------------------------------------
+
+    def _loop(self) -> None:
+        while not self._stop.is_set():
+            try:
+                self._tick()
+            except Exception:  # noqa: BLE001 - keep dispatching; a broken tick is logged
+                traceback.print_exc()
+            self._wake.wait(self.poll_interval)
+            self._wake.clear()
+
+    def _tick(self) -> None:
+        now = time.monotonic()
+        with self._lock:
+            procs = dict(self._procs)
+        for aid, proc in procs.items():
+            if proc.poll() is not None:
+                with self._lock:
+                    self._procs.pop(aid, None)
+                self._cancel_seen.pop(aid, None)
+                row = self.store.get_analysis(aid)
+                if row is not None and row.status in ("queued", "running"):
+                    if row.cancel_requested:
+                        self.store.finish(aid, "cancelled")
+                    else:
+                        self.store.finish(aid, "failed", f"the analysis process ended unexpectedly "
+                                                         f"(exit code {proc.returncode})")
+                continue
+            if self.store.cancel_requested(aid):
+                first = self._cancel_seen.setdefault(aid, now)
+                if now - first > _CANCEL_GRACE:
+                    proc.terminate()
+                    _reap(proc, 2.0)
+                    with self._lock:
+                        self._procs.pop(aid, None)
+                    self._cancel_seen.pop(aid, None)
+                    self.store.finish(aid, "cancelled")
+        with self._lock:
+            free = self.max_concurrent - len(self._procs)
+            active = set(self._procs)
+        if free <= 0:
+            return
+        queued = [r for r in self.store.list_analyses(status=("queued",), limit=1000)
+                  if r.owner_token == self.token or r.owner_pid == os.getpid()]
+        queued.sort(key=lambda r: r.created)
+        for row in queued:
+            if free <= 0:
+                break
+            if row.id in active:
+                continue
+            proc = subprocess.Popen(_child_command(str(self.store.data_dir), row.id, self.workers, self.cluster),
+                                    env=_child_env(), stdin=subprocess.DEVNULL)
+            with self._lock:
+                self._procs[row.id] = proc
+            free -= 1
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Child-process entry point: ``python -m app.jobs DATA_DIR ANALYSIS_ID``."""
+    parser = argparse.ArgumentParser(prog="python -m app.jobs", description="run one queued pairlens analysis")
+    parser.add_argument("data_dir")
+    parser.add_argument("analysis_id")
+    parser.add_argument("--workers", type=int, default=None)
+    parser.add_argument("--cluster", default=None)
+    args = parser.parse_args(argv)
+    try:
+        os.nice(5)  # keep the web server responsive on small machines
+    except (OSError, AttributeError):
+        pass
+    status = run_job(args.data_dir, args.analysis_id, workers=args.workers, cluster=args.cluster)
+    return 0 if status in ("done", "cancelled") else 1
+
+
+if __name__ == "__main__":
+    sys.exit(main())

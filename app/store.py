@@ -1,0 +1,457 @@
+"""The workspace on disk: SQLite (WAL) for datasets, analyses and results; uploads by content hash.
+
+Layout of a data directory::
+
+    pairlens.sqlite3        datasets, analyses, results (WAL journal)
+    blobs/<sha256>          uploaded bytes, named by their SHA-256, never by the client's name
+
+Every state change is one transaction. Finished results are written once, in
+the same transaction that marks the analysis ``done``, and never change.
+Several processes (the web server and analysis workers) open the same
+database; each opens its own :class:`Store`.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import secrets
+import sqlite3
+import tempfile
+import threading
+import time
+import zlib
+from contextlib import contextmanager
+from dataclasses import dataclass
+from pathlib import Path
+from typing import BinaryIO, Iterator
+
+__all__ = ["Store", "StoreError", "DatasetRow", "AnalysisRow", "STATUSES", "ACTIVE_STATUSES",
+           "FINAL_STATUSES", "DB_NAME"]
+
+DB_NAME = "pairlens.sqlite3"
+STATUSES = ("queued", "running", "done", "failed", "cancelled", "interrupted")
+ACTIVE_STATUSES = ("queued", "running")
+FINAL_STATUSES = ("done", "failed", "cancelled", "interrupted")
+
+_SCHEMA = """
+CREATE TABLE IF NOT EXISTS datasets (
+    id          TEXT PRIMARY KEY,
+    name        TEXT NOT NULL,
+    sha256      TEXT NOT NULL,
+    size        INTEGER NOT NULL,
+    n_rows      INTEGER NOT NULL,
+    n_columns   INTEGER NOT NULL,
+    created     REAL NOT NULL,
+    summary     TEXT NOT NULL
+);
+CREATE INDEX IF NOT EXISTS datasets_sha ON datasets(sha256);
+CREATE TABLE IF NOT EXISTS analyses (
+    id               TEXT PRIMARY KEY,
+    dataset_id       TEXT NOT NULL REFERENCES datasets(id),
+    settings         TEXT NOT NULL,
+    status           TEXT NOT NULL,
+    progress         REAL NOT NULL DEFAULT 0,
+    phase            TEXT NOT NULL DEFAULT '',
+    seconds_left     REAL,
+    error            TEXT NOT NULL DEFAULT '',
+    cancel_requested INTEGER NOT NULL DEFAULT 0,
+    owner_pid        INTEGER,
+    owner_token      TEXT NOT NULL DEFAULT '',
+    worker_pid       INTEGER,
+    created          REAL NOT NULL,
+    started          REAL,
+    finished         REAL,
+    updated          REAL NOT NULL
+);
+CREATE INDEX IF NOT EXISTS analyses_dataset ON analyses(dataset_id);
+CREATE INDEX IF NOT EXISTS analyses_status ON analyses(status);
+CREATE TABLE IF NOT EXISTS results (
+    analysis_id TEXT PRIMARY KEY REFERENCES analyses(id),
+    variables   TEXT NOT NULL,
+    records     BLOB NOT NULL,
+    verdicts    BLOB NOT NULL,
+    seconds     REAL NOT NULL,
+    created     REAL NOT NULL
+);
+"""
+
+
+class StoreError(RuntimeError):
+    """The store could not do what was asked (unknown id, wrong state)."""
+
+
+@dataclass(frozen=True)
+class DatasetRow:
+    id: str
+    name: str
+    sha256: str
+    size: int
+    n_rows: int
+    n_columns: int
+    created: float
+    summary: dict
+
+    def public(self) -> dict:
+        return {"id": self.id, "name": self.name, "sha256": self.sha256, "fingerprint": self.sha256[:12],
+                "size": self.size, "n_rows": self.n_rows, "n_columns": self.n_columns,
+                "created": self.created}
+
+
+@dataclass(frozen=True)
+class AnalysisRow:
+    id: str
+    dataset_id: str
+    settings: dict
+    status: str
+    progress: float
+    phase: str
+    seconds_left: float | None
+    error: str
+    cancel_requested: bool
+    owner_pid: int | None
+    worker_pid: int | None
+    created: float
+    owner_token: str
+    started: float | None
+    finished: float | None
+    updated: float
+
+    def public(self) -> dict:
+        return {"id": self.id, "dataset_id": self.dataset_id, "status": self.status,
+                "progress": self.progress, "phase": self.phase, "seconds_left": self.seconds_left,
+                "error": self.error or None, "cancel_requested": self.cancel_requested,
+                "settings": self.settings, "created": self.created, "started": self.started,
+                "finished": self.finished}
+
+
+def _pack(obj) -> bytes:
+    return zlib.compress(json.dumps(obj, ensure_ascii=False, allow_nan=False).encode("utf-8"), 6)
+
+
+def _unpack(blob: bytes):
+    return json.loads(zlib.decompress(blob).decode("utf-8"))
+
+
+def _new_id() -> str:
+    return secrets.token_hex(6)
+
+
+class Store:
+    """One process's handle on a data directory. Thread-safe (one connection per thread)."""
+
+    def __init__(self, data_dir: str | os.PathLike) -> None:
+        self.data_dir = Path(data_dir)
+        self.blob_dir = self.data_dir / "blobs"
+        self.data_dir.mkdir(parents=True, exist_ok=True)
+        self.blob_dir.mkdir(exist_ok=True)
+        self.db_path = self.data_dir / DB_NAME
+        self._local = threading.local()
+        # executescript manages its own transaction; the schema is idempotent.
+        self._connection().executescript(_SCHEMA)
+
+    # Connections and transactions -------------------------------------------
+
+    def _connection(self) -> sqlite3.Connection:
+        con = getattr(self._local, "con", None)
+        if con is None:
+            con = sqlite3.connect(self.db_path, timeout=30.0, isolation_level=None, check_same_thread=True)
+            con.row_factory = sqlite3.Row
+            con.execute("PRAGMA journal_mode=WAL")
+            con.execute("PRAGMA synchronous=NORMAL")
+            con.execute("PRAGMA foreign_keys=ON")
+            con.execute("PRAGMA busy_timeout=30000")
+            self._local.con = con
+        return con
+
+    @contextmanager
+    def _tx(self) -> Iterator[sqlite3.Connection]:
+        """One write transaction; BEGIN IMMEDIATE so concurrent writers queue instead of failing late."""
+        con = self._connection()
+        con.execute("BEGIN IMMEDIATE")
+        try:
+            yield con
+        except BaseException:
+            con.execute("ROLLBACK")
+            raise
+        else:
+            con.execute("COMMIT")
+
+    def close(self) -> None:
+        con = getattr(self._local, "con", None)
+        if con is not None:
+            con.close()
+            self._local.con = None
+
+    # Blobs ------------------------------------------------------------------
+
+    def blob_path(self, sha256: str) -> Path:
+        if len(sha256) != 64 or any(c not in "0123456789abcdef" for c in sha256):
+            raise StoreError("not a SHA-256 hex digest")
+        return self.blob_dir / sha256
+
+    def spool_upload(self, stream: BinaryIO, limit_bytes: int | None = None,
+                     chunk_size: int = 1 << 20) -> tuple[Path, str, int]:
+        """Copy a stream to a temporary file in the blob directory, hashing as it goes.
+
+        Returns ``(temp_path, sha256, size)``. Raises :class:`UploadTooLarge` past
+        ``limit_bytes`` (the temporary file is removed). The caller either
+        :meth:`commit_blob` s or unlinks the temporary file.
+        """
+        digest = hashlib.sha256()
+        size = 0
+        fd, tmp = tempfile.mkstemp(prefix=".upload-", dir=self.blob_dir)
+        try:
+            with os.fdopen(fd, "wb") as out:
+                while True:
+                    chunk = stream.read(chunk_size)
+                    if not chunk:
+                        break
+                    size += len(chunk)
+                    if limit_bytes is not None and size > limit_bytes:
+                        raise UploadTooLarge(size)
+                    digest.update(chunk)
+                    out.write(chunk)
+                out.flush()
+                os.fsync(out.fileno())
+        except BaseException:
+            Path(tmp).unlink(missing_ok=True)
+            raise
+        return Path(tmp), digest.hexdigest(), size
+
+    def commit_blob(self, tmp_path: Path, sha256: str) -> Path:
+        """Move a spooled file to ``blobs/<sha256>`` (atomic rename; an existing copy wins)."""
+        target = self.blob_path(sha256)
+        if target.exists():
+            Path(tmp_path).unlink(missing_ok=True)
+        else:
+            os.replace(tmp_path, target)
+        return target
+
+    def put_blob(self, content: bytes) -> str:
+        """Store bytes under their hash (temp file + rename); returns the hex digest."""
+        sha = hashlib.sha256(content).hexdigest()
+        target = self.blob_path(sha)
+        if not target.exists():
+            fd, tmp = tempfile.mkstemp(prefix=".blob-", dir=self.blob_dir)
+            try:
+                with os.fdopen(fd, "wb") as out:
+                    out.write(content)
+                    out.flush()
+                    os.fsync(out.fileno())
+                os.replace(tmp, target)
+            except BaseException:
+                Path(tmp).unlink(missing_ok=True)
+                raise
+        return sha
+
+    def read_blob(self, sha256: str) -> bytes:
+        return self.blob_path(sha256).read_bytes()
+
+    # Datasets ---------------------------------------------------------------
+
+    def add_dataset(self, *, name: str, sha256: str, size: int, n_rows: int, n_columns: int,
+                    summary: dict) -> DatasetRow:
+        if not self.blob_path(sha256).exists():
+            raise StoreError("the dataset's bytes must be stored first")
+        row = DatasetRow(_new_id(), name, sha256, int(size), int(n_rows), int(n_columns), time.time(), summary)
+        with self._tx() as con:
+            con.execute("INSERT INTO datasets (id, name, sha256, size, n_rows, n_columns, created, summary) "
+                        "VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+                        (row.id, row.name, row.sha256, row.size, row.n_rows, row.n_columns, row.created,
+                         json.dumps(summary, ensure_ascii=False, allow_nan=False)))
+        return row
+
+    @staticmethod
+    def _dataset(r: sqlite3.Row) -> DatasetRow:
+        return DatasetRow(r["id"], r["name"], r["sha256"], r["size"], r["n_rows"], r["n_columns"], r["created"],
+                          json.loads(r["summary"]))
+
+    def get_dataset(self, dataset_id: str) -> DatasetRow | None:
+        r = self._connection().execute("SELECT * FROM datasets WHERE id = ?", (dataset_id,)).fetchone()
+        return self._dataset(r) if r else None
+
+    def find_dataset_by_hash(self, sha256: str) -> DatasetRow | None:
+        r = self._connection().execute("SELECT * FROM datasets WHERE sha256 = ? ORDER BY created LIMIT 1",
+                                       (sha256,)).fetchone()
+        return self._dataset(r) if r else None
+
+    def list_datasets(self) -> list[DatasetRow]:
+        rows = self._connection().execute("SELECT * FROM datasets ORDER BY created DESC").fetchall()
+        return [self._dataset(r) for r in rows]
+
+    # Analyses ---------------------------------------------------------------
+
+    @staticmethod
+    def _analysis(r: sqlite3.Row) -> AnalysisRow:
+        return AnalysisRow(r["id"], r["dataset_id"], json.loads(r["settings"]), r["status"], float(r["progress"]),
+                           r["phase"], r["seconds_left"], r["error"], bool(r["cancel_requested"]),
+                           r["owner_pid"], r["worker_pid"], r["created"], r["owner_token"], r["started"],
+                           r["finished"], r["updated"])
+
+    def create_analysis(self, dataset_id: str, settings: dict, owner_pid: int | None = None,
+                        owner_token: str = "") -> AnalysisRow:
+        """A new ``queued`` analysis; ``owner_pid``/``owner_token`` name the process that will run it."""
+        now = time.time()
+        aid = _new_id()
+        with self._tx() as con:
+            if con.execute("SELECT 1 FROM datasets WHERE id = ?", (dataset_id,)).fetchone() is None:
+                raise StoreError(f"no dataset {dataset_id!r}")
+            con.execute("INSERT INTO analyses (id, dataset_id, settings, status, owner_pid, owner_token, "
+                        "created, updated) VALUES (?, ?, ?, 'queued', ?, ?, ?, ?)",
+                        (aid, dataset_id, json.dumps(settings, ensure_ascii=False, allow_nan=False),
+                         owner_pid, owner_token, now, now))
+        return self.get_analysis(aid)  # type: ignore[return-value]
+
+    def get_analysis(self, analysis_id: str) -> AnalysisRow | None:
+        r = self._connection().execute("SELECT * FROM analyses WHERE id = ?", (analysis_id,)).fetchone()
+        return self._analysis(r) if r else None
+
+    def list_analyses(self, dataset_id: str | None = None, status: tuple[str, ...] | None = None,
+                      limit: int = 200) -> list[AnalysisRow]:
+        sql, args = "SELECT * FROM analyses WHERE 1=1", []
+        if dataset_id is not None:
+            sql += " AND dataset_id = ?"
+            args.append(dataset_id)
+        if status:
+            sql += f" AND status IN ({','.join('?' * len(status))})"
+            args.extend(status)
+        sql += " ORDER BY created DESC LIMIT ?"
+        args.append(limit)
+        return [self._analysis(r) for r in self._connection().execute(sql, args).fetchall()]
+
+    def claim(self, analysis_id: str, worker_pid: int | None = None) -> bool:
+        """queued -> running; False when the analysis is no longer queued (e.g. cancelled)."""
+        now = time.time()
+        with self._tx() as con:
+            cur = con.execute("UPDATE analyses SET status = 'running', started = ?, updated = ?, worker_pid = ?, "
+                              "phase = 'starting' WHERE id = ? AND status = 'queued' AND cancel_requested = 0",
+                              (now, now, worker_pid, analysis_id))
+            return cur.rowcount == 1
+
+    def set_worker_pid(self, analysis_id: str, worker_pid: int) -> None:
+        with self._tx() as con:
+            con.execute("UPDATE analyses SET worker_pid = ?, updated = ? WHERE id = ?",
+                        (worker_pid, time.time(), analysis_id))
+
+    def update_progress(self, analysis_id: str, progress: float, seconds_left: float | None = None,
+                        phase: str | None = None) -> None:
+        progress = float(min(max(progress, 0.0), 1.0))
+        if seconds_left is not None and not (seconds_left == seconds_left and seconds_left < 1e12):
+            seconds_left = None
+        with self._tx() as con:
+            if phase is None:
+                con.execute("UPDATE analyses SET progress = ?, seconds_left = ?, updated = ? "
+                            "WHERE id = ? AND status = 'running'",
+                            (progress, seconds_left, time.time(), analysis_id))
+            else:
+                con.execute("UPDATE analyses SET progress = ?, seconds_left = ?, phase = ?, updated = ? "
+                            "WHERE id = ? AND status = 'running'",
+                            (progress, seconds_left, phase, time.time(), analysis_id))
+
+    def cancel_requested(self, analysis_id: str) -> bool:
+        r = self._connection().execute("SELECT cancel_requested FROM analyses WHERE id = ?",
+                                       (analysis_id,)).fetchone()
+        return bool(r and r[0])
+
+    def request_cancel(self, analysis_id: str) -> AnalysisRow:
+        """Ask an analysis to stop: a queued one is cancelled at once, a running one is flagged."""
+        now = time.time()
+        with self._tx() as con:
+            r = con.execute("SELECT status FROM analyses WHERE id = ?", (analysis_id,)).fetchone()
+            if r is None:
+                raise StoreError(f"no analysis {analysis_id!r}")
+            if r[0] == "queued":
+                con.execute("UPDATE analyses SET status = 'cancelled', cancel_requested = 1, finished = ?, "
+                            "updated = ?, seconds_left = NULL WHERE id = ?", (now, now, analysis_id))
+            elif r[0] == "running":
+                con.execute("UPDATE analyses SET cancel_requested = 1, updated = ? WHERE id = ?",
+                            (now, analysis_id))
+        return self.get_analysis(analysis_id)  # type: ignore[return-value]
+
+    def finish(self, analysis_id: str, status: str, error: str = "") -> bool:
+        """running/queued -> a final status (not ``done``: use :meth:`save_results`)."""
+        if status not in FINAL_STATUSES or status == "done":
+            raise StoreError(f"cannot finish with status {status!r}")
+        now = time.time()
+        with self._tx() as con:
+            cur = con.execute("UPDATE analyses SET status = ?, error = ?, finished = ?, updated = ?, "
+                              "seconds_left = NULL WHERE id = ? AND status IN ('queued', 'running')",
+                              (status, error, now, now, analysis_id))
+            return cur.rowcount == 1
+
+    def save_results(self, analysis_id: str, *, variables: list[str], records: list[dict],
+                     verdicts: dict, seconds: float) -> bool:
+        """Write the results and mark the analysis ``done`` in one transaction.
+
+        Returns False (and writes nothing) when the analysis is no longer running,
+        e.g. it was cancelled or marked interrupted meanwhile.
+        """
+        now = time.time()
+        packed_records, packed_verdicts = _pack(records), _pack(verdicts)
+        with self._tx() as con:
+            cur = con.execute("UPDATE analyses SET status = 'done', progress = 1, phase = 'done', finished = ?, "
+                              "updated = ?, seconds_left = 0 WHERE id = ? AND status = 'running' "
+                              "AND cancel_requested = 0", (now, now, analysis_id))
+            if cur.rowcount != 1:
+                return False
+            con.execute("INSERT INTO results (analysis_id, variables, records, verdicts, seconds, created) "
+                        "VALUES (?, ?, ?, ?, ?, ?)",
+                        (analysis_id, json.dumps(variables, ensure_ascii=False), packed_records,
+                         packed_verdicts, float(seconds), now))
+        return True
+
+    def get_results(self, analysis_id: str) -> dict | None:
+        """``{"variables", "records", "verdicts", "seconds"}`` of a done analysis, else None."""
+        r = self._connection().execute("SELECT * FROM results WHERE analysis_id = ?", (analysis_id,)).fetchone()
+        if r is None:
+            return None
+        return {"variables": json.loads(r["variables"]), "records": _unpack(r["records"]),
+                "verdicts": _unpack(r["verdicts"]), "seconds": r["seconds"]}
+
+    def mark_interrupted(self, owner_token: str, *, alive_pids: set[int] | None = None,
+                         reason: str = "") -> list[str]:
+        """Analyses left queued or running by a process that is gone become ``interrupted``.
+
+        An analysis is orphaned when its owner token is not ``owner_token`` (the
+        caller's) and its owner pid is not alive, or is the caller's own pid (a
+        reused pid: the old owner is gone). ``alive_pids`` replaces the liveness
+        check in tests. Returns the ids changed.
+        """
+        def alive(pid):
+            if pid is None:
+                return False
+            if pid == os.getpid():
+                return False
+            if alive_pids is not None:
+                return pid in alive_pids
+            try:
+                os.kill(int(pid), 0)
+            except ProcessLookupError:
+                return False
+            except PermissionError:
+                return True
+            return True
+
+        now = time.time()
+        changed: list[str] = []
+        with self._tx() as con:
+            for r in con.execute("SELECT id, owner_pid, owner_token FROM analyses "
+                                 "WHERE status IN ('queued', 'running')").fetchall():
+                if r["owner_token"] == owner_token or alive(r["owner_pid"]):
+                    continue
+                con.execute("UPDATE analyses SET status = 'interrupted', finished = ?, updated = ?, "
+                            "seconds_left = NULL, error = ? WHERE id = ?",
+                            (now, now, reason or "the server stopped before this analysis finished; "
+                                                 "run it again", r["id"]))
+                changed.append(r["id"])
+        return changed
+
+
+class UploadTooLarge(Exception):
+    """An upload passed the size limit."""
+
+    def __init__(self, size: int) -> None:
+        super().__init__(f"upload larger than the limit (read {size} bytes so far)")
+        self.size = size

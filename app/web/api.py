@@ -1,0 +1,79 @@
+"""The JSON API (DESIGN.md section 3). Translates HTTP to :class:`~app.web.deps.Workspace` calls."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from fastapi import APIRouter, Body, Depends, Query, Request
+from fastapi.responses import HTMLResponse, JSONResponse
+
+from starlette.concurrency import run_in_threadpool
+from starlette.datastructures import UploadFile
+from .deps import Workspace, get_workspace
+
+router = APIRouter(prefix="/api")
+
+
+def _json(content, status: int = 200) -> JSONResponse:
+    return JSONResponse(content, status_code=status)
+
+
+@router.post("/datasets", status_code=201)
+async def upload_dataset(request: Request, ws: Workspace = Depends(get_workspace)):
+    form = await request.form()
+    file = form.get("file")
+    if not isinstance(file, UploadFile):
+        await form.close()
+        return _json({"detail": "send the table as a multipart form field named 'file'"}, 422)
+    try:
+        row = await run_in_threadpool(ws.upload, file.file, file.filename or "upload")
+    finally:
+        await form.close()
+    return _json(ws.dataset_json(row), 201)
+
+
+@router.get("/datasets")
+def list_datasets(ws: Workspace = Depends(get_workspace)):
+    return [d.public() for d in ws.datasets()]
+
+
+@router.get("/datasets/{dataset_id}")
+def get_dataset(dataset_id: str, ws: Workspace = Depends(get_workspace)):
+    return ws.dataset_json(ws.dataset(dataset_id))
+
+
+@router.post("/datasets/{dataset_id}/analyses", status_code=202)
+def start_analysis(dataset_id: str, options: dict[str, Any] = Body(default_factory=dict),
+                   ws: Workspace = Depends(get_workspace)):
+    row = ws.start_analysis(dataset_id, options)
+    return _json({"id": row.id, "status": row.status, "url": f"/analyses/{row.id}"}, 202)
+
+
+@router.get("/analyses/{analysis_id}")
+def get_analysis(analysis_id: str, ws: Workspace = Depends(get_workspace)):
+    return ws.analysis_json(ws.analysis(analysis_id))
+
+
+@router.get("/analyses/{analysis_id}/pairs")
+def get_pairs(analysis_id: str, ws: Workspace = Depends(get_workspace)):
+    return ws.pair_records(ws.analysis(analysis_id))
+
+
+@router.get("/analyses/{analysis_id}/pair")
+def get_pair(analysis_id: str, x: str = Query(...), y: str = Query(...), ws: Workspace = Depends(get_workspace)):
+    detail = ws.pair(ws.analysis(analysis_id), x, y)
+    return {k: v for k, v in detail.items() if k != "seconds"}
+
+
+@router.post("/analyses/{analysis_id}/cancel")
+def cancel_analysis(analysis_id: str, ws: Workspace = Depends(get_workspace)):
+    row = ws.cancel(analysis_id)
+    return _json(row.public(), 202)
+
+
+@router.get("/analyses/{analysis_id}/report.html")
+def get_report(analysis_id: str, ws: Workspace = Depends(get_workspace)):
+    row = ws.analysis(analysis_id)
+    html = ws.report_html(row)
+    return HTMLResponse(html, headers={
+        "Content-Disposition": f'attachment; filename="pairlens-report-{row.id}.html"'})

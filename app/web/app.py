@@ -1,0 +1,286 @@
+"""The FastAPI application factory."""
+
+from __future__ import annotations
+
+import json
+import math
+from contextlib import asynccontextmanager
+from datetime import datetime, timezone
+from pathlib import Path
+
+from fastapi import FastAPI, HTTPException, Request
+from fastapi.exceptions import RequestValidationError
+from fastapi.responses import FileResponse, HTMLResponse, JSONResponse
+from fastapi.staticfiles import StaticFiles
+from fastapi.templating import Jinja2Templates
+from jinja2 import Environment, FileSystemLoader, select_autoescape
+
+from .. import __version__, config
+from ..config import ServerSettings
+from ..core.registry import MEASURES
+from ..engine import SettingsError
+from ..ingest import IngestError
+from ..jobs import JobManager
+from ..store import Store, UploadTooLarge
+from .deps import Conflict, NotFound, Unavailable, Workspace, embed_json
+
+__all__ = ["create_app", "UPLOAD_PATHS"]
+
+UPLOAD_PATHS = ("/api/datasets", "/upload")
+# Multipart framing around the file: boundaries, headers, the field name.
+_MULTIPART_SLACK = 64 * 1024
+
+
+def _plotly_js() -> Path:
+    import plotly
+
+    return Path(plotly.__file__).resolve().parent / "package_data" / "plotly.min.js"
+
+
+def _fmt(v, digits: int = 3) -> str:
+    if v is None:
+        return "–"
+    try:
+        v = float(v)
+    except (TypeError, ValueError):
+        return str(v)
+    if not math.isfinite(v):
+        return "–"
+    if v != 0 and (abs(v) < 1e-3 or abs(v) >= 1e5):
+        return f"{v:.{max(digits - 1, 1)}e}"
+    if abs(v) >= 1:
+        return f"{v:.{digits + 1}g}"
+    return f"{v:.{digits}f}"
+
+
+def _fmt_p(v) -> str:
+    if v is None:
+        return "–"
+    v = float(v)
+    if not math.isfinite(v):
+        return "–"
+    if v < 1e-4:
+        return f"{v:.1e}"
+    return f"{v:.4f}"
+
+
+def _when(ts) -> str:
+    if ts is None:
+        return "–"
+    return datetime.fromtimestamp(float(ts), tz=timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+
+
+def _size(n) -> str:
+    n = float(n)
+    for unit in ("B", "KB", "MB", "GB"):
+        if n < 1024 or unit == "GB":
+            return f"{n:.0f} {unit}" if unit == "B" else f"{n:.1f} {unit}"
+        n /= 1024
+    return f"{n:.1f} GB"
+
+
+def _sparkline(counts, width: int = 96, height: int = 22) -> str:
+    """Inline SVG bars of a histogram; numbers only, so nothing in it needs escaping."""
+    from markupsafe import Markup
+
+    if not counts:
+        return Markup("")
+    top = max(counts) or 1
+    k = len(counts)
+    bar = width / k
+    parts = [f'<svg class="spark" width="{width}" height="{height}" viewBox="0 0 {width} {height}" '
+             f'role="img" aria-label="distribution sketch">']
+    for i, c in enumerate(counts):
+        h = (height - 1) * (c / top)
+        parts.append(f'<rect x="{i * bar:.2f}" y="{height - h:.2f}" width="{max(bar - 1, 0.5):.2f}" '
+                     f'height="{h:.2f}"></rect>')
+    parts.append("</svg>")
+    return Markup("".join(parts))
+
+
+def make_templates() -> Jinja2Templates:
+    env = Environment(loader=FileSystemLoader(str(config.TEMPLATES_DIR)),
+                      autoescape=select_autoescape(default=True, default_for_string=True))
+    env.filters.update(fmt=_fmt, fmt_p=_fmt_p, when=_when, size=_size, sparkline=_sparkline,
+                       embed_json=embed_json)
+    env.globals.update(MEASURES=MEASURES, config=config, version=__version__)
+    return Jinja2Templates(env=env)
+
+
+class UploadLimit:
+    """ASGI middleware: answers 413 for uploads over the limit without reading them whole.
+
+    A declared Content-Length over the limit is refused before any body is read;
+    otherwise the body is counted as it streams and the request is stopped as
+    soon as it passes the limit.
+    """
+
+    def __init__(self, app, max_bytes: int) -> None:
+        self.app = app
+        self.max_bytes = int(max_bytes)
+
+    async def __call__(self, scope, receive, send):
+        if scope["type"] != "http" or scope["method"] != "POST" or scope["path"] not in UPLOAD_PATHS:
+            await self.app(scope, receive, send)
+            return
+        limit = self.max_bytes + _MULTIPART_SLACK
+        is_api = scope["path"].startswith("/api/")
+        for name, value in scope.get("headers", ()):
+            if name == b"content-length":
+                try:
+                    declared = int(value)
+                except ValueError:
+                    declared = 0
+                if declared > limit:
+                    await _too_large(send, self.max_bytes, is_api)
+                    return
+        received = 0
+        started = False
+
+        async def counting_receive():
+            nonlocal received
+            message = await receive()
+            if message["type"] == "http.request":
+                received += len(message.get("body", b""))
+                if received > limit:
+                    raise _BodyTooLarge()
+            return message
+
+        async def tracking_send(message):
+            nonlocal started
+            if message["type"] == "http.response.start":
+                started = True
+            await send(message)
+
+        try:
+            await self.app(scope, counting_receive, tracking_send)
+        except _BodyTooLarge:
+            if not started:
+                await _too_large(send, self.max_bytes, is_api)
+
+
+class _BodyTooLarge(HTTPException):
+    # An HTTPException so that FastAPI's body parsing passes it through unchanged.
+    def __init__(self) -> None:
+        super().__init__(status_code=413, detail="upload too large")
+
+
+def _limit_message(max_bytes: int) -> str:
+    return f"the file is larger than the upload limit of {max_bytes // (1024 * 1024)} MB"
+
+
+async def _too_large(send, max_bytes: int, is_api: bool) -> None:
+    message = _limit_message(max_bytes)
+    if is_api:
+        body = json.dumps({"detail": message}).encode()
+        ctype = b"application/json"
+    else:
+        body = (f"<!doctype html><meta charset=utf-8><title>Upload too large</title>"
+                f"<p>{message}. <a href=\"/\">Back</a></p>").encode()
+        ctype = b"text/html; charset=utf-8"
+    await send({"type": "http.response.start", "status": 413,
+                "headers": [(b"content-type", ctype), (b"content-length", str(len(body)).encode()),
+                            (b"connection", b"close")]})
+    await send({"type": "http.response.body", "body": body})
+
+
+def _wants_json(request: Request) -> bool:
+    return request.url.path.startswith("/api/")
+
+
+def create_app(settings: ServerSettings | None = None, *, jobs: JobManager | None = None) -> FastAPI:
+    """Build the dashboard for ``settings`` (data directory, upload limit, demo, cluster).
+
+    The job manager starts with the app's lifespan and stops with it; pass
+    ``jobs`` to supply one (tests).
+    """
+    settings = settings or ServerSettings()
+    data_dir = Path(settings.data_dir) if settings.data_dir else config.default_data_dir()
+    store = Store(data_dir)
+    jobs = jobs or JobManager(store, cluster=settings.cluster)
+    workspace = Workspace(store, jobs, max_upload_mb=settings.max_upload_mb, cluster=settings.cluster)
+
+    @asynccontextmanager
+    async def lifespan(app: FastAPI):
+        jobs.start()
+        if settings.demo:
+            app.state.demo_id = workspace.ensure_demo().id
+        try:
+            yield
+        finally:
+            jobs.shutdown()
+
+    app = FastAPI(title="pairlens", version=__version__, lifespan=lifespan, docs_url="/api/docs",
+                  redoc_url=None, openapi_url="/api/openapi.json")
+    app.state.settings = settings
+    app.state.workspace = workspace
+    app.state.templates = make_templates()
+    app.state.demo_id = None
+    app.add_middleware(UploadLimit, max_bytes=settings.max_upload_mb * 1024 * 1024)
+
+    def error(request: Request, status: int, detail: str):
+        if _wants_json(request):
+            return JSONResponse({"detail": detail}, status_code=status)
+        return app.state.templates.TemplateResponse(request, "error.html", {"status": status, "detail": detail},
+                                                    status_code=status)
+
+    @app.exception_handler(NotFound)
+    async def _not_found(request: Request, exc: NotFound):
+        return error(request, 404, str(exc))
+
+    @app.exception_handler(Conflict)
+    async def _conflict(request: Request, exc: Conflict):
+        return error(request, 409, str(exc))
+
+    @app.exception_handler(Unavailable)
+    async def _unavailable(request: Request, exc: Unavailable):
+        return error(request, 503, str(exc))
+
+    @app.exception_handler(SettingsError)
+    async def _settings_error(request: Request, exc: SettingsError):
+        return error(request, 422, " ".join(str(exc).split()))
+
+    @app.exception_handler(IngestError)
+    async def _ingest_error(request: Request, exc: IngestError):
+        return error(request, 422, " ".join(str(exc).split()))
+
+    @app.exception_handler(UploadTooLarge)
+    async def _upload_too_large(request: Request, exc: UploadTooLarge):
+        return error(request, 413, _limit_message(workspace.max_upload_bytes))
+
+    @app.exception_handler(RequestValidationError)
+    async def _validation(request: Request, exc: RequestValidationError):
+        parts = []
+        for e in exc.errors():
+            where = ".".join(str(p) for p in e.get("loc", ()) if p != "body")
+            parts.append(f"{where}: {e.get('msg', 'invalid')}" if where else str(e.get("msg", "invalid")))
+        return error(request, 422, "; ".join(parts) or "invalid request")
+
+    @app.exception_handler(HTTPException)
+    async def _http(request: Request, exc: HTTPException):
+        detail = exc.detail if isinstance(exc.detail, str) else json.dumps(exc.detail)
+        if exc.status_code == 413:
+            detail = _limit_message(workspace.max_upload_bytes)
+        return error(request, exc.status_code, detail)
+
+    from starlette.exceptions import HTTPException as StarletteHTTPException
+
+    @app.exception_handler(StarletteHTTPException)
+    async def _starlette_http(request: Request, exc: StarletteHTTPException):
+        detail = exc.detail if isinstance(exc.detail, str) else "error"
+        return error(request, exc.status_code, detail)
+
+    plotly_path = _plotly_js()
+
+    @app.get("/vendor/plotly.min.js", include_in_schema=False)
+    async def plotly_js():
+        return FileResponse(plotly_path, media_type="text/javascript",
+                            headers={"Cache-Control": "public, max-age=86400"})
+
+    app.mount("/static", StaticFiles(directory=str(config.STATIC_DIR)), name="static")
+
+    from . import api, pages
+
+    app.include_router(api.router)
+    app.include_router(pages.router)
+    return app

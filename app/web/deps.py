@@ -1,0 +1,377 @@
+"""What both routers share: the :class:`Workspace` (store + job queue + caches) and its dependencies.
+
+The routers in :mod:`app.web.pages` and :mod:`app.web.api` only translate
+HTTP to calls on the workspace and back. Everything here raises plain Python
+errors (:class:`NotFound`, :class:`Conflict`, ``IngestError``,
+``SettingsError``, ``UploadTooLarge``) that the app maps to status codes.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import threading
+import time
+from collections import OrderedDict
+from pathlib import Path
+from typing import BinaryIO
+
+import numpy as np
+from fastapi import Request
+from markupsafe import Markup
+
+from .. import config
+from ..core.registry import MEASURES
+from ..engine import AnalysisSettings, PairRow, PairTable, SettingsError, pair_detail, plan_variables
+from ..store import AnalysisRow, DatasetRow, Store, UploadTooLarge
+
+__all__ = ["Workspace", "NotFound", "Conflict", "Unavailable", "get_workspace", "embed_json", "UploadTooLarge",
+           "SPARK_BINS"]
+
+SPARK_BINS = 16
+_PREVIEW_CELL_CHARS = 80
+
+
+class NotFound(LookupError):
+    """No such dataset, analysis or column."""
+
+
+class Conflict(RuntimeError):
+    """The request does not fit the object's state (e.g. results of a running analysis)."""
+
+
+class Unavailable(RuntimeError):
+    """A part of pairlens this request needs is not installed or not ready."""
+
+
+def embed_json(value) -> Markup:
+    """JSON for a ``<script type="application/json">`` block that no string can break out of.
+
+    ``<``, ``>`` and ``&`` become ``\\u003c`` etc. (so ``</script>`` and ``<!--`` in a
+    column name stay inert) and the line separators U+2028/2029 are escaped too.
+    """
+    text = json.dumps(value, ensure_ascii=False, allow_nan=False, separators=(",", ":"))
+    text = (text.replace("<", "\\u003c").replace(">", "\\u003e").replace("&", "\\u0026")
+            .replace("\u2028", "\\u2028").replace("\u2029", "\\u2029"))
+    return Markup(text)
+
+
+def _num(v):
+    if v is None:
+        return None
+    try:
+        v = float(v)
+    except (TypeError, ValueError):
+        return None
+    return v if math.isfinite(v) else None
+
+
+class _LRU:
+    def __init__(self, size: int) -> None:
+        self.size = size
+        self._items: OrderedDict = OrderedDict()
+        self._lock = threading.Lock()
+
+    def get(self, key):
+        with self._lock:
+            if key in self._items:
+                self._items.move_to_end(key)
+                return self._items[key]
+        return None
+
+    def put(self, key, value):
+        with self._lock:
+            self._items[key] = value
+            self._items.move_to_end(key)
+            while len(self._items) > self.size:
+                self._items.popitem(last=False)
+        return value
+
+
+def _spark(values: np.ndarray, bins: int = SPARK_BINS) -> list[int]:
+    v = values[np.isfinite(values)]
+    if v.size == 0:
+        return []
+    lo, hi = float(v.min()), float(v.max())
+    if lo == hi:
+        return [int(v.size)]
+    counts, _ = np.histogram(v, bins=bins, range=(lo, hi))
+    return [int(c) for c in counts]
+
+
+def dataset_summary(table) -> dict:
+    """What the dataset page shows, computed once at upload and stored with the dataset."""
+    position = {n: i for i, n in enumerate(table.columns)}
+    columns = []
+    for c in table.info:
+        entry = {
+            "name": c.name, "original": c.original, "kind": c.kind, "used": bool(c.used), "reason": c.reason,
+            "missing": int(c.missing), "infinite": int(c.infinite), "distinct": int(c.distinct),
+            "missing_share": (c.missing / table.n_rows) if table.n_rows else None,
+            "min": _num(c.minimum), "median": _num(c.median), "max": _num(c.maximum),
+            "spark": _spark(table.data[:, position[c.name]]) if c.name in position else [],
+        }
+        columns.append(entry)
+    preview = [[str(cell)[:_PREVIEW_CELL_CHARS] for cell in row] for row in table.preview[:10]]
+    return {
+        "columns": columns,
+        "numeric": list(table.columns),
+        "notes": list(table.notes),
+        "preview_header": list(table.preview_header),
+        "preview": preview,
+        "format": getattr(table, "format", ""),
+        "encoding": getattr(table, "encoding", ""),
+        "delimiter": getattr(table, "delimiter", ""),
+    }
+
+
+def _pair_key(x: str, y: str) -> str:
+    return f"{x}\u0000{y}"
+
+
+class Workspace:
+    """The server's view of one data directory."""
+
+    def __init__(self, store: Store, jobs, *, max_upload_mb: int = config.MAX_UPLOAD_MB,
+                 cluster: str | None = None) -> None:
+        self.store = store
+        self.jobs = jobs
+        self.max_upload_bytes = int(max_upload_mb) * 1024 * 1024
+        self.cluster = cluster
+        self._tables = _LRU(4)
+        self._pair_tables = _LRU(8)
+        self._figures = _LRU(16)
+        self._details = _LRU(64)
+
+    # Datasets -----------------------------------------------------------------
+
+    def upload(self, stream: BinaryIO, filename: str) -> DatasetRow:
+        """Store an upload: spool + hash, parse, then keep the bytes under their hash."""
+        from ..ingest import load_bytes
+
+        name = Path(filename or "upload").name or "upload"
+        tmp, sha, size = self.store.spool_upload(stream, self.max_upload_bytes)
+        try:
+            content = tmp.read_bytes()
+            table = load_bytes(content, name)
+        except BaseException:
+            tmp.unlink(missing_ok=True)
+            raise
+        self.store.commit_blob(tmp, sha)
+        self._tables.put(sha, table)
+        return self.store.add_dataset(name=name, sha256=sha, size=size, n_rows=table.n_rows,
+                                      n_columns=len(table.columns), summary=dataset_summary(table))
+
+    def ensure_demo(self) -> DatasetRow:
+        """The invented vineyard dataset, added once."""
+        from ..ingest import load_bytes
+
+        content = Path(config.DEMO_FILE).read_bytes()
+        sha = self.store.put_blob(content)
+        existing = self.store.find_dataset_by_hash(sha)
+        if existing is not None:
+            return existing
+        table = load_bytes(content, Path(config.DEMO_FILE).name)
+        self._tables.put(sha, table)
+        return self.store.add_dataset(name=Path(config.DEMO_FILE).name, sha256=sha, size=len(content),
+                                      n_rows=table.n_rows, n_columns=len(table.columns),
+                                      summary=dataset_summary(table))
+
+    def datasets(self) -> list[DatasetRow]:
+        return self.store.list_datasets()
+
+    def dataset(self, dataset_id: str) -> DatasetRow:
+        row = self.store.get_dataset(dataset_id)
+        if row is None:
+            raise NotFound(f"no dataset {dataset_id!r}")
+        return row
+
+    def table(self, dataset: DatasetRow):
+        """The parsed table of a dataset (parsed once, then kept in memory)."""
+        from ..ingest import load_bytes
+
+        table = self._tables.get(dataset.sha256)
+        if table is None:
+            table = self._tables.put(dataset.sha256, load_bytes(self.store.read_blob(dataset.sha256), dataset.name))
+        return table
+
+    def dataset_json(self, dataset: DatasetRow) -> dict:
+        s = dataset.summary
+        return dataset.public() | {
+            "columns": [{k: c[k] for k in ("name", "original", "kind", "used", "reason", "missing", "distinct",
+                                            "min", "median", "max")} for c in s["columns"]],
+            "numeric_columns": s["numeric"], "notes": s["notes"],
+            "excluded": [{"name": c["name"], "reason": c["reason"]} for c in s["columns"] if not c["used"]],
+            "analyses": [a.public() for a in self.store.list_analyses(dataset.id)],
+        }
+
+    # Analyses -----------------------------------------------------------------
+
+    def start_analysis(self, dataset_id: str, options: dict) -> AnalysisRow:
+        dataset = self.dataset(dataset_id)
+        allowed = ("measures", "columns", "groups", "missing", "adjust", "confidence", "permutations", "seed")
+        unknown = sorted(set(options) - set(allowed))
+        if unknown:
+            raise SettingsError(f"unknown option(s) {', '.join(unknown)}; use {', '.join(allowed)}")
+        try:
+            settings = AnalysisSettings.from_options(**{k: options.get(k) for k in allowed})
+        except (TypeError, ValueError) as exc:
+            raise SettingsError(str(exc)) from None
+        plan_variables(dataset.summary["numeric"], settings)  # unknown columns fail now, not in the job
+        return self.jobs.submit(dataset.id, settings.to_dict())
+
+    def analysis(self, analysis_id: str) -> AnalysisRow:
+        row = self.store.get_analysis(analysis_id)
+        if row is None:
+            raise NotFound(f"no analysis {analysis_id!r}")
+        return row
+
+    def analysis_json(self, row: AnalysisRow) -> dict:
+        out = row.public()
+        if row.status == "done":
+            res = self._results(row)
+            out["variables"] = res["variables"]
+            out["seconds"] = res["seconds"]
+            out["verdicts_complete"] = res["verdicts"].get("complete", False)
+        return out
+
+    def cancel(self, analysis_id: str) -> AnalysisRow:
+        row = self.analysis(analysis_id)
+        if row.status not in ("queued", "running"):
+            raise Conflict(f"analysis {analysis_id} is already {row.status}")
+        return self.jobs.cancel(analysis_id)
+
+    def _results(self, row: AnalysisRow) -> dict:
+        cached = self._pair_tables.get(row.id)
+        if cached is not None:
+            return cached
+        if row.status != "done":
+            raise Conflict(f"analysis {row.id} is {row.status}, not done")
+        res = self.store.get_results(row.id)
+        if res is None:
+            raise Conflict(f"analysis {row.id} has no stored results")
+        settings = AnalysisSettings.from_dict(row.settings)
+        rows = [PairRow(r["x"], r["y"], r["measure"], *(math.nan if r[f] is None else r[f] for f in
+                                                          ("estimate", "ci_low", "ci_high", "p_value", "q_value")),
+                        int(r["n"]), r["note"], r.get("method", "")) for r in res["records"]]
+        res["table"] = PairTable(res["variables"], settings.measures, settings, rows, res["seconds"])
+        return self._pair_tables.put(row.id, res)
+
+    def pair_table(self, row: AnalysisRow) -> PairTable:
+        return self._results(row)["table"]
+
+    def pair_records(self, row: AnalysisRow) -> list[dict]:
+        from ..export import PAIR_FIELDS
+
+        return [{f: r[f] for f in PAIR_FIELDS} for r in self._results(row)["records"]]
+
+    def verdicts(self, row: AnalysisRow) -> dict:
+        return self._results(row)["verdicts"]
+
+    def order(self, row: AnalysisRow, cluster_on: str | None) -> list[int]:
+        table = self.pair_table(row)
+        if not cluster_on:
+            return list(range(len(table.variables)))
+        if cluster_on not in table.measures:
+            raise SettingsError(f"cannot order by {cluster_on!r}: choose one of {', '.join(table.measures)}")
+        key = ("order", row.id, cluster_on)
+        cached = self._figures.get(key)
+        if cached is None:
+            from . import plots
+
+            cached = self._figures.put(key, plots.cluster_order(table, cluster_on))
+        return cached
+
+    def heatmaps(self, row: AnalysisRow, cluster_on: str | None, diff: tuple[str, str] | None) -> dict:
+        """Figures for the analysis page (cached: finished results never change)."""
+        from . import plots
+
+        key = ("heatmaps", row.id, cluster_on, diff)
+        cached = self._figures.get(key)
+        if cached is not None:
+            return cached
+        table = self.pair_table(row)
+        order = self.order(row, cluster_on)
+        figures = {m: plots.heatmap_figure(table, m, order=order) for m in table.measures}
+        difference = plots.difference_figure(table, diff[0], diff[1], order=order) if diff else None
+        out = {"figures": figures, "difference": difference, "order": [table.variables[i] for i in order]}
+        out["embedded"] = embed_json({"figures": figures, "difference": difference})
+        return self._figures.put(key, out)
+
+    def pair_rows(self, row: AnalysisRow) -> dict:
+        """The wide pair table for the page: one row per unordered pair, every measure's estimate and q."""
+        key = ("pairrows", row.id)
+        cached = self._figures.get(key)
+        if cached is not None:
+            return cached
+        table = self.pair_table(row)
+        labels = self.verdicts(row).get("labels", {})
+        position = {v: i for i, v in enumerate(table.variables)}
+        columns: list[dict] = []
+        for m in table.measures:
+            meas = MEASURES[m]
+            if meas.symmetric:
+                columns.append({"key": m, "measure": m, "label": meas.label, "direction": ""})
+            else:
+                columns.append({"key": m + ">", "measure": m, "label": meas.label, "direction": "x→y"})
+                columns.append({"key": m + "<", "measure": m, "label": meas.label, "direction": "y→x"})
+        col_index = {c["key"]: k for k, c in enumerate(columns)}
+        pairs: dict[tuple[str, str], list] = {}
+        for r in table.rows:
+            i, j = position[r.x], position[r.y]
+            a, b = (r.x, r.y) if i < j else (r.y, r.x)
+            entry = pairs.get((a, b))
+            if entry is None:
+                entry = [a, b, int(r.n), [None] * len(columns), [None] * len(columns),
+                         labels.get(_pair_key(a, b))]
+                pairs[(a, b)] = entry
+            key = r.measure if MEASURES[r.measure].symmetric else r.measure + (">" if r.x == a else "<")
+            k = col_index[key]
+            entry[3][k] = _num(r.estimate)
+            entry[4][k] = _num(r.q_value)
+            entry[2] = max(entry[2], int(r.n))
+        rows = sorted(pairs.values(), key=lambda e: (position[e[0]], position[e[1]]))
+        out = {"columns": columns, "rows": rows, "alpha": config.SIGNIFICANCE_LEVEL}
+        out["embedded"] = embed_json(out)
+        return self._figures.put(key, out)
+
+    def pair(self, row: AnalysisRow, x: str, y: str) -> dict:
+        """:func:`app.engine.pair_detail` with points, q-values from the analysis, cached per pair."""
+        key = (row.id, x, y)
+        cached = self._details.get(key)
+        if cached is not None:
+            return cached
+        table = self.pair_table(row)
+        if x not in table.variables or y not in table.variables:
+            missing = x if x not in table.variables else y
+            raise NotFound(f"{missing!r} is not a variable of analysis {row.id}")
+        dataset = self.dataset(row.dataset_id)
+        data = self.table(dataset)
+        if x not in data.columns or y not in data.columns:
+            raise SettingsError("the pair view shows single columns; groups appear in the table only")
+        started = time.perf_counter()
+        detail = pair_detail(data.data, data.columns, x, y, table.settings, table=table, include_points=True)
+        detail["seconds"] = time.perf_counter() - started
+        detail["analysis_id"] = row.id
+        return self._details.put(key, detail)
+
+    def report_html(self, row: AnalysisRow) -> str:
+        try:
+            from ..report import build_report
+        except ImportError as exc:
+            raise Unavailable(f"the HTML report is not available in this build ({exc})") from None
+        import shlex
+
+        table = self.pair_table(row)
+        dataset = self.dataset(row.dataset_id)
+        data = self.table(dataset)
+        command = "pairlens report " + " ".join(shlex.quote(a) for a in
+                                                [dataset.name, "-o", "report.html", *table.settings.cli_arguments()])
+        try:
+            return build_report(data, table, command=command)
+        except NotImplementedError as exc:
+            raise Unavailable(f"the HTML report is not available yet ({exc or 'not implemented'})") from None
+
+
+def get_workspace(request: Request) -> Workspace:
+    return request.app.state.workspace

@@ -1,0 +1,196 @@
+"""Server-rendered pages. Each handler gathers data from the workspace and renders one template."""
+
+from __future__ import annotations
+
+from fastapi import APIRouter, Depends, Request
+from fastapi.responses import HTMLResponse, RedirectResponse
+from starlette.concurrency import run_in_threadpool
+from starlette.datastructures import UploadFile
+
+from .. import config
+from ..core.registry import MEASURES
+from ..engine import SettingsError
+from ..ingest import IngestError
+from ..store import UploadTooLarge
+from .deps import Workspace, embed_json, get_workspace
+from . import plots
+
+router = APIRouter(include_in_schema=False)
+
+
+def _render(request: Request, template: str, context: dict, status: int = 200) -> HTMLResponse:
+    return request.app.state.templates.TemplateResponse(request, template, context, status_code=status)
+
+
+def _home(request: Request, ws: Workspace, error: str = "", status: int = 200) -> HTMLResponse:
+    return _render(request, "home.html", {
+        "datasets": ws.datasets(), "error": error, "demo_available": config.DEMO_FILE.exists(),
+        "demo_id": request.app.state.demo_id, "max_upload_mb": ws.max_upload_bytes // (1024 * 1024),
+    }, status)
+
+
+@router.get("/", response_class=HTMLResponse)
+def home(request: Request, ws: Workspace = Depends(get_workspace)):
+    return _home(request, ws)
+
+
+@router.post("/upload")
+async def upload(request: Request, ws: Workspace = Depends(get_workspace)):
+    form = await request.form()
+    file = form.get("file")
+    try:
+        if not isinstance(file, UploadFile) or not file.filename:
+            return _home(request, ws, "Choose a file to upload first.", 400)
+        try:
+            row = await run_in_threadpool(ws.upload, file.file, file.filename)
+        except IngestError as exc:
+            return _home(request, ws, " ".join(str(exc).split()), 400)
+        except UploadTooLarge:
+            return _home(request, ws, f"{file.filename}: the file is larger than the upload limit of "
+                                      f"{ws.max_upload_bytes // (1024 * 1024)} MB.", 413)
+    finally:
+        await form.close()
+    return RedirectResponse(f"/datasets/{row.id}", status_code=303)
+
+
+@router.post("/demo")
+def open_demo(request: Request, ws: Workspace = Depends(get_workspace)):
+    if not config.DEMO_FILE.exists():
+        return _home(request, ws, "The demo dataset is not installed (sample_data/vineyard_blocks.csv).", 404)
+    row = ws.ensure_demo()
+    return RedirectResponse(f"/datasets/{row.id}", status_code=303)
+
+
+def _dataset_page(request: Request, ws: Workspace, dataset_id: str, error: str = "", status: int = 200,
+                  form: dict | None = None) -> HTMLResponse:
+    dataset = ws.dataset(dataset_id)
+    form = form or {}
+    chosen_measures = form.get("measures") or list(config.DEFAULT_MEASURES)
+    return _render(request, "dataset.html", {
+        "dataset": dataset, "summary": dataset.summary, "error": error,
+        "analyses": ws.store.list_analyses(dataset.id),
+        "chosen_measures": chosen_measures,
+        "chosen_columns": form.get("columns"),
+        "form": form,
+    }, status)
+
+
+@router.get("/datasets/{dataset_id}", response_class=HTMLResponse)
+def dataset_page(dataset_id: str, request: Request, ws: Workspace = Depends(get_workspace)):
+    return _dataset_page(request, ws, dataset_id)
+
+
+def _groups_from_text(text: str) -> list[str]:
+    return [line.strip() for line in (text or "").splitlines() if line.strip()]
+
+
+@router.post("/datasets/{dataset_id}/analyses")
+async def start_analysis_form(dataset_id: str, request: Request, ws: Workspace = Depends(get_workspace)):
+    form = await request.form()
+    dataset = ws.dataset(dataset_id)
+    columns = [str(c) for c in form.getlist("columns")]
+    all_columns = dataset.summary["numeric"]
+    options = {
+        "measures": [str(m) for m in form.getlist("measures")],
+        "columns": None if set(columns) == set(all_columns) else columns,
+        "groups": _groups_from_text(str(form.get("groups", ""))),
+        "missing": str(form.get("missing") or config.DEFAULT_MISSING),
+        "adjust": str(form.get("adjust") or config.DEFAULT_ADJUST),
+        "confidence": str(form.get("confidence") or config.DEFAULT_CONFIDENCE),
+        "permutations": str(form.get("permutations") or 0),
+        "seed": str(form.get("seed") or config.DEFAULT_SEED),
+    }
+    echo = {"measures": options["measures"], "columns": columns, "groups": str(form.get("groups", "")),
+            "missing": options["missing"], "adjust": options["adjust"], "confidence": options["confidence"],
+            "permutations": options["permutations"], "seed": options["seed"]}
+    if not options["measures"]:
+        return _dataset_page(request, ws, dataset_id, "Choose at least one measure.", 422, echo)
+    if options["columns"] is not None and len(options["columns"]) == 0 and not options["groups"]:
+        return _dataset_page(request, ws, dataset_id, "Choose at least two columns.", 422, echo)
+    try:
+        for key in ("confidence",):
+            options[key] = float(options[key])
+        for key in ("permutations", "seed"):
+            options[key] = int(options[key])
+        row = ws.start_analysis(dataset_id, options)
+    except (SettingsError, ValueError) as exc:
+        return _dataset_page(request, ws, dataset_id, " ".join(str(exc).split()), 422, echo)
+    return RedirectResponse(f"/analyses/{row.id}", status_code=303)
+
+
+def _default_difference(measures: tuple[str, ...]) -> tuple[str, str] | None:
+    if len(measures) < 2:
+        return None
+    linear = [m for m in measures if MEASURES[m].family == "linear"]
+    base = linear[0] if linear else measures[0]
+    others = [m for m in measures if m != base]
+    distance = [m for m in others if MEASURES[m].family == "distance" and not MEASURES[m].signed]
+    return (distance or others)[0], base
+
+
+@router.get("/analyses/{analysis_id}", response_class=HTMLResponse)
+def analysis_page(analysis_id: str, request: Request, order: str = "input", diff: str = "",
+                  ws: Workspace = Depends(get_workspace)):
+    row = ws.analysis(analysis_id)
+    dataset = ws.dataset(row.dataset_id)
+    context = {"analysis": row, "dataset": dataset, "status_json": embed_json(ws.analysis_json(row))}
+    if row.status != "done":
+        return _render(request, "running.html", context)
+    table = ws.pair_table(row)
+    cluster_on = order if order in table.measures else None
+    difference = None
+    if diff:
+        a, _, b = diff.partition(",")
+        if a in table.measures and b in table.measures and a != b:
+            difference = (a, b)
+    if difference is None:
+        difference = _default_difference(table.measures)
+    figures = ws.heatmaps(row, cluster_on, difference)
+    pair_rows = ws.pair_rows(row)
+    verdicts = ws.verdicts(row)
+    context.update({
+        "table": table, "measures": table.measures, "order": cluster_on or "input",
+        "difference": difference, "figures": figures, "pair_rows": pair_rows,
+        "top_pairs": (figures["difference"] or {}).get("layout", {}).get("meta", {}).get("top", []),
+        "verdicts": verdicts, "n_pairs": len(pair_rows["rows"]),
+        "n_variables": len(table.variables), "significant": {
+            m: sum(1 for r in table.rows if r.measure == m and r.q_value == r.q_value
+                   and r.q_value < config.SIGNIFICANCE_LEVEL) for m in table.measures},
+    })
+    return _render(request, "analysis.html", context)
+
+
+@router.post("/analyses/{analysis_id}/cancel")
+def cancel_form(analysis_id: str, ws: Workspace = Depends(get_workspace)):
+    row = ws.analysis(analysis_id)
+    if row.status in ("queued", "running"):
+        ws.cancel(analysis_id)
+    return RedirectResponse(f"/analyses/{analysis_id}", status_code=303)
+
+
+@router.get("/analyses/{analysis_id}/pair", response_class=HTMLResponse)
+def pair_page(analysis_id: str, request: Request, x: str, y: str, ws: Workspace = Depends(get_workspace)):
+    row = ws.analysis(analysis_id)
+    dataset = ws.dataset(row.dataset_id)
+    table = ws.pair_table(row)
+    detail = ws.pair(row, x, y)
+    scatter = plots.pair_figure(detail)
+    ranks = plots.rank_figure(detail)
+    g = detail["gaussian"]
+    slice_data = {
+        "x": detail["points"]["x"], "y": detail["points"]["y"],
+        "mean": g["mean"], "cov": g["cov"], "conditional": g["conditional"],
+        "xLabel": detail["x"], "yLabel": detail["y"],
+    }
+    marg = g.get("marginal_normality") or {}
+    normal_marginals = all((marg.get(k) or {}).get("p_value") is not None and marg[k]["p_value"] > 0.05
+                           for k in ("x", "y")) and bool(marg)
+    joint_p = (g.get("normality") or {}).get("p_value")
+    not_joint = joint_p is not None and joint_p < 0.05
+    return _render(request, "pair.html", {
+        "analysis": row, "dataset": dataset, "table": table, "detail": detail,
+        "figures": embed_json({"scatter": scatter, "ranks": ranks}), "slice": embed_json(slice_data),
+        "dense": scatter["layout"]["meta"]["dense"],
+        "normal_marginals_not_joint": normal_marginals and not_joint,
+        "weak_rho": g.get("rho") is not None and abs(g["rho"]) < 0.2,
+    })
