@@ -25,8 +25,10 @@ flight finish, then re-initialises the state for its own analysis.
 from __future__ import annotations
 
 import collections
+import hashlib
 import threading
 import uuid
+from pathlib import Path
 from typing import Any, Callable, Iterator, Sequence
 
 from . import __version__, config
@@ -43,6 +45,8 @@ __all__ = ["ClusterUnavailable", "DaskExecutor", "worker_tile_counts"]
 
 # How often the result loop wakes to poll the cancel callback.
 _CANCEL_POLL_SECONDS = 0.2
+# Worker plugins carrying an analysis' data are named PREFIX + run id + "@" + client id.
+_PLUGIN_PREFIX = "pairlens-data-"
 
 
 class ClusterUnavailable(SettingsError):
@@ -131,10 +135,31 @@ def _run_tile_on_worker(run_id: str, fn: Callable[[Any], Any], tile: Any) -> Any
         _RUNS.leave(run_id)
 
 
+def _source_fingerprint() -> str:
+    # Equal version numbers do not mean equal code (editable installs, local patches); results
+    # are only bit-for-bit equal when every process runs the same sources.
+    root = Path(__file__).resolve().parent
+    digest = hashlib.sha256()
+    for path in sorted(root.rglob("*.py")):
+        digest.update(path.relative_to(root).as_posix().encode() + b"\0" + path.read_bytes() + b"\0")
+    return digest.hexdigest()[:16]
+
+
+_SOURCE_FINGERPRINT = _source_fingerprint()  # at import, close to when the engine's code was loaded
+
+
 def _worker_probe() -> dict:
     import os
 
-    return {"version": __version__, "pid": os.getpid()}
+    return {"version": __version__, "code": _SOURCE_FINGERPRINT, "pid": os.getpid()}
+
+
+def _plugins_left_by_gone_clients(dask_scheduler) -> list[str]:
+    # Runs on the scheduler. A pairlens process killed mid-run (SIGKILL, power loss) never
+    # withdraws its data plugin; its name carries the client id, so the next run can.
+    live = set(dask_scheduler.clients)
+    return [name for name in dask_scheduler.worker_plugins
+            if name.startswith(_PLUGIN_PREFIX) and name.partition("@")[2] not in live]
 
 
 def worker_tile_counts() -> dict:
@@ -223,6 +248,12 @@ class DaskExecutor:
             raise ClusterUnavailable(
                 f"the Dask cluster at {self.address} runs pairlens {', '.join(sorted(versions))}, "
                 f"this machine runs {__version__}; install the same version everywhere")
+        different = sorted(where for where, a in answers.items() if a["code"] != _SOURCE_FINGERPRINT)
+        if different:
+            raise ClusterUnavailable(
+                f"pairlens {__version__} on {', '.join(different[:3])}{' ...' if len(different) > 3 else ''} "
+                f"at {self.address} is not the same code as on this machine (its results would differ); "
+                "install the same build everywhere and restart the workers")
 
     @property
     def parallelism(self) -> int:
@@ -237,7 +268,8 @@ class DaskExecutor:
             return
         run_id = uuid.uuid4().hex[:16]
         self.last_run_id = run_id
-        plugin_name = f"pairlens-data-{run_id}"
+        plugin_name = f"{_PLUGIN_PREFIX}{run_id}@{self.client.id}"
+        self._withdraw_stale_plugins()
         try:
             self.client.register_plugin(_AnalysisData(run_id, initializer, initargs), name=plugin_name)
         except Exception as exc:  # noqa: BLE001 - a worker failed to unpack the data
@@ -270,6 +302,13 @@ class DaskExecutor:
                     yield index_of[future.key], result
         finally:
             self._release(futures, plugin_name)
+
+    def _withdraw_stale_plugins(self) -> None:
+        try:
+            for name in self.client.run_on_scheduler(_plugins_left_by_gone_clients):
+                self.client.unregister_worker_plugin(name)
+        except Exception:  # noqa: BLE001 - housekeeping; another client may have withdrawn it first
+            pass
 
     def _release(self, futures: list, plugin_name: str) -> None:
         self._futures = []

@@ -260,7 +260,7 @@ def test_cancel_stops_the_tiles_on_the_cluster(cluster):
             return [str(k) for k in dask_scheduler.tasks if run_id in str(k)]
 
         def plugin_registered(dask_scheduler, run_id=run_id):
-            return f"pairlens-data-{run_id}" in dask_scheduler.worker_plugins
+            return any(run_id in name for name in dask_scheduler.worker_plugins)
 
         deadline = time.monotonic() + 20
         while ex.client.run_on_scheduler(tasks_of_run) and time.monotonic() < deadline:
@@ -269,6 +269,30 @@ def test_cancel_stops_the_tiles_on_the_cluster(cluster):
         assert ex.client.run_on_scheduler(plugin_registered) is False  # the data was withdrawn too
         ran = sum(c["tiles"].get(run_id, 0) for c in ex.client.run(worker_tile_counts).values())
     assert 1 <= ran < n_tiles, (ran, n_tiles)
+
+
+def test_data_left_by_a_dead_client_is_withdrawn_by_the_next_run(cluster):
+    # A pairlens process killed mid-run cannot unregister its data plugin; the next run does.
+    from app.dask_executor import _AnalysisData
+    from app.engine import _init_worker
+
+    _wait_for_two_workers(cluster)
+    data, names = _vineyard_table(n=50, seed=61)
+    settings = AnalysisSettings.from_options(measures="pearson")
+    with distributed.Client(cluster.address, timeout=30, set_as_default=False) as gone:
+        orphan = f"pairlens-data-0123456789abcdef@{gone.id}"
+        gone.register_plugin(_AnalysisData("0123456789abcdef", _init_worker, (data, [], settings, None)),
+                             name=orphan)
+
+    def plugin_names(dask_scheduler):
+        return sorted(dask_scheduler.worker_plugins)
+
+    with DaskExecutor(cluster.address) as ex:
+        assert orphan in ex.client.run_on_scheduler(plugin_names)
+        table = run_analysis(data, names, settings, executor=ex)
+        left = ex.client.run_on_scheduler(plugin_names)
+    assert orphan not in left and not any(n.startswith("pairlens-data-") for n in left), left
+    _assert_same_tables(run_analysis(data, names, settings, workers=1), table)
 
 
 def test_worker_killed_mid_run_still_gives_the_local_result(cluster):
@@ -345,6 +369,16 @@ def test_unreachable_scheduler_is_one_clear_error(monkeypatch, tmp_path, capsys)
     err = capsys.readouterr().err
     assert status == 2
     assert err.count("\n") == 1 and "Dask scheduler" in err and "Traceback" not in err
+
+
+def test_a_cluster_running_other_pairlens_code_is_refused(cluster, monkeypatch):
+    import app.dask_executor as dx
+
+    _wait_for_two_workers(cluster)
+    monkeypatch.setattr(dx, "_SOURCE_FINGERPRINT", "0" * 16)    # as if this machine had other sources
+    with pytest.raises(ClusterUnavailable, match="not the same code") as info:
+        DaskExecutor(cluster.address)
+    assert "scheduler" in str(info.value) and "\n" not in str(info.value)
 
 
 def test_command_line_with_cluster_writes_the_same_file(cluster, tmp_path):
