@@ -41,6 +41,12 @@ KENDALL_EXACT_MAX_N = 33
 DEFAULT_HOST = "127.0.0.1"
 DEFAULT_PORT = 8000
 MAX_CONCURRENT_ANALYSES = 2
+# After the pair table the background job labels pairs (app.core.verdict) for this
+# long at most, most significant pairs first; the rest get their label when their
+# pair view opens. Measured: about 50 ms per pair at n = 960.
+VERDICT_BUDGET_SECONDS = 20.0
+# A cancelled analysis that has not stopped after this long is terminated.
+CANCEL_GRACE_SECONDS = 3.0
 
 PACKAGE_DIR = Path(__file__).resolve().parent
 PROJECT_DIR = PACKAGE_DIR.parent
