@@ -1,0 +1,250 @@
+"""What pairlens computes and how, as structured data for the report and the dashboard.
+
+The measure entries come from :data:`app.core.registry.MEASURES` (formula,
+reference, default test, interval), so a new measure shows up here without
+an edit. The text about p-values, q-values, intervals, the Gaussian fit and
+the verdict is ours. Everything is plain strings, lists and dicts, ready for
+a template (autoescaped) or for JSON.
+"""
+
+from __future__ import annotations
+
+from collections import Counter
+from typing import Iterable
+
+from . import config
+from .core.registry import MEASURES
+
+__all__ = ["ADJUSTMENT_TEXT", "measure_methods", "inference_methods", "cautions", "methods_content"]
+
+# Reference details below were written down from memory and checked only
+# against the registry's own reference strings where they overlap.
+_BH = ("Benjamini, Y. & Hochberg, Y. (1995) J. R. Stat. Soc. B 57:289-300, "
+       "doi:10.1111/j.2517-6161.1995.tb02031.x")
+_HOLM = "Holm, S. (1979) Scand. J. Stat. 6:65-70"
+_PHIPSON = ("Phipson, B. & Smyth, G.K. (2010) Stat. Appl. Genet. Mol. Biol. 9(1):39, "
+            "doi:10.2202/1544-6115.1585")
+_HENZE_ZIRKLER = ("Henze, N. & Zirkler, B. (1990) Commun. Stat. Theory Methods 19:3595-3617, "
+                  "doi:10.1080/03610929008830400")
+_SZEKELY_2007 = ("Szekely, G.J., Rizzo, M.L. & Bakirov, N.K. (2007) Ann. Statist. 35:2769-2794, "
+                 "doi:10.1214/009053607000000505")
+_FISHER = "Fisher, R.A. (1921) Metron 1:3-32"
+
+ADJUSTMENT_TEXT: dict[str, dict[str, str]] = {
+    "bh": {
+        "label": "Benjamini-Hochberg (false discovery rate)",
+        "formula": "with the m defined p-values of a measure sorted, p(1) <= ... <= p(m): "
+                   "q(i) = min over j >= i of min(1, m p(j) / j)",
+        "meaning": "Among pairs with q below a level a, the expected share of false discoveries is at "
+                   "most a when the tests are independent or positively dependent.",
+        "reference": _BH,
+    },
+    "holm": {
+        "label": "Holm step-down (family-wise error rate)",
+        "formula": "with the m defined p-values of a measure sorted: "
+                   "q(i) = max over j <= i of min(1, (m - j + 1) p(j))",
+        "meaning": "The chance of even one false discovery among pairs with q below a is at most a, "
+                   "under any dependence between the tests.",
+        "reference": _HOLM,
+    },
+    "none": {
+        "label": "no adjustment",
+        "formula": "q = p",
+        "meaning": "q-values equal the raw p-values: with many pairs, some small p-values are expected "
+                   "by chance alone.",
+        "reference": "",
+    },
+}
+
+
+def _range_text(lower: float, upper: float) -> str:
+    return f"[{lower:g}, {upper:g}]"
+
+
+def measure_methods(measures: Iterable[str] | None = None,
+                    methods_seen: dict[str, Counter] | None = None) -> list[dict]:
+    """One entry per measure: label, formula, range, test, interval, reference.
+
+    Parameters
+    ----------
+    measures : iterable of str, optional
+        Registry names to describe, in this order (default: all of them).
+    methods_seen : dict, optional
+        Measure name -> Counter of the method strings that produced its
+        p-values in an analysis; listed under ``"methods_used"``.
+    """
+    names = list(MEASURES) if measures is None else list(measures)
+    out = []
+    for name in names:
+        m = MEASURES[name]
+        seen = (methods_seen or {}).get(name, Counter())
+        out.append({
+            "name": m.name,
+            "label": m.label,
+            "family": m.family,
+            "formula": m.formula,
+            "range": _range_text(m.lower, m.upper),
+            "symmetric": m.symmetric,
+            "signed": m.signed,
+            "groups": m.multivariate,
+            "test": m.default_test,
+            "interval": m.interval or "none reported",
+            "reference": m.reference,
+            "methods_used": [{"method": k or "(not recorded)", "pairs": v} for k, v in seen.most_common()],
+        })
+    return out
+
+
+def inference_methods(*, adjust: str = config.DEFAULT_ADJUST, confidence: float = config.DEFAULT_CONFIDENCE,
+                      permutations: int = 0, missing: str = config.DEFAULT_MISSING) -> list[dict]:
+    """How p-values, q-values, intervals, the Gaussian fit and the verdict were obtained.
+
+    Each entry is ``{"title", "paragraphs": [str], "formula": str, "references": [str]}``.
+    """
+    adj = ADJUSTMENT_TEXT[adjust]
+    level = f"{confidence * 100:g}%"
+    sections = [
+        {
+            "title": "p-values",
+            "paragraphs": [
+                "Every p-value tests the null hypothesis that the two variables are independent, with the "
+                "default test of its measure listed above; the method that produced each p-value is "
+                "recorded and counted per measure.",
+                (f"Permutation p-values were requested with B = {permutations} resamples: the rows of y are "
+                 "shuffled against fixed x, the statistic is recomputed for each shuffle, and the observed "
+                 "value is counted as one of the resamples so that a p-value is never zero."
+                 if permutations else
+                 "No permutations were requested, so every p-value comes from the closed-form or "
+                 "approximate null distribution named for its measure."),
+            ],
+            "formula": "p = (1 + k) / (B + 1), k = resamples with a statistic at least the observed one"
+                       if permutations else "",
+            "references": [_PHIPSON] if permutations else [],
+        },
+        {
+            "title": "q-values (many pairs)",
+            "paragraphs": [
+                f"p-values were adjusted with {adj['label']}, separately within each measure over all of "
+                "its pairs (both directions of an asymmetric measure count as pairs). Pairs whose p-value "
+                "is undefined are left out of m, so they do not make the others harder to detect.",
+                adj["meaning"],
+                f"The report calls a pair significant when its q-value is below {config.SIGNIFICANCE_LEVEL:g}.",
+            ],
+            "formula": adj["formula"],
+            "references": [adj["reference"]] if adj["reference"] else [],
+        },
+        {
+            "title": "Confidence intervals",
+            "paragraphs": [
+                f"Intervals are at the {level} level. For the correlation coefficients the estimate is "
+                "moved to Fisher's z = atanh(r), an interval of z +/- z_crit SE is built with the standard "
+                "error named for each measure, and both ends are moved back with tanh. Measures without a "
+                "closed-form interval report none.",
+            ],
+            "formula": "[tanh(atanh(r) - z_crit SE), tanh(atanh(r) + z_crit SE)]",
+            "references": [_FISHER],
+        },
+        {
+            "title": "Missing values",
+            "paragraphs": [
+                "pairwise: each pair uses every row where both of its variables are present, so n can "
+                "differ between pairs." if missing == "pairwise" else
+                "complete: only rows where every analysed variable is present are used, so every pair has "
+                "the same n.",
+                "Infinite values are counted as missing. The column n of the pair table is the number of "
+                "rows used.",
+            ],
+            "formula": "",
+            "references": [],
+        },
+        {
+            "title": "Bivariate Gaussian fit",
+            "paragraphs": [
+                "For each pair shown in detail a bivariate normal is fitted: the sample means and the "
+                "covariance matrix (divisor n - 1). Its ellipses hold 50%, 90% and 99% of the fitted mass; "
+                "its conditional mean line E[y | x] with the residual standard deviation shows what a linear "
+                "Gaussian model predicts.",
+                "From the fitted correlation rho the measures a Gaussian would imply are computed and shown "
+                "beside the observed ones; a large gap means the Gaussian picture misleads for that pair.",
+                "Joint normality is tested with the Henze-Zirkler statistic"
+                f" (on a seeded random subsample of {config.HZ_MAX_ROWS} rows for larger samples). Marginals "
+                "can each look normal while the pair is not jointly normal; zero correlation then does not "
+                "mean independence.",
+            ],
+            "formula": "Kendall tau = (2/pi) asin(rho); Spearman rho_s = (6/pi) asin(rho/2); "
+                       "mutual information = -ln(1 - rho^2)/2; distance correlation from Theorem 7 of "
+                       "Szekely, Rizzo & Bakirov (2007)",
+            "references": [_HENZE_ZIRKLER, _SZEKELY_2007],
+        },
+        {
+            "title": "Verdict",
+            "paragraphs": [
+                "Each pair shown in detail gets a plain-words label (" + ", ".join(_verdict_labels()) + ") "
+                "from its q-values, the gaps between measures and the Gaussian fit, and the influence of "
+                "single points. The label is a reading aid, not a test; the reasons listed with it say what "
+                "it rests on.",
+            ],
+            "formula": "",
+            "references": [],
+        },
+    ]
+    return sections
+
+
+def _verdict_labels() -> list[str]:
+    try:
+        from .core.verdict import LABELS
+    except ImportError:  # pragma: no cover - the verdict module is part of the package
+        return []
+    return list(LABELS)
+
+
+def cautions() -> list[dict]:
+    """What a reader must keep in mind; ``{"title", "text"}`` each."""
+    return [
+        {"title": "Association is not causation",
+         "text": "A strong association says the two variables move together in these data. It does not say "
+                 "that one drives the other: a third variable, the way rows were selected, or a shared trend "
+                 "over time can produce it."},
+        {"title": "Many tests",
+         "text": "Testing every pair makes some small p-values certain by chance alone. Read the q-values, "
+                 "not the raw p-values, and treat the strongest pairs as hypotheses to confirm on new data, "
+                 "not as findings."},
+        {"title": "Outliers and missing data",
+         "text": "A few extreme rows can create or hide an association; look at the scatter behind every "
+                 "number you rely on. Rows with missing values were left out as described under Methods, "
+                 "which biases results when values are missing for a reason related to the variables."},
+        {"title": "Health and safety",
+         "text": "Where a decision touches health or safety, these results are a starting point for a "
+                 "qualified expert's review, never a substitute for it."},
+    ]
+
+
+def methods_content(measures: Iterable[str] | None = None, *, settings=None, pair_table=None) -> dict:
+    """Everything for a methods section: measures, inference and cautions.
+
+    Parameters
+    ----------
+    measures : iterable of str, optional
+        Measures to describe (default: those of ``settings``, else all).
+    settings : app.engine.AnalysisSettings, optional
+        Adjustment, confidence, permutations and missing policy to describe.
+    pair_table : app.engine.PairTable, optional
+        When given, the p-value methods actually used are counted per measure.
+    """
+    if measures is None and settings is not None:
+        measures = settings.measures
+    seen: dict[str, Counter] = {}
+    if pair_table is not None:
+        for row in pair_table.rows:
+            if row.p_value == row.p_value:  # NaN p-values were not produced by any method
+                seen.setdefault(row.measure, Counter())[row.method] += 1
+    kwargs = {}
+    if settings is not None:
+        kwargs = dict(adjust=settings.adjust, confidence=settings.confidence,
+                      permutations=settings.permutations, missing=settings.missing)
+    return {
+        "measures": measure_methods(measures, seen),
+        "inference": inference_methods(**kwargs),
+        "cautions": cautions(),
+    }

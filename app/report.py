@@ -1,0 +1,733 @@
+"""One self-contained HTML report of an analysis.
+
+The file holds everything it shows: the Plotly bundle from the installed
+``plotly`` package (inlined once), our stylesheet and sort script, and every
+figure as escaped JSON. It makes no network request; a Content-Security-Policy
+in the page forbids any, and only the page's own scripts (by hash) may run.
+The pair table is rendered on the server, so it reads with scripts disabled.
+"""
+
+from __future__ import annotations
+
+import base64
+import hashlib
+import html
+import json
+import math
+from dataclasses import dataclass, field
+from datetime import datetime, timezone
+from functools import lru_cache
+from pathlib import Path
+from typing import Iterable
+
+import numpy as np
+from jinja2 import Environment, FileSystemLoader, StrictUndefined
+from markupsafe import Markup
+
+from . import __version__, config
+from .core.registry import MEASURES
+from .engine import PairRow, PairTable, pair_detail
+from .methods import methods_content
+
+__all__ = ["MAX_SCATTER_POINTS", "EXTREME_POINTS", "script_json", "round_floats", "subsample_points",
+           "rank_pairs", "disagreement_contrasts", "build_report"]
+
+# A scatter of more points than this adds file size without showing more.
+MAX_SCATTER_POINTS = 2000
+# A random sample can drop the very rows that drive a pair, so the farthest
+# points from the centre are always kept.
+EXTREME_POINTS = 50
+# Values stored for all scatters together (each column's sampled values are
+# stored once and shared by its scatters); with many columns each gets fewer rows.
+POINT_VALUES_BUDGET = 24000
+MIN_SCATTER_POINTS = 300
+ELLIPSE_POINTS = 61
+FIGURE_DIGITS = 6
+HOVER_DIGITS = 4           # numbers only shown in hover text need fewer digits
+TABLE_DIGITS = 6           # machine-readable values in the pair table (data-v)
+TEMPLATE_NAME = "report.html"
+
+# Contrasts whose largest values point at dependence one of the measures misses.
+_CONTRASTS = (
+    ("dcor", "pearson", "signed",
+     "Distance correlation well above |Pearson r|: dependence that a straight line misses "
+     "(curved, U-shaped or mixed patterns)."),
+    ("spearman", "pearson", "absolute",
+     "|Spearman rho| and |Pearson r| far apart: curvature (ranks stronger) or a few influential "
+     "points (raw values stronger)."),
+)
+
+
+# JSON and number helpers ----------------------------------------------------
+
+_JSON_ESCAPES = {"<": "\\u003c", ">": "\\u003e", "&": "\\u0026", "\u2028": "\\u2028", "\u2029": "\\u2029"}
+
+
+def script_json(value) -> Markup:
+    """JSON safe to place inside a ``<script>`` element.
+
+    ``<``, ``>`` and ``&`` become ``\\u003c`` ``\\u003e`` ``\\u0026`` so no
+    ``</script>`` or ``<!--`` can end or change the element, and U+2028/U+2029
+    are escaped for JavaScript parsers that treat them as line ends.
+    """
+    text = json.dumps(value, ensure_ascii=False, allow_nan=False, separators=(",", ":"))
+    for char, escaped in _JSON_ESCAPES.items():
+        text = text.replace(char, escaped)
+    return Markup(text)
+
+
+def _round_number(v: float, digits: int):
+    if not math.isfinite(v):
+        return None
+    return float(f"{v:.{digits}g}")
+
+
+def round_floats(value, digits: int = FIGURE_DIGITS):
+    """Copy of a JSON-like value with floats rounded to ``digits`` significant digits.
+
+    NaN and infinities become ``None`` (JSON has neither); NumPy arrays and
+    scalars become lists and Python numbers.
+    """
+    if isinstance(value, bool) or value is None or isinstance(value, str):
+        return value
+    if isinstance(value, (float, np.floating)):
+        return _round_number(float(value), digits)
+    if isinstance(value, (int, np.integer)):
+        return int(value)
+    if isinstance(value, np.ndarray):
+        return round_floats(value.tolist(), digits)
+    if isinstance(value, dict):
+        return {str(k): round_floats(v, digits) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [round_floats(v, digits) for v in value]
+    return value
+
+
+def _finite(v) -> bool:
+    return v is not None and isinstance(v, (int, float, np.floating)) and math.isfinite(float(v))
+
+
+def fmt_estimate(v) -> str:
+    if not _finite(v):
+        return "–"
+    return f"{float(v):.3f}"
+
+
+def fmt_p(v) -> str:
+    if not _finite(v):
+        return "–"
+    v = float(v)
+    if v == 0.0:
+        return "0"
+    if v < 1e-3:
+        return f"{v:.1e}"
+    return f"{v:.3f}" if v >= 0.01 else f"{v:.4f}"
+
+
+def fmt_num(v, digits: int = 4) -> str:
+    if not _finite(v):
+        return "–"
+    return f"{float(v):.{digits}g}"
+
+
+def _sort_value(v) -> str:
+    """Value to 6 significant digits for the sort script and machine reading ('' when missing)."""
+    if not _finite(v):
+        return ""
+    return f"{float(v):.{TABLE_DIGITS}g}"
+
+
+# Points ---------------------------------------------------------------------
+
+def subsample_points(x: np.ndarray, y: np.ndarray, *, limit: int = MAX_SCATTER_POINTS,
+                     extreme: int = EXTREME_POINTS, seed: int = 0) -> np.ndarray:
+    """Indices of at most ``limit`` points: the ``extreme`` farthest, the rest at random.
+
+    Distance is Mahalanobis distance from the mean under the sample covariance
+    (Euclidean distance of standardised values when the covariance is singular),
+    so single outliers that drive a pair stay in the picture. Indices are
+    returned sorted, so the original row order is kept.
+    """
+    n = len(x)
+    if n <= limit:
+        return np.arange(n)
+    pts = np.column_stack([x, y]).astype(float)
+    centred = pts - pts.mean(axis=0)
+    cov = np.cov(centred, rowvar=False)
+    try:
+        dist = np.einsum("ij,jk,ik->i", centred, np.linalg.inv(cov), centred)
+    except np.linalg.LinAlgError:
+        sd = centred.std(axis=0)
+        sd[sd == 0] = 1.0
+        dist = ((centred / sd) ** 2).sum(axis=1)
+    dist = np.nan_to_num(dist, nan=0.0, posinf=np.inf)
+    extreme = min(extreme, limit)
+    far = np.argsort(-dist, kind="stable")[:extreme]
+    rest = np.setdiff1d(np.arange(n), far, assume_unique=False)
+    rng = np.random.default_rng(seed)
+    sample = rng.choice(rest, size=limit - extreme, replace=False)
+    return np.sort(np.concatenate([far, sample]))
+
+
+def _mahalanobis(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    pts = np.column_stack([x, y]).astype(float)
+    centred = pts - pts.mean(axis=0)
+    try:
+        dist = np.einsum("ij,jk,ik->i", centred, np.linalg.inv(np.cov(centred, rowvar=False)), centred)
+    except np.linalg.LinAlgError:
+        sd = centred.std(axis=0)
+        sd[sd == 0] = 1.0
+        dist = ((centred / sd) ** 2).sum(axis=1)
+    return np.nan_to_num(dist, nan=0.0)
+
+
+def extreme_indices(x: np.ndarray, y: np.ndarray, k: int = EXTREME_POINTS) -> np.ndarray:
+    """Positions of the ``k`` points farthest from the centre (Mahalanobis distance)."""
+    if len(x) <= k:
+        return np.arange(len(x))
+    if len(x) < 3:
+        return np.arange(len(x))
+    return np.sort(np.argsort(-_mahalanobis(x, y), kind="stable")[:k])
+
+
+def shared_rows(n_rows: int, limit: int, seed: int) -> np.ndarray:
+    """Sorted row numbers every scatter of a report draws from (all rows when few)."""
+    if n_rows <= limit:
+        return np.arange(n_rows)
+    rng = np.random.default_rng([int(seed) & 0xFFFFFFFF, 0x5CA77E4])
+    return np.sort(rng.choice(n_rows, size=limit, replace=False))
+
+
+class PointStore:
+    """The sampled values of each column, stored once for all scatters of a report.
+
+    A scatter's trace then holds ``{"$column": key, "$extra": [...]}`` in place
+    of its x and y arrays (and ``{"$rows": true, ...}`` for its row numbers);
+    the report script joins them before drawing. Missing values are ``null``,
+    which Plotly leaves out of a scatter.
+    """
+
+    def __init__(self, data: np.ndarray, columns: list[str], rows: np.ndarray):
+        self.data = data
+        self.position = {c: i for i, c in enumerate(columns)}
+        self.rows = rows
+        self.values: dict[str, list] = {}
+
+    def column(self, name: str) -> str:
+        key = f"c{self.position[name]}"
+        if key not in self.values:
+            self.values[key] = round_floats(self.data[self.rows, self.position[name]].tolist())
+        return key
+
+    def to_json(self) -> dict:
+        return {"rows": self.rows.tolist(), "values": self.values}
+
+
+def simplify_polyline(xs: list, ys: list, rel_tol: float = 1e-9) -> tuple[list, list]:
+    """Drop interior points that lie on the straight segment through their neighbours."""
+    if len(xs) < 3:
+        return list(xs), list(ys)
+    x = np.asarray(xs, dtype=float)
+    y = np.asarray(ys, dtype=float)
+    scale = max(float(np.ptp(x)) * float(np.ptp(y)), 1e-300)
+    keep = [0]
+    for i in range(1, len(x) - 1):
+        a = keep[-1]
+        cross = (x[i] - x[a]) * (y[i + 1] - y[a]) - (y[i] - y[a]) * (x[i + 1] - x[a])
+        if abs(cross) > rel_tol * scale:
+            keep.append(i)
+    keep.append(len(x) - 1)
+    return x[keep].tolist(), y[keep].tolist()
+
+
+# Rankings -------------------------------------------------------------------
+
+@dataclass
+class RankedPair:
+    x: str
+    y: str
+    score: float
+    rows: dict[str, PairRow]           # measure -> row of this pair
+    card: str = ""                      # anchor of the pair's card
+
+
+@dataclass
+class Ranking:
+    key: str
+    title: str
+    explanation: str
+    score_label: str
+    pairs: list[RankedPair] = field(default_factory=list)
+
+
+def _row_index(pt: PairTable) -> dict[tuple[str, str], dict[str, PairRow]]:
+    """(x, y) in variable order -> measure -> row; asymmetric measures keep the stronger direction."""
+    order = {v: i for i, v in enumerate(pt.variables)}
+    index: dict[tuple[str, str], dict[str, PairRow]] = {}
+    for r in pt.rows:
+        a, b = (r.x, r.y) if order[r.x] < order[r.y] else (r.y, r.x)
+        slot = index.setdefault((a, b), {})
+        held = slot.get(r.measure)
+        if held is None or (_finite(r.estimate) and (not _finite(held.estimate) or r.estimate > held.estimate)):
+            slot[r.measure] = r
+    return index
+
+
+def _strength(measure: str, value: float) -> float:
+    return abs(value) if MEASURES[measure].signed else value
+
+
+def rank_pairs(pt: PairTable, measure: str, top_k: int) -> list[PairRow]:
+    """The ``top_k`` rows of ``measure`` by strength (|estimate| for signed measures), then p-value."""
+    rows = [r for r in pt.rows if r.measure == measure and _finite(r.estimate)]
+    rows.sort(key=lambda r: (-_strength(measure, r.estimate), r.p_value if _finite(r.p_value) else 2.0))
+    return rows[:top_k]
+
+
+def disagreement_contrasts(measures: Iterable[str]) -> list[tuple[str, str, str, str]]:
+    """The contrasts available for the chosen measures: (a, b, kind, explanation)."""
+    chosen = set(measures)
+    return [c for c in _CONTRASTS if c[0] in chosen and c[1] in chosen]
+
+
+def _contrast_score(a_row: PairRow, b_row: PairRow, kind: str) -> float:
+    a, b = a_row.estimate, b_row.estimate
+    if not (_finite(a) and _finite(b)):
+        return math.nan
+    if kind == "signed":  # a is unsigned (dcor), b signed
+        return float(a - abs(b))
+    return float(abs(a) - abs(b))
+
+
+def _rankings(pt: PairTable, top_k: int) -> list[Ranking]:
+    index = _row_index(pt)
+    out: list[Ranking] = []
+    for m in pt.measures:
+        meas = MEASURES[m]
+        ranking = Ranking(key=m, title=f"Strongest by {meas.label}",
+                          explanation=("largest |estimate|" if meas.signed else "largest estimate")
+                          + ("; each direction x → y ranked separately" if not meas.symmetric else ""),
+                          score_label=meas.label)
+        for r in rank_pairs(pt, m, top_k):
+            order = {v: i for i, v in enumerate(pt.variables)}
+            key = (r.x, r.y) if order[r.x] < order[r.y] else (r.y, r.x)
+            rows = dict(index.get(key, {}))
+            rows[m] = r
+            ranking.pairs.append(RankedPair(r.x, r.y, float(r.estimate), rows))
+        out.append(ranking)
+    for a, b, kind, explanation in disagreement_contrasts(pt.measures):
+        la, lb = MEASURES[a].label, MEASURES[b].label
+        label = f"{la} − |{lb}|" if kind == "signed" else f"|{la}| − |{lb}|"
+        ranking = Ranking(key=f"{a}-{b}", title=f"Disagreement: {label}", explanation=explanation,
+                          score_label=label)
+        scored = []
+        for (x, y), rows in index.items():
+            if a in rows and b in rows:
+                s = _contrast_score(rows[a], rows[b], kind)
+                if math.isfinite(s):
+                    scored.append((s, x, y, rows))
+        # signed contrasts rank the largest excess; absolute ones the largest gap either way
+        scored.sort(key=lambda t: -(t[0] if kind == "signed" else abs(t[0])))
+        for s, x, y, rows in scored[:top_k]:
+            ranking.pairs.append(RankedPair(x, y, s, dict(rows)))
+        out.append(ranking)
+    return out
+
+
+# Figures built on the shared builders, made smaller for a file ----------------
+
+def _rounded_matrix(stack: np.ndarray, digits: int) -> list:
+    return [[[_round_number(float(v), digits) for v in cell] for cell in row] for row in stack]
+
+
+def compact_heatmap(fig: dict, pt: PairTable, measure: str) -> dict:
+    """Replace the per-cell hover text by numbers and a template (about a third of the size).
+
+    The builder writes one HTML string per cell; the report sends p, q and n as
+    ``customdata`` and lets Plotly format them on hover.
+    """
+    heat = fig["data"][0] if fig.get("data") else {}
+    names = (fig.get("layout") or {}).get("meta", {}).get("variables")
+    if heat.get("type") != "heatmap" or not names:
+        return fig
+    pos = {v: i for i, v in enumerate(pt.variables)}
+    idx = np.asarray([pos[n] for n in names], dtype=int)
+    # intervals are left to the pair table: three numbers per cell keep 30 x 30 maps small
+    fields = ("p_value", "q_value", "n")
+    stack = np.stack([pt.matrix(measure, f)[np.ix_(idx, idx)] for f in fields], axis=-1)
+    meas = MEASURES[measure]
+    head = "<b>%{x}</b> × <b>%{y}</b>" if meas.symmetric else "<b>%{y}</b> → <b>%{x}</b>"
+    body = f"{plot_label(meas.label)} %{{z:.3f}}"
+    body += "<br>p %{customdata[0]:.2g}  q %{customdata[1]:.2g}  n %{customdata[2]}"
+    heat = {k: v for k, v in heat.items() if k != "text"}
+    heat["customdata"] = _rounded_matrix(stack, HOVER_DIGITS)
+    heat["hovertemplate"] = head + "<br>" + body + "<extra></extra>"
+    return {**fig, "data": [heat, *fig["data"][1:]]}
+
+
+def compact_difference(fig: dict, pt: PairTable, a: str, b: str) -> dict:
+    """As :func:`compact_heatmap` for the difference view: both estimates as ``customdata``."""
+    heat = fig["data"][0] if fig.get("data") else {}
+    names = (fig.get("layout") or {}).get("meta", {}).get("variables")
+    if heat.get("type") != "heatmap" or not names:
+        return fig
+    pos = {v: i for i, v in enumerate(pt.variables)}
+    idx = np.asarray([pos[n] for n in names], dtype=int)
+    stack = np.stack([pt.matrix(a)[np.ix_(idx, idx)], pt.matrix(b)[np.ix_(idx, idx)]], axis=-1)
+    heat = {k: v for k, v in heat.items() if k != "text"}
+    heat["customdata"] = _rounded_matrix(stack, HOVER_DIGITS)
+    heat["hovertemplate"] = ("<b>%{x}</b> × <b>%{y}</b><br>" + plot_label(MEASURES[a].label)
+                             + " %{customdata[0]:.3f}  " + plot_label(MEASURES[b].label)
+                             + " %{customdata[1]:.3f}<br>difference %{z:.3f}<extra></extra>")
+    return {**fig, "data": [heat, *fig["data"][1:]]}
+
+
+def plot_label(text: str) -> str:
+    """Text for Plotly, which reads a small HTML subset; also keeps ``%{`` out of hover templates."""
+    return html.escape(str(text), quote=False).replace("%{", "%&#123;")
+
+
+def binned_marginals(fig: dict, x: np.ndarray, y: np.ndarray) -> dict:
+    """Histogram traces of all points as pre-binned bars.
+
+    The builder's histograms carry every value again; bars of counts from the
+    full data are smaller and do not depend on the scatter's subsample.
+    """
+    out = []
+    for trace in fig.get("data", []):
+        if trace.get("type") != "histogram":
+            out.append(trace)
+            continue
+        horizontal = "y" in trace and "x" not in trace
+        values = y if horizontal else x
+        values = values[np.isfinite(values)]
+        bins = int(trace.get("nbinsy" if horizontal else "nbinsx") or 30)
+        if values.size == 0:
+            continue
+        counts, edges = np.histogram(values, bins=bins)
+        centres = (edges[:-1] + edges[1:]) / 2
+        widths = np.diff(edges)
+        bar = {"type": "bar", "name": trace.get("name", ""), "marker": trace.get("marker", {}),
+               "showlegend": False, "width": widths.tolist()}
+        if horizontal:
+            bar.update(orientation="h", y=centres.tolist(), x=counts.tolist(), xaxis=trace.get("xaxis", "x"),
+                       hoverinfo="x")
+        else:
+            bar.update(x=centres.tolist(), y=counts.tolist(), yaxis=trace.get("yaxis", "y"), hoverinfo="y")
+        out.append(bar)
+    return {**fig, "data": out}
+
+
+# Pair cards -----------------------------------------------------------------
+
+@dataclass
+class PairCard:
+    anchor: str
+    x: str
+    y: str
+    badges: list[str]
+    rows: list[dict]                    # measure rows for the card's table
+    detail: dict | None = None          # pair_detail output without the points
+    figure_id: str = ""
+    points_note: str = ""
+    note: str = ""
+    gaussian: dict | None = None        # display-ready summary of the Gaussian fit
+
+
+def _card_rows(pt: PairTable, rows: dict[str, PairRow]) -> list[dict]:
+    out = []
+    for m in pt.measures:
+        r = rows.get(m)
+        if r is None:
+            continue
+        meas = MEASURES[m]
+        out.append({
+            "measure": m, "label": meas.label + ("" if meas.symmetric else f" ({r.x} → {r.y})"),
+            "estimate": fmt_estimate(r.estimate),
+            "interval": (f"[{fmt_estimate(r.ci_low)}, {fmt_estimate(r.ci_high)}]"
+                         if _finite(r.ci_low) and _finite(r.ci_high) else "–"),
+            "p": fmt_p(r.p_value), "q": fmt_p(r.q_value), "n": int(r.n), "method": r.method,
+            "note": r.note,
+            "significant": _finite(r.q_value) and r.q_value < config.SIGNIFICANCE_LEVEL,
+        })
+    return out
+
+
+def _gaussian_summary(detail: dict) -> dict:
+    g = detail.get("gaussian") or {}
+    observed = {m: v.get("estimate") for m, v in (detail.get("measures") or {}).items()}
+    implied = []
+    all_implied = g.get("implied") or {}
+    for name, value in all_implied.items():
+        if name not in observed:  # only measures this analysis computed have an observed value
+            continue
+        obs = observed.get(name)
+        implied.append({"name": MEASURES[name].label if name in MEASURES else name,
+                        "implied": fmt_estimate(value), "observed": fmt_estimate(obs),
+                        "gap": fmt_estimate(obs - value) if _finite(obs) and _finite(value) else "–"})
+    cond = g.get("conditional") or {}
+    normality = g.get("normality") or {}
+    marg = g.get("marginal_normality") or {}
+    return {
+        "rho": fmt_estimate(g.get("rho")),
+        "mean": [fmt_num(v) for v in (g.get("mean") or [None, None])],
+        "slope": fmt_num(cond.get("slope")), "intercept": fmt_num(cond.get("intercept")),
+        "residual_sd": fmt_num(cond.get("residual_sd")),
+        "normality_stat": fmt_num(normality.get("statistic")), "normality_p": fmt_p(normality.get("p_value")),
+        "normality_rejected": _finite(normality.get("p_value")) and normality["p_value"] < config.SIGNIFICANCE_LEVEL,
+        "marginal": [{"axis": detail["x"] if k == "x" else detail["y"] if k == "y" else k,
+                      "test": v.get("test", ""), "p": fmt_p(v.get("p_value"))} for k, v in marg.items()],
+        "implied": implied,
+        "mi": fmt_num(all_implied["mi"], 3) if _finite(all_implied.get("mi")) else "",
+        "note": g.get("note", ""),
+    }
+
+
+def _slim_pair_figure(fig: dict) -> dict:
+    """Fewer vertices for the fit's lines: straight runs collapse, ellipses keep 61 points."""
+    out = []
+    for trace in fig.get("data", []):
+        if trace.get("mode") == "lines" and isinstance(trace.get("x"), list) and isinstance(trace.get("y"), list):
+            xs, ys = trace["x"], trace["y"]
+            if trace.get("legendgroup") == "ellipses" and len(xs) > ELLIPSE_POINTS:
+                step = max(1, (len(xs) - 1) // (ELLIPSE_POINTS - 1))
+                xs, ys = xs[:-1:step] + xs[-1:], ys[:-1:step] + ys[-1:]
+                trace = {**trace, "x": xs, "y": ys, "line": {**trace.get("line", {}), "shape": "spline"}}
+            else:
+                xs, ys = simplify_polyline(xs, ys)
+                trace = {**trace, "x": xs, "y": ys}
+        out.append(trace)
+    return {**fig, "data": out}
+
+
+def _pair_cards(table, pt: PairTable, rankings: list[Ranking],
+                figures: dict) -> tuple[list[PairCard], int, dict]:
+    from .web import plots
+
+    order = {v: i for i, v in enumerate(pt.variables)}
+    columns = set(table.columns)
+    cards: dict[tuple[str, str], PairCard] = {}
+    for ranking in rankings:
+        for place, rp in enumerate(ranking.pairs, start=1):
+            # symmetric pairs share a card whichever way round they were ranked
+            key = (rp.x, rp.y) if order[rp.x] < order[rp.y] else (rp.y, rp.x)
+            card = cards.get(key)
+            if card is None:
+                card = PairCard(anchor=f"pair-{len(cards) + 1}", x=key[0], y=key[1], badges=[],
+                                rows=_card_rows(pt, rp.rows))
+                cards[key] = card
+            card.badges.append(f"#{place} {ranking.score_label}")
+            rp.card = card.anchor
+    drawable = [(x, y) for (x, y) in cards if x in columns and y in columns]
+    n_columns = len({c for pair in drawable for c in pair})
+    limit = max(MIN_SCATTER_POINTS, min(MAX_SCATTER_POINTS, POINT_VALUES_BUDGET // max(n_columns, 1)))
+    store = PointStore(table.data, table.columns, shared_rows(table.data.shape[0], limit, pt.settings.seed))
+    for (x, y), card in cards.items():
+        if x not in columns or y not in columns:
+            card.note = "A column group: the report draws scatters for single columns only."
+            continue
+        detail = pair_detail(table.data, table.columns, x, y, pt.settings, table=pt, include_points=True)
+        points = detail.pop("points")
+        px, py = np.asarray(points["x"], dtype=float), np.asarray(points["y"], dtype=float)
+        prow = np.asarray(points["rows"], dtype=np.int64)
+        total = len(px)
+        in_sample = np.isin(prow, store.rows)
+        far = extreme_indices(px, py)
+        extra = far[~in_sample[far]]
+        shown_pos = np.union1d(np.flatnonzero(in_sample), extra)
+        shown = {"x": px[shown_pos].tolist(), "y": py[shown_pos].tolist(), "rows": prow[shown_pos].tolist()}
+        if len(shown_pos) < total:
+            card.points_note = (f"Showing {len(shown_pos)} of {total} points: the rows of a random sample of "
+                                f"{len(store.rows)} shared by every scatter in this report (seed "
+                                f"{pt.settings.seed}), plus the {len(far)} points of this pair farthest from "
+                                f"its centre. Measures, histograms and the Gaussian fit use all {total}.")
+        else:
+            card.points_note = f"All {total} points with both values present."
+        card.figure_id = f"fig-{card.anchor}"
+        fig = binned_marginals(plots.pair_figure({**detail, "points": shown}), px, py)
+        fig = _slim_pair_figure(fig)
+        trace = fig["data"][0] if fig.get("data") else {}
+        if len(trace.get("x") or []) == len(shown_pos):
+            # the points trace: shared column values plus this pair's extra far points
+            fig["data"][0] = {**trace,
+                              "x": {"$column": store.column(x), "$extra": round_floats(px[extra].tolist())},
+                              "y": {"$column": store.column(y), "$extra": round_floats(py[extra].tolist())},
+                              "customdata": {"$rows": True, "$extra": prow[extra].tolist()}}
+            if len(shown_pos) < total:
+                fig["data"][0]["name"] = f"rows ({len(shown_pos)} of {total} shown)"
+        layout = fig.setdefault("layout", {})
+        # room for the legend under the x-axis title in a fixed-height report figure
+        layout["legend"] = {**layout.get("legend", {}), "orientation": "h", "x": 0, "y": -0.2,
+                            "yanchor": "top", "font": {"size": 10}}
+        layout["margin"] = {**layout.get("margin", {}), "b": 110}
+        figures[card.figure_id] = fig
+        card.detail = detail
+    return list(cards.values()), len(store.rows), store.to_json()
+
+
+# Fingerprint and table -----------------------------------------------------
+
+def _fingerprint(table, pt: PairTable) -> dict:
+    used = [c for c in table.info if c.used]
+    left_out = [c for c in table.info if not c.used]
+    return {
+        "name": table.name, "sha256": table.sha256, "n_rows": table.n_rows,
+        "n_columns": len(table.info), "used": used, "left_out": left_out,
+        "variables": pt.variables, "notes": list(table.notes),
+        "missing_total": sum(c.missing for c in table.info),
+    }
+
+
+def _table_rows(pt: PairTable) -> list[dict]:
+    out = []
+    for r in pt.rows:
+        out.append({
+            "x": r.x, "y": r.y, "measure": r.measure,
+            "cells": [(_sort_value(v), text) for v, text in (
+                (r.estimate, fmt_estimate(r.estimate)), (r.ci_low, fmt_estimate(r.ci_low)),
+                (r.ci_high, fmt_estimate(r.ci_high)), (r.p_value, fmt_p(r.p_value)),
+                (r.q_value, fmt_p(r.q_value)))],
+            "n": int(r.n), "note": r.note,
+            "significant": _finite(r.q_value) and r.q_value < config.SIGNIFICANCE_LEVEL,
+        })
+    return out
+
+
+def _summary(pt: PairTable) -> list[dict]:
+    out = []
+    for m in pt.measures:
+        rows = [r for r in pt.rows if r.measure == m]
+        defined = [r for r in rows if _finite(r.p_value)]
+        sig = [r for r in defined if _finite(r.q_value) and r.q_value < config.SIGNIFICANCE_LEVEL]
+        out.append({"measure": m, "label": MEASURES[m].label, "rows": len(rows), "defined": len(defined),
+                    "significant": len(sig)})
+    return out
+
+
+# Assets ---------------------------------------------------------------------
+
+@lru_cache(maxsize=1)
+def _plotly_js() -> str:
+    import plotly
+
+    path = Path(plotly.__file__).resolve().parent / "package_data" / "plotly.min.js"
+    return _inline_safe(path.read_text(encoding="utf-8"), "script", path.name)
+
+
+def _asset(name: str) -> str:
+    path = config.STATIC_DIR / name
+    return _inline_safe(path.read_text(encoding="utf-8"), "style" if name.endswith(".css") else "script", name)
+
+
+def _inline_safe(text: str, element: str, name: str) -> str:
+    # The HTML parser turns CR LF into LF before a CSP hash is checked.
+    text = text.replace("\r\n", "\n").replace("\r", "\n")
+    if f"</{element}" in text.lower() or "<!--" in text:
+        raise ValueError(f"{name} contains '</{element}' or '<!--' and cannot be inlined")
+    return text
+
+
+def _csp_hash(text: str) -> str:
+    return "'sha256-" + base64.b64encode(hashlib.sha256(text.encode("utf-8")).digest()).decode("ascii") + "'"
+
+
+@lru_cache(maxsize=1)
+def _environment() -> Environment:
+    env = Environment(loader=FileSystemLoader(str(config.TEMPLATES_DIR)), autoescape=True,
+                      undefined=StrictUndefined, trim_blocks=True, lstrip_blocks=True)
+    return env
+
+
+# Public ---------------------------------------------------------------------
+
+def build_report(table, pair_table: PairTable, *, command: str, generated_at: datetime | None = None,
+                 top_k: int = 5) -> str:
+    """The report as one HTML string.
+
+    Parameters
+    ----------
+    table : app.ingest.Table
+        The data the analysis ran on (fingerprint, columns, values for scatters).
+    pair_table : app.engine.PairTable
+        Result of :func:`app.engine.run_analysis` on ``table``.
+    command : str
+        The ``pairlens report ...`` command line that reproduces the file.
+    generated_at : datetime, optional
+        Time stamp printed in the report (default: now, UTC).
+    top_k : int
+        Pairs listed per ranking.
+    """
+    from .web import plots
+
+    generated_at = generated_at or datetime.now(timezone.utc)
+    if generated_at.tzinfo is None:
+        generated_at = generated_at.replace(tzinfo=timezone.utc)
+    settings = pair_table.settings
+    figures: dict[str, dict] = {}
+
+    order_measure = "dcor" if "dcor" in pair_table.measures else pair_table.measures[0]
+    order = plots.cluster_order(pair_table, order_measure)
+    heatmaps = []
+    for m in pair_table.measures:
+        fid = f"heatmap-{m}"
+        figures[fid] = compact_heatmap(plots.heatmap_figure(pair_table, m, order=order), pair_table, m)
+        heatmaps.append({"id": fid, "measure": m, "label": MEASURES[m].label})
+    contrasts = []
+    for a, b, kind, explanation in disagreement_contrasts(pair_table.measures):
+        if kind != "signed":
+            continue
+        fid = f"difference-{a}-{b}"
+        figures[fid] = compact_difference(plots.difference_figure(pair_table, a, b, order=order, top=0),
+                                          pair_table, a, b)
+        contrasts.append({"id": fid, "label": f"{MEASURES[a].label} − |{MEASURES[b].label}|",
+                          "explanation": explanation})
+
+    rankings = _rankings(pair_table, top_k)
+    cards, scatter_limit, point_store = _pair_cards(table, pair_table, rankings, figures)
+    cards_by_anchor = {c.anchor: c for c in cards}
+    for c in cards:
+        if c.detail is not None:
+            c.gaussian = _gaussian_summary(c.detail)
+
+    figures = {k: round_floats(v) for k, v in figures.items()}
+    sort_js = _asset("report.js")
+    plotly_js = _plotly_js()
+    figure_json = script_json(figures)
+    csp = ("default-src 'none'; "
+           f"script-src {_csp_hash(plotly_js)} {_csp_hash(sort_js)}; "
+           "style-src 'unsafe-inline'; img-src data: blob:; font-src data:; connect-src 'none'; "
+           "form-action 'none'; base-uri 'none'")
+    stamp = generated_at.astimezone(timezone.utc)
+    context = {
+        "version": __version__,
+        "title_name": table.name,
+        "generated_iso": stamp.isoformat(timespec="seconds"),
+        "generated_text": stamp.strftime("%Y-%m-%d %H:%M UTC"),
+        "csp": csp,
+        "css": Markup(_asset("report.css")),
+        "plotly_js": Markup(plotly_js),
+        "sort_js": Markup(sort_js),
+        "figure_json": figure_json,
+        "points_json": script_json(point_store),
+        "fingerprint": _fingerprint(table, pair_table),
+        "settings": settings,
+        "measure_labels": [(m, MEASURES[m].label) for m in settings.measures],
+        "command": command,
+        "seconds": pair_table.seconds,
+        "summary": _summary(pair_table),
+        "n_pairs": len(pair_table.variables) * (len(pair_table.variables) - 1) // 2,
+        "order_measure": MEASURES[order_measure].label,
+        "heatmaps": heatmaps,
+        "contrasts": contrasts,
+        "rankings": rankings,
+        "cards": cards,
+        "cards_by_anchor": cards_by_anchor,
+        "rows": _table_rows(pair_table),
+        "methods": methods_content(settings=settings, pair_table=pair_table),
+        "alpha": config.SIGNIFICANCE_LEVEL,
+        "max_points": scatter_limit,
+        "fmt_estimate": fmt_estimate,
+        "fmt_p": fmt_p,
+        "fmt_num": fmt_num,
+    }
+    return _environment().get_template(TEMPLATE_NAME).render(**context)

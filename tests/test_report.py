@@ -1,0 +1,620 @@
+"""The self-contained HTML report: fingerprint, numbers, safety, size, offline rendering, CLI.
+
+Data here are invented (seeded), vineyard-style columns with known shapes.
+"""
+
+from __future__ import annotations
+
+import csv
+import hashlib
+import html
+import json
+import math
+import re
+import shlex
+import shutil
+import subprocess
+import sys
+import time
+from datetime import datetime, timezone
+from html.parser import HTMLParser
+from pathlib import Path
+
+import numpy as np
+import pytest
+import scipy.stats as ss
+
+from app import __version__
+from app.engine import AnalysisSettings, run_analysis
+from app.ingest import ColumnInfo, Table, load_table
+from app.report import build_report, round_floats, script_json, subsample_points
+
+ROOT = Path(__file__).resolve().parent.parent
+SCREENSHOTS = Path(__file__).resolve().parent / "screenshots"
+CHROMIUM = "/usr/bin/chromium"
+CHROMIUM_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking", "--disable-component-update",
+                 "--disable-sync", "--no-first-run", "--disable-quic"]
+STAMP = datetime(2026, 12, 1, 21, 30, tzinfo=timezone.utc)
+PAYLOADS = [
+    "</script><script>window.__pwned=1</script>",
+    '<img src=x onerror="window.__pwned=2">',
+    "<!--<script>window.__pwned=3</script>",
+    "line\u2028sep",
+    "%{x} & \"q\" 'a'",
+]
+
+
+# Data -----------------------------------------------------------------------
+
+def _vineyard_frame(n: int, seed: int) -> dict[str, np.ndarray]:
+    rng = np.random.default_rng(seed)
+    moisture = rng.normal(25, 5, n)
+    canopy = 30 - 0.4 * moisture + rng.normal(0, 1, n)            # linear
+    sugar = 20 + 6 * np.tanh((canopy - 20) / 3) + rng.normal(0, 0.4, n)  # monotone, curved
+    disease = ((moisture - 25) / 5) ** 2 + rng.normal(0, 0.3, n)   # U-shaped
+    noise = rng.normal(size=n)
+    return {"soil_moisture": moisture, "canopy_temp": canopy, "sugar_brix": sugar,
+            "disease_score": disease, "gust_noise": noise}
+
+
+def _write_csv(path: Path, cols: dict[str, np.ndarray], *, missing_in: str | None = None,
+               missing_every: int = 9, category: bool = True) -> Path:
+    names = list(cols)
+    n = len(next(iter(cols.values())))
+    with path.open("w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh)
+        w.writerow(names + (["block"] if category else []))
+        for i in range(n):
+            row = []
+            for name in names:
+                blank = missing_in == name and i % missing_every == 3
+                row.append("" if blank else f"{cols[name][i]:.6g}")
+            if category:
+                row.append(f"B{i % 4}")
+            w.writerow(row)
+    return path
+
+
+class _Report:
+    """The report of one small analysis, built once for the module."""
+
+    def __init__(self, path: Path, settings: AnalysisSettings, top_k: int = 3):
+        self.path = path
+        self.table = load_table(path)
+        self.settings = settings
+        self.pairs = run_analysis(self.table.data, self.table.columns, settings, workers=1)
+        started = time.perf_counter()
+        self.html = build_report(self.table, self.pairs, command=f"pairlens report {path.name} -o r.html",
+                                 generated_at=STAMP, top_k=top_k)
+        self.seconds = time.perf_counter() - started
+        self.file = path.with_suffix(".html")
+        self.file.write_text(self.html, encoding="utf-8")
+
+
+@pytest.fixture(scope="module")
+def report(tmp_path_factory) -> _Report:
+    folder = tmp_path_factory.mktemp("report")
+    path = _write_csv(folder / "blocks.csv", _vineyard_frame(400, 11), missing_in="canopy_temp")
+    settings = AnalysisSettings.from_options(measures="pearson,spearman,kendall,dcor,xi", seed=7)
+    return _Report(path, settings)
+
+
+# HTML parsing ---------------------------------------------------------------
+
+class _Collector(HTMLParser):
+    """Tags with their attributes, the pair table's cells, and text by data-testid."""
+
+    def __init__(self):
+        super().__init__(convert_charrefs=True)
+        self.tags: list[tuple[str, dict]] = []
+        self.script_texts: list[tuple[dict, str]] = []
+        self._script: dict | None = None
+        self._buf: list[str] = []
+        self.pair_rows: list[list[tuple[dict, str]]] = []
+        self._in_pairs = False
+        self._in_body = False
+        self._cell: dict | None = None
+        self._cell_text: list[str] = []
+        self.testid_text: dict[str, str] = {}
+        self._testid_stack: list[tuple[str, str, list[str]]] = []
+
+    def handle_starttag(self, tag, attrs):
+        a = dict(attrs)
+        self.tags.append((tag, a))
+        if tag == "script":
+            self._script, self._buf = a, []
+        if tag == "table" and a.get("id") == "pairs":
+            self._in_pairs = True
+        if self._in_pairs and tag == "tbody":
+            self._in_body = True
+        # the pair table leaves out the optional </td> and </tr> end tags
+        if self._in_body and tag in ("tr", "td"):
+            self._close_cell()
+        if self._in_body and tag == "tr":
+            self.pair_rows.append([])
+        if self._in_body and tag == "td":
+            self._cell, self._cell_text = a, []
+        if "data-testid" in a:
+            self._testid_stack.append((tag, a["data-testid"], []))
+
+    def _close_cell(self):
+        if self._cell is not None:
+            self.pair_rows[-1].append((self._cell, "".join(self._cell_text)))
+            self._cell = None
+
+    def handle_endtag(self, tag):
+        if tag == "script" and self._script is not None:
+            self.script_texts.append((self._script, "".join(self._buf)))
+            self._script = None
+        if tag in ("td", "tr") and self._in_body:
+            self._close_cell()
+        if tag == "tbody" and self._in_body:
+            self._close_cell()
+            self._in_body = self._in_pairs = False
+        if self._testid_stack and self._testid_stack[-1][0] == tag:
+            _, tid, parts = self._testid_stack.pop()
+            self.testid_text.setdefault(tid, "".join(parts))
+
+    def handle_data(self, data):
+        if self._script is not None:
+            self._buf.append(data)
+        if self._cell is not None:
+            self._cell_text.append(data)
+        for _, _, parts in self._testid_stack:
+            parts.append(data)
+
+
+def _parse(text: str) -> _Collector:
+    c = _Collector()
+    c.feed(text)
+    c.close()
+    return c
+
+
+def _figures(text: str) -> dict:
+    m = re.search(r'<script type="application/json" id="pl-figures">(.*?)</script>', text, re.S)
+    assert m, "figure data block missing"
+    return json.loads(m.group(1))
+
+
+# Fingerprint, settings, numbers ---------------------------------------------
+
+def test_fingerprint_is_sha256_of_the_file_and_counts_match(report):
+    page = _parse(report.html)
+    # reference: hashlib (Python standard library) over the file's bytes
+    assert page.testid_text["sha256"] == hashlib.sha256(report.path.read_bytes()).hexdigest()
+    with report.path.open(newline="", encoding="utf-8") as fh:  # reference: the csv module
+        rows = list(csv.reader(fh))
+    header, body = rows[0], rows[1:]
+    assert page.testid_text["n-rows"] == str(len(body))
+    # missing counts per column, counted independently from the raw cells
+    blanks = {name: sum(1 for r in body if r[k] == "") for k, name in enumerate(header)}
+    assert blanks["canopy_temp"] > 0
+    column_rows = re.findall(r'<tr class="(used|left-out)">\s*<th scope="row">(.*?)</th>.*?'
+                             r'<td class="r">(\d+)', report.html, re.S)
+    shown = {html.unescape(name.split(" <span")[0]): int(miss) for _, name, miss in column_rows}
+    assert shown == blanks
+    # the categorical column is listed as left out, with its reason
+    assert re.search(r'<tr class="left-out">\s*<th scope="row">block</th>.*?categorical', report.html, re.S)
+
+
+def test_title_version_settings_and_command(report):
+    text = report.html
+    assert f"<h1>{report.path.name}</h1>" in text
+    assert f"pairlens {__version__}" in text
+    assert "2026-12-01 21:30 UTC" in text
+    page = _parse(text)
+    assert page.testid_text["command"] == f"pairlens report {report.path.name} -o r.html"
+    for word in ("pairwise", "bh", "0.95", ">7<"):
+        assert word in text
+    for name in report.settings.measures:
+        assert f"<code>{name}</code>" in text
+
+
+def test_pair_table_equals_the_analysis_records(report):
+    page = _parse(report.html)
+    records = report.pairs.records()
+    assert len(page.pair_rows) == len(records) and records
+    numeric = ("estimate", "ci_low", "ci_high", "p_value", "q_value")
+    for cells, rec in zip(page.pair_rows, records):
+        texts = [html.unescape(t) for _, t in cells]
+        assert texts[0] == rec["x"] and texts[1] == rec["y"] and texts[2] == rec["measure"]
+        for k, name in enumerate(numeric, start=3):
+            attrs, shown = cells[k]
+            value = rec[name]
+            if value is None or not math.isfinite(value):
+                assert attrs["data-v"] == "" and shown == "–"
+                continue
+            # machine-readable value: 6 significant digits of the record
+            assert float(attrs["data-v"]) == pytest.approx(value, rel=5e-6, abs=1e-300)
+            # displayed value: rounded, so within half a unit of its last digit
+            digits = shown.split("e")[0]
+            decimals = len(digits.split(".")[1]) if "." in digits else 0
+            scale = 10 ** int(shown.split("e")[1]) if "e" in shown else 1
+            assert float(shown) == pytest.approx(value, abs=0.5 * 10 ** -decimals * scale + 1e-15)
+        assert int(texts[8]) == rec["n"]
+        assert texts[9].strip() == rec["note"]
+
+
+def test_report_numbers_agree_with_reference_libraries(report):
+    page = _parse(report.html)
+    by_key = {(html.unescape(c[0][1]), html.unescape(c[1][1]), c[2][1]): c for c in page.pair_rows}
+    cols = report.table.columns
+    x_name, y_name = "soil_moisture", "canopy_temp"
+    x = report.table.data[:, cols.index(x_name)]
+    y = report.table.data[:, cols.index(y_name)]
+    keep = ~np.isnan(x) & ~np.isnan(y)
+    x, y = x[keep], y[keep]
+    import dcor
+
+    references = {  # reference: scipy.stats and the dcor package
+        "pearson": ss.pearsonr(x, y).statistic,
+        "spearman": ss.spearmanr(x, y).statistic,
+        "kendall": ss.kendalltau(x, y).statistic,
+        "dcor": dcor.distance_correlation(x, y),
+        "xi": ss.chatterjeexi(x, y).statistic,
+    }
+    for measure, expected in references.items():
+        cells = by_key[(x_name, y_name, measure)]
+        assert float(cells[3][0]["data-v"]) == pytest.approx(expected, rel=5e-6), measure
+        assert int(cells[8][1]) == int(keep.sum())
+    p_cells = by_key[(x_name, y_name, "pearson")]
+    assert float(p_cells[6][0]["data-v"]) == pytest.approx(ss.pearsonr(x, y).pvalue, rel=5e-6, abs=1e-300)
+
+
+def test_methods_and_cautions_are_complete(report):
+    from app.core.registry import MEASURES
+
+    text = html.unescape(report.html)
+    for name in report.settings.measures:
+        m = MEASURES[name]
+        for part in (m.formula, m.reference, m.default_test):
+            assert part in text, (name, part)
+    assert "Benjamini, Y. & Hochberg, Y. (1995)" in text
+    for phrase in ("not causation", "Many tests", "Outliers and missing data", "health or safety",
+                   "qualified"):
+        assert phrase in text
+    assert "@media print" in report.html
+
+
+def test_top_pairs_find_the_planted_shapes(report):
+    text = html.unescape(report.html)
+    # the U-shaped pair (disease_score vs soil_moisture) leads the dcor - |pearson| ranking
+    block = text[text.index("Disagreement: Distance correlation"):]
+    first = re.search(r'<td class="place">1</td><td><a href="#(pair-\d+)">(.*?)</a>', block, re.S)
+    assert first and "soil_moisture" in first.group(2) and "disease_score" in first.group(2)
+    card = text[text.index(f'id="{first.group(1)}"'):]
+    assert "Verdict" in card[:3000]
+
+
+# Figures --------------------------------------------------------------------
+
+def _points_store(text: str) -> dict:
+    m = re.search(r'<script type="application/json" id="pl-points">(.*?)</script>', text, re.S)
+    assert m, "point store missing"
+    return json.loads(m.group(1))
+
+
+def _resolved(trace: dict, store: dict, key: str) -> list:
+    """The values the report script draws: shared column values plus the pair's extra points."""
+    ref = trace[key]
+    if isinstance(ref, list):
+        return ref
+    base = store["rows"] if ref.get("$rows") else store["values"][ref["$column"]]
+    return base + ref["$extra"]
+
+
+def test_figure_json_is_compact_and_points_are_capped(report):
+    figs = _figures(report.html)
+    store = _points_store(report.html)
+    heat = [k for k in figs if k.startswith("heatmap-")]
+    assert sorted(heat) == sorted(f"heatmap-{m}" for m in report.settings.measures)
+    for values in store["values"].values():
+        assert len(values) == len(store["rows"]) <= 2000
+        for v in values:
+            if isinstance(v, float):
+                assert len(repr(abs(v)).replace(".", "").lstrip("0").split("e")[0]) <= 6
+    data = report.table.data
+    cards = [k for k in figs if k.startswith("fig-")]
+    assert cards
+    for k in cards:
+        points = figs[k]["data"][0]
+        x, y = _resolved(points, store, "x"), _resolved(points, store, "y")
+        rows = _resolved(points, store, "customdata")
+        assert len(x) == len(y) == len(rows) <= 2000 + 50
+        # every drawn point is the file's value in that row (to 6 significant digits)
+        names = figs[k]["layout"]["meta"]
+        cx, cy = report.table.columns.index(names["x"]), report.table.columns.index(names["y"])
+        for xv, yv, r in zip(x, y, rows):
+            for v, col in ((xv, cx), (yv, cy)):
+                if v is None:
+                    assert np.isnan(data[r, col])
+                else:
+                    assert v == pytest.approx(data[r, col], rel=5e-6)
+    assert all(t.get("type") != "histogram" for f in figs.values() for t in f["data"])
+
+
+def test_subsample_keeps_extremes_and_is_seeded():
+    rng = np.random.default_rng(3)
+    x = rng.normal(size=10_000)
+    y = x + rng.normal(size=10_000)
+    x[123], y[123] = 40.0, -40.0
+    idx = subsample_points(x, y, limit=2000, extreme=50, seed=5)
+    assert len(idx) == 2000 and len(set(idx.tolist())) == 2000
+    assert np.all(np.diff(idx) > 0)
+    assert 123 in idx
+    assert np.array_equal(idx, subsample_points(x, y, limit=2000, extreme=50, seed=5))
+    assert len(subsample_points(x[:500], y[:500], limit=2000)) == 500
+
+
+def test_round_floats_six_significant_digits():
+    out = round_floats({"a": [1.23456789, np.float64(-0.000123456789), float("nan")], "b": np.array([2.5e10 + 1.5])})
+    assert out == {"a": [1.23457, -0.000123457, None], "b": [25000000000.0]}
+
+
+# Safety ---------------------------------------------------------------------
+
+def test_script_json_cannot_break_out_of_its_element():
+    value = {"name": "</script><!--<script>\u2028\u2029&amp;", "n": [1.5, None]}
+    text = str(script_json(value))
+    for bad in ("<", ">", "&", "\u2028", "\u2029"):
+        assert bad not in text
+    assert json.loads(text) == value  # reference: RFC 8259 \u escapes decode to the same string
+
+
+def test_report_has_no_external_resources(report):
+    page = _parse(report.html)
+    for tag, attrs in page.tags:
+        assert tag not in ("link", "iframe", "object", "embed", "img", "base"), tag
+        for key in ("src", "href", "action", "srcset", "poster", "data"):
+            if key in attrs:
+                assert key == "href" and attrs[key].startswith("#"), (tag, key, attrs[key])
+    assert "url(" not in report.html.split("<script")[0]  # no CSS fetches
+    meta = [a for t, a in page.tags if t == "meta" and a.get("http-equiv") == "Content-Security-Policy"]
+    assert meta and "default-src 'none'" in meta[0]["content"] and "connect-src 'none'" in meta[0]["content"]
+    # every executable script is allowed by hash, nothing else (hashes recomputed with hashlib)
+    import base64
+
+    executable = [txt for attrs, txt in page.script_texts if attrs.get("type") != "application/json"]
+    assert len(executable) == 2
+    for txt in executable:
+        digest = base64.b64encode(hashlib.sha256(txt.encode("utf-8")).digest()).decode()
+        assert f"'sha256-{digest}'" in meta[0]["content"]
+    assert "'unsafe-inline'" not in meta[0]["content"].split("script-src")[1].split(";")[0]
+
+
+def _payload_table(n: int = 120) -> Table:
+    rng = np.random.default_rng(5)
+    base = rng.normal(size=n)
+    data = np.column_stack([base + rng.normal(scale=s, size=n) for s in (0.3, 0.6, 1.0, 2.0, 4.0)])
+    info = [ColumnInfo(name, name, "numeric", True, "", 0, 0, n) for name in PAYLOADS]
+    info.append(ColumnInfo("<b>bold</b> label", "<b>bold</b> label", "text", False, "<i>text</i> column", 0, 0, 3))
+    return Table(name="<script>alert(1)</script>.csv", sha256="0" * 64, n_rows=n, columns=list(PAYLOADS),
+                 data=data, info=info, notes=["renamed <u>x</u>"])
+
+
+@pytest.fixture(scope="module")
+def payload_report(tmp_path_factory):
+    table = _payload_table()
+    settings = AnalysisSettings.from_options(measures="pearson,dcor")
+    pairs = run_analysis(table.data, table.columns, settings, workers=1)
+    text = build_report(table, pairs, command="pairlens report '<x>.csv' -o r.html", generated_at=STAMP)
+    path = tmp_path_factory.mktemp("payload") / "payload.html"
+    path.write_text(text, encoding="utf-8")
+    return table, pairs, text, path
+
+
+def test_payload_column_names_are_escaped(payload_report):
+    _, _, text, _ = payload_report
+    for raw in ("<script>window.__pwned", "<img src=x", "<b>bold</b>", "<i>text</i>", "<u>x</u>",
+                "<script>alert(1)</script>", "<x>.csv"):
+        assert raw not in text, raw
+    assert "&lt;img src=x onerror=" in text
+    assert "&lt;/script&gt;&lt;script&gt;window.__pwned=1&lt;/script&gt;" in text
+    page = _parse(text)
+    assert len([1 for attrs, _ in page.script_texts if attrs.get("type") != "application/json"]) == 2
+    # the figure data still decodes to the exact names
+    figs = _figures(text)
+    assert sorted(figs["heatmap-pearson"]["layout"]["meta"]["variables"]) == sorted(PAYLOADS)
+
+
+# Size -----------------------------------------------------------------------
+
+def test_thirty_column_report_is_under_six_megabytes(tmp_path):
+    rng = np.random.default_rng(30)
+    n, p = 3000, 30
+    latent = rng.normal(size=(n, 3))
+    cols = {}
+    for j in range(p):
+        w = rng.normal(size=3) * (j % 3 != 0)
+        v = latent @ w + rng.normal(size=n)
+        if j % 5 == 1:
+            v = v ** 2  # some curved pairs, so disagreement rankings differ from the rest
+        cols[f"sensor_{j:02d}"] = v
+    path = _write_csv(tmp_path / "wide.csv", cols, missing_in="sensor_04", category=False)
+    table = load_table(path)
+    settings = AnalysisSettings.from_options()
+    started = time.perf_counter()
+    pairs = run_analysis(table.data, table.columns, settings, workers=2)
+    analysed = time.perf_counter()
+    text = build_report(table, pairs, command="pairlens report wide.csv -o wide.html")
+    built = time.perf_counter()
+    size = len(text.encode("utf-8"))
+    print(f"30 columns x {n} rows: analysis {analysed - started:.1f} s, report {built - analysed:.1f} s, "
+          f"{size / 1e6:.2f} MB")
+    assert len(_parse(text).pair_rows) == 435 * 4
+    assert size < 6_000_000
+
+
+# Command line ---------------------------------------------------------------
+
+def _pairlens() -> list[str]:
+    exe = shutil.which("pairlens")
+    return [exe] if exe else [sys.executable, "-m", "app.cli"]
+
+
+def test_cli_report_end_to_end_and_its_command_reproduces_it(tmp_path):
+    data = _write_csv(tmp_path / "small blocks.csv", _vineyard_frame(150, 4))
+    out = tmp_path / "out.html"
+    run = subprocess.run([*_pairlens(), "report", str(data), "-o", str(out), "--measures", "pearson,kendall",
+                          "--adjust", "holm", "--seed", "99", "--workers", "1"],
+                         capture_output=True, text=True, timeout=180, cwd=ROOT)
+    assert run.returncode == 0, run.stderr
+    first = out.read_text(encoding="utf-8")
+    page = _parse(first)
+    assert page.testid_text["sha256"] == hashlib.sha256(data.read_bytes()).hexdigest()
+    command = html.unescape(page.testid_text["command"])
+    argv = shlex.split(command)
+    assert argv[:2] == ["pairlens", "report"] and argv[2] == str(data)
+    assert "--adjust" in argv and argv[argv.index("--adjust") + 1] == "holm"
+    again = tmp_path / "again.html"
+    argv[argv.index("-o") + 1] = str(again)
+    rerun = subprocess.run([*_pairlens(), *argv[1:], "--workers", "1"], capture_output=True, text=True,
+                           timeout=180, cwd=ROOT)
+    assert rerun.returncode == 0, rerun.stderr
+    second = _parse(again.read_text(encoding="utf-8"))
+    assert [[a.get("data-v"), t] for row in second.pair_rows for a, t in row] == \
+           [[a.get("data-v"), t] for row in page.pair_rows for a, t in row]
+
+
+def test_cli_report_rejects_a_wrong_suffix(tmp_path):
+    data = _write_csv(tmp_path / "d.csv", _vineyard_frame(30, 1))
+    run = subprocess.run([*_pairlens(), "report", str(data), "-o", str(tmp_path / "r.txt")],
+                         capture_output=True, text=True, timeout=120, cwd=ROOT)
+    assert run.returncode == 2 and len(run.stderr.strip().splitlines()) == 1
+
+
+# Browser --------------------------------------------------------------------
+
+def _browser(p):
+    return p.chromium.launch(executable_path=CHROMIUM, args=CHROMIUM_ARGS)
+
+
+def _offline_page(context, requests: list[str], allowed: str):
+    page = context.new_page()
+
+    def route(r):
+        requests.append(r.request.url)
+        if r.request.url == allowed:
+            r.continue_()
+        else:
+            r.abort()
+
+    page.route("**/*", route)
+    return page
+
+
+needs_browser = pytest.mark.skipif(not Path(CHROMIUM).exists(), reason="Debian chromium not installed")
+
+
+@pytest.mark.browser
+@needs_browser
+def test_report_renders_offline_in_chromium(report):
+    from playwright.sync_api import sync_playwright
+
+    figs = _figures(report.html)
+    url = report.file.resolve().as_uri()
+    requests: list[str] = []
+    errors: list[str] = []
+    SCREENSHOTS.mkdir(exist_ok=True)
+    with sync_playwright() as p:
+        browser = _browser(p)
+        try:
+            context = browser.new_context(viewport={"width": 1300, "height": 900})
+            page = _offline_page(context, requests, url)
+            page.on("pageerror", lambda e: errors.append(str(e)))
+            page.on("console", lambda m: errors.append(m.text) if m.type == "error" else None)
+            page.goto(url)
+            page.wait_for_function("document.body.getAttribute('data-figures') !== null", timeout=60_000)
+            assert page.get_attribute("body", "data-figures") == str(len(figs))
+            drawn = page.evaluate("""() => Array.from(document.querySelectorAll('[data-figure]')).map(d => ({
+                id: d.getAttribute('data-figure'), svg: d.querySelectorAll('.main-svg').length,
+                traces: (d._fullData || []).length, data: (d.data || []).length}))""")
+            assert len(drawn) == len(figs)
+            for d in drawn:
+                assert d["svg"] >= 1, d
+                assert d["data"] == len(figs[d["id"]]["data"]), d
+                assert d["traces"] >= d["data"], d
+            for m in report.settings.measures:
+                assert page.locator(f'[data-testid="heatmap-{m}"] .main-svg').count() >= 1
+            # sorting by a numeric column: ascending, missing values last
+            header = page.locator("#pairs thead th", has_text="q_value")
+            header.locator("button").click()
+            values = page.evaluate("""() => Array.from(document.querySelectorAll('#pairs tbody tr'))
+                .map(r => r.cells[7].getAttribute('data-v'))""")
+            present = [float(v) for v in values if v]
+            assert present == sorted(present) and all(v for v in values[:len(present)])
+            header.locator("button").click()
+            values = page.evaluate("""() => Array.from(document.querySelectorAll('#pairs tbody tr'))
+                .map(r => r.cells[7].getAttribute('data-v'))""")
+            present = [float(v) for v in values if v]
+            assert present == sorted(present, reverse=True)
+            page.screenshot(path=str(SCREENSHOTS / "report.png"), full_page=True)
+            page.emulate_media(media="print")
+            assert page.evaluate("getComputedStyle(document.querySelector('.toc')).display") == "none"
+            page.screenshot(path=str(SCREENSHOTS / "report-print.png"), full_page=False)
+        finally:
+            browser.close()
+    assert requests == [url], requests
+    assert errors == []
+
+
+@pytest.mark.browser
+@needs_browser
+def test_report_table_reads_with_javascript_disabled(report):
+    from playwright.sync_api import sync_playwright
+
+    url = report.file.resolve().as_uri()
+    requests: list[str] = []
+    records = report.pairs.records()
+    with sync_playwright() as p:
+        browser = _browser(p)
+        try:
+            context = browser.new_context(java_script_enabled=False, viewport={"width": 1300, "height": 900})
+            page = _offline_page(context, requests, url)
+            page.goto(url)
+            rows = page.locator("#pairs tbody tr")
+            assert rows.count() == len(records)
+            assert rows.first.is_visible()
+            first = rows.first.locator("td").all_inner_texts()
+            assert first[:3] == [records[0]["x"], records[0]["y"], records[0]["measure"]]
+            assert page.locator("noscript").count() == 1
+            assert page.evaluate("document.body.hasAttribute('data-figures')") is False
+            page.locator("#pair-table").screenshot(path=str(SCREENSHOTS / "report-no-js-table.png"))
+        finally:
+            browser.close()
+    assert requests == [url]
+
+
+@pytest.mark.browser
+@needs_browser
+def test_payload_names_run_no_script_in_chromium(payload_report):
+    from playwright.sync_api import sync_playwright
+
+    table, _, text, path = payload_report
+    url = path.resolve().as_uri()
+    requests: list[str] = []
+    dialogs: list[str] = []
+    with sync_playwright() as p:
+        browser = _browser(p)
+        try:
+            page = _offline_page(browser.new_context(), requests, url)
+            page.on("dialog", lambda d: (dialogs.append(d.message), d.dismiss()))
+            page.goto(url)
+            page.wait_for_function("document.body.getAttribute('data-figures') !== null", timeout=60_000)
+            assert page.evaluate("typeof window.__pwned") == "undefined"
+            assert page.locator("img").count() == 0
+            assert page.locator("b", has_text="bold").count() == 0
+            shown = page.locator("#column-table tbody th").all_inner_texts()
+            for name in PAYLOADS:
+                assert any(name.replace("\u2028", "") in s.replace("\u2028", "").replace("\n", "")
+                           for s in shown), name
+            assert page.title() == "pairlens report · <script>alert(1)</script>.csv"
+            # Plotly draws the names as text too (its small HTML subset is escaped)
+            ticks = page.evaluate("""() => Array.from(document.querySelectorAll(
+                '[data-testid="heatmap-pearson"] .xtick text')).map(t => t.textContent)""")
+            assert PAYLOADS[1] in ticks
+        finally:
+            browser.close()
+    assert dialogs == []
+    assert requests == [url]
