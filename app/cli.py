@@ -223,7 +223,7 @@ COMMANDS = {"pairs": cmd_pairs, "inspect": cmd_inspect, "report": cmd_report, "s
 
 
 def main(argv: list[str] | None = None) -> int:
-    from .engine import SettingsError
+    from .errors import SettingsError
     from .ingest import IngestError
 
     try:

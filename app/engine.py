@@ -21,6 +21,7 @@ from .core import verdict as verdict_mod
 from .core.registry import MEASURES, PairContext, get_measure
 from .core.results import TestResult, undefined
 from .core.testing import adjust_pvalues, pair_seed
+from .errors import SettingsError
 from .executors import Executor, make_executor
 from .export import PAIR_FIELDS
 
@@ -36,10 +37,6 @@ __all__ = [
     "pair_detail",
 ]
 
-
-
-class SettingsError(ValueError):
-    """Analysis settings that cannot be used; the message says what to change."""
 
 
 class AnalysisCancelled(RuntimeError):
@@ -454,7 +451,7 @@ def pair_detail(data: np.ndarray, names: Sequence[str], x: str, y: str,
                for m, r in rows.items()}
     q_values = {m: float(r.q_value) for m, r in rows.items()}
     fit = gaussian_mod.fit_gaussian(xv, yv)
-    pattern = verdict_mod.classify_pair(xv, yv, results, q_values, alpha=config.SIGNIFICANCE_LEVEL)
+    pattern = verdict_mod.classify_pair(xv, yv, results, q_values, alpha=config.SIGNIFICANCE_LEVEL, fit=fit)
     detail = {
         "x": x,
         "y": y,

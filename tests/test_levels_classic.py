@@ -118,3 +118,34 @@ def test_pearson_level_with_both_margins_skewed_or_heavy_tailed():
     # Reference: scipy.stats.binom.ppf, 99% binomial range for the pooled count.
     high = int(stats.binom.ppf(0.995, pooled.size, 0.01))
     assert rejections <= high, f"{rejections}/{pooled.size} rejections at alpha=0.01 (upper bound {high})"
+
+
+PERM_REPS = 2000
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("law", ["lognormal", "t3"])
+def test_pearson_permutation_pvalue_holds_its_level_where_the_t_test_drifts(law):
+    # Under independence the permutation test is exact in level for any margins
+    # (Fisher 1935 / Pitman 1937, common practice); checked where the t-test drifts.
+    rng = np.random.default_rng([SEED, 99, len(law)])
+    x = MARGINALS[law](rng, (PERM_REPS, 30))
+    y = MARGINALS[law](rng, (PERM_REPS, 30))
+    p = np.array([linear.pearson(x[i], y[i], permutations=199, seed=i).p_value for i in range(PERM_REPS)])
+    for alpha in ALPHAS:
+        # Reference: scipy.stats.binom.ppf, central 99% interval; p-values on the grid k/200.
+        lo, hi = int(stats.binom.ppf(0.005, PERM_REPS, alpha)), int(stats.binom.ppf(0.995, PERM_REPS, alpha))
+        assert lo <= int(np.count_nonzero(p <= alpha + 1e-12)) <= hi
+
+
+def test_pearson_permutation_pvalue_agrees_with_scipy_permutation_test():
+    rng = np.random.default_rng(5)
+    x = rng.lognormal(size=40)
+    y = 0.15 * x + rng.lognormal(size=40)
+    ours = linear.pearson(x, y, permutations=20000, seed=3).p_value
+    # Reference: scipy.stats.permutation_test (pairings) with the same statistic |r|, upper tail.
+    ref = stats.permutation_test((y,), lambda v: abs(stats.pearsonr(x, v).statistic), permutation_type="pairings",
+                                 n_resamples=20000, alternative="greater", random_state=4).pvalue
+    # Two Monte Carlo estimates of the same p: 4 standard errors of the difference.
+    se = np.sqrt(2 * ref * (1 - ref) / 20000)
+    assert abs(ours - ref) <= 4 * se + 1e-4

@@ -46,7 +46,7 @@ class Measure:
 
 
 def _pearson(x, y, ctx: PairContext) -> TestResult:
-    return linear.pearson(x, y, confidence=ctx.confidence)
+    return linear.pearson(x, y, confidence=ctx.confidence, permutations=ctx.permutations, seed=ctx.seed)
 
 
 def _spearman(x, y, ctx: PairContext) -> TestResult:
@@ -75,7 +75,7 @@ MEASURES: dict[str, Measure] = {
         Measure(
             name="pearson", label="Pearson r", family="linear", symmetric=True, signed=True,
             lower=-1.0, upper=1.0, multivariate=False, reflection="flips sign",
-            default_test="t-test with n-2 degrees of freedom",
+            default_test="t-test with n-2 degrees of freedom; permutation with --permutations",
             interval="Fisher z, SE = 1/sqrt(n-3)",
             formula="r = sum((x-mean x)(y-mean y)) / sqrt(sum((x-mean x)^2) sum((y-mean y)^2))",
             reference="Pearson, K. (1895) Proc. R. Soc. Lond. 58:240-242; Fisher, R.A. (1921) Metron 1:3-32",
@@ -126,7 +126,8 @@ MEASURES: dict[str, Measure] = {
         Measure(
             name="xi", label="Chatterjee xi (x -> y)", family="rank", symmetric=False, signed=True,
             lower=-0.5, upper=1.0, multivariate=False, reflection="unchanged",
-            default_test="asymptotic normal with tie-corrected variance",
+            default_test="asymptotic normal with tie-corrected variance (permutation below 20 rows); "
+                         "permutation with --permutations",
             interval="",
             formula="xi_n = 1 - n sum|r_{i+1} - r_i| / (2 sum l_i (n - l_i)), rows sorted by x",
             reference="Chatterjee, S. (2021) JASA 116:2009-2022, doi:10.1080/01621459.2020.1758115",
