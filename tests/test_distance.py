@@ -174,24 +174,50 @@ def test_fast_equals_blocked_and_naive_including_p_values():
                 a.estimate == pytest.approx(b.estimate, abs=1e-12)
 
 
-def test_permutation_moments_match_full_enumeration():
-    # Reference: brute force over all 7! permutations of y (definition of the
-    # permutation distribution), for the closed-form mean and variance.
+@pytest.mark.parametrize("kind", ["columns", "groups"])
+def test_permutation_moments_match_full_enumeration(kind):
+    # Reference: brute force over all 7! permutations of y (the definition of the
+    # permutation distribution), for the closed-form mean, variance and third
+    # moment that the default p-value uses, on every computation path.
     rng = np.random.default_rng(4)
     n = 7
-    x, y = rng.lognormal(size=n), np.round(rng.exponential(size=n), 1)
-    st = distance.distance_statistics(x, y, method="naive")
-    a = np.abs(x[:, None] - x[None, :])
-    b = np.abs(y[:, None] - y[None, :])
-    big_a = a - a.mean(0) - a.mean(1)[:, None] + a.mean()
-    big_b = b - b.mean(0) - b.mean(1)[:, None] + b.mean()
+    if kind == "columns":
+        x, y = rng.lognormal(size=n), np.round(rng.exponential(size=n), 1)
+        xm, ym = x[:, None], y[:, None]
+    else:
+        x, y = rng.lognormal(size=(n, 2)), rng.normal(size=(n, 3))
+        xm, ym = x, y
+
+    def centred(z):
+        a = np.sqrt(((z[:, None, :] - z[None, :, :]) ** 2).sum(-1))
+        return a - a.mean(0) - a.mean(1)[:, None] + a.mean()
+
+    big_a, big_b = centred(xm), centred(ym)
     values = np.array([(big_a * big_b[np.ix_(p, p)]).sum() / n
                        for p in map(list, itertools.permutations(range(n)))])
+    for method in ("auto", "blocked", "naive"):
+        st = distance.distance_statistics(x, y, method=method)
+        mean, var = distance._permutation_moments(st)
+        assert mean == pytest.approx(values.mean(), rel=1e-10)
+        assert var == pytest.approx(values.var(), rel=1e-10)
+        assert distance._permutation_third_moment(st) == pytest.approx((values ** 3).mean(),
+                                                                       rel=1e-10)
+        # the mean is a_bar b_bar n / (n - 1) (same enumeration)
+        assert mean == pytest.approx(st.mean_a * st.mean_b * n / (n - 1), rel=1e-12)
+
+
+def test_exact_skewness_tends_to_the_limit_law():
+    # Szekely, Rizzo & Bakirov (2007), Theorem 5: n dCov^2_n tends to
+    # sum alpha_i beta_j Z_ij^2, whose skewness is 2^(3/2) sum a^3 sum b^3 /
+    # (sum a^2 sum b^2)^(3/2); the exact permutation skewness must approach it.
+    rng = np.random.default_rng(10)
+    n = 20_000
+    st = distance.distance_statistics(rng.lognormal(size=n), rng.normal(size=n))
     mean, var = distance._permutation_moments(st)
-    assert mean == pytest.approx(values.mean(), rel=1e-10)
-    assert var == pytest.approx(values.var(), rel=1e-10)
-    # the mean is a_bar b_bar n / (n - 1) (same enumeration)
-    assert mean == pytest.approx(st.mean_a * st.mean_b * n / (n - 1), rel=1e-12)
+    third = distance._permutation_third_moment(st) - 3 * mean * var - mean ** 3
+    k2 = 2 * st.dvar2_x * st.dvar2_y
+    limit = 8 * st.cube_x * st.cube_y / k2 ** 1.5
+    assert third / var ** 1.5 == pytest.approx(limit, rel=0.01)
 
 
 def test_eigenvalue_moments_match_numpy_eigvalsh():
