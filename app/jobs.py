@@ -40,15 +40,14 @@ __all__ = ["JobManager", "run_job", "compute_verdicts", "VERDICT_FRACTION"]
 
 # Share of the progress bar given to the verdict pass after the pair table.
 VERDICT_FRACTION = 0.1
-_CANCEL_GRACE = float(getattr(config, "CANCEL_GRACE_SECONDS", 3.0))
-_VERDICT_BUDGET = float(getattr(config, "VERDICT_BUDGET_SECONDS", 20.0))
+_CANCEL_GRACE = config.CANCEL_GRACE_SECONDS
 
 
 def _pair_key(x: str, y: str) -> str:
     return f"{x}\u0000{y}"
 
 
-def compute_verdicts(data: np.ndarray, names: list[str], table, *, budget_seconds: float = _VERDICT_BUDGET,
+def compute_verdicts(data: np.ndarray, names: list[str], table, *, budget_seconds: float | None = None,
                      progress=None, cancel=None) -> dict:
     """Verdict label per pair (``"x\\0y"`` keys) for univariate pairs, until the time budget runs out.
 
@@ -58,6 +57,7 @@ def compute_verdicts(data: np.ndarray, names: list[str], table, *, budget_second
     from .core.results import TestResult
     from .core.verdict import classify_pair
 
+    budget_seconds = config.VERDICT_BUDGET_SECONDS if budget_seconds is None else budget_seconds
     started = time.perf_counter()
     position = {n: i for i, n in enumerate(names)}
     seen: dict[tuple[str, str], dict] = {}
@@ -65,7 +65,14 @@ def compute_verdicts(data: np.ndarray, names: list[str], table, *, budget_second
         if r.x in position and r.y in position:
             key = (r.x, r.y) if position[r.x] < position[r.y] else (r.y, r.x)
             seen.setdefault(key, {})
-    pairs = list(seen)
+    # Most significant pairs first, so a budget that runs out leaves only the dull ones unlabelled.
+    best_q: dict[tuple[str, str], float] = {}
+    for r in table.rows:
+        if r.x in position and r.y in position:
+            key = (r.x, r.y) if position[r.x] < position[r.y] else (r.y, r.x)
+            q = r.q_value if r.q_value == r.q_value else 1.0
+            best_q[key] = min(best_q.get(key, 1.0), q)
+    pairs = sorted(seen, key=lambda k: (best_q.get(k, 1.0), position[k[0]], position[k[1]]))
     labels: dict[str, str] = {}
     complete = True
     last_report = 0.0

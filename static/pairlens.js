@@ -108,7 +108,7 @@
           pct.textContent = Math.round(p) + "%";
           status.textContent = s.status + (s.cancel_requested && s.status === "running" ? " (cancelling)" : "");
           phase.textContent = s.phase || "";
-          left.textContent = s.status === "queued" ? "waiting for a free slot" : seconds(s.seconds_left);
+          left.textContent = s.status === "queued" ? "waiting to start" : seconds(s.seconds_left);
           if (s.status === "queued" || s.status === "running") {
             window.setTimeout(poll, 500);
           } else {
@@ -147,10 +147,12 @@
   function initHeatmaps() {
     var data = readJSON("heatmap-data");
     if (!data || !window.Plotly) return;
-    Object.keys(data.figures).forEach(function (m) {
+    Object.keys(data.figures).forEach(function (m, k) {
       var div = $("heatmap-" + m);
       if (!div) return;
       var fig = data.figures[m];
+      // All heatmaps share one order: row names only on the first, hover still names both.
+      if (k > 0 && window.matchMedia("(min-width: 1100px)").matches) fig.layout.yaxis.showticklabels = false;
       Plotly.newPlot(div, fig.data, fig.layout, PLOT_CONFIG).then(function () {
         attachClick(div, fig, m);
         div.dataset.ready = "1";
@@ -298,6 +300,47 @@
       Plotly.restyle(scatter, { visible: on ? "legendonly" : true }, [1]);
     });
     initSlice();
+    var verdict = $("verdict");
+    if (verdict && verdict.dataset.complete === "no") fillDetail();
+  }
+
+  function fillDetail() {
+    var q = new URLSearchParams(window.location.search);
+    var url = "/api/analyses/" + encodeURIComponent(analysisId) + "/pair?" +
+      new URLSearchParams({ x: q.get("x"), y: q.get("y") }).toString();
+    fetch(url, { cache: "no-store" }).then(function (r) {
+      if (!r.ok) throw new Error("HTTP " + r.status);
+      return r.json();
+    }).then(function (d) {
+      var pat = d.pattern || { label: "–", reasons: [] };
+      $("verdict-label").textContent = pat.label;
+      var ul = $("verdict-reasons");
+      ul.textContent = "";
+      pat.reasons.forEach(function (r) { ul.appendChild(el("li", null, r)); });
+      var g = d.gaussian, nm = g.normality || {};
+      var norm = $("normality");
+      norm.textContent = "Henze-Zirkler statistic " + fmt(nm.statistic) + ", p = " + fmtP(nm.p_value) + " ";
+      if (nm.p_value !== null && nm.p_value !== undefined) {
+        norm.appendChild(el("span", { "class": nm.p_value < 0.05 ? "tag warn" : "tag" },
+          nm.p_value < 0.05 ? "not jointly normal" : "no evidence against"));
+      }
+      var mg = g.marginal_normality || {};
+      ["x", "y"].forEach(function (k) {
+        var t = mg[k];
+        $("marginal-" + k).textContent = t ? t.test + " p = " + fmtP(t.p_value) : "–";
+      });
+      $("gaussian-note").textContent = g.note || "–";
+      var normalMarginals = mg.x && mg.y && mg.x.p_value > 0.05 && mg.y.p_value > 0.05;
+      if (normalMarginals && nm.p_value !== null && nm.p_value < 0.05) {
+        $("not-joint-p").textContent = fmtP(nm.p_value);
+        $("weak-rho-note").hidden = !(g.rho !== null && Math.abs(g.rho) < 0.2);
+        $("not-joint-normal").hidden = false;
+      }
+      $("verdict").dataset.complete = "yes";
+    }).catch(function (e) {
+      $("verdict-label").textContent = "not available (" + e.message + ")";
+      $("verdict").dataset.complete = "error";
+    });
   }
 
   function normalPdf(v, m, s) {

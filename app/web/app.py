@@ -277,6 +277,10 @@ def create_app(settings: ServerSettings | None = None, *, jobs: JobManager | Non
         return FileResponse(plotly_path, media_type="text/javascript",
                             headers={"Cache-Control": "public, max-age=86400"})
 
+    @app.get("/favicon.ico", include_in_schema=False)
+    async def favicon():
+        return FileResponse(config.STATIC_DIR / "pairlens-icon.svg", media_type="image/svg+xml")
+
     app.mount("/static", StaticFiles(directory=str(config.STATIC_DIR)), name="static")
 
     from . import api, pages

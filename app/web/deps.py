@@ -79,6 +79,10 @@ class _LRU:
                 return self._items[key]
         return None
 
+    def pop(self, key):
+        with self._lock:
+            return self._items.pop(key, None)
+
     def put(self, key, value):
         with self._lock:
             self._items[key] = value
@@ -123,6 +127,48 @@ def dataset_summary(table) -> dict:
         "encoding": getattr(table, "encoding", ""),
         "delimiter": getattr(table, "delimiter", ""),
     }
+
+
+def _gaussian_moments(x: np.ndarray, y: np.ndarray, masses=(0.5, 0.9, 0.99), points: int = 121) -> dict:
+    """The moment part of :func:`app.core.gaussian.fit_gaussian` (same formulas, ddof=1), no normality tests.
+
+    Ellipse of mass m: {v : (v - mean)' cov^-1 (v - mean) = -2 ln(1 - m)}, the
+    chi-square quantile with 2 degrees of freedom in closed form.
+    """
+    from ..core.gaussian import implied_measures
+
+    n = int(x.size)
+    out = {"mean": [None, None], "cov": [[None, None], [None, None]], "rho": None,
+           "conditional": {"slope": None, "intercept": None, "residual_sd": None},
+           "implied": {k: _num(v) for k, v in implied_measures(math.nan).items()},
+           "normality": {"test": "henze-zirkler", "statistic": None, "p_value": None},
+           "marginal_normality": {}, "ellipses": {}, "note": "", "pending": True}
+    if n < config.MIN_ROWS:
+        out["note"] = f"fewer than {config.MIN_ROWS} complete rows"
+        return out
+    mx, my = float(x.mean()), float(y.mean())
+    dx, dy = x - mx, y - my
+    sxx, syy, sxy = float(dx @ dx) / (n - 1), float(dy @ dy) / (n - 1), float(dx @ dy) / (n - 1)
+    out["mean"] = [mx, my]
+    out["cov"] = [[sxx, sxy], [sxy, syy]]
+    if sxx == 0.0 or syy == 0.0:
+        out["note"] = "a column is constant"
+        return out
+    rho = max(-1.0, min(1.0, sxy / math.sqrt(sxx * syy)))
+    slope = sxy / sxx
+    out["rho"] = rho
+    out["conditional"] = {"slope": slope, "intercept": my - slope * mx,
+                          "residual_sd": math.sqrt(max(syy * (1.0 - rho * rho), 0.0))}
+    out["implied"] = {k: _num(v) for k, v in implied_measures(rho).items()}
+    vals, vecs = np.linalg.eigh(np.array([[sxx, sxy], [sxy, syy]]))
+    scale = vecs * np.sqrt(np.clip(vals, 0.0, None))
+    t = np.linspace(0.0, 2.0 * math.pi, points)
+    circle = np.stack([np.cos(t), np.sin(t)])
+    centre = np.array([mx, my])[:, None]
+    for m in masses:
+        radius = math.sqrt(-2.0 * math.log1p(-m))
+        out["ellipses"][repr(float(m))] = (centre + radius * (scale @ circle)).T.tolist()
+    return out
 
 
 def _pair_key(x: str, y: str) -> str:
@@ -353,7 +399,49 @@ class Workspace:
         detail = pair_detail(data.data, data.columns, x, y, table.settings, table=table, include_points=True)
         detail["seconds"] = time.perf_counter() - started
         detail["analysis_id"] = row.id
+        labels = self.verdicts(row).setdefault("labels", {})
+        pattern = detail.get("pattern") or {}
+        if pattern.get("label") and labels.get(_pair_key(x, y)) != pattern["label"] and x in table.variables:
+            a, b = sorted((x, y), key=table.variables.index)
+            labels[_pair_key(a, b)] = pattern["label"]
+            self._figures.pop(("pairrows", row.id))
         return self._details.put(key, detail)
+
+    def pair_view(self, row: AnalysisRow, x: str, y: str) -> tuple[dict, bool]:
+        """What the pair page needs at once: ``(detail, complete)``.
+
+        The full :meth:`pair` when it is cached; otherwise a quick detail with
+        the points, the analysis's measures and the Gaussian moments, without
+        the Henze-Zirkler test and the verdict (``complete`` False), which the
+        page then fetches from the API. The Henze-Zirkler statistic needs all
+        pairwise distances of up to ``config.HZ_MAX_ROWS`` rows (about 0.5 s
+        at 5000 rows) and the verdict reuses it.
+        """
+        cached = self._details.get((row.id, x, y))
+        if cached is not None:
+            return cached, True
+        table = self.pair_table(row)
+        if x not in table.variables or y not in table.variables:
+            missing = x if x not in table.variables else y
+            raise NotFound(f"{missing!r} is not a variable of analysis {row.id}")
+        if x == y:
+            raise SettingsError("x and y must be different columns")
+        data = self.table(self.dataset(row.dataset_id))
+        if x not in data.columns or y not in data.columns:
+            raise SettingsError("the pair view shows single columns; groups appear in the table only")
+        xv_all = data.data[:, data.columns.index(x)]
+        yv_all = data.data[:, data.columns.index(y)]
+        keep = ~np.isnan(xv_all) & ~np.isnan(yv_all)
+        xv, yv = xv_all[keep], yv_all[keep]
+        measures = {}
+        for m, r in table.lookup(x, y).items():
+            measures[m] = {"estimate": _num(r.estimate), "ci_low": _num(r.ci_low), "ci_high": _num(r.ci_high),
+                           "p_value": _num(r.p_value), "method": r.method, "n": int(r.n), "note": r.note,
+                           "q_value": _num(r.q_value)}
+        detail = {"x": x, "y": y, "n": int(xv.size), "measures": measures, "gaussian": _gaussian_moments(xv, yv),
+                  "pattern": None,
+                  "points": {"x": xv.tolist(), "y": yv.tolist(), "rows": np.flatnonzero(keep).tolist()}}
+        return detail, False
 
     def report_html(self, row: AnalysisRow) -> str:
         try:

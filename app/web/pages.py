@@ -173,7 +173,7 @@ def pair_page(analysis_id: str, request: Request, x: str, y: str, ws: Workspace 
     row = ws.analysis(analysis_id)
     dataset = ws.dataset(row.dataset_id)
     table = ws.pair_table(row)
-    detail = ws.pair(row, x, y)
+    detail, complete = ws.pair_view(row, x, y)
     scatter = plots.pair_figure(detail)
     ranks = plots.rank_figure(detail)
     g = detail["gaussian"]
@@ -188,7 +188,7 @@ def pair_page(analysis_id: str, request: Request, x: str, y: str, ws: Workspace 
     joint_p = (g.get("normality") or {}).get("p_value")
     not_joint = joint_p is not None and joint_p < 0.05
     return _render(request, "pair.html", {
-        "analysis": row, "dataset": dataset, "table": table, "detail": detail,
+        "analysis": row, "dataset": dataset, "table": table, "detail": detail, "complete": complete,
         "figures": embed_json({"scatter": scatter, "ranks": ranks}), "slice": embed_json(slice_data),
         "dense": scatter["layout"]["meta"]["dense"],
         "normal_marginals_not_joint": normal_marginals and not_joint,

@@ -419,7 +419,7 @@ def rank_figure(detail: dict) -> dict:
         "xaxis": {"title": {"text": f"rank of {xl} / n"}, "range": [0, 1.02], "zeroline": False,
                   "gridcolor": "#e3e7e9"},
         "yaxis": {"title": {"text": f"rank of {yl} / n"}, "range": [0, 1.02], "zeroline": False,
-                  "gridcolor": "#e3e7e9", "scaleanchor": "x"},
+                  "gridcolor": "#e3e7e9"},
         "paper_bgcolor": "rgba(0,0,0,0)", "plot_bgcolor": "#fbfcfc", "showlegend": False,
     }
     return {"data": [trace], "layout": layout}
