@@ -14,6 +14,8 @@ import hashlib
 import html
 import json
 import math
+import os
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from functools import lru_cache
@@ -340,6 +342,17 @@ def _rounded_matrix(stack: np.ndarray, digits: int) -> list:
     return [[[_round_number(float(v), digits) for v in cell] for cell in row] for row in stack]
 
 
+def _label_every_variable(fig: dict, k: int) -> dict:
+    """Ticks for every variable: Plotly would drop every other label once they crowd."""
+    layout = fig.get("layout") or {}
+    size = int(max(6, min(11, 320 / max(k, 1))))
+    for axis in ("xaxis", "yaxis"):
+        if axis in layout:
+            layout[axis] = {**layout[axis], "tickmode": "linear", "dtick": 1,
+                            "tickfont": {**layout[axis].get("tickfont", {}), "size": size}}
+    return fig
+
+
 def compact_heatmap(fig: dict, pt: PairTable, measure: str) -> dict:
     """Replace the per-cell hover text by numbers and a template (about a third of the size).
 
@@ -362,7 +375,7 @@ def compact_heatmap(fig: dict, pt: PairTable, measure: str) -> dict:
     heat = {k: v for k, v in heat.items() if k != "text"}
     heat["customdata"] = _rounded_matrix(stack, HOVER_DIGITS)
     heat["hovertemplate"] = head + "<br>" + body + "<extra></extra>"
-    return {**fig, "data": [heat, *fig["data"][1:]]}
+    return _label_every_variable({**fig, "data": [heat, *fig["data"][1:]]}, len(names))
 
 
 def compact_difference(fig: dict, pt: PairTable, a: str, b: str) -> dict:
@@ -379,7 +392,7 @@ def compact_difference(fig: dict, pt: PairTable, a: str, b: str) -> dict:
     heat["hovertemplate"] = ("<b>%{x}</b> × <b>%{y}</b><br>" + plot_label(MEASURES[a].label)
                              + " %{customdata[0]:.3f}  " + plot_label(MEASURES[b].label)
                              + " %{customdata[1]:.3f}<br>difference %{z:.3f}<extra></extra>")
-    return {**fig, "data": [heat, *fig["data"][1:]]}
+    return _label_every_variable({**fig, "data": [heat, *fig["data"][1:]]}, len(names))
 
 
 def plot_label(text: str) -> str:
@@ -442,7 +455,8 @@ def _card_rows(pt: PairTable, rows: dict[str, PairRow]) -> list[dict]:
             continue
         meas = MEASURES[m]
         out.append({
-            "measure": m, "label": meas.label + ("" if meas.symmetric else f" ({r.x} → {r.y})"),
+            "measure": m,
+            "label": meas.label if meas.symmetric else f"{meas.label.replace('(x -> y)', '').strip()} ({r.x} → {r.y})",
             "estimate": fmt_estimate(r.estimate),
             "interval": (f"[{fmt_estimate(r.ci_low)}, {fmt_estimate(r.ci_high)}]"
                          if _finite(r.ci_low) and _finite(r.ci_high) else "–"),
@@ -500,8 +514,8 @@ def _slim_pair_figure(fig: dict) -> dict:
     return {**fig, "data": out}
 
 
-def _pair_cards(table, pt: PairTable, rankings: list[Ranking],
-                figures: dict) -> tuple[list[PairCard], int, dict]:
+def _pair_cards(table, pt: PairTable, rankings: list[Ranking], figures: dict,
+                workers: int = 1) -> tuple[list[PairCard], int, dict]:
     from .web import plots
 
     order = {v: i for i, v in enumerate(pt.variables)}
@@ -522,11 +536,19 @@ def _pair_cards(table, pt: PairTable, rankings: list[Ranking],
     n_columns = len({c for pair in drawable for c in pair})
     limit = max(MIN_SCATTER_POINTS, min(MAX_SCATTER_POINTS, POINT_VALUES_BUDGET // max(n_columns, 1)))
     store = PointStore(table.data, table.columns, shared_rows(table.data.shape[0], limit, pt.settings.seed))
+    def detail_of(pair):
+        return pair_detail(table.data, table.columns, pair[0], pair[1], pt.settings, table=pt,
+                           include_points=True)
+
+    # The Gaussian fit's normality test is O(n^2) and NumPy releases the GIL in it,
+    # so a few threads shorten the wait; results keep the card order.
+    with ThreadPoolExecutor(max_workers=max(1, min(workers, len(drawable) or 1))) as pool:
+        details = dict(zip(drawable, pool.map(detail_of, drawable)))
     for (x, y), card in cards.items():
         if x not in columns or y not in columns:
             card.note = "A column group: the report draws scatters for single columns only."
             continue
-        detail = pair_detail(table.data, table.columns, x, y, pt.settings, table=pt, include_points=True)
+        detail = details[(x, y)]
         points = detail.pop("points")
         px, py = np.asarray(points["x"], dtype=float), np.asarray(points["y"], dtype=float)
         prow = np.asarray(points["rows"], dtype=np.int64)
@@ -543,6 +565,11 @@ def _pair_cards(table, pt: PairTable, rankings: list[Ranking],
                                 f"its centre. Measures, histograms and the Gaussian fit use all {total}.")
         else:
             card.points_note = f"All {total} points with both values present."
+        used = {r["n"] for r in card.rows}
+        if pt.settings.missing == "complete" and used and used != {total}:
+            card.points_note += (f" The measures used only rows complete in every analysed variable "
+                                 f"(n = {', '.join(str(u) for u in sorted(used))}); the scatter and the "
+                                 f"Gaussian fit use every row where both of these values are present.")
         card.figure_id = f"fig-{card.anchor}"
         fig = binned_marginals(plots.pair_figure({**detail, "points": shown}), px, py)
         fig = _slim_pair_figure(fig)
@@ -641,7 +668,7 @@ def _environment() -> Environment:
 # Public ---------------------------------------------------------------------
 
 def build_report(table, pair_table: PairTable, *, command: str, generated_at: datetime | None = None,
-                 top_k: int = 5) -> str:
+                 top_k: int = 5, workers: int | None = None) -> str:
     """The report as one HTML string.
 
     Parameters
@@ -656,6 +683,8 @@ def build_report(table, pair_table: PairTable, *, command: str, generated_at: da
         Time stamp printed in the report (default: now, UTC).
     top_k : int
         Pairs listed per ranking.
+    workers : int, optional
+        Threads for the per-pair Gaussian fits (default: up to 4, one per core).
     """
     from .web import plots
 
@@ -671,7 +700,9 @@ def build_report(table, pair_table: PairTable, *, command: str, generated_at: da
     for m in pair_table.measures:
         fid = f"heatmap-{m}"
         figures[fid] = compact_heatmap(plots.heatmap_figure(pair_table, m, order=order), pair_table, m)
-        heatmaps.append({"id": fid, "measure": m, "label": MEASURES[m].label})
+        meas = MEASURES[m]
+        heatmaps.append({"id": fid, "measure": m, "label": meas.label, "symmetric": meas.symmetric,
+                         "range": f"[{meas.lower:g}, {meas.upper:g}]"})
     contrasts = []
     for a, b, kind, explanation in disagreement_contrasts(pair_table.measures):
         if kind != "signed":
@@ -683,7 +714,9 @@ def build_report(table, pair_table: PairTable, *, command: str, generated_at: da
                           "explanation": explanation})
 
     rankings = _rankings(pair_table, top_k)
-    cards, scatter_limit, point_store = _pair_cards(table, pair_table, rankings, figures)
+    if workers is None:
+        workers = min(4, os.cpu_count() or 1)
+    cards, scatter_limit, point_store = _pair_cards(table, pair_table, rankings, figures, workers)
     cards_by_anchor = {c.anchor: c for c in cards}
     for c in cards:
         if c.detail is not None:
@@ -726,6 +759,7 @@ def build_report(table, pair_table: PairTable, *, command: str, generated_at: da
         "methods": methods_content(settings=settings, pair_table=pair_table),
         "alpha": config.SIGNIFICANCE_LEVEL,
         "max_points": scatter_limit,
+        "top_k": top_k,
         "fmt_estimate": fmt_estimate,
         "fmt_p": fmt_p,
         "fmt_num": fmt_num,

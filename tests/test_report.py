@@ -552,6 +552,7 @@ def test_report_renders_offline_in_chromium(report):
             page.screenshot(path=str(SCREENSHOTS / "report.png"), full_page=True)
             page.emulate_media(media="print")
             assert page.evaluate("getComputedStyle(document.querySelector('.toc')).display") == "none"
+            page.evaluate("window.scrollTo(0, 0)")
             page.screenshot(path=str(SCREENSHOTS / "report-print.png"), full_page=False)
         finally:
             browser.close()
