@@ -137,10 +137,12 @@ def _run_tile_on_worker(run_id: str, fn: Callable[[Any], Any], tile: Any) -> Any
 
 def _source_fingerprint() -> str:
     # Equal version numbers do not mean equal code (editable installs, local patches); results
-    # are only bit-for-bit equal when every process runs the same sources.
+    # are only bit-for-bit equal when every process runs the same sources of the computation.
     root = Path(__file__).resolve().parent
+    files = [root / "__init__.py", root / "config.py", root / "engine.py", Path(__file__).resolve(),
+             *(root / "core").rglob("*.py")]
     digest = hashlib.sha256()
-    for path in sorted(root.rglob("*.py")):
+    for path in sorted(set(files)):
         digest.update(path.relative_to(root).as_posix().encode() + b"\0" + path.read_bytes() + b"\0")
     return digest.hexdigest()[:16]
 
@@ -270,13 +272,13 @@ class DaskExecutor:
         self.last_run_id = run_id
         plugin_name = f"{_PLUGIN_PREFIX}{run_id}@{self.client.id}"
         self._withdraw_stale_plugins()
-        try:
-            self.client.register_plugin(_AnalysisData(run_id, initializer, initargs), name=plugin_name)
-        except Exception as exc:  # noqa: BLE001 - a worker failed to unpack the data
-            raise ClusterUnavailable(f"the Dask workers at {self.address} could not receive the data "
-                                     f"({type(exc).__name__}: {_one_line(exc)})") from None
         futures: list = []
         try:
+            try:
+                self.client.register_plugin(_AnalysisData(run_id, initializer, initargs), name=plugin_name)
+            except Exception as exc:  # noqa: BLE001 - a worker failed to unpack the data
+                raise ClusterUnavailable(f"the Dask workers at {self.address} could not receive the data "
+                                         f"({type(exc).__name__}: {_one_line(exc)})") from None
             keys = [f"pairlens-tile-{run_id}-{index}" for index in range(len(tasks))]
             futures = self.client.map(_run_tile_on_worker, [run_id] * len(tasks), [fn] * len(tasks),
                                       list(tasks), key=keys, retries=self.retries, pure=False)
@@ -296,9 +298,14 @@ class DaskExecutor:
                     if future.status == "error":
                         _, exc, tb = result
                         raise exc.with_traceback(tb)
-                    if isinstance(result, BaseException):  # cancelled by someone else, scheduler gone
-                        raise RuntimeError(f"the Dask cluster at {self.address} dropped tile "
-                                           f"{index_of[future.key]} ({type(result).__name__})")
+                    if isinstance(result, BaseException):
+                        if self.client.status != "running":
+                            raise ClusterUnavailable(
+                                f"lost the Dask scheduler at {self.address} during the analysis "
+                                f"({type(result).__name__}); nothing was saved, run it again when "
+                                "the cluster is back") from None
+                        raise RuntimeError(f"tile {index_of[future.key]} was cancelled on the Dask cluster "
+                                           f"at {self.address} by another client ({type(result).__name__})")
                     yield index_of[future.key], result
         finally:
             self._release(futures, plugin_name)

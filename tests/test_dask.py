@@ -381,14 +381,52 @@ def test_a_cluster_running_other_pairlens_code_is_refused(cluster, monkeypatch):
     assert "scheduler" in str(info.value) and "\n" not in str(info.value)
 
 
-def test_command_line_with_cluster_writes_the_same_file(cluster, tmp_path):
+def test_command_line_with_cluster_writes_the_same_file(cluster, tmp_path, capsys):
     _wait_for_two_workers(cluster)
     data, names = _vineyard_table(n=150, seed=51)
     csv = tmp_path / "blocks.csv"
     np.savetxt(csv, data, delimiter=",", header=",".join(names), comments="", fmt="%.6g")
     common = ["pairs", str(csv), "--measures", MEASURES, "--permutations", "99"]
-    assert main([*common, "-o", str(tmp_path / "local.json"), "--workers", "1"]) == 0
-    assert main([*common, "-o", str(tmp_path / "cluster.json"), "--cluster", cluster.address]) == 0
+    assert main([*common, "-o", str(tmp_path / "local.json"), "--workers", "1"]) == 0, capsys.readouterr().err
+    assert main([*common, "-o", str(tmp_path / "cluster.json"), "--cluster", cluster.address]) == 0, \
+        capsys.readouterr().err
     local_text = (tmp_path / "local.json").read_text()
     assert local_text == (tmp_path / "cluster.json").read_text()
     assert len(json.loads(local_text)) == len(names) * (len(names) - 1) // 2 * 4
+
+
+def test_scheduler_lost_mid_run_is_one_clear_error(tmp_path):
+    # A cluster of its own: this test kills the scheduler.
+    own = _Cluster(tmp_path)
+    try:
+        own.start_scheduler()
+        own.start_worker("worker-solo")
+        with distributed.Client(own.address, timeout=START_TIMEOUT, set_as_default=False) as client:
+            client.wait_for_workers(1, timeout=START_TIMEOUT)
+        data, names = _vineyard_table(n=1000, seed=71, extra_noise_columns=9)
+        settings = AnalysisSettings.from_options(measures=MEASURES, permutations=999, seed=9)
+        started = threading.Event()
+
+        def progress(frac, left):
+            started.set()
+
+        with DaskExecutor(own.address, timeout=3.0) as ex:
+            outcome: dict = {}
+
+            def remote():
+                try:
+                    run_analysis(data, names, settings, executor=ex, progress=progress)
+                except BaseException as exc:
+                    outcome["error"] = exc
+
+            runner = threading.Thread(target=remote)
+            runner.start()
+            assert started.wait(timeout=120)
+            os.killpg(own.procs[0].pid, signal.SIGKILL)        # the scheduler's process group
+            runner.join(timeout=60)
+            assert not runner.is_alive()
+        error = outcome.get("error")
+        assert isinstance(error, ClusterUnavailable), repr(error)
+        assert "lost the Dask scheduler" in str(error) and "\n" not in str(error)
+    finally:
+        own.stop()
