@@ -4,8 +4,10 @@ Three ways to the same numbers:
 
 * ``"fast"`` -- two 1-D columns, O(n log n) time and O(n) memory (sorting,
   prefix sums and a Fenwick tree), never an n x n matrix;
-* ``"blocked"`` -- column groups (2-D arrays, Euclidean distances), one
-  compiled O(n^2 d) pass that keeps only O(n) numbers in memory;
+* ``"blocked"`` -- column groups (2-D arrays, Euclidean distances), compiled
+  O(n^2 d) passes (sums, then the third-moment sums once the row means are
+  known) that keep only O(n) numbers in memory; capped at
+  ``config.MAX_GROUP_ROWS`` rows;
 * ``"naive"`` -- explicit double-centred and U-centred n x n matrices, kept as
   the test oracle for small n.
 
@@ -611,6 +613,12 @@ def _blocked_statistics(x, y):
     dvar2_y = _v_from_sums(n, s_bb, float(brow @ brow), tb, tb)
     parts = []
     for z, rows, dvar2 in ((xc, arow, dvar2_x), (yc, brow, dvar2_y)):
+        if z.shape[1] == 1:
+            # a single column against a group: its sums need no distances
+            order = np.argsort(z[:, 0], kind="mergesort")
+            parts.append(_third_quantities_1d(np.ascontiguousarray(z[order, 0]),
+                                              np.ascontiguousarray(rows[order])))
+            continue
         t, dd, ddd, q4, q6, q7 = _third_pass_group(z, rows)
         parts.append((t, dd, ddd, q4, -(n ** 3) * _group_cube(z, dvar2), q6, q7))
     return _from_sums(n, s1, float(arow @ brow), arow, brow, s_aa, s_bb, parts[0], parts[1],
@@ -995,7 +1003,8 @@ def dcor(x: np.ndarray, y: np.ndarray, *, method: str = "auto", permutations: in
     simulations it rejected 1.6-2.7% of independent pairs at the 1% level, so
     the third moment is needed.
 
-    The permutation p-value is (1 + #{T_b >= T}) / (B + 1) with T = n dCov^2_n.
+    The permutation p-value is (1 + #{T_b >= T}) / (B + 1) with T = n dCov^2_n,
+    all B resamples drawn (no sequential stopping).
     Each resample permutes y against the fixed x order and recomputes only the
     cross terms; resampled values within a relative 1e-10 of T count as ties.
     The result depends only on the data, B and the seed.
