@@ -22,6 +22,7 @@ from __future__ import annotations
 import argparse
 import math
 import os
+import shutil
 import signal
 import socket
 import statistics
@@ -35,7 +36,11 @@ from pathlib import Path
 import numpy as np
 
 REPO = Path(__file__).resolve().parents[1]
-sys.path.insert(0, str(REPO))
+# Run this process and the cluster from one copy of the package taken now, so that edits to the
+# working tree during a long benchmark cannot give the client and the workers different code.
+SOURCE_COPY = Path(tempfile.mkdtemp(prefix="pairlens-bench-src-"))
+shutil.copytree(REPO / "app", SOURCE_COPY / "app", ignore=shutil.ignore_patterns("__pycache__"))
+sys.path.insert(0, str(SOURCE_COPY))
 
 from app.dask_executor import DaskExecutor  # noqa: E402
 from app.engine import AnalysisSettings, run_analysis  # noqa: E402
@@ -73,7 +78,7 @@ class LoopbackCluster:
         self.address = f"tcp://127.0.0.1:{_free_port()}"
         self.procs: list[subprocess.Popen] = []
         self.env = dict(os.environ, PYTHONPATH=os.pathsep.join(
-            p for p in (str(REPO), os.environ.get("PYTHONPATH")) if p))
+            p for p in (str(SOURCE_COPY), os.environ.get("PYTHONPATH")) if p))
 
     def _spawn(self, name: str, args: list[str]) -> None:
         with open(self.workdir / f"{name}.log", "wb") as log:
@@ -199,6 +204,7 @@ def main(argv=None) -> int:
     finally:
         if cluster is not None:
             cluster.stop()
+            shutil.rmtree(cluster.workdir, ignore_errors=True)
 
     base1, baseall = results["local, --workers 1"], results[f"local, --workers {all_cores}"]
     print("\nratios (time / local time; below 1 is faster):")
@@ -209,4 +215,7 @@ def main(argv=None) -> int:
 
 
 if __name__ == "__main__":
-    sys.exit(main())
+    try:
+        sys.exit(main())
+    finally:
+        shutil.rmtree(SOURCE_COPY, ignore_errors=True)
