@@ -119,8 +119,8 @@ def fmt_p(v) -> str:
     if not _finite(v):
         return "–"
     v = float(v)
-    if v == 0.0:
-        return "0"
+    if v == 0.0:  # below the smallest double; the true value is positive
+        return "< 1e-300"
     if v < 1e-3:
         return f"{v:.1e}"
     return f"{v:.3f}" if v >= 0.01 else f"{v:.4f}"

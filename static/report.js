@@ -124,11 +124,32 @@
     apply();
   }
 
+  // Figures are laid out for the screen; paper is narrower or wider, so redraw
+  // them at their printed size and back again afterwards.
+  function resizeFigures() {
+    if (!window.Plotly) { return; }
+    Array.prototype.forEach.call(document.querySelectorAll(".plot.drawn"), function (div) {
+      Plotly.Plots.resize(div);
+    });
+  }
+
+  function watchPrint() {
+    window.addEventListener("beforeprint", resizeFigures);
+    window.addEventListener("afterprint", resizeFigures);
+    if (window.matchMedia) {
+      var query = window.matchMedia("print");
+      var onChange = function () { resizeFigures(); };
+      if (query.addEventListener) { query.addEventListener("change", onChange); }
+      else if (query.addListener) { query.addListener(onChange); }
+    }
+  }
+
   function start() {
     document.documentElement.classList.add("js");
     var table = document.getElementById("pairs");
     if (table) { makeSortable(table); makeFilter(table); }
     drawFigures();
+    watchPrint();
   }
 
   if (document.readyState === "loading") {

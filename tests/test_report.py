@@ -227,6 +227,9 @@ def test_pair_table_equals_the_analysis_records(report):
                 continue
             # machine-readable value: 6 significant digits of the record
             assert float(attrs["data-v"]) == pytest.approx(value, rel=5e-6, abs=1e-300)
+            if shown == "< 1e-300":
+                assert value == 0.0
+                continue
             # displayed value: rounded, so within half a unit of its last digit
             digits = shown.split("e")[0]
             decimals = len(digits.split(".")[1]) if "." in digits else 0
@@ -285,6 +288,40 @@ def test_top_pairs_find_the_planted_shapes(report):
     assert first and "soil_moisture" in first.group(2) and "disease_score" in first.group(2)
     card = text[text.index(f'id="{first.group(1)}"'):]
     assert "Verdict" in card[:3000]
+
+
+def test_methods_content_follows_settings_and_registry(report):
+    from app.core.registry import MEASURES
+    from app.methods import methods_content
+
+    content = methods_content(settings=report.settings, pair_table=report.pairs)
+    assert [m["name"] for m in content["measures"]] == list(report.settings.measures)
+    for m in content["measures"]:
+        defined = sum(1 for r in report.pairs.rows if r.measure == m["name"] and math.isfinite(r.p_value))
+        assert sum(u["pairs"] for u in m["methods_used"]) == defined
+        assert m["formula"] == MEASURES[m["name"]].formula
+    everything = methods_content()
+    assert [m["name"] for m in everything["measures"]] == list(MEASURES)
+    holm = AnalysisSettings.from_options(adjust="holm", permutations=99, missing="complete")
+    text = json.dumps(methods_content(settings=holm))
+    assert "Holm" in text and "(m - j + 1)" in text and "B = 99" in text and "(1 + k) / (B + 1)" in text
+    assert "complete" in text and "Benjamini" not in text
+    json.dumps(content)  # plain data, ready for an API or a template
+
+
+def test_groups_and_complete_rows_are_reported_honestly(tmp_path):
+    path = _write_csv(tmp_path / "g.csv", _vineyard_frame(160, 8), missing_in="sugar_brix", missing_every=5)
+    table = load_table(path)
+    settings = AnalysisSettings.from_options(measures="dcor,pearson", missing="complete",
+                                             groups=["soil=soil_moisture,canopy_temp"])
+    pairs = run_analysis(table.data, table.columns, settings, workers=1)
+    text = html.unescape(build_report(table, pairs, command="pairlens report g.csv -o g.html", top_k=3))
+    assert "Group soil" in text
+    assert "A column group: the report draws scatters for single columns only." in text
+    # with complete rows the measures' n differs from the scatter's, and the card says so
+    assert "only rows complete in every analysed variable" in text
+    page = _parse(text)
+    assert {int(c[8][1]) for c in page.pair_rows} == {int(np.sum(~np.isnan(table.data).any(axis=1)))}
 
 
 # Figures --------------------------------------------------------------------
@@ -549,9 +586,29 @@ def test_report_renders_offline_in_chromium(report):
                 .map(r => r.cells[7].getAttribute('data-v'))""")
             present = [float(v) for v in values if v]
             assert present == sorted(present, reverse=True)
+            # hover text of a heatmap cell carries the pair table's numbers
+            heat = figs["heatmap-pearson"]
+            names = heat["layout"]["meta"]["variables"]
+            row = next(r for r in report.pairs.rows if r.measure == "pearson" and math.isfinite(r.estimate))
+            i, j = names.index(row.y), names.index(row.x)
+            area = page.locator('[data-testid="heatmap-pearson"] .nsewdrag').first
+            area.scroll_into_view_if_needed()
+            box = area.bounding_box()
+            k = len(names)  # rows run top to bottom (reversed y axis), columns left to right
+            page.mouse.move(box["x"] + (j + 0.5) * box["width"] / k, box["y"] + (i + 0.5) * box["height"] / k)
+            page.wait_for_timeout(300)
+            hover = page.locator('[data-testid="heatmap-pearson"] .hoverlayer').text_content()
+            hover = hover.replace("\u2212", "-")
+            assert f"{row.estimate:.3f}" in hover and f"n {row.n}" in hover, hover
+            assert row.x in hover and row.y in hover
             page.screenshot(path=str(SCREENSHOTS / "report.png"), full_page=True)
             page.emulate_media(media="print")
             assert page.evaluate("getComputedStyle(document.querySelector('.toc')).display") == "none"
+            # figures are redrawn at their printed width
+            page.wait_for_timeout(500)
+            widths = page.evaluate("""() => { const d = document.querySelector('[data-testid="heatmap-pearson"]');
+                return [d.clientWidth, Number(d.querySelector('.main-svg').getAttribute('width'))]; }""")
+            assert abs(widths[0] - widths[1]) <= 2, widths
             page.evaluate("window.scrollTo(0, 0)")
             page.screenshot(path=str(SCREENSHOTS / "report-print.png"), full_page=False)
         finally:
