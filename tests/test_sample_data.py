@@ -30,7 +30,7 @@ TEXT_COLUMNS = ("block_id", "row_orientation")
 PLANTED = {
     ("soil_moisture_20cm", "soil_moisture_60cm"): "linear",
     ("canopy_temp_c", "sugar_brix"): "monotone but curved",
-    ("leaf_wetness_h", "disease_score"): "monotone but curved",
+    ("leaf_wetness_h", "disease_score"): "linear",
     ("irrigation_min", "berry_weight_g"): "non-monotone",
     ("dew_point_anomaly_c", "canopy_humidity_anomaly_pct"): "non-monotone",
     ("acidity_g_l", "yan_mg_l"): "driven by a few points",
@@ -170,22 +170,20 @@ def test_monotone_curved_sugar_saturates_with_canopy_temperature(table, all_pair
     assert coef < 0 and p < 1e-6                         # concave: saturating
 
 
-def test_heavy_ties_disease_score_is_monotone_and_convex_in_leaf_wetness(table, all_pairs):
+def test_heavy_ties_disease_score_rises_steadily_with_leaf_wetness(table, all_pairs):
     score = table["disease_score"]
     counts = score.value_counts()
     assert set(counts.index) == {0, 1, 2, 3, 4, 5}
-    assert counts.max() / len(score) >= 0.3              # heavy ties: one level holds >= 30 %
+    assert len(counts) == 6 and counts.min() >= 50       # heavy ties: 960 rows on six levels
     x, y = _pair(table, "leaf_wetness_h", "disease_score")
     tau = st.kendalltau(x, y)                            # scipy.stats.kendalltau, tau-b (tie-adjusted)
-    assert tau.statistic > 0.5 and tau.pvalue < 1e-6
+    assert tau.statistic > 0.6 and tau.pvalue < 1e-6
     row = _row(all_pairs, "leaf_wetness_h", "disease_score")
-    assert row["q_rho"] < 1e-6 and row["rho"] > row["r"]   # scipy spearmanr vs pearsonr
-    coef, p = _quadratic_term_p(x, y)                    # statsmodels OLS
-    assert coef > 0 and p < 1e-6                         # convex: disease takes off late
+    assert row["q_rho"] < 1e-6 and row["q_r"] < 1e-6    # scipy spearmanr and pearsonr
+    assert abs(row["rho"] - row["r"]) < 0.05             # straight trend: ranks and values agree
     # Monotone: mean score rises across leaf-wetness sextiles (pandas qcut, common practice).
     means = table.groupby(pd.qcut(table["leaf_wetness_h"], 6), observed=True)["disease_score"].mean()
-    # The lowest sextiles are all near 0, so allow a hair of noise between them.
-    assert np.all(np.diff(means.to_numpy()) >= -0.05) and means.iloc[-1] - means.iloc[0] > 2
+    assert np.all(np.diff(means.to_numpy()) > 0) and means.iloc[-1] - means.iloc[0] > 3
 
 
 def test_non_monotone_berry_weight_peaks_at_moderate_irrigation(table, all_pairs):

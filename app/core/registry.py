@@ -105,8 +105,8 @@ MEASURES: dict[str, Measure] = {
         Measure(
             name="dcor", label="Distance correlation", family="distance", symmetric=True, signed=False,
             lower=0.0, upper=1.0, multivariate=True, reflection="unchanged",
-            default_test="gamma approximation to the null law of n V_n^2 (moment-matched); "
-                         "permutation with --permutations",
+            default_test="shifted gamma approximation to the permutation law of n V_n^2, matched to its exact "
+                         "mean, variance and third moment; permutation with --permutations",
             interval="",
             formula="R_n = dCov_n(x, y) / sqrt(dVar_n(x) dVar_n(y)), double-centred distance matrices",
             reference="Szekely, Rizzo & Bakirov (2007) Ann. Statist. 35:2769-2794, doi:10.1214/009053607000000505; "
