@@ -31,8 +31,9 @@ from .core.registry import MEASURES
 from .engine import PairRow, PairTable, pair_detail
 from .methods import methods_content
 
-__all__ = ["MAX_SCATTER_POINTS", "EXTREME_POINTS", "script_json", "round_floats", "subsample_points",
-           "rank_pairs", "disagreement_contrasts", "build_report"]
+__all__ = ["MAX_SCATTER_POINTS", "EXTREME_POINTS", "script_json", "round_floats", "extreme_indices",
+           "shared_rows", "PointStore", "simplify_polyline", "rank_pairs", "disagreement_contrasts",
+           "compact_heatmap", "compact_difference", "binned_marginals", "build_report"]
 
 # A scatter of more points than this adds file size without showing more.
 MAX_SCATTER_POINTS = 2000
@@ -141,36 +142,6 @@ def _sort_value(v) -> str:
 
 # Points ---------------------------------------------------------------------
 
-def subsample_points(x: np.ndarray, y: np.ndarray, *, limit: int = MAX_SCATTER_POINTS,
-                     extreme: int = EXTREME_POINTS, seed: int = 0) -> np.ndarray:
-    """Indices of at most ``limit`` points: the ``extreme`` farthest, the rest at random.
-
-    Distance is Mahalanobis distance from the mean under the sample covariance
-    (Euclidean distance of standardised values when the covariance is singular),
-    so single outliers that drive a pair stay in the picture. Indices are
-    returned sorted, so the original row order is kept.
-    """
-    n = len(x)
-    if n <= limit:
-        return np.arange(n)
-    pts = np.column_stack([x, y]).astype(float)
-    centred = pts - pts.mean(axis=0)
-    cov = np.cov(centred, rowvar=False)
-    try:
-        dist = np.einsum("ij,jk,ik->i", centred, np.linalg.inv(cov), centred)
-    except np.linalg.LinAlgError:
-        sd = centred.std(axis=0)
-        sd[sd == 0] = 1.0
-        dist = ((centred / sd) ** 2).sum(axis=1)
-    dist = np.nan_to_num(dist, nan=0.0, posinf=np.inf)
-    extreme = min(extreme, limit)
-    far = np.argsort(-dist, kind="stable")[:extreme]
-    rest = np.setdiff1d(np.arange(n), far, assume_unique=False)
-    rng = np.random.default_rng(seed)
-    sample = rng.choice(rest, size=limit - extreme, replace=False)
-    return np.sort(np.concatenate([far, sample]))
-
-
 def _mahalanobis(x: np.ndarray, y: np.ndarray) -> np.ndarray:
     pts = np.column_stack([x, y]).astype(float)
     centred = pts - pts.mean(axis=0)
@@ -185,9 +156,7 @@ def _mahalanobis(x: np.ndarray, y: np.ndarray) -> np.ndarray:
 
 def extreme_indices(x: np.ndarray, y: np.ndarray, k: int = EXTREME_POINTS) -> np.ndarray:
     """Positions of the ``k`` points farthest from the centre (Mahalanobis distance)."""
-    if len(x) <= k:
-        return np.arange(len(x))
-    if len(x) < 3:
+    if len(x) <= k or len(x) < 3:
         return np.arange(len(x))
     return np.sort(np.argsort(-_mahalanobis(x, y), kind="stable")[:k])
 
@@ -537,8 +506,9 @@ def _pair_cards(table, pt: PairTable, rankings: list[Ranking], figures: dict,
     limit = max(MIN_SCATTER_POINTS, min(MAX_SCATTER_POINTS, POINT_VALUES_BUDGET // max(n_columns, 1)))
     store = PointStore(table.data, table.columns, shared_rows(table.data.shape[0], limit, pt.settings.seed))
     def detail_of(pair):
-        return pair_detail(table.data, table.columns, pair[0], pair[1], pt.settings, table=pt,
-                           include_points=True)
+        # points come from the data below: asking pair_detail for them would build
+        # Python lists of every row, which costs more than the fit for large files
+        return pair_detail(table.data, table.columns, pair[0], pair[1], pt.settings, table=pt)
 
     # The Gaussian fit's normality test is O(n^2) and NumPy releases the GIL in it,
     # so a few threads shorten the wait; results keep the card order.
@@ -549,9 +519,10 @@ def _pair_cards(table, pt: PairTable, rankings: list[Ranking], figures: dict,
             card.note = "A column group: the report draws scatters for single columns only."
             continue
         detail = details[(x, y)]
-        points = detail.pop("points")
-        px, py = np.asarray(points["x"], dtype=float), np.asarray(points["y"], dtype=float)
-        prow = np.asarray(points["rows"], dtype=np.int64)
+        xs_all = table.data[:, table.columns.index(x)]
+        ys_all = table.data[:, table.columns.index(y)]
+        prow = np.flatnonzero(~np.isnan(xs_all) & ~np.isnan(ys_all))  # the rows pair_detail fits
+        px, py = xs_all[prow], ys_all[prow]
         total = len(px)
         in_sample = np.isin(prow, store.rows)
         far = extreme_indices(px, py)

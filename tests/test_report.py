@@ -27,7 +27,7 @@ import scipy.stats as ss
 from app import __version__
 from app.engine import AnalysisSettings, run_analysis
 from app.ingest import ColumnInfo, Table, load_table
-from app.report import build_report, round_floats, script_json, subsample_points
+from app.report import build_report, extreme_indices, round_floats, script_json, shared_rows, simplify_polyline
 
 ROOT = Path(__file__).resolve().parent.parent
 SCREENSHOTS = Path(__file__).resolve().parent / "screenshots"
@@ -371,17 +371,31 @@ def test_figure_json_is_compact_and_points_are_capped(report):
     assert all(t.get("type") != "histogram" for f in figs.values() for t in f["data"])
 
 
-def test_subsample_keeps_extremes_and_is_seeded():
+def test_far_points_and_shared_rows():
     rng = np.random.default_rng(3)
     x = rng.normal(size=10_000)
     y = x + rng.normal(size=10_000)
-    x[123], y[123] = 40.0, -40.0
-    idx = subsample_points(x, y, limit=2000, extreme=50, seed=5)
-    assert len(idx) == 2000 and len(set(idx.tolist())) == 2000
-    assert np.all(np.diff(idx) > 0)
-    assert 123 in idx
-    assert np.array_equal(idx, subsample_points(x, y, limit=2000, extreme=50, seed=5))
-    assert len(subsample_points(x[:500], y[:500], limit=2000)) == 500
+    x[123], y[123] = 3.0, -3.0  # unremarkable alone, far off the x = y trend together
+    far = extreme_indices(x, y, 50)
+    assert len(far) == 50 and 123 in far and np.all(np.diff(far) > 0)
+    # reference: Mahalanobis distance written out with numpy's covariance
+    d = np.column_stack([x, y]) - [x.mean(), y.mean()]
+    m = np.einsum("ij,jk,ik->i", d, np.linalg.inv(np.cov(d.T)), d)
+    assert set(far.tolist()) == set(np.argsort(-m)[:50].tolist())
+    rows = shared_rows(10_000, 2000, seed=5)
+    assert len(rows) == len(set(rows.tolist())) == 2000 and np.all(np.diff(rows) > 0)
+    assert np.array_equal(rows, shared_rows(10_000, 2000, seed=5))
+    assert not np.array_equal(rows, shared_rows(10_000, 2000, seed=6))
+    assert np.array_equal(shared_rows(500, 2000, seed=5), np.arange(500))
+
+
+def test_simplify_polyline_keeps_corners_only():
+    xs = np.linspace(0, 1, 50).tolist() + np.linspace(1, 0, 50).tolist()
+    ys = [2 * v for v in xs[:50]] + [2 * v + 1 for v in xs[50:]]
+    sx, sy = simplify_polyline(xs, ys)
+    assert sx == [0.0, 1.0, 1.0, 0.0] and sy == pytest.approx([0.0, 2.0, 3.0, 1.0])
+    cx = np.cos(np.linspace(0, 2 * np.pi, 40)).tolist()
+    assert len(simplify_polyline(cx, np.sin(np.linspace(0, 2 * np.pi, 40)).tolist())[0]) == 40
 
 
 def test_round_floats_six_significant_digits():
