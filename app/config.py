@@ -19,6 +19,9 @@ SIGNIFICANCE_LEVEL = 0.05         # q-value below which a pair counts as signifi
 
 # Limits ------------------------------------------------------------------
 MAX_UPLOAD_MB = 200
+# Bodies of requests other than uploads (JSON settings, forms) are small; a larger
+# one is refused with 413 instead of being buffered.
+MAX_REQUEST_BODY_KB = 1024
 MAX_ROWS = 5_000_000
 MAX_COLUMNS = 5_000
 # A .csv.gz may not decompress to more than this (guards against gzip bombs).

@@ -23,6 +23,7 @@ from ..ingest import IngestError
 from ..jobs import JobManager
 from ..store import Store, UploadTooLarge
 from .deps import Conflict, NotFound, Unavailable, Workspace, embed_json
+from .security import RequestGuard
 
 __all__ = ["create_app", "UPLOAD_PATHS"]
 
@@ -217,6 +218,10 @@ def create_app(settings: ServerSettings | None = None, *, jobs: JobManager | Non
     app.state.templates = make_templates()
     app.state.demo_id = None
     app.add_middleware(UploadLimit, max_bytes=settings.max_upload_mb * 1024 * 1024)
+    # Added last, so outermost: foreign hosts, cross-site writes and missing tokens are
+    # refused before any body is read.
+    app.add_middleware(RequestGuard, host=settings.host, port=settings.port, token=settings.token,
+                       max_body_bytes=config.MAX_REQUEST_BODY_KB * 1024, upload_paths=UPLOAD_PATHS)
 
     def error(request: Request, status: int, detail: str):
         if _wants_json(request):

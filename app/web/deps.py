@@ -195,7 +195,9 @@ class Workspace:
         """Store an upload: spool + hash, parse, then keep the bytes under their hash."""
         from ..ingest import load_bytes
 
-        name = Path(filename or "upload").name or "upload"
+        from .security import display_name
+
+        name = display_name(filename)
         tmp, sha, size = self.store.spool_upload(stream, self.max_upload_bytes)
         try:
             content = tmp.read_bytes()

@@ -9,6 +9,7 @@ from pathlib import Path
 
 from .. import config
 from ..config import ServerSettings
+from .security import access_link, is_loopback_host, new_token
 
 __all__ = ["serve", "LOOPBACK_HOSTS"]
 
@@ -44,15 +45,17 @@ def serve(host: str = config.DEFAULT_HOST, port: int = config.DEFAULT_PORT, data
         print(f"pairlens serve: cannot listen on {host}:{port} (in use or not allowed); try --port {port + 1}",
               file=sys.stderr)
         return 2
-    if host not in LOOPBACK_HOSTS:
-        print(f"pairlens serve: warning: listening on {host}, reachable from other machines; "
-              "anyone who can reach it can read and upload data", file=sys.stderr)
+    # Beyond loopback other machines can connect: every request then needs a fresh random token.
+    token = None if is_loopback_host(host) else new_token()
+    if token is not None:
+        print(f"pairlens serve: listening on {host}, reachable from other machines; requests need the "
+              "access token in the link below", file=sys.stderr)
     directory = Path(data_dir) if data_dir else config.default_data_dir()
     settings = ServerSettings(host=host, port=port, data_dir=directory, max_upload_mb=max_upload_mb, demo=demo,
-                              cluster=cluster)
+                              cluster=cluster, token=token)
     app = create_app(settings)
-    shown = f"[{host}]" if ":" in host else host
-    print(f"pairlens: serving http://{shown}:{port}/  (data in {directory}; Ctrl+C stops)", file=sys.stderr)
+    print(f"pairlens: serving {access_link(host, port, token)}  (data in {directory}; Ctrl+C stops)",
+          file=sys.stderr, flush=True)
     server = uvicorn.Server(uvicorn.Config(app, host=host, port=port, log_level=log_level, access_log=False,
                                            lifespan="on", timeout_graceful_shutdown=5))
     try:

@@ -1,0 +1,88 @@
+"""A real ``pairlens serve`` in its own process group on a free loopback port (hardening tests)."""
+
+from __future__ import annotations
+
+import os
+import re
+import signal
+import socket
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import httpx
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def free_port() -> int:
+    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+class LiveServer:
+    """``python -m app.cli serve`` bound to 127.0.0.1; its own session so the whole group can be killed."""
+
+    def __init__(self, data_dir: Path, *, port: int | None = None, args: tuple[str, ...] = (),
+                 start_timeout: float = 60.0) -> None:
+        self.port = port or free_port()
+        self.base = f"http://127.0.0.1:{self.port}"
+        self.data_dir = Path(data_dir)
+        self.log_path = self.data_dir.parent / f"serve-{self.port}-{time.monotonic_ns()}.log"
+        env = dict(os.environ)
+        env["PYTHONPATH"] = str(ROOT) + (os.pathsep + env["PYTHONPATH"] if env.get("PYTHONPATH") else "")
+        cmd = [sys.executable, "-m", "app.cli", "serve", "--host", "127.0.0.1", "--port", str(self.port),
+               "--data-dir", str(self.data_dir), *args]
+        self._log = open(self.log_path, "wb")
+        self.proc = subprocess.Popen(cmd, cwd=str(ROOT), env=env, stdout=self._log, stderr=subprocess.STDOUT,
+                                     start_new_session=True)
+        deadline = time.monotonic() + start_timeout
+        while time.monotonic() < deadline:
+            if self.proc.poll() is not None:
+                raise RuntimeError(f"server exited with {self.proc.returncode}: {self.log_text()}")
+            try:
+                if httpx.get(self.base + "/api/datasets", timeout=2).status_code == 200:
+                    return
+            except httpx.HTTPError:
+                pass
+            time.sleep(0.2)
+        self.kill()
+        raise RuntimeError("server did not start: " + self.log_text())
+
+    def url(self, path: str) -> str:
+        return self.base + path
+
+    def log_text(self) -> str:
+        if not self._log.closed:
+            self._log.flush()
+        return self.log_path.read_text(errors="replace")[-4000:]
+
+    def access_link(self) -> str | None:
+        m = re.search(r"serving (http://\S+)", self.log_text())
+        return m.group(1) if m else None
+
+    def kill(self) -> None:
+        """SIGKILL the server's whole process group (server, analysis children, their pools)."""
+        try:
+            os.killpg(self.proc.pid, signal.SIGKILL)
+        except ProcessLookupError:
+            pass
+        self.proc.wait(10)
+        self._log.close()
+
+    def stop(self) -> None:
+        if self.proc.poll() is None:
+            self.proc.terminate()
+            try:
+                self.proc.wait(15)
+            except subprocess.TimeoutExpired:
+                pass
+        try:  # analysis children left behind by a server that did not stop in time
+            os.killpg(self.proc.pid, signal.SIGKILL)
+        except ProcessLookupError:
+            pass
+        if self.proc.poll() is None:
+            self.proc.wait(10)
+        self._log.close()
