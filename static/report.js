@@ -44,6 +44,9 @@
       fig = resolvePoints(fig, store);
       done.push(Plotly.newPlot(div, fig.data || [], fig.layout || {}, config).then(function () {
         div.classList.add("drawn");
+        if (div.classList.contains("plot-heat") && div.on) {
+          div.on("plotly_click", function (event) { onHeatmapClick(div, event); });
+        }
       }));
     });
     Promise.all(done).then(function () {
@@ -102,26 +105,76 @@
   }
 
   // Filtering ------------------------------------------------------------
+  // Two filters combine: free text matched against x and y, and one chosen
+  // pair (from a heatmap click), matched exactly in either order.
+  var filterState = { needle: "", pair: null, apply: null };
+
   function makeFilter(table) {
     var input = document.getElementById("pair-filter");
     var count = document.getElementById("pair-count");
+    var chosen = document.getElementById("pair-chosen");
     if (!input) { return; }
     var tools = input.closest(".table-tools");
     if (tools) { tools.hidden = false; }
     var rows = Array.prototype.slice.call(table.tBodies[0].rows);
     function apply() {
-      var needle = input.value.trim().toLowerCase();
+      var needle = filterState.needle;
+      var pair = filterState.pair;
       var shown = 0;
       rows.forEach(function (row) {
-        var hit = !needle || row.cells[0].textContent.toLowerCase().indexOf(needle) >= 0 ||
-          row.cells[1].textContent.toLowerCase().indexOf(needle) >= 0;
+        var x = row.cells[0].textContent, y = row.cells[1].textContent;
+        var hit = !needle || x.toLowerCase().indexOf(needle) >= 0 || y.toLowerCase().indexOf(needle) >= 0;
+        if (hit && pair) { hit = (x === pair[0] && y === pair[1]) || (x === pair[1] && y === pair[0]); }
         row.hidden = !hit;
         if (hit) { shown += 1; }
       });
+      if (chosen) {
+        chosen.hidden = !pair;
+        chosen.textContent = "";
+        if (pair) {
+          chosen.appendChild(document.createTextNode(pair[0] + " \u00d7 " + pair[1]));
+          var clear = document.createElement("button");
+          clear.type = "button";
+          clear.textContent = "\u00d7";
+          clear.title = "Show all pairs";
+          clear.addEventListener("click", function () { filterState.pair = null; apply(); });
+          chosen.appendChild(clear);
+        }
+      }
       if (count) { count.textContent = shown + " of " + rows.length + " rows"; }
     }
-    input.addEventListener("input", apply);
+    input.addEventListener("input", function () { filterState.needle = input.value.trim().toLowerCase(); apply(); });
+    filterState.apply = apply;
     apply();
+  }
+
+  function findCard(x, y) {
+    var cards = document.querySelectorAll("article.card[data-x]");
+    for (var k = 0; k < cards.length; k += 1) {
+      var cx = cards[k].getAttribute("data-x"), cy = cards[k].getAttribute("data-y");
+      if ((cx === x && cy === y) || (cx === y && cy === x)) { return cards[k]; }
+    }
+    return null;
+  }
+
+  // A click on a heatmap cell: the pair's card when it has one, else its rows.
+  function onHeatmapClick(div, event) {
+    var point = event && event.points && event.points[0];
+    var names = div.layout && div.layout.meta && div.layout.meta.variables;
+    if (!point || !names || !Array.isArray(point.pointNumber)) { return; }
+    var y = names[point.pointNumber[0]], x = names[point.pointNumber[1]];
+    if (x === undefined || y === undefined || x === y) { return; }
+    var card = findCard(x, y);
+    if (card) {
+      card.scrollIntoView({ behavior: "smooth", block: "start" });
+      card.classList.add("flash");
+      window.setTimeout(function () { card.classList.remove("flash"); }, 1200);
+      return;
+    }
+    filterState.pair = [x, y];
+    if (filterState.apply) { filterState.apply(); }
+    var section = document.getElementById("pair-table");
+    if (section) { section.scrollIntoView({ behavior: "smooth", block: "start" }); }
   }
 
   // Figures are laid out for the screen; paper is narrower or wider, so redraw

@@ -615,6 +615,40 @@ def test_report_renders_offline_in_chromium(report):
             hover = hover.replace("\u2212", "-")
             assert f"{row.estimate:.3f}" in hover and f"n {row.n}" in hover, hover
             assert row.x in hover and row.y in hover
+            # a click on a heatmap cell: the pair's card, or the pair's rows in the table
+            carded = {frozenset(p) for p in page.evaluate(
+                "Array.from(document.querySelectorAll('article.card')).map(c => [c.dataset.x, c.dataset.y])")}
+            variables = report.pairs.variables
+            pairs = [(a, b) for n, a in enumerate(variables) for b in variables[n + 1:]]
+            with_card = next(p for p in pairs if frozenset(p) in carded)
+            without = next((p for p in pairs if frozenset(p) not in carded), None)
+
+            def click_cell(a, b):
+                area.scroll_into_view_if_needed()
+                box = area.bounding_box()
+                row, col = names.index(b), names.index(a)
+                page.mouse.click(box["x"] + (col + 0.5) * box["width"] / k, box["y"] + (row + 0.5) * box["height"] / k)
+                page.wait_for_timeout(900)
+
+            click_cell(*with_card)
+            top = page.evaluate("""([a, b]) => Array.from(document.querySelectorAll('article.card'))
+                .find(c => (c.dataset.x === a && c.dataset.y === b) || (c.dataset.x === b && c.dataset.y === a))
+                .getBoundingClientRect().top""", list(with_card))
+            assert abs(top) < 40, top
+            if without is not None:
+                click_cell(*without)
+                shown = page.evaluate("""() => Array.from(document.querySelectorAll('#pairs tbody tr'))
+                    .filter(r => !r.hidden).map(r => [r.cells[0].textContent, r.cells[1].textContent])""")
+                expected = [[r["x"], r["y"]] for r in report.pairs.records()
+                            if frozenset((r["x"], r["y"])) == frozenset(without)]
+                assert sorted(shown) == sorted(expected) and shown
+                page.locator("#pair-chosen button").click()
+            page.fill("#pair-filter", "gust")
+            shown = page.evaluate("""() => Array.from(document.querySelectorAll('#pairs tbody tr'))
+                .filter(r => !r.hidden).length""")
+            assert shown == sum(1 for r in report.pairs.records() if "gust" in r["x"] + r["y"])
+            page.fill("#pair-filter", "")
+            page.evaluate("window.scrollTo(0, 0)")
             page.screenshot(path=str(SCREENSHOTS / "report.png"), full_page=True)
             page.emulate_media(media="print")
             assert page.evaluate("getComputedStyle(document.querySelector('.toc')).display") == "none"
