@@ -31,6 +31,8 @@ import threading
 import time
 import traceback
 
+from typing import Callable
+
 import numpy as np
 
 from . import config
@@ -105,6 +107,17 @@ def compute_verdicts(data: np.ndarray, names: list[str], table, *, budget_second
             "per_pair_ms": 1000.0 * seconds / done}
 
 
+def _page_cache(pair_table, verdicts: dict) -> dict | None:
+    """The analysis page's default figures, built here so the server's first view is fast."""
+    try:
+        from .web.deps import precompute_pages
+
+        return precompute_pages(pair_table, verdicts)
+    except Exception:  # noqa: BLE001 - without the cache the server builds the figures itself
+        traceback.print_exc()
+        return None
+
+
 class _Throttle:
     """Calls through at most every ``interval`` seconds (the last value wins)."""
 
@@ -136,11 +149,14 @@ def run_job(data_dir: str, analysis_id: str, *, workers: int | None = None, clus
         row = store.get_analysis(analysis_id)
         assert row is not None
         cancel_throttle = _Throttle(0.2)
-        cancel_state = {"flag": False}
+        cancel_state = {"flag": False, "orphaned": False}
+        parent = os.getppid()
 
         def cancel() -> bool:
             if not cancel_state["flag"] and cancel_throttle.ready():
-                cancel_state["flag"] = store.cancel_requested(analysis_id)
+                # A server that died (kill -9) leaves us reparented: stop rather than compute for nobody.
+                cancel_state["orphaned"] = os.getppid() != parent
+                cancel_state["flag"] = cancel_state["orphaned"] or store.cancel_requested(analysis_id)
             return cancel_state["flag"]
 
         progress_throttle = _Throttle(0.25)
@@ -171,16 +187,22 @@ def run_job(data_dir: str, analysis_id: str, *, workers: int | None = None, clus
                 raise AnalysisCancelled("analysis cancelled")
             from .export import json_records
 
+            store.update_progress(analysis_id, 1.0, 0.0, phase="figures")
+            pages = _page_cache(pair_table, verdicts)
             saved = store.save_results(analysis_id, variables=list(pair_table.variables),
                                        records=[r | {"method": m} for r, m in
                                                 zip(json_records(pair_table.records()),
                                                     (row_.method for row_ in pair_table.rows))],
-                                       verdicts=verdicts, seconds=pair_table.seconds)
+                                       verdicts=verdicts, seconds=pair_table.seconds, pages=pages)
             if not saved:
                 store.finish(analysis_id, "cancelled")
                 return store.get_analysis(analysis_id).status  # type: ignore[union-attr]
             return "done"
         except AnalysisCancelled:
+            if cancel_state["orphaned"]:
+                store.finish(analysis_id, "interrupted", "the server stopped before this analysis finished; "
+                                                         "run it again")
+                return "interrupted"
             store.finish(analysis_id, "cancelled")
             return "cancelled"
         except (SettingsError, IngestError) as exc:
@@ -240,12 +262,14 @@ class JobManager:
     """
 
     def __init__(self, store: Store, *, max_concurrent: int = config.MAX_CONCURRENT_ANALYSES,
-                 workers: int | None = None, cluster: str | None = None, poll_interval: float = 0.2) -> None:
+                 workers: int | None = None, cluster: str | None = None, poll_interval: float = 0.2,
+                 on_done: Callable[[str], None] | None = None) -> None:
         self.store = store
         self.max_concurrent = max(1, int(max_concurrent))
         self.workers = workers or max(1, (os.cpu_count() or 1) // self.max_concurrent)
         self.cluster = cluster
         self.poll_interval = poll_interval
+        self.on_done = on_done
         self.token = secrets.token_hex(8)
         self.interrupted_at_start: list[str] = []
         self._procs: dict[str, subprocess.Popen] = {}
@@ -259,6 +283,7 @@ class JobManager:
 
     def start(self) -> None:
         self.interrupted_at_start = self.store.mark_interrupted(self.token)
+        self.store.remove_leftovers()
         self._thread = threading.Thread(target=self._loop, name="pairlens-jobs", daemon=True)
         self._thread.start()
 
@@ -300,6 +325,12 @@ class JobManager:
 
     # Dispatcher ---------------------------------------------------------------
 
+    def _notify_done(self, analysis_id: str) -> None:
+        try:
+            self.on_done(analysis_id)  # type: ignore[misc]
+        except Exception:  # noqa: BLE001 - a warm-up failure only costs speed
+            traceback.print_exc()
+
     def _loop(self) -> None:
         while not self._stop.is_set():
             try:
@@ -319,6 +350,8 @@ class JobManager:
                     self._procs.pop(aid, None)
                 self._cancel_seen.pop(aid, None)
                 row = self.store.get_analysis(aid)
+                if row is not None and row.status == "done" and self.on_done is not None:
+                    threading.Thread(target=self._notify_done, args=(aid,), daemon=True).start()
                 if row is not None and row.status in ("queued", "running"):
                     if row.cancel_requested:
                         self.store.finish(aid, "cancelled")

@@ -27,7 +27,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import BinaryIO, Iterator
 
-__all__ = ["Store", "StoreError", "DatasetRow", "AnalysisRow", "STATUSES", "ACTIVE_STATUSES",
+__all__ = ["Store", "StoreError", "StoreBusy", "DatasetRow", "AnalysisRow", "STATUSES", "ACTIVE_STATUSES",
            "FINAL_STATUSES", "DB_NAME"]
 
 DB_NAME = "pairlens.sqlite3"
@@ -72,9 +72,20 @@ CREATE TABLE IF NOT EXISTS results (
     variables   TEXT NOT NULL,
     records     BLOB NOT NULL,
     verdicts    BLOB NOT NULL,
+    pages       BLOB,
     seconds     REAL NOT NULL,
     created     REAL NOT NULL
 );
+"""
+
+# Finished results never change: the database itself refuses to rewrite them or to
+# move a done analysis to another state (only deleting the analysis removes them).
+_IMMUTABLE_RESULTS = """
+CREATE TRIGGER IF NOT EXISTS results_are_final BEFORE UPDATE OF analysis_id, variables, records, verdicts, seconds
+ON results BEGIN SELECT RAISE(ABORT, 'finished results never change'); END;
+CREATE TRIGGER IF NOT EXISTS done_is_final BEFORE UPDATE OF status ON analyses
+WHEN OLD.status = 'done' AND NEW.status != 'done'
+BEGIN SELECT RAISE(ABORT, 'a finished analysis stays done'); END;
 """
 
 
@@ -149,7 +160,11 @@ class Store:
         self.db_path = self.data_dir / DB_NAME
         self._local = threading.local()
         # executescript manages its own transaction; the schema is idempotent.
-        self._connection().executescript(_SCHEMA)
+        con = self._connection()
+        con.executescript(_SCHEMA)
+        con.executescript(_IMMUTABLE_RESULTS)
+        if "pages" not in {r[1] for r in con.execute("PRAGMA table_info(results)")}:
+            con.execute("ALTER TABLE results ADD COLUMN pages BLOB")
 
     # Connections and transactions -------------------------------------------
 
@@ -253,10 +268,11 @@ class Store:
 
     def add_dataset(self, *, name: str, sha256: str, size: int, n_rows: int, n_columns: int,
                     summary: dict) -> DatasetRow:
-        if not self.blob_path(sha256).exists():
-            raise StoreError("the dataset's bytes must be stored first")
         row = DatasetRow(_new_id(), name, sha256, int(size), int(n_rows), int(n_columns), time.time(), summary)
         with self._tx() as con:
+            # Checked under the write lock, so a delete removing the last copy cannot slip in between.
+            if not self.blob_path(sha256).exists():
+                raise StoreError("the dataset's bytes must be stored first")
             con.execute("INSERT INTO datasets (id, name, sha256, size, n_rows, n_columns, created, summary) "
                         "VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
                         (row.id, row.name, row.sha256, row.size, row.n_rows, row.n_columns, row.created,
@@ -382,7 +398,7 @@ class Store:
             return cur.rowcount == 1
 
     def save_results(self, analysis_id: str, *, variables: list[str], records: list[dict],
-                     verdicts: dict, seconds: float) -> bool:
+                     verdicts: dict, seconds: float, pages: dict | None = None) -> bool:
         """Write the results and mark the analysis ``done`` in one transaction.
 
         Returns False (and writes nothing) when the analysis is no longer running,
@@ -390,25 +406,27 @@ class Store:
         """
         now = time.time()
         packed_records, packed_verdicts = _pack(records), _pack(verdicts)
+        packed_pages = _pack(pages) if pages is not None else None
         with self._tx() as con:
             cur = con.execute("UPDATE analyses SET status = 'done', progress = 1, phase = 'done', finished = ?, "
                               "updated = ?, seconds_left = 0 WHERE id = ? AND status = 'running' "
                               "AND cancel_requested = 0", (now, now, analysis_id))
             if cur.rowcount != 1:
                 return False
-            con.execute("INSERT INTO results (analysis_id, variables, records, verdicts, seconds, created) "
-                        "VALUES (?, ?, ?, ?, ?, ?)",
+            con.execute("INSERT INTO results (analysis_id, variables, records, verdicts, pages, seconds, "
+                        "created) VALUES (?, ?, ?, ?, ?, ?, ?)",
                         (analysis_id, json.dumps(variables, ensure_ascii=False), packed_records,
-                         packed_verdicts, float(seconds), now))
+                         packed_verdicts, packed_pages, float(seconds), now))
         return True
 
     def get_results(self, analysis_id: str) -> dict | None:
-        """``{"variables", "records", "verdicts", "seconds"}`` of a done analysis, else None."""
+        """``{"variables", "records", "verdicts", "pages", "seconds"}`` of a done analysis, else None."""
         r = self._connection().execute("SELECT * FROM results WHERE analysis_id = ?", (analysis_id,)).fetchone()
         if r is None:
             return None
         return {"variables": json.loads(r["variables"]), "records": _unpack(r["records"]),
-                "verdicts": _unpack(r["verdicts"]), "seconds": r["seconds"]}
+                "verdicts": _unpack(r["verdicts"]), "pages": _unpack(r["pages"]) if r["pages"] else None,
+                "seconds": r["seconds"]}
 
     def mark_interrupted(self, owner_token: str, *, alive_pids: set[int] | None = None,
                          reason: str = "") -> list[str]:
@@ -447,6 +465,81 @@ class Store:
                                                  "run it again", r["id"]))
                 changed.append(r["id"])
         return changed
+
+
+    # Deleting -----------------------------------------------------------------
+
+    def _drop_analyses(self, con: sqlite3.Connection, where: str, args: tuple) -> list[str]:
+        rows = con.execute(f"SELECT id, status FROM analyses WHERE {where}", args).fetchall()
+        active = [r["id"] for r in rows if r["status"] in ACTIVE_STATUSES]
+        if active:
+            raise StoreBusy(f"analysis {active[0]} is still queued or running; cancel it first")
+        ids = [r["id"] for r in rows]
+        for aid in ids:
+            con.execute("DELETE FROM results WHERE analysis_id = ?", (aid,))
+            con.execute("DELETE FROM analyses WHERE id = ?", (aid,))
+        return ids
+
+    def delete_analysis(self, analysis_id: str) -> bool:
+        """Remove an analysis and its results in one transaction; False when there is no such analysis.
+
+        Raises :class:`StoreBusy` while it is queued or running.
+        """
+        with self._tx() as con:
+            return bool(self._drop_analyses(con, "id = ?", (analysis_id,)))
+
+    def delete_dataset(self, dataset_id: str) -> list[str] | None:
+        """Remove a dataset, its analyses and results; its bytes too when no other dataset shares them.
+
+        Returns the ids of the analyses removed, or None when there is no such
+        dataset. Raises :class:`StoreBusy` while one of its analyses is queued
+        or running. The blob is moved aside inside the transaction (so an
+        upload of the same bytes waiting for the lock sees it gone and stores
+        it again) and unlinked after the commit, or put back on rollback.
+        """
+        trash: Path | None = None
+        blob: Path | None = None
+        try:
+            with self._tx() as con:
+                r = con.execute("SELECT sha256 FROM datasets WHERE id = ?", (dataset_id,)).fetchone()
+                if r is None:
+                    return None
+                removed = self._drop_analyses(con, "dataset_id = ?", (dataset_id,))
+                con.execute("DELETE FROM datasets WHERE id = ?", (dataset_id,))
+                sha = r["sha256"]
+                if con.execute("SELECT 1 FROM datasets WHERE sha256 = ? LIMIT 1", (sha,)).fetchone() is None:
+                    blob = self.blob_path(sha)
+                    if blob.exists():
+                        trash = self.blob_dir / f".deleted-{sha}-{secrets.token_hex(4)}"
+                        os.replace(blob, trash)
+        except BaseException:
+            if trash is not None and blob is not None and not blob.exists():
+                os.replace(trash, blob)  # the rows are still there, so are their bytes
+            raise
+        if trash is not None:
+            trash.unlink(missing_ok=True)
+        return removed
+
+    def remove_leftovers(self, min_age_seconds: float = 600.0) -> int:
+        """Delete temporary files a killed process left in the blob directory; returns how many.
+
+        Only files older than ``min_age_seconds``, so an upload still being
+        written by another process on the same directory is left alone.
+        """
+        count = 0
+        cutoff = time.time() - min_age_seconds
+        for p in self.blob_dir.iterdir():
+            try:
+                if p.name.startswith((".upload-", ".blob-", ".deleted-")) and p.stat().st_mtime < cutoff:
+                    p.unlink(missing_ok=True)
+                    count += 1
+            except FileNotFoundError:
+                continue
+        return count
+
+
+class StoreBusy(StoreError):
+    """The object cannot be changed now (an analysis is queued or running)."""
 
 
 class UploadTooLarge(Exception):

@@ -65,6 +65,14 @@ def _fmt_p(v) -> str:
     return f"{v:.4f}"
 
 
+def _rawnum(v) -> str:
+    """Full-precision number for a data attribute (repr round-trips); empty when missing."""
+    if v is None:
+        return ""
+    v = float(v)
+    return repr(v) if math.isfinite(v) else ""
+
+
 def _when(ts) -> str:
     if ts is None:
         return "–"
@@ -102,7 +110,7 @@ def _sparkline(counts, width: int = 96, height: int = 22) -> str:
 def make_templates() -> Jinja2Templates:
     env = Environment(loader=FileSystemLoader(str(config.TEMPLATES_DIR)),
                       autoescape=select_autoescape(default=True, default_for_string=True))
-    env.filters.update(fmt=_fmt, fmt_p=_fmt_p, when=_when, size=_size, sparkline=_sparkline,
+    env.filters.update(fmt=_fmt, fmt_p=_fmt_p, rawnum=_rawnum, when=_when, size=_size, sparkline=_sparkline,
                        embed_json=embed_json)
     env.globals.update(MEASURES=MEASURES, config=config, version=__version__)
     return Jinja2Templates(env=env)
@@ -200,6 +208,8 @@ def create_app(settings: ServerSettings | None = None, *, jobs: JobManager | Non
     store = Store(data_dir)
     jobs = jobs or JobManager(store, cluster=settings.cluster)
     workspace = Workspace(store, jobs, max_upload_mb=settings.max_upload_mb, cluster=settings.cluster)
+    if jobs.on_done is None:
+        jobs.on_done = workspace.warm
 
     @asynccontextmanager
     async def lifespan(app: FastAPI):

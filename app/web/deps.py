@@ -175,6 +175,74 @@ def _pair_key(x: str, y: str) -> str:
     return f"{x}\u0000{y}"
 
 
+def default_difference(measures: tuple[str, ...]) -> tuple[str, str] | None:
+    """The difference view shown first: a distance measure against the linear one, if chosen."""
+    measures = tuple(measures)
+    if len(measures) < 2:
+        return None
+    linear = [m for m in measures if MEASURES[m].family == "linear"]
+    base = linear[0] if linear else measures[0]
+    others = [m for m in measures if m != base]
+    distance = [m for m in others if MEASURES[m].family == "distance" and not MEASURES[m].signed]
+    return (distance or others)[0], base
+
+
+def heatmap_payload(table: PairTable, order: list[int], diff: tuple[str, str] | None) -> dict:
+    """Heatmaps of every measure (and the difference view) in one order, embedded for a page."""
+    from . import plots
+
+    figures = {m: plots.heatmap_figure(table, m, order=order, hover="template") for m in table.measures}
+    difference = (plots.difference_figure(table, diff[0], diff[1], order=order, hover="template")
+                  if diff else None)
+    top = difference["layout"]["meta"]["top"] if difference else []
+    return {"order": [table.variables[i] for i in order], "top": top,
+            "embedded": embed_json({"figures": figures, "difference": difference})}
+
+
+def pair_rows_payload(table: PairTable, labels: dict) -> dict:
+    """The wide pair table: one row per unordered pair, every measure's estimate and q, the verdict."""
+    position = {v: i for i, v in enumerate(table.variables)}
+    columns: list[dict] = []
+    for m in table.measures:
+        meas = MEASURES[m]
+        if meas.symmetric:
+            columns.append({"key": m, "measure": m, "label": meas.label, "direction": ""})
+        else:
+            columns.append({"key": m + ">", "measure": m, "label": meas.label, "direction": "x→y"})
+            columns.append({"key": m + "<", "measure": m, "label": meas.label, "direction": "y→x"})
+    col_index = {c["key"]: k for k, c in enumerate(columns)}
+    pairs: dict[tuple[str, str], list] = {}
+    for r in table.rows:
+        i, j = position[r.x], position[r.y]
+        a, b = (r.x, r.y) if i < j else (r.y, r.x)
+        entry = pairs.get((a, b))
+        if entry is None:
+            entry = [a, b, int(r.n), [None] * len(columns), [None] * len(columns), labels.get(_pair_key(a, b))]
+            pairs[(a, b)] = entry
+        key = r.measure if MEASURES[r.measure].symmetric else r.measure + (">" if r.x == a else "<")
+        k = col_index[key]
+        entry[3][k] = _num(r.estimate)
+        entry[4][k] = _num(r.q_value)
+        entry[2] = max(entry[2], int(r.n))
+    rows = sorted(pairs.values(), key=lambda e: (position[e[0]], position[e[1]]))
+    body = {"columns": columns, "rows": rows, "alpha": config.SIGNIFICANCE_LEVEL}
+    return {"columns": columns, "n_rows": len(rows), "embedded": embed_json(body)}
+
+
+def precompute_pages(table: PairTable, verdicts: dict) -> dict:
+    """What the analysis page shows by default, built once by the background job and stored.
+
+    JSON-serialisable: the embedded JSON text (already escaped for a page) and
+    the small pieces the template renders itself.
+    """
+    diff = default_difference(table.measures)
+    heat = heatmap_payload(table, list(range(len(table.variables))), diff)
+    rows = pair_rows_payload(table, verdicts.get("labels", {}))
+    return {"heatmaps": {"diff": list(diff) if diff else None, "order": heat["order"], "top": heat["top"],
+                         "embedded": str(heat["embedded"])},
+            "pairrows": {"columns": rows["columns"], "n_rows": rows["n_rows"], "embedded": str(rows["embedded"])}}
+
+
 class Workspace:
     """The server's view of one data directory."""
 
@@ -188,6 +256,8 @@ class Workspace:
         self._pair_tables = _LRU(8)
         self._figures = _LRU(16)
         self._details = _LRU(64)
+        self._locks: dict = {}
+        self._locks_guard = threading.Lock()
 
     # Datasets -----------------------------------------------------------------
 
@@ -289,10 +359,50 @@ class Workspace:
             raise Conflict(f"analysis {analysis_id} is already {row.status}")
         return self.jobs.cancel(analysis_id)
 
+    def rerun(self, analysis_id: str) -> AnalysisRow:
+        """A new queued analysis with the same dataset and settings (after an interruption, say)."""
+        row = self.analysis(analysis_id)
+        self.dataset(row.dataset_id)
+        return self.jobs.submit(row.dataset_id, row.settings)
+
+    def delete_analysis(self, analysis_id: str) -> None:
+        from ..store import StoreBusy
+
+        try:
+            if not self.store.delete_analysis(analysis_id):
+                raise NotFound(f"no analysis {analysis_id!r}")
+        except StoreBusy as exc:
+            raise Conflict(str(exc)) from None
+        self._pair_tables.pop(analysis_id)
+
+    def delete_dataset(self, dataset_id: str) -> list[str]:
+        """Remove a dataset with its analyses (its bytes too when no other dataset shares them)."""
+        from ..store import StoreBusy
+
+        dataset = self.dataset(dataset_id)
+        try:
+            removed = self.store.delete_dataset(dataset_id)
+        except StoreBusy as exc:
+            raise Conflict(str(exc)) from None
+        if removed is None:
+            raise NotFound(f"no dataset {dataset_id!r}")
+        for aid in removed:
+            self._pair_tables.pop(aid)
+        if self.store.find_dataset_by_hash(dataset.sha256) is None:
+            self._tables.pop(dataset.sha256)
+        return removed
+
     def _results(self, row: AnalysisRow) -> dict:
         cached = self._pair_tables.get(row.id)
         if cached is not None:
             return cached
+        with self._key_lock(("results", row.id)):
+            cached = self._pair_tables.get(row.id)
+            if cached is not None:
+                return cached
+            return self._load_results(row)
+
+    def _load_results(self, row: AnalysisRow) -> dict:
         if row.status != "done":
             raise Conflict(f"analysis {row.id} is {row.status}, not done")
         res = self.store.get_results(row.id)
@@ -330,20 +440,42 @@ class Workspace:
             cached = self._figures.put(key, plots.cluster_order(table, cluster_on))
         return cached
 
+    @staticmethod
+    def default_difference(measures: tuple[str, ...]) -> tuple[str, str] | None:
+        return default_difference(measures)
+
+    def warm(self, analysis_id: str) -> None:
+        """Build the default figures of a finished analysis so its first page view is fast."""
+        row = self.store.get_analysis(analysis_id)
+        if row is None or row.status != "done":
+            return
+        table = self.pair_table(row)
+        self.heatmaps(row, None, self.default_difference(table.measures))
+        self.pair_rows(row)
+
+    def _key_lock(self, key) -> threading.Lock:
+        with self._locks_guard:
+            return self._locks.setdefault(key, threading.Lock())
+
     def heatmaps(self, row: AnalysisRow, cluster_on: str | None, diff: tuple[str, str] | None) -> dict:
         """Figures for the analysis page (cached: finished results never change)."""
-        from . import plots
-
         key = ("heatmaps", row.id, cluster_on, diff)
         cached = self._figures.get(key)
         if cached is not None:
             return cached
+        with self._key_lock(key):  # a page request during warm-up waits instead of building twice
+            cached = self._figures.get(key)
+            if cached is not None:
+                return cached
+            return self._build_heatmaps(row, cluster_on, diff, key)
+
+    def _build_heatmaps(self, row: AnalysisRow, cluster_on, diff, key) -> dict:
         table = self.pair_table(row)
-        order = self.order(row, cluster_on)
-        figures = {m: plots.heatmap_figure(table, m, order=order) for m in table.measures}
-        difference = plots.difference_figure(table, diff[0], diff[1], order=order) if diff else None
-        out = {"figures": figures, "difference": difference, "order": [table.variables[i] for i in order]}
-        out["embedded"] = embed_json({"figures": figures, "difference": difference})
+        stored = (self._results(row).get("pages") or {}).get("heatmaps")
+        if stored and cluster_on is None and diff is not None and list(diff) == stored["diff"]:
+            out = {"order": stored["order"], "top": stored["top"], "embedded": Markup(stored["embedded"])}
+        else:
+            out = heatmap_payload(table, self.order(row, cluster_on), diff)
         return self._figures.put(key, out)
 
     def pair_rows(self, row: AnalysisRow) -> dict:
@@ -352,36 +484,18 @@ class Workspace:
         cached = self._figures.get(key)
         if cached is not None:
             return cached
-        table = self.pair_table(row)
-        labels = self.verdicts(row).get("labels", {})
-        position = {v: i for i, v in enumerate(table.variables)}
-        columns: list[dict] = []
-        for m in table.measures:
-            meas = MEASURES[m]
-            if meas.symmetric:
-                columns.append({"key": m, "measure": m, "label": meas.label, "direction": ""})
+        with self._key_lock(key):
+            cached = self._figures.get(key)
+            if cached is not None:
+                return cached
+            res = self._results(row)
+            stored = (res.get("pages") or {}).get("pairrows")
+            if stored and not res.get("labels_changed"):
+                out = {"columns": stored["columns"], "n_rows": stored["n_rows"],
+                       "embedded": Markup(stored["embedded"])}
             else:
-                columns.append({"key": m + ">", "measure": m, "label": meas.label, "direction": "x→y"})
-                columns.append({"key": m + "<", "measure": m, "label": meas.label, "direction": "y→x"})
-        col_index = {c["key"]: k for k, c in enumerate(columns)}
-        pairs: dict[tuple[str, str], list] = {}
-        for r in table.rows:
-            i, j = position[r.x], position[r.y]
-            a, b = (r.x, r.y) if i < j else (r.y, r.x)
-            entry = pairs.get((a, b))
-            if entry is None:
-                entry = [a, b, int(r.n), [None] * len(columns), [None] * len(columns),
-                         labels.get(_pair_key(a, b))]
-                pairs[(a, b)] = entry
-            key = r.measure if MEASURES[r.measure].symmetric else r.measure + (">" if r.x == a else "<")
-            k = col_index[key]
-            entry[3][k] = _num(r.estimate)
-            entry[4][k] = _num(r.q_value)
-            entry[2] = max(entry[2], int(r.n))
-        rows = sorted(pairs.values(), key=lambda e: (position[e[0]], position[e[1]]))
-        out = {"columns": columns, "rows": rows, "alpha": config.SIGNIFICANCE_LEVEL}
-        out["embedded"] = embed_json(out)
-        return self._figures.put(key, out)
+                out = pair_rows_payload(self.pair_table(row), self.verdicts(row).get("labels", {}))
+            return self._figures.put(key, out)
 
     def pair(self, row: AnalysisRow, x: str, y: str) -> dict:
         """:func:`app.engine.pair_detail` with points, q-values from the analysis, cached per pair."""
@@ -406,6 +520,7 @@ class Workspace:
         if pattern.get("label") and labels.get(_pair_key(x, y)) != pattern["label"] and x in table.variables:
             a, b = sorted((x, y), key=table.variables.index)
             labels[_pair_key(a, b)] = pattern["label"]
+            self._results(row)["labels_changed"] = True
             self._figures.pop(("pairrows", row.id))
         return self._details.put(key, detail)
 

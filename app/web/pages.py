@@ -118,16 +118,6 @@ async def start_analysis_form(dataset_id: str, request: Request, ws: Workspace =
     return RedirectResponse(f"/analyses/{row.id}", status_code=303)
 
 
-def _default_difference(measures: tuple[str, ...]) -> tuple[str, str] | None:
-    if len(measures) < 2:
-        return None
-    linear = [m for m in measures if MEASURES[m].family == "linear"]
-    base = linear[0] if linear else measures[0]
-    others = [m for m in measures if m != base]
-    distance = [m for m in others if MEASURES[m].family == "distance" and not MEASURES[m].signed]
-    return (distance or others)[0], base
-
-
 @router.get("/analyses/{analysis_id}", response_class=HTMLResponse)
 def analysis_page(analysis_id: str, request: Request, order: str = "input", diff: str = "",
                   ws: Workspace = Depends(get_workspace)):
@@ -144,15 +134,15 @@ def analysis_page(analysis_id: str, request: Request, order: str = "input", diff
         if a in table.measures and b in table.measures and a != b:
             difference = (a, b)
     if difference is None:
-        difference = _default_difference(table.measures)
+        difference = ws.default_difference(table.measures)
     figures = ws.heatmaps(row, cluster_on, difference)
     pair_rows = ws.pair_rows(row)
     verdicts = ws.verdicts(row)
     context.update({
         "table": table, "measures": table.measures, "order": cluster_on or "input",
         "difference": difference, "figures": figures, "pair_rows": pair_rows,
-        "top_pairs": (figures["difference"] or {}).get("layout", {}).get("meta", {}).get("top", []),
-        "verdicts": verdicts, "n_pairs": len(pair_rows["rows"]),
+        "top_pairs": figures["top"],
+        "verdicts": verdicts, "n_pairs": pair_rows["n_rows"],
         "n_variables": len(table.variables), "significant": {
             m: sum(1 for r in table.rows if r.measure == m and r.q_value == r.q_value
                    and r.q_value < config.SIGNIFICANCE_LEVEL) for m in table.measures},
@@ -166,6 +156,37 @@ def cancel_form(analysis_id: str, ws: Workspace = Depends(get_workspace)):
     if row.status in ("queued", "running"):
         ws.cancel(analysis_id)
     return RedirectResponse(f"/analyses/{analysis_id}", status_code=303)
+
+
+async def _confirmed(request: Request) -> None:
+    form = await request.form()
+    confirmed = form.get("confirm") == "yes"
+    await form.close()
+    if not confirmed:
+        from starlette.exceptions import HTTPException
+
+        raise HTTPException(status_code=400, detail="tick the box to confirm the deletion, then press Delete")
+
+
+@router.post("/analyses/{analysis_id}/rerun")
+def rerun_form(analysis_id: str, ws: Workspace = Depends(get_workspace)):
+    row = ws.rerun(analysis_id)
+    return RedirectResponse(f"/analyses/{row.id}", status_code=303)
+
+
+@router.post("/analyses/{analysis_id}/delete")
+async def delete_analysis_form(analysis_id: str, request: Request, ws: Workspace = Depends(get_workspace)):
+    await _confirmed(request)
+    row = ws.analysis(analysis_id)
+    await run_in_threadpool(ws.delete_analysis, analysis_id)
+    return RedirectResponse(f"/datasets/{row.dataset_id}", status_code=303)
+
+
+@router.post("/datasets/{dataset_id}/delete")
+async def delete_dataset_form(dataset_id: str, request: Request, ws: Workspace = Depends(get_workspace)):
+    await _confirmed(request)
+    await run_in_threadpool(ws.delete_dataset, dataset_id)
+    return RedirectResponse("/", status_code=303)
 
 
 @router.get("/analyses/{analysis_id}/pair", response_class=HTMLResponse)

@@ -91,6 +91,34 @@ def _nan_to_none(a: np.ndarray) -> list:
     return [[(float(v) if math.isfinite(v) else None) for v in row] for row in np.asarray(a, dtype=float)]
 
 
+def _round_significant(a: np.ndarray, digits: int) -> np.ndarray:
+    """Round to ``digits`` significant digits with exact powers of ten, so repr() stays short."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        magnitude = np.floor(np.log10(np.abs(a)))
+    magnitude = np.where(np.isfinite(magnitude), magnitude, 0.0)
+    k = (digits - 1 - magnitude).astype(int)
+    k = np.clip(k, -300, 300)
+    up = k >= 0
+    # 10.0**k is exact for 0 <= k <= 22; dividing an integer-valued float by it rounds once.
+    scale_up = np.power(10.0, np.where(up, k, 0))
+    scale_down = np.power(10.0, np.where(up, 0, -k))
+    return np.where(up, np.round(a * scale_up) / scale_up, np.round(a / scale_down) * scale_down)
+
+
+def _compact(a: np.ndarray, digits: int = 6) -> list:
+    """Nested lists of ``a`` rounded to ``digits`` significant digits (short JSON), NaN as None."""
+    a = np.asarray(a, dtype=float)
+    rounded = _round_significant(a, digits)
+    out = rounded.tolist()
+    # Missing cells are few (the diagonal, undefined pairs): patch them one by one.
+    for index in zip(*np.nonzero(~np.isfinite(rounded))):
+        target = out
+        for i in index[:-1]:
+            target = target[i]
+        target[index[-1]] = None
+    return out
+
+
 def colour_range(measure: str) -> tuple[object, float, float]:
     """Colour scale and (zmin, zmax) for a measure, from its registry range and sign."""
     m = MEASURES[measure]
@@ -163,7 +191,8 @@ def _significance_trace(qmat: np.ndarray, labels: list[str], alpha: float) -> di
 
 
 def heatmap_figure(table, measure: str, *, order: Sequence[int] | None = None,
-                   alpha: float = config.SIGNIFICANCE_LEVEL, title: str | None = None) -> dict:
+                   alpha: float = config.SIGNIFICANCE_LEVEL, title: str | None = None,
+                   hover: str = "text") -> dict:
     """Heatmap of one measure over all pairs of ``table`` (a PairTable).
 
     Parameters
@@ -177,6 +206,10 @@ def heatmap_figure(table, measure: str, *, order: Sequence[int] | None = None,
     alpha : float
         Cells whose adjusted q-value is below ``alpha`` get a dot.
     title : str, optional
+    hover : {"text", "template"}
+        "text": one HTML string per cell (estimate, interval, p, q, n, note).
+        "template": the numbers as ``customdata`` (6 significant digits) and a
+        Plotly hovertemplate; a third of the size and much faster for 100 columns.
 
     Returns
     -------
@@ -185,6 +218,8 @@ def heatmap_figure(table, measure: str, *, order: Sequence[int] | None = None,
         names in plotted order, so a click (``points[0].pointNumber = [row, col]``)
         maps back to ``(x = variables[col], y = variables[row])``.
     """
+    if hover not in ("text", "template"):
+        raise ValueError(f"hover must be 'text' or 'template', not {hover!r}")
     k = len(table.variables)
     order = list(range(k)) if order is None else [int(i) for i in order]
     names = [table.variables[i] for i in order]
@@ -192,6 +227,8 @@ def heatmap_figure(table, measure: str, *, order: Sequence[int] | None = None,
     idx = np.asarray(order, dtype=int)
     fields = {f: table.matrix(measure, f)[np.ix_(idx, idx)] for f in
               ("estimate", "ci_low", "ci_high", "p_value", "q_value", "n")}
+    if hover == "template":
+        return _template_heatmap(table, measure, names, labels, fields, alpha, title)
     notes: dict[tuple[int, int], str] = {}
     if any(r.note for r in table.rows if r.measure == measure):
         pos = {v: p for p, v in enumerate(names)}
@@ -245,8 +282,39 @@ def heatmap_figure(table, measure: str, *, order: Sequence[int] | None = None,
     return {"data": [heat, _significance_trace(fields["q_value"], labels, alpha)], "layout": layout}
 
 
+def _template_heatmap(table, measure, names, labels, fields, alpha, title) -> dict:
+    m = MEASURES[measure]
+    has_interval = bool(m.interval)
+    stack_fields = (("ci_low", "ci_high") if has_interval else ()) + ("p_value", "q_value", "n")
+    custom = np.stack([fields[f] for f in stack_fields], axis=-1)
+    head = "<b>%{x}</b> × <b>%{y}</b>" if m.symmetric else "<b>%{y}</b> → <b>%{x}</b>"
+    body = f"{plot_text(m.label)} %{{z:.4g}}"
+    k0 = 0
+    if has_interval:
+        body += " [%{customdata[0]:.4g}, %{customdata[1]:.4g}]"
+        k0 = 2
+    body += (f"<br>p %{{customdata[{k0}]:.3g}}  q %{{customdata[{k0 + 1}]:.3g}}"
+             f"  n %{{customdata[{k0 + 2}]}}")
+    scale, zmin, zmax = colour_range(measure)
+    k = len(names)
+    heat = {
+        "type": "heatmap", "x": labels, "y": labels, "z": _compact(fields["estimate"]),
+        "customdata": _compact(custom), "hovertemplate": head + "<br>" + body + "<extra></extra>",
+        "colorscale": scale, "zmin": zmin, "zmax": zmax,
+        "xgap": 1 if k <= 40 else 0, "ygap": 1 if k <= 40 else 0, "hoverongaps": False,
+        "colorbar": {"thickness": 10, "len": 0.8, "outlinewidth": 0, "tickfont": {"size": 10}},
+        "name": measure,
+    }
+    layout = _matrix_layout(labels, title or m.label)
+    if not m.symmetric:
+        layout["yaxis"]["title"] = {"text": "from (row)", "font": {"size": 10}}
+        layout["xaxis"]["title"] = {"text": "to (column)", "font": {"size": 10}}
+    layout["meta"] = {"variables": names, "measure": measure, "alpha": alpha}
+    return {"data": [heat, _significance_trace(fields["q_value"], labels, alpha)], "layout": layout}
+
+
 def difference_figure(table, measure_a: str, measure_b: str, *, order: Sequence[int] | None = None,
-                      absolute: bool = True, top: int = 15) -> dict:
+                      absolute: bool = True, top: int = 15, hover: str = "text") -> dict:
     """Heatmap of ``measure_a - |measure_b|`` (or without the absolute value) plus the top pairs.
 
     With ``measure_a = "dcor"`` and ``measure_b = "pearson"`` the bright cells are pairs
@@ -273,9 +341,12 @@ def difference_figure(table, measure_a: str, measure_b: str, *, order: Sequence[
     diff = (a - bb)[np.ix_(idx, idx)]
     a_o, b_o = a[np.ix_(idx, idx)], b[np.ix_(idx, idx)]
     la, lb = MEASURES[measure_a].label, MEASURES[measure_b].label
-    text = [["" if i == j else
-             f"<b>{labels[j]}</b> × <b>{labels[i]}</b><br>{la} {_fmt(a_o[i, j])}  {lb} {_fmt(b_o[i, j])}"
-             f"<br>difference {_fmt(diff[i, j])}" for j in range(k)] for i in range(k)]
+    if hover == "template":
+        text = None
+    else:
+        text = [["" if i == j else
+                 f"<b>{labels[j]}</b> × <b>{labels[i]}</b><br>{la} {_fmt(a_o[i, j])}  {lb} {_fmt(b_o[i, j])}"
+                 f"<br>difference {_fmt(diff[i, j])}" for j in range(k)] for i in range(k)]
     finite = np.abs(diff[np.isfinite(diff)])
     bound = float(max(0.05, finite.max() if finite.size else 1.0))
     top_pairs = []
@@ -289,12 +360,19 @@ def difference_figure(table, measure_a: str, measure_b: str, *, order: Sequence[
     bar = "|" if absolute else ""
     title = f"{la} − {bar}{lb}{bar}"
     heat = {
-        "type": "heatmap", "x": labels, "y": labels, "z": _nan_to_none(diff), "text": text,
-        "hovertemplate": "%{text}<extra></extra>", "colorscale": SIGNED_SCALE, "zmin": -bound, "zmax": bound,
+        "type": "heatmap", "x": labels, "y": labels, "z": _compact(diff), "colorscale": SIGNED_SCALE,
+        "zmin": -bound, "zmax": bound,
         "xgap": 1 if k <= 40 else 0, "ygap": 1 if k <= 40 else 0, "hoverongaps": False,
         "colorbar": {"thickness": 10, "len": 0.8, "outlinewidth": 0, "tickfont": {"size": 10}},
         "name": "difference",
     }
+    if text is None:
+        heat["customdata"] = _compact(np.stack([a_o, b_o], axis=-1))
+        heat["hovertemplate"] = (f"<b>%{{x}}</b> × <b>%{{y}}</b><br>{plot_text(la)} %{{customdata[0]:.4g}}  "
+                                 f"{plot_text(lb)} %{{customdata[1]:.4g}}<br>difference %{{z:.4g}}<extra></extra>")
+    else:
+        heat["text"] = text
+        heat["hovertemplate"] = "%{text}<extra></extra>"
     layout = _matrix_layout(labels, title)
     layout["meta"] = {"variables": names, "measure": f"{measure_a}-{measure_b}", "top": top_pairs[:top]}
     return {"data": [heat], "layout": layout}
