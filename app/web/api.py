@@ -5,7 +5,7 @@ from __future__ import annotations
 from typing import Any
 
 from fastapi import APIRouter, Body, Depends, Query, Request
-from fastapi.responses import HTMLResponse, JSONResponse
+from fastapi.responses import HTMLResponse, JSONResponse, Response
 
 from starlette.concurrency import run_in_threadpool
 from starlette.datastructures import UploadFile
@@ -69,6 +69,24 @@ def get_pair(analysis_id: str, x: str = Query(...), y: str = Query(...), ws: Wor
 def cancel_analysis(analysis_id: str, ws: Workspace = Depends(get_workspace)):
     row = ws.cancel(analysis_id)
     return _json(row.public(), 202)
+
+
+@router.post("/analyses/{analysis_id}/rerun", status_code=202)
+def rerun_analysis(analysis_id: str, ws: Workspace = Depends(get_workspace)):
+    row = ws.rerun(analysis_id)
+    return _json({"id": row.id, "status": row.status, "url": f"/analyses/{row.id}"}, 202)
+
+
+@router.delete("/analyses/{analysis_id}", status_code=204)
+def delete_analysis(analysis_id: str, ws: Workspace = Depends(get_workspace)):
+    ws.delete_analysis(analysis_id)
+    return Response(status_code=204)
+
+
+@router.delete("/datasets/{dataset_id}", status_code=204)
+def delete_dataset(dataset_id: str, ws: Workspace = Depends(get_workspace)):
+    ws.delete_dataset(dataset_id)
+    return Response(status_code=204)
 
 
 @router.get("/analyses/{analysis_id}/report.html")
