@@ -16,13 +16,12 @@ from typing import Callable, Iterable, Sequence
 import numpy as np
 
 from . import config
-from .core import gaussian as gaussian_mod
-from .core import verdict as verdict_mod
+from .core import allpairs, chatterjee, distance, rank
 from .core.registry import MEASURES, PairContext, get_measure
 from .core.results import TestResult, undefined
 from .core.testing import adjust_pvalues, pair_seed
 from .errors import SettingsError
-from .executors import Executor, make_executor
+from .executors import Executor, ProcessExecutor, SerialExecutor, make_executor
 from .export import PAIR_FIELDS
 
 __all__ = [
@@ -279,9 +278,29 @@ def _compute_one(measure_name: str, xv: np.ndarray, yv: np.ndarray, x_name: str,
         return undefined(n, str(exc))
 
 
+def _pair_row(a: Variable, b: Variable, measure: str, res: TestResult) -> PairRow:
+    # The contract's note column carries the reason for a missing value, and
+    # otherwise names the method behind the p-value.
+    note = res.note or (f"p-value: {res.method}" if res.method else "")
+    return PairRow(a.name, b.name, measure, res.estimate, res.ci_low, res.ci_high,
+                   res.p_value, math.nan, res.n, note, res.method)
+
+
+def _directions(measure: str, xvar: Variable, yvar: Variable) -> list[tuple[Variable, Variable, bool]]:
+    out = [(xvar, yvar, False)]
+    if not MEASURES[measure].symmetric:
+        out.append((yvar, xvar, True))
+    return out
+
+
 def compute_pair(data: np.ndarray, xvar: Variable, yvar: Variable, settings: AnalysisSettings,
                  row_mask: np.ndarray | None = None) -> list[PairRow]:
-    """Every chosen measure for one pair of variables (both directions for asymmetric ones)."""
+    """Every chosen measure for one pair of variables (both directions for asymmetric ones).
+
+    The per-pair path: each measure's own function on the pair's complete rows.
+    It is the oracle of the presorted path (:func:`_fast_pair_rows`) and runs
+    column groups.
+    """
     xv_all = _variable_values(data, xvar)
     yv_all = _variable_values(data, yvar)
     keep = _observed(xv_all) & _observed(yv_all)
@@ -290,31 +309,100 @@ def compute_pair(data: np.ndarray, xvar: Variable, yvar: Variable, settings: Ana
     xv, yv = xv_all[keep], yv_all[keep]
     rows: list[PairRow] = []
     for m in settings.measures:
-        directions = [(xvar, yvar, xv, yv)]
-        if not MEASURES[m].symmetric:
-            directions.append((yvar, xvar, yv, xv))
-        for a, b, av, bv in directions:
-            res = _compute_one(m, av, bv, a.name, b.name, settings, a.is_group, b.is_group)
-            # The contract's note column carries the reason for a missing value, and
-            # otherwise names the method behind the p-value.
-            note = res.note or (f"p-value: {res.method}" if res.method else "")
-            rows.append(PairRow(a.name, b.name, m, res.estimate, res.ci_low, res.ci_high,
-                                res.p_value, math.nan, res.n, note, res.method))
+        for a, b, swapped in _directions(m, xvar, yvar):
+            av, bv = (yv, xv) if swapped else (xv, yv)
+            rows.append(_pair_row(a, b, m, _compute_one(m, av, bv, a.name, b.name, settings,
+                                                        a.is_group, b.is_group)))
     return rows
+
+
+def _fast_measure(measure: str, view: "allpairs.PairView", swapped: bool, a: Variable, b: Variable,
+                  settings: AnalysisSettings, cache: dict) -> TestResult:
+    """One measure of a regular pair (>= 3 rows, no constant side) from the presorted orders.
+
+    Every branch finishes with the function the per-pair measure itself ends
+    with, on the same numbers, so the result is the per-pair result.
+    """
+    n = view.n
+    av, bv = (view.y, view.x) if swapped else (view.x, view.y)
+    if measure == "spearman" and n <= allpairs.EXACT_RANK_SUM_MAX_N:
+        sxy, sxx, syy = allpairs.spearman_sums(view)
+        return rank.spearman_from_sums(sxy, sxx, syy, n, confidence=settings.confidence)
+    if measure == "kendall":
+        d, tx, ty, txy, x3, x5, y3, y5 = allpairs.kendall_counts_view(view)
+        counts = rank.KendallCounts(n, int(d), int(tx), int(ty), int(txy), float(x3), float(x5),
+                                    float(y3), float(y5))
+        return rank.kendall_from_counts(counts, confidence=settings.confidence)
+    if measure in ("dcor", "dcor_bc") and n >= 4:
+        st = cache.get("distance")
+        if st is None:
+            st = cache["distance"] = distance.centred_statistics_presorted(*allpairs.distance_orders(view))
+        seed = pair_seed(settings.seed, a.name, b.name, measure)
+        finish = distance.dcor_from_statistics if measure == "dcor" else distance.dcor_bc_from_statistics
+        return finish(st, permutations=settings.permutations, seed=seed)
+    if measure == "xi":
+        seed = pair_seed(settings.seed, a.name, b.name, measure)
+        a_order, b_order = (view.y_order, view.x_order) if swapped else (view.x_order, view.y_order)
+        order = allpairs.xi_order(av, a_order, lambda: chatterjee.xi_tie_keys(seed, n))
+        r, l = allpairs.rank_counts(bv, b_order)
+        return chatterjee.xi_from_order(order, r, l, permutations=settings.permutations, seed=seed)
+    # pearson (O(n) numpy on the rows), and anything without a presorted form
+    return _compute_one(measure, av, bv, a.name, b.name, settings, False, False)
+
+
+def _fast_pair_rows(prep: "allpairs.PreparedColumns", xvar: Variable, yvar: Variable,
+                    settings: AnalysisSettings) -> list[PairRow] | None:
+    """The rows of a pair of single columns from the presorted columns; None: use compute_pair."""
+    if xvar.is_group or yvar.is_group:
+        return None
+    i, j = prep.slot.get(xvar.columns[0]), prep.slot.get(yvar.columns[0])
+    if i is None or j is None or not (prep.finite[i] and prep.finite[j]):
+        return None
+    view = allpairs.pair_view(prep, i, j)
+    if view.n < config.MIN_ROWS or view.x_constant() or view.y_constant():
+        return None  # degenerate pairs: every measure's own note, from the per-pair path
+    cache: dict = {}
+    rows: list[PairRow] = []
+    for m in settings.measures:
+        for a, b, swapped in _directions(m, xvar, yvar):
+            rows.append(_pair_row(a, b, m, _fast_measure(m, view, swapped, a, b, settings, cache)))
+    return rows
+
+
+def prepare_columns(data: np.ndarray, variables: Sequence[Variable],
+                    row_mask: np.ndarray | None = None) -> "allpairs.PreparedColumns":
+    """Sort every single-column variable once for the presorted path (O(n p) memory)."""
+    columns = [v.columns[0] for v in variables if not v.is_group]
+    return allpairs.prepare_columns(data, row_mask, columns=columns)
 
 
 _WORKER_STATE: dict = {}
 
 
-def _init_worker(data, variables, settings, row_mask) -> None:
-    _WORKER_STATE.update(data=data, variables=variables, settings=settings, row_mask=row_mask)
+def _init_worker(data, variables, settings, row_mask, prepared=None) -> None:
+    """Worker state for a run; ``prepared`` (the sorted columns) is built here when not given."""
+    _WORKER_STATE.clear()
+    _WORKER_STATE.update(data=data, variables=variables, settings=settings, row_mask=row_mask,
+                         prepared=prepared)
+
+
+def _worker_prepared() -> "allpairs.PreparedColumns":
+    s = _WORKER_STATE
+    if s.get("prepared") is None:
+        s["prepared"] = prepare_columns(s["data"], s["variables"], s["row_mask"])
+    return s["prepared"]
 
 
 def _run_tile(tile: list[tuple[int, int]]) -> list[PairRow]:
     s = _WORKER_STATE
+    prep = _worker_prepared()
     out: list[PairRow] = []
     for i, j in tile:
-        out.extend(compute_pair(s["data"], s["variables"][i], s["variables"][j], s["settings"], s["row_mask"]))
+        xvar, yvar = s["variables"][i], s["variables"][j]
+        rows = _fast_pair_rows(prep, xvar, yvar, s["settings"])
+        if rows is None:
+            rows = compute_pair(s["data"], xvar, yvar, s["settings"], s["row_mask"])
+        out.extend(rows)
     return out
 
 
@@ -373,8 +461,15 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
     tiles = _tiles(pairs, getattr(executor, "parallelism", workers))
     results: list[list[PairRow] | None] = [None] * len(tiles)
     done_pairs = 0
+    prepared = None
+    if isinstance(executor, (SerialExecutor, ProcessExecutor)):
+        # Sorted once here; forked workers share the orders copy-on-write, and the
+        # kernels they call are already loaded. Remote workers sort for themselves.
+        prepared = prepare_columns(data, variables, row_mask)
+        allpairs.warm_kernels()
     try:
-        for index, rows in executor.run(_run_tile, tiles, _init_worker, (data, variables, settings, row_mask),
+        for index, rows in executor.run(_run_tile, tiles, _init_worker,
+                                        (data, variables, settings, row_mask, prepared),
                                         cancel=cancel):
             results[index] = rows
             done_pairs += len(tiles[index])
@@ -450,6 +545,10 @@ def pair_detail(data: np.ndarray, names: Sequence[str], x: str, y: str,
     results = {m: TestResult(r.estimate, r.p_value, r.method, r.ci_low, r.ci_high, r.n, r.note)
                for m, r in rows.items()}
     q_values = {m: float(r.q_value) for m, r in rows.items()}
+    # Loaded here, not at import: the pair table does not need scipy.stats.
+    from .core import gaussian as gaussian_mod
+    from .core import verdict as verdict_mod
+
     fit = gaussian_mod.fit_gaussian(xv, yv)
     pattern = verdict_mod.classify_pair(xv, yv, results, q_values, alpha=config.SIGNIFICANCE_LEVEL, fit=fit)
     detail = {

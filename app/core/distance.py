@@ -22,13 +22,13 @@ from typing import Callable, NamedTuple
 
 import numba
 import numpy as np
-from scipy import stats as _sps
+from scipy import special as _special
 
 from .. import config
 from .results import TestResult, undefined
 
 __all__ = ["dcor", "dcor_bc", "gaussian_dcor", "distance_statistics", "DistanceStatistics",
-           "METHODS"]
+           "METHODS", "centred_statistics_presorted", "dcor_from_statistics", "dcor_bc_from_statistics"]
 
 METHODS: tuple[str, ...] = ("auto", "fast", "blocked", "naive")
 
@@ -555,15 +555,20 @@ def _from_sums(n, s1, s2, arow, brow, s_aa, s_bb, parts_x, parts_y, resample):
 
 
 def _fast_statistics(x, y):
-    n = x.shape[0]
     # Centring by the median keeps the weights x, y, xy small and exact:
     # x_i - m is exact when x_i and m are within a factor of two (Sterbenz).
     xc = x - np.median(x)
     yc = y - np.median(y)
     order = np.argsort(xc, kind="mergesort")
+    y_order = np.argsort(yc[order], kind="mergesort")
+    return _fast_statistics_ordered(xc, yc, order, y_order)
+
+
+def _fast_statistics_ordered(xc, yc, order, y_order):
+    """The O(n log n) statistics once the (median-centred) columns are sorted."""
+    n = xc.shape[0]
     xv = np.ascontiguousarray(xc[order])
     yv = np.ascontiguousarray(yc[order])
-    y_order = np.argsort(yv, kind="mergesort")
     yr = np.empty(n, np.int64)
     yr[y_order] = np.arange(n)
     arow = _row_sums_sorted(xv)
@@ -856,6 +861,23 @@ def _permutation_third_moment(st: DistanceStatistics) -> float:
     return total / n**3
 
 
+def _gamma_sf(x: float, shape: float, scale: float) -> float:
+    """Upper tail of the gamma law, the value scipy.stats.gamma.sf gives, without its overhead.
+
+    scipy.stats evaluates ``gammaincc(shape, (x - 0) / scale)`` on the open
+    support and 1 at or below 0; the same steps here give the same bits
+    (tests/test_allpairs.py compares them).
+    """
+    if math.isnan(x) or not (shape > 0.0 and scale > 0.0):
+        return math.nan
+    z = x / scale
+    if z <= 0.0:
+        return 1.0
+    if math.isinf(z):
+        return 0.0
+    return float(_special.gammaincc(shape, z))
+
+
 def _gamma_p_value(st: DistanceStatistics) -> float:
     """Upper tail of a shifted gamma law with the first three permutation moments."""
     stat = st.n * st.dcov2
@@ -869,11 +891,11 @@ def _gamma_p_value(st: DistanceStatistics) -> float:
         k2 = 2.0 * st.dvar2_x * st.dvar2_y
         skew = 8.0 * st.cube_x * st.cube_y / k2**1.5 if k2 > 0.0 else math.nan
     if not (math.isfinite(skew) and skew > 0.0):
-        return float(_sps.gamma.sf(stat, mean * mean / var, scale=var / mean))
+        return _gamma_sf(stat, mean * mean / var, var / mean)
     shape = 4.0 / (skew * skew)
     scale = math.sqrt(var / shape)
     shift = mean - shape * scale
-    return float(_sps.gamma.sf(stat - shift, shape, scale=scale))
+    return _gamma_sf(stat - shift, shape, scale)
 
 
 def _p_value(st: DistanceStatistics, permutations, seed):
@@ -950,6 +972,140 @@ def distance_statistics(x: np.ndarray, y: np.ndarray, *, method: str = "auto") -
     if method == "blocked" or not univariate:
         return _blocked_statistics(xa, ya)
     return _fast_statistics(np.ascontiguousarray(xa[:, 0]), np.ascontiguousarray(ya[:, 0]))
+
+
+def centred_statistics_presorted(xc: np.ndarray, yc: np.ndarray, x_order: np.ndarray,
+                                 y_order: np.ndarray) -> DistanceStatistics:
+    """:func:`distance_statistics` of two columns whose sort orders are already known.
+
+    Parameters
+    ----------
+    xc, yc : ndarray
+        1-D float64 columns without NaN, each centred by its own median
+        (``x - np.median(x)``), as the fast path centres them.
+    x_order : ndarray
+        ``np.argsort(xc, kind="mergesort")`` (int64).
+    y_order : ndarray
+        ``np.argsort(yc[x_order], kind="mergesort")`` (int64): positions in x
+        order, sorted by y.
+
+    Returns
+    -------
+    DistanceStatistics
+        Bit for bit what ``distance_statistics(x, y, method="fast")`` returns
+        for the uncentred columns: the same kernels run on the same arrays.
+
+    Notes
+    -----
+    For an engine that sorts each column once and derives every pair's
+    orders by filtering (O(n) per pair instead of two sorts). The statistics
+    are as in :func:`distance_statistics`: dCov^2_n = S1/n^2 - 2 S2/n^3 +
+    a.. b../n^4 with S1 = sum a_ij b_ij from the O(n log n) Fenwick cross sum.
+
+    References
+    ----------
+    Huo, X. & Szekely, G.J. (2016) Fast computing for distance covariance.
+    Technometrics 58:435-447, doi:10.1080/00401706.2015.1054435.
+
+    Examples
+    --------
+    >>> rng = np.random.default_rng(0)
+    >>> x, y = rng.normal(size=40), rng.normal(size=40)
+    >>> xc, yc = x - np.median(x), y - np.median(y)
+    >>> o = np.argsort(xc, kind="mergesort")
+    >>> st = centred_statistics_presorted(xc, yc, o, np.argsort(yc[o], kind="mergesort"))
+    >>> st.dcov2 == distance_statistics(x, y).dcov2
+    True
+    """
+    return _fast_statistics_ordered(xc, yc, x_order, y_order)
+
+
+def dcor_from_statistics(st: DistanceStatistics, *, permutations: int = 0,
+                         seed: np.random.SeedSequence | int | None = None) -> TestResult:
+    """The :func:`dcor` result of a non-degenerate pair from its statistics.
+
+    Parameters
+    ----------
+    st : DistanceStatistics
+        From :func:`distance_statistics` or :func:`centred_statistics_presorted`.
+    permutations, seed
+        As for :func:`dcor`.
+
+    Returns
+    -------
+    TestResult
+        R_n = sqrt(dCov^2_n / sqrt(dVar^2_n(x) dVar^2_n(y))) and its p-value;
+        undefined when a distance variance is zero.
+
+    Notes
+    -----
+    The last step of :func:`dcor`, shared so that an engine holding the
+    statistics gives the same answer (see :func:`dcor` for the p-value).
+
+    References
+    ----------
+    Szekely, G.J., Rizzo, M.L. & Bakirov, N.K. (2007) Ann. Statist. 35:2769-2794,
+    doi:10.1214/009053607000000505.
+
+    Examples
+    --------
+    >>> rng = np.random.default_rng(3)
+    >>> x = rng.normal(size=30)
+    >>> dcor_from_statistics(distance_statistics(x, x ** 2)) == dcor(x, x ** 2)
+    True
+    """
+    n = st.n
+    denom = math.sqrt(st.dvar2_x * st.dvar2_y)
+    if not denom > 0.0:
+        return undefined(n, "distance variance is zero")
+    estimate = math.sqrt(max(st.dcov2, 0.0) / denom)
+    p, how, note = _p_value(st, permutations, seed)
+    return TestResult(min(estimate, 1.0), p, how, n=n, note=note)
+
+
+def dcor_bc_from_statistics(st: DistanceStatistics, *, permutations: int = 0,
+                            seed: np.random.SeedSequence | int | None = None) -> TestResult:
+    """The :func:`dcor_bc` result of a pair with at least 4 rows from its statistics.
+
+    Parameters
+    ----------
+    st : DistanceStatistics
+        From :func:`distance_statistics` or :func:`centred_statistics_presorted`.
+    permutations, seed
+        As for :func:`dcor`.
+
+    Returns
+    -------
+    TestResult
+        <A~, B~> / sqrt(<A~, A~> <B~, B~>); undefined when a U-centred
+        variance is zero.
+
+    Notes
+    -----
+    The last step of :func:`dcor_bc` (U-centred distance matrices, Szekely &
+    Rizzo 2014), shared with the engine's presorted path.
+
+    References
+    ----------
+    Szekely, G.J. & Rizzo, M.L. (2014) Ann. Statist. 42:2382-2412, doi:10.1214/14-AOS1255.
+
+    Examples
+    --------
+    >>> rng = np.random.default_rng(4)
+    >>> x = rng.normal(size=30)
+    >>> dcor_bc_from_statistics(distance_statistics(x, x ** 2)) == dcor_bc(x, x ** 2)
+    True
+    """
+    n = st.n
+    # With few rows the U-centred variance can vanish for non-constant data;
+    # rounding then leaves ~eps-sized values whose ratio would be noise.
+    tiny = _UVAR_RTOL
+    if not (st.uvar2_x > tiny * st.mean_a ** 2 and st.uvar2_y > tiny * st.mean_b ** 2):
+        return undefined(n, "bias-corrected distance variance is zero")
+    denom_sq = st.uvar2_x * st.uvar2_y
+    estimate = st.ucov2 / math.sqrt(denom_sq)
+    p, how, note = _p_value(st, permutations, seed)
+    return TestResult(estimate, p, how, n=n, note=note)
 
 
 def dcor(x: np.ndarray, y: np.ndarray, *, method: str = "auto", permutations: int = 0,
@@ -1036,13 +1192,8 @@ def dcor(x: np.ndarray, y: np.ndarray, *, method: str = "auto", permutations: in
     reason = _degenerate(xa, ya, config.MIN_ROWS)
     if reason:
         return undefined(n, reason)
-    st = distance_statistics(xa, ya, method=method)
-    denom = math.sqrt(st.dvar2_x * st.dvar2_y)
-    if not denom > 0.0:
-        return undefined(n, "distance variance is zero")
-    estimate = math.sqrt(max(st.dcov2, 0.0) / denom)
-    p, how, note = _p_value(st, permutations, seed)
-    return TestResult(min(estimate, 1.0), p, how, n=n, note=note)
+    return dcor_from_statistics(distance_statistics(xa, ya, method=method), permutations=permutations,
+                                seed=seed)
 
 
 def dcor_bc(x: np.ndarray, y: np.ndarray, *, method: str = "auto", permutations: int = 0,
@@ -1091,16 +1242,8 @@ def dcor_bc(x: np.ndarray, y: np.ndarray, *, method: str = "auto", permutations:
     reason = _degenerate(xa, ya, max(config.MIN_ROWS, 4))
     if reason:
         return undefined(n, reason)
-    st = distance_statistics(xa, ya, method=method)
-    # With few rows the U-centred variance can vanish for non-constant data;
-    # rounding then leaves ~eps-sized values whose ratio would be noise.
-    tiny = _UVAR_RTOL
-    if not (st.uvar2_x > tiny * st.mean_a ** 2 and st.uvar2_y > tiny * st.mean_b ** 2):
-        return undefined(n, "bias-corrected distance variance is zero")
-    denom_sq = st.uvar2_x * st.uvar2_y
-    estimate = st.ucov2 / math.sqrt(denom_sq)
-    p, how, note = _p_value(st, permutations, seed)
-    return TestResult(estimate, p, how, n=n, note=note)
+    return dcor_bc_from_statistics(distance_statistics(xa, ya, method=method),
+                                   permutations=permutations, seed=seed)
 
 
 def gaussian_dcor(rho):

@@ -1,0 +1,395 @@
+"""All pairs of columns from one sort per column.
+
+The engine sorts every column once (stable, missing values last). For a pair
+under pairwise-complete missingness the stable order of x among the pair's
+complete rows is that global order with the other column's missing rows left
+out, so every pair gets its orders in O(n) instead of new sorts; from them come
+mid-ranks (Spearman), the (x, y) order for Knight's count (Kendall), the
+orders of the O(n log n) distance covariance and the x order of Chatterjee's
+xi. The kernels only prepare orders and exact sums; estimates and p-values are
+finished by the same functions the per-pair measures use, so both paths give
+the same numbers (tests/test_allpairs.py).
+
+Memory: the prepared columns hold O(n p) numbers; each pair needs O(n) more.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numba
+import numpy as np
+
+from .rank import knight_counts
+
+__all__ = ["PreparedColumns", "prepare_columns", "PairView", "pair_view", "spearman_sums",
+           "kendall_order", "kendall_counts_view", "distance_orders", "xi_order", "rank_counts", "median_sorted",
+           "warm_kernels", "EXACT_RANK_SUM_MAX_N"]
+
+# Centred mid-ranks are multiples of 1/2, their products multiples of 1/4, and
+# every partial sum of n of them is at most n^3/4 in size: below this n all of
+# them are exact in float64 (n^3 < 2^53), whatever the order of summation.
+EXACT_RANK_SUM_MAX_N = 200_000
+
+
+# --- compiled kernels ---------------------------------------------------------------
+
+@numba.njit(cache=True, nogil=True)
+def _pair_view(xcol, ycol, xorder, xcount, yorder, ycount, xpresent, ypresent):
+    """Complete rows of a pair in row order and both stable orders, by filtering."""
+    n_rows = xcol.shape[0]
+    position = np.empty(n_rows, np.int64)
+    m = 0
+    for row in range(n_rows):
+        if xpresent[row] and ypresent[row]:
+            position[row] = m
+            m += 1
+    xp = np.empty(m)
+    yp = np.empty(m)
+    for row in range(n_rows):
+        if xpresent[row] and ypresent[row]:
+            k = position[row]
+            xp[k] = xcol[row]
+            yp[k] = ycol[row]
+    ox = np.empty(m, np.int64)
+    k = 0
+    for t in range(xcount):
+        row = xorder[t]
+        if ypresent[row]:
+            ox[k] = position[row]
+            k += 1
+    oy = np.empty(m, np.int64)
+    k = 0
+    for t in range(ycount):
+        row = yorder[t]
+        if xpresent[row]:
+            oy[k] = position[row]
+            k += 1
+    return xp, yp, ox, oy
+
+
+@numba.njit(cache=True, nogil=True)
+def _centred_midranks(values, order):
+    """Mid-ranks minus (n + 1)/2, by row, from a stable ascending order."""
+    n = values.shape[0]
+    out = np.empty(n)
+    centre = (n + 1) / 2.0
+    start = 0
+    for i in range(1, n + 1):
+        if i == n or values[order[i]] != values[order[start]]:
+            rank = (start + 1 + i) / 2.0 - centre
+            for k in range(start, i):
+                out[order[k]] = rank
+            start = i
+    return out
+
+
+@numba.njit(cache=True, nogil=True)
+def _spearman_sums(xp, ox, yp, oy):
+    rx = _centred_midranks(xp, ox)
+    ry = _centred_midranks(yp, oy)
+    sxy = 0.0
+    sxx = 0.0
+    syy = 0.0
+    for k in range(rx.shape[0]):
+        sxy += rx[k] * ry[k]
+        sxx += rx[k] * rx[k]
+        syy += ry[k] * ry[k]
+    return sxy, sxx, syy
+
+
+@numba.njit(cache=True, nogil=True)
+def _lex_order(xp, ox, oy):
+    """Rows by x, and by y within tied x: each row of the y order dropped into its x run."""
+    n = xp.shape[0]
+    run_start = np.empty(n, np.int64)
+    fill = np.empty(n, np.int64)
+    start = 0
+    for i in range(1, n + 1):
+        if i == n or xp[ox[i]] != xp[ox[start]]:
+            for k in range(start, i):
+                run_start[ox[k]] = start
+            fill[start] = start
+            start = i
+    seq = np.empty(n, np.int64)
+    for t in range(n):
+        row = oy[t]
+        s = run_start[row]
+        seq[fill[s]] = row
+        fill[s] += 1
+    return seq
+
+
+@numba.njit(cache=True, nogil=True)
+def _kendall_counts(xp, ox, yp, oy):
+    seq = _lex_order(xp, ox, oy)
+    n = seq.shape[0]
+    xs = np.empty(n)
+    ys = np.empty(n)
+    for k in range(n):
+        xs[k] = xp[seq[k]]
+        ys[k] = yp[seq[k]]
+    return knight_counts(xs, ys)
+
+
+@numba.njit(cache=True, nogil=True)
+def _distance_orders(xp, xc, ox, yc, oy):
+    """(argsort(xc), argsort(yc[argsort(xc)])), both stable, from the orders of x and y.
+
+    Centring is monotone, so the x order stays sorted; two different x that
+    round to the same centred value must then be ordered by row, as a stable
+    sort of xc would order them. The y order groups equal centred y and lists
+    each group in x-order position, which is what the stable sort of y in x
+    order gives.
+    """
+    n = xc.shape[0]
+    order = ox.copy()
+    start = 0
+    for i in range(1, n + 1):
+        if i == n or xc[order[i]] != xc[order[start]]:
+            if i - start > 1 and xp[order[start]] != xp[order[i - 1]]:
+                order[start:i] = np.sort(order[start:i])
+            start = i
+    group = np.empty(n, np.int64)
+    fill = np.empty(n, np.int64)
+    start = 0
+    for i in range(1, n + 1):
+        if i == n or yc[oy[i]] != yc[oy[start]]:
+            for k in range(start, i):
+                group[oy[k]] = start
+            fill[start] = start
+            start = i
+    y_order = np.empty(n, np.int64)
+    for k in range(n):
+        g = group[order[k]]
+        y_order[fill[g]] = k
+        fill[g] += 1
+    return order, y_order
+
+
+@numba.njit(cache=True, nogil=True)
+def _has_ties(values, order):
+    for k in range(1, order.shape[0]):
+        if values[order[k]] == values[order[k - 1]]:
+            return True
+    return False
+
+
+@numba.njit(cache=True, nogil=True)
+def _order_ties_by_key(values, order, keys):
+    """Within each run of tied values, rows by increasing key (by row among equal keys)."""
+    n = order.shape[0]
+    out = order.copy()
+    start = 0
+    for i in range(1, n + 1):
+        if i == n or values[out[i]] != values[out[start]]:
+            if i - start > 1:
+                rows = np.sort(out[start:i])
+                # a stable sort of the keys of the rows taken in row order
+                pick = np.argsort(keys[rows], kind="mergesort")
+                for k in range(i - start):
+                    out[start + k] = rows[pick[k]]
+            start = i
+    return out
+
+
+@numba.njit(cache=True, nogil=True)
+def _rank_counts(values, order):
+    """r_i = #{j: v_j <= v_i}, l_i = #{j: v_j >= v_i} by row, from a sorted order."""
+    n = order.shape[0]
+    r = np.empty(n, np.int64)
+    l = np.empty(n, np.int64)
+    start = 0
+    for i in range(1, n + 1):
+        if i == n or values[order[i]] != values[order[start]]:
+            for k in range(start, i):
+                r[order[k]] = i
+                l[order[k]] = n - start
+            start = i
+    return r, l
+
+
+# --- public functions ---------------------------------------------------------------
+
+@dataclass(frozen=True)
+class PreparedColumns:
+    """Every column sorted once: column-major values, presence and stable orders.
+
+    Slot ``k`` holds data column ``columns[k]`` (``slot`` maps back).
+    ``orders[:counts[k], k]`` are the rows where it is present, in ascending
+    value (ties by row); ``present`` already folds in the row mask of the
+    complete-rows policy. ``finite[k]`` is False when the column holds an
+    infinite value (such pairs take the per-pair path).
+    """
+
+    values: np.ndarray
+    present: np.ndarray
+    orders: np.ndarray
+    counts: np.ndarray
+    finite: np.ndarray
+    columns: tuple
+    slot: dict
+
+
+def prepare_columns(data: np.ndarray, row_mask: np.ndarray | None = None,
+                    columns=None) -> PreparedColumns:
+    """Sort each column of ``data`` once (NaN and masked rows last).
+
+    Parameters
+    ----------
+    data : numpy.ndarray
+        (n, p) float array, NaN for missing values.
+    row_mask : numpy.ndarray, optional
+        Rows allowed at all (the complete-rows policy); None allows every row.
+    columns : sequence of int, optional
+        The data columns to prepare (default: all), in slot order.
+
+    Returns
+    -------
+    PreparedColumns
+        O(n p) memory: a column-major copy of the values, the presence mask
+        and one int64 order per column.
+
+    Notes
+    -----
+    One stable argsort per column, O(n log n) each; every pair then derives
+    its orders in O(n) (:func:`pair_view`).
+
+    Examples
+    --------
+    >>> prep = prepare_columns(np.array([[2.0, 1.0], [np.nan, 0.0], [1.0, 5.0]]))
+    >>> prep.orders[:prep.counts[0], 0].tolist(), int(prep.counts[1])
+    ([2, 0], 3)
+    """
+    data = np.asarray(data, dtype=np.float64)
+    columns = tuple(range(data.shape[1])) if columns is None else tuple(int(c) for c in columns)
+    values = np.asfortranarray(data[:, list(columns)])
+    present = np.asfortranarray(~np.isnan(values))
+    if row_mask is not None:
+        present &= np.asarray(row_mask, dtype=bool)[:, None]
+    n, p = values.shape
+    orders = np.empty((n, p), dtype=np.int64, order="F")
+    counts = np.empty(p, dtype=np.int64)
+    finite = np.empty(p, dtype=bool)
+    for j in range(p):
+        rows = np.flatnonzero(present[:, j])
+        col = values[rows, j]
+        finite[j] = bool(np.isfinite(col).all())
+        orders[:rows.size, j] = rows[np.argsort(col, kind="stable")]
+        orders[rows.size:, j] = -1
+        counts[j] = rows.size
+    return PreparedColumns(values, present, orders, counts, finite, columns,
+                           {c: k for k, c in enumerate(columns)})
+
+
+@dataclass
+class PairView:
+    """One pair's complete rows: values in row order and both stable orders."""
+
+    x: np.ndarray
+    y: np.ndarray
+    x_order: np.ndarray
+    y_order: np.ndarray
+
+    @property
+    def n(self) -> int:
+        return int(self.x.shape[0])
+
+    def x_constant(self) -> bool:
+        return self.n == 0 or self.x[self.x_order[0]] == self.x[self.x_order[-1]]
+
+    def y_constant(self) -> bool:
+        return self.n == 0 or self.y[self.y_order[0]] == self.y[self.y_order[-1]]
+
+
+def pair_view(prep: PreparedColumns, i: int, j: int) -> PairView:
+    """The complete rows of columns i and j with their orders, in O(n).
+
+    Examples
+    --------
+    >>> prep = prepare_columns(np.array([[2.0, 1.0], [np.nan, 0.0], [1.0, 5.0]]))
+    >>> v = pair_view(prep, 0, 1)
+    >>> v.x.tolist(), v.x_order.tolist(), v.y_order.tolist()
+    ([2.0, 1.0], [1, 0], [0, 1])
+    """
+    xp, yp, ox, oy = _pair_view(prep.values[:, i], prep.values[:, j], prep.orders[:, i],
+                                int(prep.counts[i]), prep.orders[:, j], int(prep.counts[j]),
+                                prep.present[:, i], prep.present[:, j])
+    return PairView(xp, yp, ox, oy)
+
+
+def spearman_sums(view: PairView) -> tuple[float, float, float]:
+    """sum rx ry, sum rx^2, sum ry^2 of the centred mid-ranks (exact below EXACT_RANK_SUM_MAX_N rows).
+
+    Examples
+    --------
+    >>> v = PairView(np.array([1.0, 2.0, 2.0]), np.array([3.0, 1.0, 2.0]),
+    ...              np.array([0, 1, 2]), np.array([1, 2, 0]))
+    >>> spearman_sums(v)
+    (-1.5, 1.5, 2.0)
+    """
+    return _spearman_sums(view.x, view.x_order, view.y, view.y_order)
+
+
+def kendall_order(view: PairView) -> np.ndarray:
+    """Rows sorted by x and, within tied x, by y (O(n), from the two orders)."""
+    return _lex_order(view.x, view.x_order, view.y_order)
+
+
+def kendall_counts_view(view: PairView) -> tuple:
+    """Knight's counts of the pair (:func:`app.core.rank.knight_counts` on the (x, y) order)."""
+    return _kendall_counts(view.x, view.x_order, view.y, view.y_order)
+
+
+def median_sorted(values: np.ndarray, order: np.ndarray) -> float:
+    """``np.median(values)`` from an ascending order: the middle value or the mean of the two.
+
+    Examples
+    --------
+    >>> median_sorted(np.array([4.0, 1.0, 3.0, 2.0]), np.array([1, 3, 2, 0]))
+    2.5
+    """
+    n = order.shape[0]
+    if n % 2:
+        return float(values[order[n // 2]])
+    return float((values[order[n // 2 - 1]] + values[order[n // 2]]) / 2.0)
+
+
+def distance_orders(view: PairView) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Median-centred columns and the two stable orders the distance kernels need.
+
+    Returns ``(xc, yc, x_order, y_order)`` for
+    :func:`app.core.distance.centred_statistics_presorted`.
+    """
+    xc = view.x - median_sorted(view.x, view.x_order)
+    yc = view.y - median_sorted(view.y, view.y_order)
+    order, y_order = _distance_orders(view.x, xc, view.x_order, yc, view.y_order)
+    return xc, yc, order, y_order
+
+
+def xi_order(values: np.ndarray, order: np.ndarray, keys_for) -> np.ndarray:
+    """The predictor order of xi: stable, ties broken by the keys ``keys_for()`` returns.
+
+    ``keys_for`` is called only when there are ties, so the random stream is
+    drawn exactly when :func:`app.core.chatterjee.xi` draws it.
+    """
+    if not _has_ties(values, order):
+        return order
+    return _order_ties_by_key(values, order, np.ascontiguousarray(keys_for(), dtype=np.float64))
+
+
+def rank_counts(values: np.ndarray, order: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(r, l) by row: #{j: v_j <= v_i} and #{j: v_j >= v_i}."""
+    return _rank_counts(values, order)
+
+
+def warm_kernels() -> None:
+    """Load (or compile) every kernel once, e.g. in a parent before it forks workers."""
+    data = np.array([[1.0, 2.0], [3.0, 1.0], [2.0, np.nan], [2.0, 0.5], [0.0, 0.5]])
+    prep = prepare_columns(data)
+    view = pair_view(prep, 0, 1)
+    spearman_sums(view)
+    kendall_counts_view(view)
+    distance_orders(view)
+    xi_order(view.x, view.x_order, lambda: np.linspace(0.1, 0.9, view.n))
+    rank_counts(view.y, view.y_order)
