@@ -358,3 +358,102 @@ def test_wildcard_bind_still_checks_host(wildcard_app):
 def test_loopback_bind_has_no_token(server):
     assert "token=" not in (server.access_link() or "")
     assert server.access_link() == f"http://127.0.0.1:{server.port}/"
+
+
+# Deleting ---------------------------------------------------------------------------
+
+def _row_counts(db_path, analysis_ids, dataset_ids) -> dict:
+    import sqlite3
+
+    con = sqlite3.connect(f"file:{db_path}?mode=ro", uri=True)
+    try:
+        q = lambda sql, ids: con.execute(sql.format(",".join("?" * len(ids))), list(ids)).fetchone()[0]
+        return {"analyses": q("SELECT COUNT(*) FROM analyses WHERE id IN ({})", analysis_ids),
+                "results": q("SELECT COUNT(*) FROM results WHERE analysis_id IN ({})", analysis_ids),
+                "datasets": q("SELECT COUNT(*) FROM datasets WHERE id IN ({})", dataset_ids)}
+    finally:
+        con.close()
+
+
+def test_delete_removes_rows_and_unshared_bytes(server, client):
+    content = _csv(["p", "q", "r"], seed=99)
+    sha = hashlib.sha256(content).hexdigest()
+    first = client.post("/api/datasets", files={"file": ("one.csv", content, "text/csv")}).json()
+    second = client.post("/api/datasets", files={"file": ("same bytes.csv", content, "text/csv")}).json()
+    assert first["sha256"] == second["sha256"] == sha
+    aid = client.post(f"/api/datasets/{first['id']}/analyses", json={"measures": ["pearson"]}).json()["id"]
+    assert _wait(client, aid)["status"] == "done"
+    db = server.data_dir / "pairlens.sqlite3"
+    assert _row_counts(db, [aid], [first["id"]]) == {"analyses": 1, "results": 1, "datasets": 1}
+    # Cross-site deletes are refused like any other write.
+    assert client.delete(f"/api/analyses/{aid}", headers={"origin": "http://evil.example"}).status_code == 403
+    r = client.delete(f"/api/analyses/{aid}")
+    assert r.status_code == 204
+    assert client.get(f"/api/analyses/{aid}").status_code == 404
+    assert client.get(f"/api/analyses/{aid}/pairs").status_code == 404
+    assert client.delete(f"/api/analyses/{aid}").status_code == 404
+    assert _row_counts(db, [aid], [first["id"]]) == {"analyses": 0, "results": 0, "datasets": 1}
+    blob = server.data_dir / "blobs" / sha
+    # The first dataset goes; the bytes stay while the second still uses them.
+    assert client.delete(f"/api/datasets/{first['id']}").status_code == 204
+    assert client.get(f"/api/datasets/{first['id']}").status_code == 404
+    assert blob.exists() and client.get(f"/api/datasets/{second['id']}").status_code == 200
+    assert client.delete(f"/api/datasets/{second['id']}").status_code == 204
+    assert not blob.exists()
+    assert client.delete(f"/api/datasets/{second['id']}").status_code == 404
+    assert not [p for p in (server.data_dir / "blobs").iterdir() if p.name.startswith(".deleted-")]
+    # The same bytes can be uploaded again afterwards.
+    again = client.post("/api/datasets", files={"file": ("one.csv", content, "text/csv")})
+    assert again.status_code == 201 and blob.read_bytes() == content
+
+
+def test_running_analysis_is_not_deleted_under_its_feet(server, client):
+    rng = np.random.default_rng(8)
+    text = "c0,c1,c2,c3,c4,c5\n" + "\n".join(",".join(f"{v:.5f}" for v in row) for row in rng.normal(size=(3000, 6)))
+    ds = client.post("/api/datasets", files={"file": ("slow.csv", text.encode(), "text/csv")}).json()
+    aid = client.post(f"/api/datasets/{ds['id']}/analyses", json={"measures": ["dcor"], "permutations": 50000}).json()["id"]
+    r = client.delete(f"/api/analyses/{aid}")
+    assert r.status_code == 409 and "cancel it first" in r.json()["detail"]
+    r = client.delete(f"/api/datasets/{ds['id']}")
+    assert r.status_code == 409
+    client.post(f"/api/analyses/{aid}/cancel")
+    assert _wait(client, aid)["status"] == "cancelled"
+    assert client.delete(f"/api/datasets/{ds['id']}").status_code == 204
+    assert client.get(f"/api/analyses/{aid}").status_code == 404
+
+
+def test_delete_forms_need_the_confirm_step(server, client):
+    own = {"origin": server.base}
+    ds = client.post("/api/datasets", files={"file": ("form.csv", _csv(["a", "b"], seed=5), "text/csv")}).json()
+    aid = client.post(f"/api/datasets/{ds['id']}/analyses", json={"measures": ["pearson"]}).json()["id"]
+    assert _wait(client, aid)["status"] == "done"
+    page = client.get(f"/analyses/{aid}")
+    assert 'data-testid="delete-analysis-confirm"' in page.text
+    assert 'data-testid="delete-dataset-confirm"' in client.get(f"/datasets/{ds['id']}").text
+    r = client.post(f"/analyses/{aid}/delete", data={}, headers=own, follow_redirects=False)
+    assert r.status_code == 400 and "confirm" in r.text
+    assert client.get(f"/api/analyses/{aid}").status_code == 200
+    r = client.post(f"/analyses/{aid}/delete", data={"confirm": "yes"}, headers=own, follow_redirects=False)
+    assert r.status_code == 303 and r.headers["location"] == f"/datasets/{ds['id']}"
+    assert client.get(f"/api/analyses/{aid}").status_code == 404
+    r = client.post(f"/datasets/{ds['id']}/delete", data={"confirm": "yes"},
+                    headers={"origin": "http://evil.example"}, follow_redirects=False)
+    assert r.status_code == 403
+    r = client.post(f"/datasets/{ds['id']}/delete", data={"confirm": "yes"}, headers=own, follow_redirects=False)
+    assert r.status_code == 303 and r.headers["location"] == "/"
+    assert client.get(f"/api/datasets/{ds['id']}").status_code == 404
+
+
+def test_rerun_form_and_api(server, client):
+    ds = client.post("/api/datasets", files={"file": ("rerun.csv", _csv(["a", "b", "c"], seed=6), "text/csv")}).json()
+    settings = {"measures": ["pearson", "kendall"], "adjust": "holm", "seed": 77}
+    aid = client.post(f"/api/datasets/{ds['id']}/analyses", json=settings).json()["id"]
+    first = _wait(client, aid)
+    r = client.post(f"/analyses/{aid}/rerun", headers={"origin": server.base}, follow_redirects=False)
+    assert r.status_code == 303
+    new_id = r.headers["location"].rsplit("/", 1)[1]
+    second = _wait(client, new_id)
+    assert second["status"] == "done" and second["settings"] == first["settings"]
+    # Same settings and seed, same numbers: the pair tables agree exactly.
+    assert client.get(f"/api/analyses/{new_id}/pairs").json() == client.get(f"/api/analyses/{aid}/pairs").json()
+    assert client.post("/api/analyses/nope/rerun").status_code == 404
