@@ -6,7 +6,8 @@ measures pearson, spearman, kendall and dcor, each with its default p-value.
 The script starts a loopback cluster itself (``dask scheduler`` and
 ``dask worker ... --nworkers 1 --nthreads 1`` subprocesses on 127.0.0.1, torn
 down at the end), times the analysis with 1 and then 2 Dask workers, and the
-same analysis on the local executors (1 process and all cores), and prints the
+same analysis on the local executors (1 process and all cores), then 2 workers
+started without Dask's default ``MALLOC_TRIM_THRESHOLD_=65536``, and prints the
 median of the repeated runs and the ratios. It also checks that every run
 gives the same pair table bit for bit. Not a timed test; run it by hand:
 
@@ -73,12 +74,20 @@ def _free_port() -> int:
 
 
 class LoopbackCluster:
-    def __init__(self, workdir: Path) -> None:
+    def __init__(self, workdir: Path, malloc_trim: bool = True) -> None:
         self.workdir = workdir
         self.address = f"tcp://127.0.0.1:{_free_port()}"
         self.procs: list[subprocess.Popen] = []
         self.env = dict(os.environ, PYTHONPATH=os.pathsep.join(
             p for p in (str(SOURCE_COPY), os.environ.get("PYTHONPATH")) if p))
+        if not malloc_trim:
+            # A null value removes the variable from what the nanny sets (dask config, not env:
+            # DASK_* variables are lower-cased and would not match the key).
+            config_dir = workdir / "dask-config"
+            config_dir.mkdir()
+            (config_dir / "pairlens.yaml").write_text(
+                "distributed:\n  nanny:\n    pre-spawn-environ:\n      MALLOC_TRIM_THRESHOLD_: null\n")
+            self.env["DASK_CONFIG"] = str(config_dir)
 
     def _spawn(self, name: str, args: list[str]) -> None:
         with open(self.workdir / f"{name}.log", "wb") as log:
@@ -115,11 +124,19 @@ class LoopbackCluster:
             p.wait(timeout=5)
 
 
-def _wait_for_workers(address: str, n: int) -> None:
+def _trim_setting() -> str | None:
+    return os.environ.get("MALLOC_TRIM_THRESHOLD_")
+
+
+def _wait_for_workers(address: str, n: int, malloc_trim: bool) -> None:
     import distributed
 
     with distributed.Client(address, timeout=120, set_as_default=False) as client:
         client.wait_for_workers(n, timeout=120)
+        settings = set(client.run(_trim_setting).values())
+    if (None in settings) == malloc_trim:
+        raise SystemExit(f"workers have MALLOC_TRIM_THRESHOLD_ {settings}, expected it "
+                         f"{'set' if malloc_trim else 'unset'}")
 
 
 def _bits(table) -> list[tuple]:
@@ -144,7 +161,7 @@ def _time(label: str, repeats: int, run) -> tuple[float, list]:
             raise SystemExit(f"{label}: repeat {k} differs from repeat 0")
         bits = b
     med = statistics.median(seconds)
-    print(f"  {label:<28} median {med:7.2f} s  runs {', '.join(f'{s:.2f}' for s in seconds)}", flush=True)
+    print(f"  {label:<44} median {med:7.2f} s  runs {', '.join(f'{s:.2f}' for s in seconds)}", flush=True)
     return med, bits
 
 
@@ -182,34 +199,38 @@ def main(argv=None) -> int:
         if bits != reference:
             raise SystemExit(f"{label}: pair table differs from the --workers 1 run")
 
-    cluster = None
-    try:
+    def check(label, bits):
+        if bits != reference:
+            raise SystemExit(f"{label}: pair table differs from the local run")
+
+    if args.cluster:
+        label = f"dask, {args.cluster}"
+        results[label], bits = _time(label, args.repeats, on_cluster(args.cluster))
+        check(label, bits)
+    for malloc_trim in (True, False):
         if args.cluster:
-            counts = [("existing cluster", args.cluster)]
-        else:
-            cluster = LoopbackCluster(Path(tempfile.mkdtemp(prefix="pairlens-bench-")))
+            break
+        # Dask's nanny starts workers with MALLOC_TRIM_THRESHOLD_=65536; the second pass unsets
+        # it through the workers' Dask config to show what that setting costs these kernels.
+        cluster = LoopbackCluster(Path(tempfile.mkdtemp(prefix="pairlens-bench-")), malloc_trim=malloc_trim)
+        try:
             cluster.start_scheduler()
-            counts = [(1, cluster.address), (2, cluster.address)]
-        for n_workers, address in counts:
-            if cluster is not None:
+            for n_workers in ((1, 2) if malloc_trim else (2,)):
                 while len(cluster.procs) - 1 < n_workers:
                     cluster.add_worker()
-                _wait_for_workers(address, n_workers)
-                label = f"dask, {n_workers} worker{'s' if n_workers > 1 else ''} x 1 thread"
-            else:
-                label = f"dask, {address}"
-            results[label], bits = _time(label, args.repeats, on_cluster(address))
-            if bits != reference:
-                raise SystemExit(f"{label}: pair table differs from the local run")
-    finally:
-        if cluster is not None:
+                _wait_for_workers(cluster.address, n_workers, malloc_trim)
+                label = (f"dask, {n_workers} worker{'s' if n_workers > 1 else ''} x 1 thread"
+                         + ("" if malloc_trim else ", no malloc trim"))
+                results[label], bits = _time(label, args.repeats, on_cluster(cluster.address))
+                check(label, bits)
+        finally:
             cluster.stop()
             shutil.rmtree(cluster.workdir, ignore_errors=True)
 
     base1, baseall = results["local, --workers 1"], results[f"local, --workers {all_cores}"]
     print("\nratios (time / local time; below 1 is faster):")
     for label, sec in results.items():
-        print(f"  {label:<28} {sec / base1:5.2f} x local --workers 1   {sec / baseall:5.2f} x local --workers {all_cores}")
+        print(f"  {label:<44} {sec / base1:5.2f} x local --workers 1   {sec / baseall:5.2f} x local --workers {all_cores}")
     print("every run gave the same pair table bit for bit")
     return 0
 
