@@ -94,7 +94,8 @@
       e.preventDefault();
       $("cancel-analysis").disabled = true;
       $("cancel-analysis").textContent = "Cancelling…";
-      fetch("/api/analyses/" + encodeURIComponent(analysisId) + "/cancel", { method: "POST" })
+      fetch("/api/analyses/" + encodeURIComponent(analysisId) + "/cancel",
+            { method: "POST", referrerPolicy: "same-origin", credentials: "same-origin" })
         .then(function () { poll(); });
     });
     function poll() {
