@@ -344,7 +344,18 @@ def compact_heatmap(fig: dict, pt: PairTable, measure: str) -> dict:
     heat = {k: v for k, v in heat.items() if k != "text"}
     heat["customdata"] = _rounded_matrix(stack, HOVER_DIGITS)
     heat["hovertemplate"] = head + "<br>" + body + "<extra></extra>"
-    return _label_every_variable({**fig, "data": [heat, *fig["data"][1:]]}, len(names))
+    rest = list(fig["data"][1:])
+    if rest and rest[0].get("type") == "scatter" and rest[0].get("hoverinfo") == "skip":
+        # The builder marks q < alpha with a scatter that names both variables per
+        # marked cell; a dot as cell text (colour contrasting with the cell) costs
+        # a few bytes per cell instead.
+        alpha = float(fig["layout"].get("meta", {}).get("alpha", config.SIGNIFICANCE_LEVEL))
+        q = pt.matrix(measure, "q_value")[np.ix_(idx, idx)]
+        heat["text"] = [["●" if math.isfinite(v) and v < alpha else "" for v in row] for row in q]
+        heat["texttemplate"] = "%{text}"
+        heat["textfont"] = {"size": int(max(6, min(12, 300 / max(len(names), 1))))}
+        rest = rest[1:]
+    return _label_every_variable({**fig, "data": [heat, *rest]}, len(names))
 
 
 def compact_difference(fig: dict, pt: PairTable, a: str, b: str) -> dict:
@@ -587,7 +598,18 @@ def _table_rows(pt: PairTable) -> list[dict]:
                 (r.q_value, fmt_p(r.q_value)))],
             "n": int(r.n), "note": r.note,
             "significant": _finite(r.q_value) and r.q_value < config.SIGNIFICANCE_LEVEL,
+            "span": 1,
         })
+    # Consecutive rows of one (x, y) share their name cells (rowspan): the static
+    # table reads grouped by pair, and long names are not repeated per measure.
+    # The report script splits the spans again before it sorts.
+    start = 0
+    for k in range(1, len(out) + 1):
+        if k == len(out) or (out[k]["x"], out[k]["y"]) != (out[start]["x"], out[start]["y"]):
+            out[start]["span"] = k - start
+            for j in range(start + 1, k):
+                out[j]["span"] = 0
+            start = k
     return out
 
 

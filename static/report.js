@@ -88,6 +88,30 @@
     header.setAttribute("aria-sort", dir);
   }
 
+  // The static table shares the x and y cells of a pair's rows (rowspan);
+  // sorting moves rows one by one, so every row gets its own copies first.
+  function splitSpans(table) {
+    var rows = table.tBodies[0].rows;
+    var carry = null;
+    for (var i = 0; i < rows.length; i += 1) {
+      var row = rows[i];
+      if (carry && carry.left > 0) {
+        row.insertBefore(carry.y.cloneNode(true), row.firstChild);
+        row.insertBefore(carry.x.cloneNode(true), row.firstChild);
+        carry.left -= 1;
+        continue;
+      }
+      var first = row.cells[0];
+      var span = first ? parseInt(first.getAttribute("rowspan") || "1", 10) : 1;
+      if (span > 1) {
+        first.removeAttribute("rowspan");
+        row.cells[1].removeAttribute("rowspan");
+        first.className = row.cells[1].className = "name";
+        carry = { x: first, y: row.cells[1], left: span - 1 };
+      }
+    }
+  }
+
   function makeSortable(table) {
     Array.prototype.forEach.call(table.tHead.rows[0].cells, function (th, index) {
       var label = th.textContent;
@@ -200,7 +224,7 @@
   function start() {
     document.documentElement.classList.add("js");
     var table = document.getElementById("pairs");
-    if (table) { makeSortable(table); makeFilter(table); }
+    if (table) { splitSpans(table); makeSortable(table); makeFilter(table); }
     drawFigures();
     watchPrint();
   }

@@ -116,6 +116,7 @@ class _Collector(HTMLParser):
         self._cell: dict | None = None
         self._cell_text: list[str] = []
         self.testid_text: dict[str, str] = {}
+        self._carry: list | None = None
         self._testid_stack: list[tuple[str, str, list[str]]] = []
 
     def handle_starttag(self, tag, attrs):
@@ -132,6 +133,9 @@ class _Collector(HTMLParser):
             self._close_cell()
         if self._in_body and tag == "tr":
             self.pair_rows.append([])
+            if self._carry and self._carry[0] > 0:  # cells shared with the row above (rowspan)
+                self.pair_rows[-1].extend(self._carry[1])
+                self._carry[0] -= 1
         if self._in_body and tag == "td":
             self._cell, self._cell_text = a, []
         if "data-testid" in a:
@@ -139,7 +143,14 @@ class _Collector(HTMLParser):
 
     def _close_cell(self):
         if self._cell is not None:
-            self.pair_rows[-1].append((self._cell, "".join(self._cell_text)))
+            cell = (self._cell, "".join(self._cell_text))
+            self.pair_rows[-1].append(cell)
+            span = int(self._cell.get("rowspan", "1"))
+            if span > 1:
+                if len(self.pair_rows[-1]) == 1:
+                    self._carry = [span - 1, [cell]]
+                else:
+                    self._carry[1].append(cell)
             self._cell = None
 
     def handle_endtag(self, tag):
@@ -481,8 +492,9 @@ def test_thirty_column_report_is_under_six_megabytes(tmp_path):
         v = latent @ w + rng.normal(size=n)
         if j % 5 == 1:
             v = v ** 2  # some curved pairs, so disagreement rankings differ from the rest
-        cols[f"sensor_{j:02d}"] = v
-    path = _write_csv(tmp_path / "wide.csv", cols, missing_in="sensor_04", category=False)
+        cols[f"vineyard_block_soil_moisture_probe_{j:02d}_cm"] = v  # long names: they repeat in the page
+    path = _write_csv(tmp_path / "wide.csv", cols, missing_in="vineyard_block_soil_moisture_probe_04_cm",
+                      category=False)
     table = load_table(path)
     settings = AnalysisSettings.from_options()
     started = time.perf_counter()
