@@ -612,6 +612,12 @@ def test_report_renders_offline_in_chromium(report):
                 .map(r => r.cells[7].getAttribute('data-v'))""")
             present = [float(v) for v in values if v]
             assert present == sorted(present, reverse=True)
+            # rows moved on their own keep their own name cells (the pair's rowspan was split)
+            cells = page.evaluate("""() => Array.from(document.querySelectorAll('#pairs tbody tr'))
+                .map(r => [r.cells.length, r.cells[0].textContent, r.cells[1].textContent, r.cells[2].textContent])""")
+            assert {c[0] for c in cells} == {10}
+            assert sorted(tuple(c[1:]) for c in cells) == sorted(
+                (r["x"], r["y"], r["measure"]) for r in report.pairs.records())
             # hover text of a heatmap cell carries the pair table's numbers
             heat = figs["heatmap-pearson"]
             names = heat["layout"]["meta"]["variables"]
