@@ -28,6 +28,7 @@
 
   function fmtP(v) {
     if (v === null || v === undefined || !isFinite(v)) return "–";
+    if (v === 0) return "< 1e-300";
     return v < 1e-4 ? v.toExponential(1) : v.toFixed(4);
   }
 

@@ -60,6 +60,8 @@ def _fmt_p(v) -> str:
     v = float(v)
     if not math.isfinite(v):
         return "–"
+    if v == 0.0:
+        return "< 1e-300"  # underflow: smaller than a double can hold
     if v < 1e-4:
         return f"{v:.1e}"
     return f"{v:.4f}"

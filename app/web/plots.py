@@ -163,8 +163,9 @@ def _matrix_layout(labels: list[str], title: str) -> dict:
         "title": {"text": plot_text(title), "x": 0.02, "font": {"size": 14}},
         "font": {"family": _FONT, "color": _INK, "size": 11},
         "margin": {"l": 10, "r": 10, "t": 36, "b": 10},
-        "xaxis": {**axis, "tickangle": -60 if k > 8 else -30, "side": "bottom"},
-        "yaxis": {**axis, "autorange": "reversed", "scaleanchor": "x"},
+        # Explicit ranges: the significance dots would otherwise pad the autorange.
+        "xaxis": {**axis, "tickangle": -60 if k > 8 else -30, "side": "bottom", "range": [-0.5, k - 0.5]},
+        "yaxis": {**axis, "range": [k - 0.5, -0.5], "scaleanchor": "x"},
         "paper_bgcolor": "rgba(0,0,0,0)",
         "plot_bgcolor": "#eef1f2",
         "hoverlabel": {"font": {"family": _FONT, "size": 12}},
