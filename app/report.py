@@ -587,6 +587,14 @@ def _fingerprint(table, pt: PairTable) -> dict:
     }
 
 
+def _is_demo(table) -> bool:
+    """True when the data are the invented vineyard demo file shipped with pairlens."""
+    try:
+        return table.sha256 == hashlib.sha256(config.DEMO_FILE.read_bytes()).hexdigest()
+    except OSError:
+        return False
+
+
 def _table_rows(pt: PairTable) -> list[dict]:
     out = []
     for r in pt.rows:
@@ -736,6 +744,7 @@ def build_report(table, pair_table: PairTable, *, command: str, generated_at: da
         "figure_json": figure_json,
         "points_json": script_json(point_store),
         "fingerprint": _fingerprint(table, pair_table),
+        "is_demo": _is_demo(table),
         "settings": settings,
         "measure_labels": [(m, MEASURES[m].label) for m in settings.measures],
         "command": command,

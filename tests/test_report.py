@@ -209,6 +209,18 @@ def test_fingerprint_is_sha256_of_the_file_and_counts_match(report):
     assert re.search(r'<tr class="left-out">\s*<th scope="row">block</th>.*?categorical', report.html, re.S)
 
 
+def test_demo_data_are_labelled_invented(report):
+    from app import config
+
+    assert "invented vineyard demo data" not in report.html
+    if not config.DEMO_FILE.exists():
+        pytest.skip("demo file not generated")
+    table = load_table(config.DEMO_FILE)
+    settings = AnalysisSettings.from_options(measures="pearson", columns=",".join(table.columns[:3]))
+    pairs = run_analysis(table.data, table.columns, settings, workers=1)
+    assert "invented vineyard demo data" in build_report(table, pairs, command="x", top_k=1)
+
+
 def test_title_version_settings_and_command(report):
     text = report.html
     assert f"<h1>{report.path.name}</h1>" in text
