@@ -222,6 +222,24 @@ def test_full_flow(server, page, files):
     assert page.errors == []
 
 
+def test_drag_and_drop_fills_the_file_input(server, page):
+    page.goto(server.url("/"))
+    dropped = page.evaluate("""() => {
+        const dt = new DataTransfer();
+        dt.items.add(new File(["a,b\\n1,2\\n2,4\\n3,7\\n"], "dropped.csv", {type: "text/csv"}));
+        const zone = document.getElementById("dropzone");
+        zone.dispatchEvent(new DragEvent("dragover", {dataTransfer: dt, bubbles: true, cancelable: true}));
+        zone.dispatchEvent(new DragEvent("drop", {dataTransfer: dt, bubbles: true, cancelable: true}));
+        const input = document.querySelector('[data-testid="upload-input"]');
+        return [input.files.length, input.files[0] && input.files[0].name,
+                document.getElementById("drop-file").textContent];
+    }""")
+    assert dropped == [1, "dropped.csv", "dropped.csv"]
+    with page.expect_navigation():
+        page.click('[data-testid="upload-submit"]')
+    assert "/datasets/" in page.url and page.locator("h1").inner_text() == "dropped.csv"
+
+
 def test_bad_file_shows_a_readable_message(server, page, files):
     _upload(page, server, files["bad"])
     message = page.locator('[data-testid="upload-error"]')

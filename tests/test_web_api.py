@@ -300,6 +300,31 @@ def test_pair_errors(env, params, status):
     assert r.json()["detail"]
 
 
+def test_group_takes_the_place_of_its_columns(env):
+    import dcor
+
+    c = env["client"]
+    r = c.post(f"/api/datasets/{env['dataset']['id']}/analyses",
+               json={"measures": ["dcor", "pearson"], "groups": {"pair": ["alpha", "beta"]},
+                     "columns": ["alpha", "beta", "curve", "noise"]})
+    assert r.status_code == 202, r.text
+    aid = r.json()["id"]
+    assert _wait(c, aid)["status"] == "done"
+    records = c.get(f"/api/analyses/{aid}/pairs").json()
+    assert {(p["x"], p["y"]) for p in records} == {("pair", "curve"), ("pair", "noise"), ("curve", "noise")}
+    cols = _read_csv_columns(env["content"])
+    both = np.column_stack([cols["alpha"], cols["beta"]])
+    grp = next(p for p in records if p["x"] == "pair" and p["y"] == "curve" and p["measure"] == "dcor")
+    # dcor package: distance correlation of a 2-column group with one column.
+    assert grp["estimate"] == pytest.approx(dcor.distance_correlation(both, np.array(cols["curve"])), abs=1e-8)
+    lin = next(p for p in records if p["x"] == "pair" and p["measure"] == "pearson")
+    assert lin["estimate"] is None and lin["note"]
+    # The page renders; a group has no scatter, which the pair view says in words.
+    assert c.get(f"/analyses/{aid}").status_code == 200
+    r = c.get(f"/api/analyses/{aid}/pair", params={"x": "pair", "y": "curve"})
+    assert r.status_code == 422 and "group" in r.json()["detail"]
+
+
 def test_cancel_finished_analysis_is_409(env):
     r = env["client"].post(f"/api/analyses/{env['analysis']}/cancel")
     assert r.status_code == 409

@@ -56,7 +56,7 @@ def get_analysis(analysis_id: str, ws: Workspace = Depends(get_workspace)):
 
 @router.get("/analyses/{analysis_id}/pairs")
 def get_pairs(analysis_id: str, ws: Workspace = Depends(get_workspace)):
-    return ws.pair_records(ws.analysis(analysis_id))
+    return Response(ws.pair_records_json(ws.analysis(analysis_id)), media_type="application/json")
 
 
 @router.get("/analyses/{analysis_id}/pair")

@@ -423,6 +423,15 @@ class Workspace:
 
         return [{f: r[f] for f in PAIR_FIELDS} for r in self._results(row)["records"]]
 
+    def pair_records_json(self, row: AnalysisRow) -> bytes:
+        """:meth:`pair_records` serialised once (results never change), as the API sends it."""
+        key = ("pairs-json", row.id)
+        cached = self._figures.get(key)
+        if cached is None:
+            body = json.dumps(self.pair_records(row), ensure_ascii=False, allow_nan=False, separators=(",", ":"))
+            cached = self._figures.put(key, body.encode("utf-8"))
+        return cached
+
     def verdicts(self, row: AnalysisRow) -> dict:
         return self._results(row)["verdicts"]
 
