@@ -179,7 +179,8 @@ def main(argv=None) -> int:
     settings = AnalysisSettings.from_options(measures=MEASURES)
     pairs = len(names) * (len(names) - 1) // 2
     print(f"W1: {args.rows} rows x {args.columns} columns ({pairs} pairs), {args.missing:.0%} missing, "
-          f"measures {MEASURES}, default p-values; {args.repeats} repeats; {os.cpu_count()} cores", flush=True)
+          f"measures {MEASURES}, default p-values; {args.repeats} repeats; {os.cpu_count()} cores; "
+          f"load average {os.getloadavg()[0]:.1f}", flush=True)
 
     def local(workers):
         return lambda warm_up: run_analysis(small if warm_up else data, names, settings, workers=workers)
@@ -231,7 +232,8 @@ def main(argv=None) -> int:
     print("\nratios (time / local time; below 1 is faster):")
     for label, sec in results.items():
         print(f"  {label:<44} {sec / base1:5.2f} x local --workers 1   {sec / baseall:5.2f} x local --workers {all_cores}")
-    print("every run gave the same pair table bit for bit")
+    print(f"every run gave the same pair table bit for bit; load average now {os.getloadavg()[0]:.1f} "
+          "(other work on the machine skews the times)")
     return 0
 
 
