@@ -257,12 +257,17 @@ def test_cancel_stops_a_run(server, page, files):
             box.uncheck()
         else:
             box.check()
-    page.fill('input[name="permutations"]', "50000")
+    # Tiles of a few seconds: progress moves, and the run would last about a minute.
+    page.fill('input[name="permutations"]', "12000")
     with page.expect_navigation():
         page.click('[data-testid="run-analysis"]')
     analysis_id = page.url.rstrip("/").split("/")[-1]
     page.wait_for_selector('[data-testid="progress"]')
-    page.wait_for_function("document.getElementById('progress').dataset.status === 'running'", timeout=30_000)
+    page.wait_for_function("document.getElementById('progress').dataset.status === 'running' && "
+                           "Number(document.getElementById('progress').getAttribute('aria-valuenow')) > 0",
+                           timeout=90_000)
+    assert "left" in page.locator("#progress-left").inner_text()
+    page.wait_for_timeout(600)  # let the bar's width transition finish
     screenshot(page, "running", doc=True)
     started = time.monotonic()
     with page.expect_navigation(timeout=30_000):
