@@ -15,6 +15,8 @@ router = APIRouter(prefix="/api")
 
 
 def _json(content, status: int = 200) -> JSONResponse:
+    # Straight to json.dumps: FastAPI's jsonable_encoder walks every number of a
+    # pair's points in Python (about 6 ms of a 7 ms pair request at 1000 rows).
     return JSONResponse(content, status_code=status)
 
 
@@ -34,12 +36,12 @@ async def upload_dataset(request: Request, ws: Workspace = Depends(get_workspace
 
 @router.get("/datasets")
 def list_datasets(ws: Workspace = Depends(get_workspace)):
-    return [d.public() for d in ws.datasets()]
+    return _json([d.public() for d in ws.datasets()])
 
 
 @router.get("/datasets/{dataset_id}")
 def get_dataset(dataset_id: str, ws: Workspace = Depends(get_workspace)):
-    return ws.dataset_json(ws.dataset(dataset_id))
+    return _json(ws.dataset_json(ws.dataset(dataset_id)))
 
 
 @router.post("/datasets/{dataset_id}/analyses", status_code=202)
@@ -51,7 +53,7 @@ def start_analysis(dataset_id: str, options: dict[str, Any] = Body(default_facto
 
 @router.get("/analyses/{analysis_id}")
 def get_analysis(analysis_id: str, ws: Workspace = Depends(get_workspace)):
-    return ws.analysis_json(ws.analysis(analysis_id))
+    return _json(ws.analysis_json(ws.analysis(analysis_id)))
 
 
 @router.get("/analyses/{analysis_id}/pairs")
@@ -62,7 +64,7 @@ def get_pairs(analysis_id: str, ws: Workspace = Depends(get_workspace)):
 @router.get("/analyses/{analysis_id}/pair")
 def get_pair(analysis_id: str, x: str = Query(...), y: str = Query(...), ws: Workspace = Depends(get_workspace)):
     detail = ws.pair(ws.analysis(analysis_id), x, y)
-    return {k: v for k, v in detail.items() if k != "seconds"}
+    return _json({k: v for k, v in detail.items() if k != "seconds"})
 
 
 @router.post("/analyses/{analysis_id}/cancel")
