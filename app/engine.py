@@ -369,6 +369,17 @@ def _fast_pair_rows(prep: "allpairs.PreparedColumns", xvar: Variable, yvar: Vari
     return rows
 
 
+def _warm(settings: AnalysisSettings) -> None:
+    """Load every compiled kernel the chosen measures use, on a tiny pair, before forking."""
+    rng = np.random.default_rng(0)
+    tiny = np.column_stack([rng.normal(size=24), np.round(rng.normal(size=24))])
+    tiny[3, 0] = np.nan
+    variables = [Variable("a", (0,)), Variable("b", (1,))]
+    light = AnalysisSettings(measures=settings.measures, confidence=settings.confidence,
+                             permutations=min(settings.permutations, 3), seed=settings.seed)
+    _fast_pair_rows(prepare_columns(tiny, variables), variables[0], variables[1], light)
+
+
 def prepare_columns(data: np.ndarray, variables: Sequence[Variable],
                     row_mask: np.ndarray | None = None) -> "allpairs.PreparedColumns":
     """Sort every single-column variable once for the presorted path (O(n p) memory)."""
@@ -466,7 +477,7 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
         # Sorted once here; forked workers share the orders copy-on-write, and the
         # kernels they call are already loaded. Remote workers sort for themselves.
         prepared = prepare_columns(data, variables, row_mask)
-        allpairs.warm_kernels()
+        _warm(settings)
     try:
         for index, rows in executor.run(_run_tile, tiles, _init_worker,
                                         (data, variables, settings, row_mask, prepared),
