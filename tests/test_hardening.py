@@ -457,3 +457,41 @@ def test_rerun_form_and_api(server, client):
     # Same settings and seed, same numbers: the pair tables agree exactly.
     assert client.get(f"/api/analyses/{new_id}/pairs").json() == client.get(f"/api/analyses/{aid}/pairs").json()
     assert client.post("/api/analyses/nope/rerun").status_code == 404
+
+
+# Row and group limits (in-process, with the limits lowered) -------------------------
+
+@pytest.fixture
+def inproc(tmp_path):
+    from app.config import ServerSettings
+    from app.web.app import create_app
+
+    with TestClient(create_app(ServerSettings(data_dir=tmp_path / "data")), base_url="http://127.0.0.1:8000") as c:
+        yield c
+
+
+def test_too_many_rows_is_a_clear_422(inproc, monkeypatch):
+    from app import config
+
+    monkeypatch.setattr(config, "MAX_ROWS", 40)
+    r = inproc.post("/api/datasets", files={"file": ("long.csv", _csv(["a", "b"], n=41), "text/csv")})
+    assert r.status_code == 422
+    assert "40" in r.json()["detail"] and "long.csv" in r.json()["detail"]
+    assert inproc.post("/api/datasets", files={"file": ("ok.csv", _csv(["a", "b"], n=40), "text/csv")}).status_code == 201
+
+
+def test_group_over_the_row_limit_is_refused_before_it_runs(inproc, monkeypatch):
+    from app import config
+
+    monkeypatch.setattr(config, "MAX_GROUP_ROWS", 30)
+    ds = inproc.post("/api/datasets", files={"file": ("g.csv", _csv(["a", "b", "c"], n=50), "text/csv")}).json()
+    r = inproc.post(f"/api/datasets/{ds['id']}/analyses", json={"measures": ["dcor"], "groups": ["ab=a,b"]})
+    assert r.status_code == 422, r.text
+    assert "30" in r.json()["detail"] and "'ab'" in r.json()["detail"]
+    assert inproc.get(f"/api/datasets/{ds['id']}").json()["analyses"] == []  # nothing was queued
+    # Without a distance measure, or within the limit, the group is accepted.
+    assert inproc.post(f"/api/datasets/{ds['id']}/analyses",
+                       json={"measures": ["pearson"], "groups": ["ab=a,b"]}).status_code == 202
+    monkeypatch.setattr(config, "MAX_GROUP_ROWS", 50)
+    assert inproc.post(f"/api/datasets/{ds['id']}/analyses",
+                       json={"measures": ["dcor"], "groups": ["ab=a,b"]}).status_code == 202

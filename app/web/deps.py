@@ -336,7 +336,23 @@ class Workspace:
         except (TypeError, ValueError) as exc:
             raise SettingsError(str(exc)) from None
         plan_variables(dataset.summary["numeric"], settings)  # unknown columns fail now, not in the job
+        self._check_group_rows(dataset, settings)
         return self.jobs.submit(dataset.id, settings.to_dict())
+
+    def _check_group_rows(self, dataset: DatasetRow, settings: AnalysisSettings) -> None:
+        """Refuse at once what the job would fail on later: distances of a group over too many rows."""
+        if not settings.groups or not any(MEASURES[m].family == "distance" for m in settings.measures):
+            return
+        if dataset.n_rows <= config.MAX_GROUP_ROWS:
+            return
+        table = self.table(dataset)
+        for name, members in settings.groups:
+            idx = [table.columns.index(m) for m in members]
+            complete = int(np.isfinite(table.data[:, idx]).all(axis=1).sum())
+            if complete > config.MAX_GROUP_ROWS:
+                raise SettingsError(f"group {name!r} has {complete} complete rows; distance measures on column "
+                                    f"groups handle at most {config.MAX_GROUP_ROWS} (they need all pairwise "
+                                    "distances): sample the rows, or leave the group out of the distance measures")
 
     def analysis(self, analysis_id: str) -> AnalysisRow:
         row = self.store.get_analysis(analysis_id)
