@@ -320,3 +320,4 @@ def test_demo_dataset_is_loaded(server, page):
         page.click('[data-testid="open-demo"]')
     assert page.locator("h1").inner_text() == "vineyard_blocks.csv"
     assert page.locator("#left-out").inner_text().count("categorical") >= 1
+    screenshot(page, "demo-dataset", doc=True)
