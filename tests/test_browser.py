@@ -9,7 +9,6 @@ go to tests/screenshots/ (git-ignored), the main ones also to docs/screenshots/.
 from __future__ import annotations
 
 import csv
-import io
 import math
 import time
 from pathlib import Path

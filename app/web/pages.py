@@ -8,7 +8,6 @@ from starlette.concurrency import run_in_threadpool
 from starlette.datastructures import UploadFile
 
 from .. import config
-from ..core.registry import MEASURES
 from ..engine import SettingsError
 from ..ingest import IngestError
 from ..store import UploadTooLarge
