@@ -144,7 +144,7 @@ def test_security_headers(client):
     r = client.get("/")
     assert r.headers["x-frame-options"] == "DENY"
     assert r.headers["x-content-type-options"] == "nosniff"
-    assert r.headers["referrer-policy"] == "no-referrer"
+    assert r.headers["referrer-policy"] == "same-origin"
     assert "frame-ancestors 'none'" in r.headers["content-security-policy"]
 
 

@@ -38,12 +38,14 @@ TOKEN_COOKIE = "pairlens_token"
 LOOPBACK_NAMES = ("localhost", "127.0.0.1", "::1")
 _WILDCARDS = ("0.0.0.0", "::", "")
 _UNSAFE_METHODS = frozenset({"POST", "PUT", "PATCH", "DELETE"})
-# Headers added to every response: no framing (clickjacking), no MIME sniffing,
-# no Referer leaving the page (it could carry an access token).
+# Headers added to every response: no framing (clickjacking), no MIME sniffing, no
+# Referer sent to other sites. Not "no-referrer": under that policy browsers send
+# "Origin: null" with same-origin form posts (Fetch standard, "serializing a request
+# origin"), which the Origin check would refuse.
 _SECURITY_HEADERS = [
     (b"x-content-type-options", b"nosniff"),
     (b"x-frame-options", b"DENY"),
-    (b"referrer-policy", b"no-referrer"),
+    (b"referrer-policy", b"same-origin"),
     (b"content-security-policy", b"frame-ancestors 'none'; base-uri 'none'; object-src 'none'; form-action 'self'"),
 ]
 
