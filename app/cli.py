@@ -58,6 +58,9 @@ def build_parser() -> argparse.ArgumentParser:
     serve.add_argument("--demo", action="store_true", help="open with the invented vineyard demo dataset")
     serve.add_argument("--max-upload-mb", type=int, default=config.MAX_UPLOAD_MB)
     serve.add_argument("--cluster", default=None, metavar="ADDRESS")
+    serve.add_argument("--require-token", action="store_true",
+                       help="ask for the access token even on loopback (other users of this machine can "
+                            "reach 127.0.0.1); always on when bound beyond loopback")
 
     pairs = sub.add_parser("pairs", help="the pair table for every pair of columns")
     _add_analysis_options(pairs)
@@ -216,7 +219,7 @@ def cmd_serve(args) -> int:
     from .web.server import serve
 
     return serve(host=args.host, port=args.port, data_dir=args.data_dir, demo=args.demo,
-                 max_upload_mb=args.max_upload_mb, cluster=args.cluster)
+                 max_upload_mb=args.max_upload_mb, cluster=args.cluster, require_token=args.require_token)
 
 
 COMMANDS = {"pairs": cmd_pairs, "inspect": cmd_inspect, "report": cmd_report, "serve": cmd_serve}

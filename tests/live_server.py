@@ -43,7 +43,8 @@ class LiveServer:
             if self.proc.poll() is not None:
                 raise RuntimeError(f"server exited with {self.proc.returncode}: {self.log_text()}")
             try:
-                if httpx.get(self.base + "/api/datasets", timeout=2).status_code == 200:
+                # 401: up, and asking for the token (--require-token)
+                if httpx.get(self.base + "/api/datasets", timeout=2).status_code in (200, 401):
                     return
             except httpx.HTTPError:
                 pass

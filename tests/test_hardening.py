@@ -355,6 +355,32 @@ def test_wildcard_bind_still_checks_host(wildcard_app):
         assert c.get("/api/datasets", headers=auth | {"host": f"192.0.2.7:{port}"}).status_code == 200
 
 
+def test_required_token_over_a_real_socket(tmp_path):
+    # --require-token asks for the token on loopback too (other users of the machine reach 127.0.0.1);
+    # the same guard as a wildcard bind, here over a real connection.
+    srv = LiveServer(tmp_path / "data", args=("--require-token",))
+    try:
+        link = srv.access_link()
+        assert link and link.startswith(f"http://127.0.0.1:{srv.port}/?token=")
+        token = link.split("token=", 1)[1]
+        with httpx.Client(base_url=srv.base, timeout=30) as c:
+            assert c.get("/api/datasets").status_code == 401
+            assert c.get("/").status_code == 401
+            assert c.get("/api/datasets", headers={"authorization": "Bearer " + token[:-1]}).status_code == 401
+            bearer = {"authorization": f"Bearer {token}"}
+            assert c.get("/api/datasets", headers=bearer).status_code == 200
+            up = c.post("/api/datasets", files={"file": ("t.csv", _csv(["a", "b"]), "text/csv")}, headers=bearer)
+            assert up.status_code == 201
+            r = c.get(link.replace(srv.base, ""), follow_redirects=False)
+            assert r.status_code == 303 and "HttpOnly" in r.headers["set-cookie"]
+            assert c.get("/").status_code == 200 and c.get("/api/datasets").json()[0]["id"] == up.json()["id"]
+            # A token does not excuse a cross-site write.
+            r = c.post("/demo", headers={"origin": "http://evil.example"}, follow_redirects=False)
+            assert r.status_code == 403
+    finally:
+        srv.stop()
+
+
 def test_loopback_bind_has_no_token(server):
     assert "token=" not in (server.access_link() or "")
     assert server.access_link() == f"http://127.0.0.1:{server.port}/"

@@ -29,7 +29,7 @@ def _port_free(host: str, port: int) -> bool:
 
 def serve(host: str = config.DEFAULT_HOST, port: int = config.DEFAULT_PORT, data_dir: str | Path | None = None,
           demo: bool = False, max_upload_mb: int = config.MAX_UPLOAD_MB, cluster: str | None = None,
-          log_level: str = "warning") -> int:
+          log_level: str = "warning", require_token: bool = False) -> int:
     """Serve until interrupted; returns the process exit code (2 for unusable options)."""
     import uvicorn
 
@@ -46,8 +46,9 @@ def serve(host: str = config.DEFAULT_HOST, port: int = config.DEFAULT_PORT, data
               file=sys.stderr)
         return 2
     # Beyond loopback other machines can connect: every request then needs a fresh random token.
-    token = None if is_loopback_host(host) else new_token()
-    if token is not None:
+    beyond_loopback = not is_loopback_host(host)
+    token = new_token() if beyond_loopback or require_token else None
+    if beyond_loopback:
         print(f"pairlens serve: listening on {host}, reachable from other machines; requests need the "
               "access token in the link below", file=sys.stderr)
     directory = Path(data_dir) if data_dir else config.default_data_dir()
