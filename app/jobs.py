@@ -282,7 +282,9 @@ class JobManager:
     # Life cycle ---------------------------------------------------------------
 
     def start(self) -> None:
+        self._owner_lock = self.store.hold_owner_lock(self.token)
         self.interrupted_at_start = self.store.mark_interrupted(self.token)
+        self.store.remove_dead_owner_locks()
         self.store.remove_leftovers()
         self._thread = threading.Thread(target=self._loop, name="pairlens-jobs", daemon=True)
         self._thread.start()
@@ -305,6 +307,8 @@ class JobManager:
         for row in self.store.list_analyses(status=("queued",)):
             if row.owner_pid == os.getpid():
                 self.store.finish(row.id, "interrupted", "the server stopped before this analysis started")
+        self.store.release_owner_lock(self.token, getattr(self, "_owner_lock", None))
+        self._owner_lock = None
 
     # Requests -----------------------------------------------------------------
 

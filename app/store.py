@@ -22,6 +22,11 @@ import tempfile
 import threading
 import time
 import zlib
+
+try:
+    import fcntl
+except ImportError:  # pragma: no cover - Windows: owners are checked by pid only
+    fcntl = None
 from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
@@ -433,11 +438,16 @@ class Store:
         """Analyses left queued or running by a process that is gone become ``interrupted``.
 
         An analysis is orphaned when its owner token is not ``owner_token`` (the
-        caller's) and its owner pid is not alive, or is the caller's own pid (a
-        reused pid: the old owner is gone). ``alive_pids`` replaces the liveness
-        check in tests. Returns the ids changed.
+        caller's) and its owner is gone: the owner's lock (:meth:`hold_owner_lock`)
+        is free, or, for owners without a lock file, its pid is not alive or is
+        the caller's own pid (a reused pid: the old owner is gone). The lock
+        cannot be fooled by a pid that another process took over. ``alive_pids``
+        replaces the liveness check in tests. Returns the ids changed.
         """
-        def alive(pid):
+        def alive(pid, token=""):
+            state = self.owner_state(token) if alive_pids is None else "unknown"
+            if state != "unknown":
+                return state == "alive"
             if pid is None:
                 return False
             if pid == os.getpid():
@@ -457,7 +467,7 @@ class Store:
         with self._tx() as con:
             for r in con.execute("SELECT id, owner_pid, owner_token FROM analyses "
                                  "WHERE status IN ('queued', 'running')").fetchall():
-                if r["owner_token"] == owner_token or alive(r["owner_pid"]):
+                if r["owner_token"] == owner_token or alive(r["owner_pid"], r["owner_token"]):
                     continue
                 con.execute("UPDATE analyses SET status = 'interrupted', finished = ?, updated = ?, "
                             "seconds_left = NULL, error = ? WHERE id = ?",
@@ -466,6 +476,60 @@ class Store:
                 changed.append(r["id"])
         return changed
 
+    # Owner locks -----------------------------------------------------------------
+    # A server holds an exclusive flock on owners/<token>.lock while it lives; the
+    # kernel drops it when the process dies, even by kill -9.
+
+    def _owner_lock_path(self, token: str) -> Path | None:
+        if not token or not all(c in "0123456789abcdef" for c in token):
+            return None
+        return self.data_dir / "owners" / f"{token}.lock"
+
+    def hold_owner_lock(self, token: str):
+        """Take the owner lock of ``token`` for this process's lifetime; returns the open file (or None)."""
+        path = self._owner_lock_path(token)
+        if path is None or fcntl is None:
+            return None
+        path.parent.mkdir(exist_ok=True)
+        handle = open(path, "a+b")
+        try:
+            fcntl.flock(handle.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except OSError:
+            handle.close()
+            raise StoreError(f"owner token {token} is already in use")
+        return handle
+
+    def release_owner_lock(self, token: str, handle) -> None:
+        if handle is None:
+            return
+        path = self._owner_lock_path(token)
+        if path is not None:
+            path.unlink(missing_ok=True)
+        handle.close()
+
+    def owner_state(self, token: str) -> str:
+        """"alive" (its lock is held), "dead" (lock file left, nobody holds it) or "unknown" (no lock file)."""
+        path = self._owner_lock_path(token)
+        if path is None or fcntl is None or not path.exists():
+            return "unknown"
+        try:
+            with open(path, "rb") as probe:
+                try:
+                    fcntl.flock(probe.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+                except OSError:
+                    return "alive"
+                fcntl.flock(probe.fileno(), fcntl.LOCK_UN)
+        except FileNotFoundError:  # its owner just shut down and removed it
+            return "dead"
+        return "dead"
+
+    def remove_dead_owner_locks(self) -> None:
+        directory = self.data_dir / "owners"
+        if not directory.is_dir():
+            return
+        for p in directory.glob("*.lock"):
+            if self.owner_state(p.stem) == "dead":
+                p.unlink(missing_ok=True)
 
     # Deleting -----------------------------------------------------------------
 

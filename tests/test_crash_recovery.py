@@ -217,3 +217,67 @@ def test_finished_results_cannot_be_rewritten(tmp_path):
     assert store.mark_interrupted("someone-else", alive_pids=set()) == []
     assert store.get_results(row.id)["records"] == [{"x": "a"}]
     assert store.get_analysis(row.id).status == "done"
+
+
+def test_owner_liveness_comes_from_its_lock_not_its_pid(tmp_path):
+    # A pid can be taken over by an unrelated process after a crash; the owner's flock
+    # cannot outlive the owner (flock(2): the lock is released when the process's
+    # descriptors close, as they do when it dies).
+    import subprocess
+    import sys
+
+    from app.store import Store
+
+    store = Store(tmp_path)
+    sha = store.put_blob(b"a,b\n1,2\n2,3\n3,5\n")
+    ds = store.add_dataset(name="t.csv", sha256=sha, size=16, n_rows=3, n_columns=2, summary={})
+    reused_pid = os.getppid()  # alive, but not the owner any more
+    dead_owner = "aa" * 8
+    stale = store.create_analysis(ds.id, {}, owner_pid=reused_pid, owner_token=dead_owner)
+    assert store.claim(stale.id, worker_pid=reused_pid)
+    lock_dir = tmp_path / "owners"
+    lock_dir.mkdir(exist_ok=True)
+    (lock_dir / f"{dead_owner}.lock").touch()  # left behind by a killed server
+    live_owner = "bb" * 8
+    holder = subprocess.Popen(
+        [sys.executable, "-c", "import fcntl, sys, time; f = open(sys.argv[1], 'a+b'); "
+         "fcntl.flock(f.fileno(), fcntl.LOCK_EX); print('locked', flush=True); time.sleep(60)",
+         str(lock_dir / f"{live_owner}.lock")], stdout=subprocess.PIPE, text=True)
+    try:
+        assert holder.stdout.readline().strip() == "locked"
+        live = store.create_analysis(ds.id, {}, owner_pid=holder.pid, owner_token=live_owner)
+        assert store.owner_state(dead_owner) == "dead" and store.owner_state(live_owner) == "alive"
+        changed = store.mark_interrupted("cc" * 8)
+        assert changed == [stale.id]
+        assert store.get_analysis(stale.id).status == "interrupted"
+        assert store.get_analysis(live.id).status == "queued"
+    finally:
+        holder.kill()
+        holder.wait()
+    assert store.owner_state(live_owner) == "dead"
+    assert store.mark_interrupted("cc" * 8) == [live.id]
+    store.remove_dead_owner_locks()
+    assert list(lock_dir.iterdir()) == []
+
+
+def test_graceful_stop_marks_running_analyses_interrupted(tmp_path):
+    data_dir = tmp_path / "workspace"
+    srv = LiveServer(data_dir)
+    try:
+        with httpx.Client(base_url=srv.base, timeout=30) as c:
+            ds = c.post("/api/datasets", files={"file": ("long.csv", _csv(3000, 6, seed=5), "text/csv")}).json()
+            aid = c.post(f"/api/datasets/{ds['id']}/analyses",
+                         json={"measures": ["dcor"], "permutations": 50000}).json()["id"]
+            _wait(c, aid, lambda s: s["status"] == "running")
+        owners = list((data_dir / "owners").glob("*.lock"))
+        assert len(owners) == 1
+    finally:
+        srv.stop()  # SIGTERM: uvicorn's shutdown runs the job manager's
+    # uvicorn re-raises the signal after its graceful shutdown, so -15 (SIGTERM) is a clean end here.
+    assert srv.proc.returncode in (0, -15)
+    con = sqlite3.connect(data_dir / "pairlens.sqlite3")
+    status, error = con.execute("SELECT status, error FROM analyses WHERE id = ?", (aid,)).fetchone()
+    con.close()
+    assert status == "interrupted" and "run it again" in error
+    assert list((data_dir / "owners").glob("*.lock")) == []  # the lock went with its owner
+    assert _integrity(data_dir / "pairlens.sqlite3") == ["ok"]
