@@ -521,3 +521,31 @@ def test_group_over_the_row_limit_is_refused_before_it_runs(inproc, monkeypatch)
     monkeypatch.setattr(config, "MAX_GROUP_ROWS", 50)
     assert inproc.post(f"/api/datasets/{ds['id']}/analyses",
                        json={"measures": ["dcor"], "groups": ["ab=a,b"]}).status_code == 202
+
+
+def test_queue_runs_at_most_the_configured_number_at_once(server, client):
+    from app import config
+
+    rng = np.random.default_rng(10)
+    text = "c0,c1,c2,c3,c4,c5\n" + "\n".join(",".join(f"{v:.5f}" for v in row) for row in rng.normal(size=(3000, 6)))
+    ds = client.post("/api/datasets", files={"file": ("queue.csv", text.encode(), "text/csv")}).json()
+    ids = [client.post(f"/api/datasets/{ds['id']}/analyses",
+                       json={"measures": ["dcor"], "permutations": 50000, "seed": s}).json()["id"]
+           for s in range(config.MAX_CONCURRENT_ANALYSES + 1)]
+    most, saw_queued_while_full = 0, False
+    deadline = time.monotonic() + 30
+    try:
+        while time.monotonic() < deadline:
+            states = [client.get(f"/api/analyses/{a}").json()["status"] for a in ids]
+            running = states.count("running")
+            most = max(most, running)
+            if running == config.MAX_CONCURRENT_ANALYSES and "queued" in states:
+                saw_queued_while_full = True
+                if most == running and time.monotonic() > deadline - 27:
+                    break
+            time.sleep(0.2)
+    finally:
+        for a in ids:
+            client.post(f"/api/analyses/{a}/cancel")
+    assert most == config.MAX_CONCURRENT_ANALYSES and saw_queued_while_full
+    assert all(_wait(client, a)["status"] == "cancelled" for a in ids)
