@@ -10,6 +10,7 @@ from starlette.datastructures import UploadFile
 from .. import config
 from ..engine import SettingsError
 from ..ingest import IngestError
+from ..methods import methods_content
 from ..store import UploadTooLarge
 from .deps import Workspace, embed_json, get_workspace
 from . import plots
@@ -26,6 +27,11 @@ def _home(request: Request, ws: Workspace, error: str = "", status: int = 200) -
         "datasets": ws.datasets(), "error": error, "demo_available": config.DEMO_FILE.exists(),
         "demo_id": request.app.state.demo_id, "max_upload_mb": ws.max_upload_bytes // (1024 * 1024),
     }, status)
+
+
+@router.get("/methods", response_class=HTMLResponse)
+def methods_page(request: Request):
+    return _render(request, "methods.html", {"methods": methods_content()})
 
 
 @router.get("/", response_class=HTMLResponse)
