@@ -335,11 +335,12 @@ def test_wildcard_bind_requires_the_token(wildcard_app):
         r = c.get(f"/?token={token}", headers=host, follow_redirects=False)
         assert r.status_code == 303 and r.headers["location"] == "/"
         cookie = r.headers["set-cookie"]
-        assert f"pairlens_token={token}" in cookie and "HttpOnly" in cookie and "SameSite=Strict" in cookie
+        assert f"pairlens_token_{port}={token}" in cookie and "HttpOnly" in cookie and "SameSite=Strict" in cookie
         assert c.get("/", headers=host).status_code == 200  # the client kept the cookie
         assert c.get("/api/datasets", headers=host).status_code == 200
-        # A wrong token in the link is not exchanged.
+        # A wrong token in the link is not exchanged; a cookie named for another port does not count.
         c.cookies.clear()
+        assert c.get("/api/datasets", headers=host | {"cookie": f"pairlens_token_{port + 1}={token}"}).status_code == 401
         assert c.get("/?token=nope", headers=host, follow_redirects=False).status_code == 401
         # An open redirect through the exchange is not possible.
         r = c.get(f"//evil.example/?token={token}", headers=host, follow_redirects=False)

@@ -32,9 +32,15 @@ from urllib.parse import parse_qsl, urlencode, urlsplit
 
 from .. import config
 
-__all__ = ["RequestGuard", "TOKEN_COOKIE", "LOOPBACK_NAMES", "is_loopback_host", "new_token", "access_link"]
+__all__ = ["RequestGuard", "TOKEN_COOKIE", "token_cookie_name", "LOOPBACK_NAMES", "is_loopback_host", "new_token", "access_link"]
 
+# Cookies are not kept apart by port, so each server names its own (two servers on
+# one machine would otherwise overwrite each other's token).
 TOKEN_COOKIE = "pairlens_token"
+
+
+def token_cookie_name(port: int) -> str:
+    return f"{TOKEN_COOKIE}_{int(port)}"
 LOOPBACK_NAMES = ("localhost", "127.0.0.1", "::1")
 _WILDCARDS = ("0.0.0.0", "::", "")
 _UNSAFE_METHODS = frozenset({"POST", "PUT", "PATCH", "DELETE"})
@@ -218,8 +224,9 @@ class RequestGuard:
                 jar.load(cookie_header)
             except Exception:  # noqa: BLE001 - a malformed cookie header counts as no token
                 return None
-            if TOKEN_COOKIE in jar:
-                return jar[TOKEN_COOKIE].value
+            name = token_cookie_name(self.port)
+            if name in jar:
+                return jar[name].value
         return None
 
     def _token_ok(self, presented: str | None) -> bool:
@@ -250,7 +257,7 @@ class RequestGuard:
             query = dict(parse_qsl(scope.get("query_string", b"").decode("latin-1"), keep_blank_values=True))
             from_query = query.get("token")
             if from_query is not None and scope["method"] in ("GET", "HEAD") and self._token_ok(from_query):
-                await _exchange_token(send, scope, query, self.token)
+                await _exchange_token(send, scope, query, self.token, token_cookie_name(self.port))
                 return
             if not self._token_ok(self._presented_token(scope)):
                 await _refuse(send, 401, "this server needs its access token: open the link that "
@@ -317,13 +324,13 @@ async def _refuse(send, status: int, detail: str, is_api: bool, extra=None) -> N
     await send({"type": "http.response.body", "body": body})
 
 
-async def _exchange_token(send, scope, query: dict, token: str) -> None:
+async def _exchange_token(send, scope, query: dict, token: str, cookie_name: str) -> None:
     """``?token=`` -> cookie + redirect to the same address without the token."""
     rest = {k: v for k, v in query.items() if k != "token"}
     # "//host" would be a protocol-relative redirect to another site.
     path = "/" + scope.get("path", "/").lstrip("/")
     location = path + (("?" + urlencode(rest)) if rest else "")
-    cookie = (f"{TOKEN_COOKIE}={token}; Path=/; HttpOnly; SameSite=Strict").encode()
+    cookie = (f"{cookie_name}={token}; Path=/; HttpOnly; SameSite=Strict").encode()
     headers = [(b"location", location.encode("latin-1", "replace")), (b"set-cookie", cookie),
                (b"cache-control", b"no-store"), (b"content-length", b"0")] + _SECURITY_HEADERS
     await send({"type": "http.response.start", "status": 303, "headers": headers})
