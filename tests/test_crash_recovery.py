@@ -281,3 +281,55 @@ def test_graceful_stop_marks_running_analyses_interrupted(tmp_path):
     assert status == "interrupted" and "run it again" in error
     assert list((data_dir / "owners").glob("*.lock")) == []  # the lock went with its owner
     assert _integrity(data_dir / "pairlens.sqlite3") == ["ok"]
+
+
+def test_kills_at_random_moments_never_corrupt_or_leave_running(tmp_path):
+    # Seeded random kill times spread over an analysis's whole life (reading data,
+    # pairs, verdicts, figures, the final write): after each kill the database is
+    # whole, and every analysis is either done with its full pair table or interrupted.
+    import random
+
+    data_dir = tmp_path / "workspace"
+    db_path = data_dir / "pairlens.sqlite3"
+    content = _csv(600, 5, seed=6)
+    settings = {"measures": ["pearson", "spearman", "kendall", "dcor"], "permutations": 300}
+    n_rows = 10 * 4  # 5 columns: 10 pairs, 4 measures
+    srv = LiveServer(data_dir)
+    try:
+        with httpx.Client(base_url=srv.base, timeout=30) as c:
+            ds = c.post("/api/datasets", files={"file": ("k.csv", content, "text/csv")}).json()
+            t0 = time.monotonic()
+            first = c.post(f"/api/datasets/{ds['id']}/analyses", json=settings).json()["id"]
+            assert _wait(c, first, lambda s: s["status"] not in ("queued", "running"))["status"] == "done"
+            duration = time.monotonic() - t0
+            reference = c.get(f"/api/analyses/{first}/pairs").json()
+            assert len(reference) == n_rows
+    finally:
+        srv.kill()
+    rng = random.Random(20261201)
+    outcomes = []
+    for cycle in range(4):
+        srv = LiveServer(data_dir)
+        try:
+            with httpx.Client(base_url=srv.base, timeout=30) as c:
+                aid = c.post(f"/api/datasets/{ds['id']}/analyses", json=settings).json()["id"]
+                time.sleep(rng.uniform(0.0, 1.3 * duration))
+        finally:
+            srv.kill()
+        assert _integrity(db_path) == ["ok"], f"cycle {cycle}"
+        outcomes.append(aid)
+    srv = LiveServer(data_dir)
+    try:
+        with httpx.Client(base_url=srv.base, timeout=30) as c:
+            seen = {}
+            for aid in [first, *outcomes]:
+                s = c.get(f"/api/analyses/{aid}").json()
+                seen[aid] = s["status"]
+                assert s["status"] in ("done", "interrupted"), s
+                if s["status"] == "done":
+                    # Same settings and seed: the same numbers as the reference run (or nothing at all).
+                    assert c.get(f"/api/analyses/{aid}/pairs").json() == reference
+            print(f"after random kills (first run {duration:.1f} s): {seen}")
+    finally:
+        srv.stop()
+    assert _integrity(db_path) == ["ok"]
