@@ -6,7 +6,8 @@ a wildcard bind in-process (no socket beyond loopback is ever opened). The
 expected behaviours are common practice for local web tools: the Host check
 against DNS rebinding and the Origin check against cross-site request forgery
 follow the OWASP CSRF Prevention Cheat Sheet ("verifying origin with standard
-headers"); status 421 is "Misdirected Request" (RFC 9110, section 15.5.20).
+headers"); status 421 is "Misdirected Request" (RFC 9110, section 15.5.20). Section names
+and numbers are from memory.
 """
 
 from __future__ import annotations
