@@ -100,7 +100,8 @@ def screenshot(page, name: str, *, doc: bool = False, full_page: bool = True) ->
     SCREENSHOTS.mkdir(parents=True, exist_ok=True)
     path = SCREENSHOTS / f"{name}.png"
     page.screenshot(path=str(path), full_page=full_page)
-    if doc:
+    # The README's screenshots are refreshed on request only, so a test run leaves the tree clean.
+    if doc and os.environ.get("PAIRLENS_UPDATE_SCREENSHOTS"):
         DOC_SCREENSHOTS.mkdir(parents=True, exist_ok=True)
         shutil.copyfile(path, DOC_SCREENSHOTS / f"{name}.png")
     return path

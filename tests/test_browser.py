@@ -3,7 +3,7 @@
 A pairlens server runs in a subprocess on a free loopback port with its own
 data directory. Point sets on the page are compared with the CSV file read by
 Python's csv module; numbers on the page with the API's pair table. Screenshots
-go to tests/screenshots/ (git-ignored), the main ones also to docs/screenshots/.
+go to tests/screenshots/ (git-ignored); with PAIRLENS_UPDATE_SCREENSHOTS=1 the main ones also to docs/screenshots/.
 """
 
 from __future__ import annotations

@@ -223,7 +223,9 @@ def create_app(settings: ServerSettings | None = None, *, jobs: JobManager | Non
         finally:
             jobs.shutdown()
 
-    app = FastAPI(title="pairlens", version=__version__, lifespan=lifespan, docs_url="/api/docs",
+    # No Swagger UI: FastAPI's loads its assets from a CDN and the tool must work offline.
+    # The machine-readable schema stays at /api/openapi.json.
+    app = FastAPI(title="pairlens", version=__version__, lifespan=lifespan, docs_url=None,
                   redoc_url=None, openapi_url="/api/openapi.json")
     app.state.settings = settings
     app.state.workspace = workspace
