@@ -317,27 +317,27 @@ def compute_pair(data: np.ndarray, xvar: Variable, yvar: Variable, settings: Ana
     return rows
 
 
-def _fast_measure(measure: str, view: "allpairs.PairView", swapped: bool, a: Variable, b: Variable,
+def _fast_measure(measure: str, work: tuple, swapped: bool, a: Variable, b: Variable,
                   settings: AnalysisSettings, cache: dict) -> TestResult:
     """One measure of a regular pair (>= 3 rows, no constant side) from the presorted orders.
 
     Every branch finishes with the function the per-pair measure itself ends
     with, on the same numbers, so the result is the per-pair result.
     """
+    _, view, sums, counts, dist_inputs = work
     n = view.n
     av, bv = (view.y, view.x) if swapped else (view.x, view.y)
-    if measure == "spearman" and n <= allpairs.EXACT_RANK_SUM_MAX_N:
-        sxy, sxx, syy = allpairs.spearman_sums(view)
-        return rank.spearman_from_sums(sxy, sxx, syy, n, confidence=settings.confidence)
+    if measure == "spearman" and sums is not None:
+        return rank.spearman_from_sums(sums[0], sums[1], sums[2], n, confidence=settings.confidence)
     if measure == "kendall":
-        d, tx, ty, txy, x3, x5, y3, y5 = allpairs.kendall_counts_view(view)
-        counts = rank.KendallCounts(n, int(d), int(tx), int(ty), int(txy), float(x3), float(x5),
-                                    float(y3), float(y5))
-        return rank.kendall_from_counts(counts, confidence=settings.confidence)
+        d, tx, ty, txy, x3, x5, y3, y5 = counts
+        kc = rank.KendallCounts(n, int(d), int(tx), int(ty), int(txy), float(x3), float(x5),
+                                float(y3), float(y5))
+        return rank.kendall_from_counts(kc, confidence=settings.confidence)
     if measure in ("dcor", "dcor_bc") and n >= 4:
         st = cache.get("distance")
         if st is None:
-            st = cache["distance"] = distance.centred_statistics_presorted(*allpairs.distance_orders(view))
+            st = cache["distance"] = distance.centred_statistics_presorted(*dist_inputs)
         seed = pair_seed(settings.seed, a.name, b.name, measure)
         finish = distance.dcor_from_statistics if measure == "dcor" else distance.dcor_bc_from_statistics
         return finish(st, permutations=settings.permutations, seed=seed)
@@ -359,14 +359,20 @@ def _fast_pair_rows(prep: "allpairs.PreparedColumns", xvar: Variable, yvar: Vari
     i, j = prep.slot.get(xvar.columns[0]), prep.slot.get(yvar.columns[0])
     if i is None or j is None or not (prep.finite[i] and prep.finite[j]):
         return None
-    view = allpairs.pair_view(prep, i, j)
-    if view.n < config.MIN_ROWS or view.x_constant() or view.y_constant():
+    measures = settings.measures
+    work = allpairs.pair_work(prep, i, j, config.MIN_ROWS,
+                              spearman="spearman" in measures,
+                              kendall="kendall" in measures,
+                              distance="dcor" in measures or "dcor_bc" in measures)
+    if not work[0]:
         return None  # degenerate pairs: every measure's own note, from the per-pair path
+    if "spearman" in measures and work[1].n > allpairs.EXACT_RANK_SUM_MAX_N:
+        work = (work[0], work[1], None, work[3], work[4])
     cache: dict = {}
     rows: list[PairRow] = []
-    for m in settings.measures:
+    for m in measures:
         for a, b, swapped in _directions(m, xvar, yvar):
-            rows.append(_pair_row(a, b, m, _fast_measure(m, view, swapped, a, b, settings, cache)))
+            rows.append(_pair_row(a, b, m, _fast_measure(m, work, swapped, a, b, settings, cache)))
     return rows
 
 

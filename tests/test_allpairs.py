@@ -238,6 +238,35 @@ def test_fused_third_quantities_are_the_loops_bit_for_bit():
         assert distance._third_quantities_1d_fused(xs, arow) == distance._third_quantities_1d(xs, arow)
 
 
+def test_one_call_kernels_are_the_separate_steps():
+    # distance._sorted_kernels against the numpy gathers and separate kernels it replaced
+    view, _, _ = _pair(22, 800, ties=True)
+    xc, yc, order, y_order = allpairs.distance_orders(view)
+    n = xc.size
+    xv, yv = xc[order], yc[order]
+    yr = np.empty(n, np.int64)
+    yr[y_order] = np.arange(n)
+    y_sorted = yv[y_order]
+    arow = distance._row_sums_sorted(xv)
+    brow_sorted = distance._row_sums_sorted(y_sorted)
+    expected = (xv, yv, yr, arow, brow_sorted, brow_sorted[yr], distance._cross_sum(xv, yv, yr),
+                distance._third_quantities_1d(xv, arow), distance._third_quantities_1d(y_sorted, brow_sorted))
+    got = distance._sorted_kernels(xc, yc, order, y_order)
+    for e, g in zip(expected, got):
+        if isinstance(e, np.ndarray):
+            np.testing.assert_array_equal(g, e)
+        else:
+            assert g == e
+    # allpairs.pair_work against the separate presorted steps
+    prep = allpairs.prepare_columns(np.column_stack([view.x, view.y]))
+    regular, v2, sums, counts, dist = allpairs.pair_work(prep, 0, 1, 3, spearman=True, kendall=True,
+                                                         distance=True)
+    assert regular and sums == allpairs.spearman_sums(view)
+    assert counts == allpairs.kendall_counts_view(view)
+    for e, g in zip(allpairs.distance_orders(view), dist):
+        np.testing.assert_array_equal(g, e)
+
+
 def test_median_from_the_order_is_numpys():
     rng = np.random.default_rng(18)
     for n in (1, 2, 3, 4, 10, 11, 1000, 1001):

@@ -419,6 +419,13 @@ def _third_quantities_1d_fused(xs, arow):
     g /= n * n
     c = np.empty(n)
     d = np.empty(n)
+    # The divisions, in loops without a running sum so that they vectorise;
+    # u_k = (k + 1)/n, and (n - k - 1)/n is u_(n-2-k) (the same exact operands).
+    for k in range(n):
+        c[k] = arow[k] / n - 0.5 * g
+    u = np.empty(max(m, 0))
+    for k in range(m):
+        u[k] = (k + 1.0) / n
     tot_wc = 0.0
     tot_xwc = 0.0
     tot_wd = 0.0
@@ -437,9 +444,8 @@ def _third_quantities_1d_fused(xs, arow):
     above = np.empty(max(m, 0))
     acc = 0.0
     for k in range(n):
-        ck = arow[k] / n - 0.5 * g
+        ck = c[k]
         dk = -2.0 * ck
-        c[k] = ck
         d[k] = dk
         tot_wc += ck
         tot_xwc += xs[k] * ck
@@ -461,7 +467,7 @@ def _third_quantities_1d_fused(xs, arow):
         if j >= 0:
             above[j] = acc
             wj = 2.0 * (xs[j + 1] - xs[j])
-            vj = (n - j - 1.0) / n
+            vj = u[n - 2 - j]
             acc += wj * vj * vj
     q4 = 0.0
     q7 = 0.0
@@ -496,8 +502,8 @@ def _third_quantities_1d_fused(xs, arow):
         as2 += 2.0 * ck * ck * arow[k] + 2.0 * ck * wck
         if k < m:
             wk = 2.0 * (xs[k + 1] - xs[k])
-            uk = (k + 1.0) / n
-            vk = (n - k - 1.0) / n
+            uk = u[k]
+            vk = u[n - 2 - k]
             q = wk * uk * vk
             t3 += (6.0 * q * below * above[k] + 3.0 * wk * q * uk * uk * above[k]
                    + 3.0 * wk * q * vk * vk * below + q * q * q)
@@ -507,6 +513,37 @@ def _third_quantities_1d_fused(xs, arow):
     q6 = 2.0 * a3 - 3.0 * a2s + 3.0 * as2 - s3
     tr3 = -(n ** 3) * t3
     return t, dd, ddd, q4, tr3, q6, q7
+
+
+@numba.njit(cache=True, nogil=True)
+def _sorted_kernels(xc, yc, order, y_order):
+    """The compiled steps of the fast path in one call: gathers, row sums, cross sum, third sums.
+
+    x in its order, y in x order, y positions in y order, the row sums
+    (x order; y order and x order) and S1 = sum a_ij b_ij, then the
+    third-moment sums of each side. Gathers and kernels are the ones the
+    separate steps used, so the numbers are the same.
+    """
+    n = xc.shape[0]
+    xv = np.empty(n)
+    yv = np.empty(n)
+    for k in range(n):
+        xv[k] = xc[order[k]]
+        yv[k] = yc[order[k]]
+    yr = np.empty(n, np.int64)
+    y_sorted = np.empty(n)
+    for k in range(n):
+        yr[y_order[k]] = k
+        y_sorted[k] = yv[y_order[k]]
+    arow = _row_sums_sorted(xv)
+    brow_sorted = _row_sums_sorted(y_sorted)
+    brow = np.empty(n)
+    for k in range(n):
+        brow[k] = brow_sorted[yr[k]]
+    s1 = _cross_sum(xv, yv, yr)
+    parts_x = _third_quantities_1d_fused(xv, arow)
+    parts_y = _third_quantities_1d_fused(y_sorted, brow_sorted)
+    return xv, yv, yr, arow, brow_sorted, brow, s1, parts_x, parts_y
 
 
 @numba.njit(cache=True, nogil=True)
@@ -678,23 +715,15 @@ def _fast_statistics(x, y):
 def _fast_statistics_ordered(xc, yc, order, y_order):
     """The O(n log n) statistics once the (median-centred) columns are sorted."""
     n = xc.shape[0]
-    xv = np.ascontiguousarray(xc[order])
-    yv = np.ascontiguousarray(yc[order])
-    yr = np.empty(n, np.int64)
-    yr[y_order] = np.arange(n)
-    arow = _row_sums_sorted(xv)
-    y_sorted = np.ascontiguousarray(yv[y_order])
-    brow_sorted = _row_sums_sorted(y_sorted)
-    brow = brow_sorted[yr]
+    xv, yv, yr, arow, brow_sorted, brow, s1, parts_x, parts_y = _sorted_kernels(
+        xc, yc, np.ascontiguousarray(order, dtype=np.int64), np.ascontiguousarray(y_order, dtype=np.int64))
+    # numpy's own sums and products, as before (pairwise summation and BLAS give these bits)
     ta = float(arow.sum())
     tb = float(brow.sum())
-    s1 = _cross_sum(xv, yv, yr)
     s2 = float(arow @ brow)
     # sum_ij (x_i - x_j)^2 = 2 n sum x^2 - 2 (sum x)^2, on centred values
     s_aa = 2.0 * n * float(xc @ xc) - 2.0 * float(xc.sum()) ** 2
     s_bb = 2.0 * n * float(yc @ yc) - 2.0 * float(yc.sum()) ** 2
-    parts_x = _third_quantities_1d_fused(xv, arow)
-    parts_y = _third_quantities_1d_fused(y_sorted, brow_sorted)
 
     def resample(rng, n_resamples):
         # the same y data indexed by original row, built only when resamples are asked for
