@@ -32,7 +32,7 @@ from pathlib import Path
 from typing import Any, Callable, Iterator, Sequence
 
 from . import __version__, config
-from .engine import SettingsError
+from .errors import SettingsError
 
 try:  # dask is an optional extra: pip install "pairlens[cluster]"
     import distributed
