@@ -17,7 +17,7 @@ from typing import Callable, Iterable, Sequence
 import numpy as np
 
 from . import config
-from .core import allpairs, chatterjee, distance, rank
+from .core import allpairs, chatterjee, distance, linear, rank
 from .core.registry import MEASURES, PairContext, get_measure
 from .core.results import TestResult, undefined
 from .core.testing import adjust_pvalues, pair_seed
@@ -338,7 +338,8 @@ def _fast_measure(measure: str, work: tuple, swapped: bool, a: Variable, b: Vari
         st = cache.get("distance")
         if st is None:
             st = cache["distance"] = distance.centred_statistics_presorted(*dist_inputs)
-        seed = pair_seed(settings.seed, a.name, b.name, measure)
+        # the seed only drives resamples; without them it is not drawn from
+        seed = pair_seed(settings.seed, a.name, b.name, measure) if settings.permutations else None
         finish = distance.dcor_from_statistics if measure == "dcor" else distance.dcor_bc_from_statistics
         return finish(st, permutations=settings.permutations, seed=seed)
     if measure == "xi":
@@ -347,7 +348,10 @@ def _fast_measure(measure: str, work: tuple, swapped: bool, a: Variable, b: Vari
         order = allpairs.xi_order(av, a_order, lambda: chatterjee.xi_tie_keys(seed, n))
         r, l = allpairs.rank_counts(bv, b_order)
         return chatterjee.xi_from_order(order, r, l, permutations=settings.permutations, seed=seed)
-    # pearson (O(n) numpy on the rows), and anything without a presorted form
+    if measure == "pearson" and not settings.permutations:
+        # the registry's call without the (unused) seed: O(n) numpy on the rows
+        return linear.pearson(av, bv, confidence=settings.confidence)
+    # anything without a presorted form
     return _compute_one(measure, av, bv, a.name, b.name, settings, False, False)
 
 
@@ -385,6 +389,8 @@ def _warm(settings: AnalysisSettings) -> None:
     light = AnalysisSettings(measures=settings.measures, confidence=settings.confidence,
                              permutations=min(settings.permutations, 3), seed=settings.seed)
     _fast_pair_rows(prepare_columns(tiny, variables), variables[0], variables[1], light)
+    with _one_blas_thread():  # finds the BLAS library once, before the workers fork
+        pass
 
 
 def prepare_columns(data: np.ndarray, variables: Sequence[Variable],
