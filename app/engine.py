@@ -8,6 +8,7 @@ and :func:`pair_detail`.
 from __future__ import annotations
 
 import contextlib
+import gc
 import math
 import os
 import time
@@ -520,6 +521,11 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
         # kernels they call are already loaded. Remote workers sort for themselves.
         prepared = prepare_columns(data, variables, row_mask)
         _warm(settings)
+    frozen = isinstance(executor, ProcessExecutor) and gc.isenabled()
+    if frozen:
+        # Objects that exist before the fork are never collected in the workers, so
+        # their collector does not walk (and copy on write) the parent's whole heap.
+        gc.freeze()
     try:
         for index, rows in executor.run(_run_tile, tiles, _init_worker,
                                         (data, variables, settings, row_mask, prepared),
@@ -533,6 +539,8 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
             if cancel is not None and cancel():
                 raise AnalysisCancelled("analysis cancelled")
     finally:
+        if frozen:
+            gc.unfreeze()
         if owned:
             executor.close()
     if any(r is None for r in results):
