@@ -970,19 +970,32 @@ def _third_moment_coefficients():
     then averages B over the same pattern with weight 1 / (n)_m, m = blocks.
     """
     parts = [tuple(tuple(sorted(b)) for b in p) for p in _set_partitions(list(range(6)))]
-    sets = {p: [frozenset(b) for b in p] for p in parts}
+    # Each coarse pattern as the block label of every slot, and its sum, computed once:
+    # a fine pattern refines it when every fine block lies in one labelled block.
+    labels = []
+    for p in parts:
+        lab = [0] * 6
+        for b, members in enumerate(p):
+            for slot in members:
+                lab[slot] = b
+        labels.append(lab)
+    quantity = [_quantity_of(p) for p in parts]
     coef = np.zeros((7, 8, 8))
     for fine in parts:
         vec = np.zeros(8)
-        for coarse in parts:
-            if not all(any(b <= c for c in sets[coarse]) for b in sets[fine]):
-                continue
-            q = _quantity_of(coarse)
-            if q is None:
+        for coarse, lab, q in zip(parts, labels, quantity):
+            inside = [0] * len(coarse)       # fine blocks in each coarse block
+            refines = True
+            for b in fine:
+                first = lab[b[0]]
+                if any(lab[slot] != first for slot in b[1:]):
+                    refines = False
+                    break
+                inside[first] += 1
+            if not refines or q is None:
                 continue
             mu = 1
-            for c in sets[coarse]:
-                k = sum(1 for b in sets[fine] if b <= c)
+            for k in inside:
                 mu *= (-1) ** (k - 1) * math.factorial(k - 1)
             vec[q] += mu
         coef[len(fine)] += np.outer(vec, vec)
