@@ -281,11 +281,10 @@ def _compute_one(measure_name: str, xv: np.ndarray, yv: np.ndarray, x_name: str,
 
 
 def _pair_row(a: Variable, b: Variable, measure: str, res: TestResult) -> PairRow:
-    # The contract's note column carries the reason for a missing value, and
-    # otherwise names the method behind the p-value.
-    note = res.note or (f"p-value: {res.method}" if res.method else "")
+    # The contract's note column is for why a value is missing (or a caveat on it);
+    # the p-value's method travels in PairRow.method, shown by the API, pages and report.
     return PairRow(a.name, b.name, measure, res.estimate, res.ci_low, res.ci_high,
-                   res.p_value, math.nan, res.n, note, res.method)
+                   res.p_value, math.nan, res.n, res.note, res.method)
 
 
 def _directions(measure: str, xvar: Variable, yvar: Variable) -> list[tuple[Variable, Variable, bool]]:
@@ -502,11 +501,7 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
         raise SettingsError("data must be a 2-D array with one column per name")
     settings.check()
     variables = plan_variables(list(names), settings)
-    row_mask = None
-    if settings.missing == "complete":
-        row_mask = np.ones(data.shape[0], dtype=bool)
-        for var in variables:
-            row_mask &= _observed(_variable_values(data, var))
+    row_mask = _complete_rows(data, names, settings) if settings.missing == "complete" else None
     pairs = _pairs(variables)
     workers = workers or os.cpu_count() or 1
     owned = executor is None
@@ -572,6 +567,14 @@ def _num(v) -> float | None:
     return v if math.isfinite(v) else None
 
 
+def _complete_rows(data: np.ndarray, names: Sequence[str], settings: AnalysisSettings) -> np.ndarray:
+    """Rows observed in every variable of the analysis: the rows a complete-case run used."""
+    mask = np.ones(data.shape[0], dtype=bool)
+    for var in plan_variables(list(names), settings):
+        mask &= _observed(_variable_values(data, var))
+    return mask
+
+
 def pair_detail(data: np.ndarray, names: Sequence[str], x: str, y: str,
                 settings: AnalysisSettings | None = None,
                 table: PairTable | None = None, include_points: bool = False) -> dict:
@@ -590,6 +593,9 @@ def pair_detail(data: np.ndarray, names: Sequence[str], x: str, y: str,
     xvar, yvar = Variable(x, (position[x],)), Variable(y, (position[y],))
     xv_all, yv_all = data[:, position[x]], data[:, position[y]]
     keep = ~np.isnan(xv_all) & ~np.isnan(yv_all)
+    row_mask = _complete_rows(data, names, settings) if settings.missing == "complete" else None
+    if row_mask is not None:
+        keep &= row_mask
     xv, yv = xv_all[keep], yv_all[keep]
     if table is not None:
         looked = table.lookup(x, y)
@@ -598,7 +604,7 @@ def pair_detail(data: np.ndarray, names: Sequence[str], x: str, y: str,
         rows = {}
         single = AnalysisSettings(measures=tuple(MEASURES), confidence=settings.confidence,
                                   permutations=settings.permutations, seed=settings.seed)
-        for r in compute_pair(data, xvar, yvar, single):
+        for r in compute_pair(data, xvar, yvar, single, row_mask):
             if r.x == x:
                 r.q_value = r.p_value
                 rows[r.measure] = r

@@ -151,3 +151,21 @@ def test_pair_detail_matches_contract_shape():
     np.testing.assert_allclose(g["mean"], data[keep][:, [3, 4]].mean(axis=0), rtol=1e-12)
     np.testing.assert_allclose(g["cov"], np.cov(data[keep, 3], data[keep, 4]), rtol=1e-12)
     assert d["pattern"]["label"] and isinstance(d["pattern"]["reasons"], list)
+
+
+def test_pair_detail_uses_the_rows_of_a_complete_case_analysis():
+    data, names = _table(9)
+    settings = _settings(measures="pearson,spearman", missing="complete")
+    table = run_analysis(data, names, settings, workers=1)
+    d = pair_detail(data, names, "a", "b", settings, table=table)
+    complete = ~np.isnan(data).any(axis=1)
+    assert d["n"] == int(complete.sum()) == d["measures"]["pearson"]["n"]
+    # reference: numpy mean over the complete-case rows
+    np.testing.assert_allclose(d["gaussian"]["mean"], data[complete][:, :2].mean(axis=0), rtol=1e-12)
+
+
+def test_note_is_empty_for_defined_values_and_method_is_kept():
+    data, names = _table(10)
+    res = run_analysis(data, names, _settings(measures="pearson,kendall,dcor"), workers=1)
+    for r in res.rows:
+        assert math.isfinite(r.estimate) and r.note == "" and r.method
