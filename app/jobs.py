@@ -208,9 +208,6 @@ def run_job(data_dir: str, analysis_id: str, *, workers: int | None = None, clus
         except (SettingsError, IngestError) as exc:
             store.finish(analysis_id, "failed", " ".join(str(exc).split()))
             return "failed"
-        except NotImplementedError as exc:
-            store.finish(analysis_id, "failed", f"a part of pairlens is not available yet ({exc or 'not implemented'})")
-            return "failed"
         except Exception as exc:  # noqa: BLE001 - the user sees one line; the log keeps the traceback
             traceback.print_exc()
             store.finish(analysis_id, "failed", f"internal error: {type(exc).__name__}: {exc}")

@@ -10,7 +10,6 @@ dataset and a finished analysis so the handlers behind the 404 are reached too
 
 from __future__ import annotations
 
-import io
 import time
 
 import httpx

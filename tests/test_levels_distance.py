@@ -10,7 +10,6 @@ reproducible.
 
 from __future__ import annotations
 
-import math
 
 import numpy as np
 import pytest

@@ -22,7 +22,7 @@ from ..engine import SettingsError
 from ..ingest import IngestError
 from ..jobs import JobManager
 from ..store import Store, UploadTooLarge
-from .deps import Conflict, NotFound, Unavailable, Workspace, embed_json
+from .deps import Conflict, NotFound, Workspace, embed_json
 from .security import RequestGuard
 
 __all__ = ["create_app", "UPLOAD_PATHS"]
@@ -250,10 +250,6 @@ def create_app(settings: ServerSettings | None = None, *, jobs: JobManager | Non
     @app.exception_handler(Conflict)
     async def _conflict(request: Request, exc: Conflict):
         return error(request, 409, str(exc))
-
-    @app.exception_handler(Unavailable)
-    async def _unavailable(request: Request, exc: Unavailable):
-        return error(request, 503, str(exc))
 
     @app.exception_handler(SettingsError)
     async def _settings_error(request: Request, exc: SettingsError):

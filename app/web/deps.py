@@ -25,7 +25,7 @@ from ..core.registry import MEASURES
 from ..engine import AnalysisSettings, PairRow, PairTable, SettingsError, pair_detail, plan_variables
 from ..store import AnalysisRow, DatasetRow, Store, UploadTooLarge
 
-__all__ = ["Workspace", "NotFound", "Conflict", "Unavailable", "get_workspace", "embed_json", "UploadTooLarge",
+__all__ = ["Workspace", "NotFound", "Conflict", "get_workspace", "embed_json", "UploadTooLarge",
            "SPARK_BINS"]
 
 SPARK_BINS = 16
@@ -38,10 +38,6 @@ class NotFound(LookupError):
 
 class Conflict(RuntimeError):
     """The request does not fit the object's state (e.g. results of a running analysis)."""
-
-
-class Unavailable(RuntimeError):
-    """A part of pairlens this request needs is not installed or not ready."""
 
 
 def embed_json(value) -> Markup:
@@ -586,21 +582,16 @@ class Workspace:
         return detail, False
 
     def report_html(self, row: AnalysisRow) -> str:
-        try:
-            from ..report import build_report
-        except ImportError as exc:
-            raise Unavailable(f"the HTML report is not available in this build ({exc})") from None
         import shlex
+
+        from ..report import build_report
 
         table = self.pair_table(row)
         dataset = self.dataset(row.dataset_id)
         data = self.table(dataset)
         command = "pairlens report " + " ".join(shlex.quote(a) for a in
                                                 [dataset.name, "-o", "report.html", *table.settings.cli_arguments()])
-        try:
-            return build_report(data, table, command=command)
-        except NotImplementedError as exc:
-            raise Unavailable(f"the HTML report is not available yet ({exc or 'not implemented'})") from None
+        return build_report(data, table, command=command)
 
 
 def get_workspace(request: Request) -> Workspace:
