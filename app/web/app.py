@@ -23,7 +23,7 @@ from ..ingest import IngestError
 from ..jobs import JobManager
 from ..store import Store, UploadTooLarge
 from .deps import Conflict, NotFound, Workspace, embed_json
-from .security import RequestGuard
+from .security import RequestGuard, refuse_request
 
 __all__ = ["create_app", "UPLOAD_PATHS"]
 
@@ -181,18 +181,8 @@ def _limit_message(max_bytes: int) -> str:
 
 
 async def _too_large(send, max_bytes: int, is_api: bool) -> None:
-    message = _limit_message(max_bytes)
-    if is_api:
-        body = json.dumps({"detail": message}).encode()
-        ctype = b"application/json"
-    else:
-        body = (f"<!doctype html><meta charset=utf-8><title>Upload too large</title>"
-                f"<p>{message}. <a href=\"/\">Back</a></p>").encode()
-        ctype = b"text/html; charset=utf-8"
-    await send({"type": "http.response.start", "status": 413,
-                "headers": [(b"content-type", ctype), (b"content-length", str(len(body)).encode()),
-                            (b"connection", b"close")]})
-    await send({"type": "http.response.body", "body": body})
+    # The body is not read any further, so the connection cannot be reused.
+    await refuse_request(send, 413, _limit_message(max_bytes), is_api, extra=[(b"connection", b"close")])
 
 
 def _wants_json(request: Request) -> bool:

@@ -243,14 +243,14 @@ class RequestGuard:
         is_api = scope.get("path", "").startswith("/api/")
         host_header = _header(scope, b"host") or ""
         if not self._host_ok(scope, _split_host(host_header)):
-            await _refuse(send, 421, "this server answers only to its own address (Host header "
+            await refuse_request(send, 421, "this server answers only to its own address (Host header "
                                      f"{host_header[:80]!r} is not one of them)", is_api)
             return
         if scope["type"] != "http":
             await self.app(scope, receive, send)
             return
         if not self._origin_ok(scope, host_header):
-            await _refuse(send, 403, "cross-site request refused: the page that sent it is not served "
+            await refuse_request(send, 403, "cross-site request refused: the page that sent it is not served "
                                      "by this pairlens server", is_api)
             return
         if self.token is not None:
@@ -260,7 +260,7 @@ class RequestGuard:
                 await _exchange_token(send, scope, query, self.token, token_cookie_name(self.port))
                 return
             if not self._token_ok(self._presented_token(scope)):
-                await _refuse(send, 401, "this server needs its access token: open the link that "
+                await refuse_request(send, 401, "this server needs its access token: open the link that "
                                          "'pairlens serve' printed, or send 'Authorization: Bearer <token>'",
                               is_api, extra=[(b"www-authenticate", b'Bearer realm="pairlens"')])
                 return
@@ -308,7 +308,7 @@ def _with_headers(send):
     return wrapped
 
 
-async def _refuse(send, status: int, detail: str, is_api: bool, extra=None) -> None:
+async def refuse_request(send, status: int, detail: str, is_api: bool, extra=None) -> None:
     if is_api:
         body = json.dumps({"detail": detail}).encode()
         ctype = b"application/json"
