@@ -267,10 +267,18 @@ def heatmap_figure(table, measure: str, *, order: Sequence[int] | None = None,
                 body += "<br>" + plot_text(note)
             row.append(head + "<br>" + body)
         text.append(row)
+    hover = {"z": _nan_to_none(fields["estimate"]), "text": text, "hovertemplate": "%{text}<extra></extra>"}
+    return _matrix_figure(measure, names, labels, hover, fields["q_value"], alpha, title)
+
+
+def _matrix_figure(measure, names, labels, hover: dict, q_values, alpha, title) -> dict:
+    """The heatmap of one measure with its significance dots; ``hover`` carries z and the hover data."""
+    m = MEASURES[measure]
     scale, zmin, zmax = colour_range(measure)
+    k = len(names)
     heat = {
-        "type": "heatmap", "x": labels, "y": labels, "z": _nan_to_none(fields["estimate"]), "text": text,
-        "hovertemplate": "%{text}<extra></extra>", "colorscale": scale, "zmin": zmin, "zmax": zmax,
+        "type": "heatmap", "x": labels, "y": labels, **hover,
+        "colorscale": scale, "zmin": zmin, "zmax": zmax,
         "xgap": 1 if k <= 40 else 0, "ygap": 1 if k <= 40 else 0, "hoverongaps": False,
         "colorbar": {"thickness": 10, "len": 0.8, "outlinewidth": 0, "tickfont": {"size": 10}},
         "name": measure,
@@ -280,7 +288,7 @@ def heatmap_figure(table, measure: str, *, order: Sequence[int] | None = None,
         layout["yaxis"]["title"] = {"text": "from (row)", "font": {"size": 10}}
         layout["xaxis"]["title"] = {"text": "to (column)", "font": {"size": 10}}
     layout["meta"] = {"variables": names, "measure": measure, "alpha": alpha}
-    return {"data": [heat, _significance_trace(fields["q_value"], labels, alpha)], "layout": layout}
+    return {"data": [heat, _significance_trace(q_values, labels, alpha)], "layout": layout}
 
 
 def _template_heatmap(table, measure, names, labels, fields, alpha, title) -> dict:
@@ -296,22 +304,9 @@ def _template_heatmap(table, measure, names, labels, fields, alpha, title) -> di
         k0 = 2
     body += (f"<br>p %{{customdata[{k0}]:.3g}}  q %{{customdata[{k0 + 1}]:.3g}}"
              f"  n %{{customdata[{k0 + 2}]}}")
-    scale, zmin, zmax = colour_range(measure)
-    k = len(names)
-    heat = {
-        "type": "heatmap", "x": labels, "y": labels, "z": _compact(fields["estimate"]),
-        "customdata": _compact(custom), "hovertemplate": head + "<br>" + body + "<extra></extra>",
-        "colorscale": scale, "zmin": zmin, "zmax": zmax,
-        "xgap": 1 if k <= 40 else 0, "ygap": 1 if k <= 40 else 0, "hoverongaps": False,
-        "colorbar": {"thickness": 10, "len": 0.8, "outlinewidth": 0, "tickfont": {"size": 10}},
-        "name": measure,
-    }
-    layout = _matrix_layout(labels, title or m.label)
-    if not m.symmetric:
-        layout["yaxis"]["title"] = {"text": "from (row)", "font": {"size": 10}}
-        layout["xaxis"]["title"] = {"text": "to (column)", "font": {"size": 10}}
-    layout["meta"] = {"variables": names, "measure": measure, "alpha": alpha}
-    return {"data": [heat, _significance_trace(fields["q_value"], labels, alpha)], "layout": layout}
+    hover = {"z": _compact(fields["estimate"]), "customdata": _compact(custom),
+             "hovertemplate": head + "<br>" + body + "<extra></extra>"}
+    return _matrix_figure(measure, names, labels, hover, fields["q_value"], alpha, title)
 
 
 def difference_figure(table, measure_a: str, measure_b: str, *, order: Sequence[int] | None = None,
