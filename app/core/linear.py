@@ -73,6 +73,20 @@ def constant_note(x: np.ndarray, y: np.ndarray) -> str:
     return ""
 
 
+def screen_pair(x: np.ndarray, y: np.ndarray, method: str = "") -> tuple[np.ndarray, np.ndarray, TestResult | None]:
+    """The pair's complete rows, and the undefined result when too few rows or a constant side.
+
+    Shared by the correlation coefficients, which all need at least ``MIN_ROWS``
+    rows and spread on both sides.
+    """
+    x, y = complete_pairs(x, y)
+    n = x.size
+    if n < MIN_ROWS:
+        return x, y, undefined(n, f"fewer than {MIN_ROWS} rows", method)
+    note = constant_note(x, y)
+    return x, y, (undefined(n, note, method) if note else None)
+
+
 def correlation_t_pvalue(r, n):
     """Two-sided p-value of the t-test of zero correlation, n-2 degrees of freedom.
 
@@ -300,13 +314,10 @@ def pearson(x: np.ndarray, y: np.ndarray, *, confidence: float = 0.95, permutati
     ('t, n-2 df', 40, True)
     """
     method = "t, n-2 df"
-    x, y = complete_pairs(x, y)
+    x, y, degenerate = screen_pair(x, y, method)
+    if degenerate is not None:
+        return degenerate
     n = x.size
-    if n < MIN_ROWS:
-        return undefined(n, f"fewer than {MIN_ROWS} rows", method)
-    note = constant_note(x, y)
-    if note:
-        return undefined(n, note, method)
     r = _direct_r(x, y)
     if math.isnan(r):
         return undefined(n, "column without spread after centring", method)

@@ -10,9 +10,9 @@ import numba
 import numpy as np
 from scipy import special
 
-from ..config import KENDALL_EXACT_MAX_N, MIN_ROWS
-from .linear import complete_pairs, constant_note, correlation_t_pvalue, pearson_matrix
-from .results import TestResult, undefined
+from ..config import KENDALL_EXACT_MAX_N
+from .linear import correlation_t_pvalue, pearson_matrix, screen_pair
+from .results import TestResult
 from .testing import fisher_z_interval
 
 __all__ = [
@@ -392,13 +392,10 @@ def spearman(x: np.ndarray, y: np.ndarray, *, confidence: float = 0.95) -> TestR
     ('t approximation, n-2 df', 60, True)
     """
     method = "t approximation, n-2 df"
-    x, y = complete_pairs(x, y)
+    x, y, degenerate = screen_pair(x, y, method)
+    if degenerate is not None:
+        return degenerate
     n = x.size
-    if n < MIN_ROWS:
-        return undefined(n, f"fewer than {MIN_ROWS} rows", method)
-    note = constant_note(x, y)
-    if note:
-        return undefined(n, note, method)
     rx, ry = midranks(x), midranks(y)
     rx -= (n + 1) / 2.0
     ry -= (n + 1) / 2.0
@@ -615,13 +612,9 @@ def kendall(x: np.ndarray, y: np.ndarray, *, confidence: float = 0.95, method: s
     >>> res.method, res.n, res.estimate == kendall(x, y, method="naive").estimate
     ('normal, tie-corrected variance', 80, True)
     """
-    x, y = complete_pairs(x, y)
-    n = x.size
-    if n < MIN_ROWS:
-        return undefined(n, f"fewer than {MIN_ROWS} rows")
-    note = constant_note(x, y)
-    if note:
-        return undefined(n, note)
+    x, y, degenerate = screen_pair(x, y)
+    if degenerate is not None:
+        return degenerate
     c = kendall_counts(x, y, method=method)
     return kendall_from_counts(c, confidence=confidence)
 
