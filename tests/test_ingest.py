@@ -17,6 +17,7 @@ import statistics
 import subprocess
 import sys
 import time
+import zlib
 from pathlib import Path
 
 import numpy as np
@@ -416,6 +417,10 @@ def test_row_and_column_limits(files, monkeypatch, name):
 def test_unexpected_parser_failure_becomes_ingest_error(files, monkeypatch):
     import pandas
 
+    from app import ingest
+
+    monkeypatch.setattr(ingest, "_FAST_NUMERIC_READER", False)  # this checks the general reader
+
     def broken(*args, **kwargs):
         raise RuntimeError("parser exploded\nsecond line")
 
@@ -483,3 +488,80 @@ def test_cli_refuses_every_bad_file_with_one_line(files):
         if "Traceback" in done.stderr or "Traceback" in done.stdout:
             problems.append(f"{name}: traceback printed")
     assert not problems, problems
+
+
+# --- the plain-numbers reader against the general reader (the oracle) ----------------------
+
+def _load_outcome(content: bytes, name: str, fast: bool, monkeypatch) -> tuple:
+    """Everything a load gives, comparable with ==: the table's fields, or the error line."""
+    from app import ingest
+
+    monkeypatch.setattr(ingest, "_FAST_NUMERIC_READER", fast)
+    try:
+        table = load_bytes(content, name)
+    except IngestError as exc:
+        return ("refused", str(exc))
+    def plain(value):
+        return "NaN" if isinstance(value, float) and value != value else value
+    return ("table", table.name, table.sha256, table.n_rows, table.columns, table.data.tobytes(),
+            [tuple(plain(v) for v in vars(c).values()) for c in table.info], table.notes, table.preview,
+            table.preview_header, table.format, table.encoding, table.delimiter, table.decimal)
+
+
+def test_plain_numbers_reader_is_taken_for_a_plain_numeric_file(monkeypatch):
+    # the speed path must really run (and import no pandas) on the files it is meant for
+    import sys
+
+    from app import ingest
+
+    calls = []
+    original = ingest._read_plain_numbers
+    monkeypatch.setattr(ingest, "_read_plain_numbers", lambda *a: calls.append(1) or original(*a))
+    table = load_bytes(b"a,b,c\n1,2.5,NA\n2,,3e2\n3,4,5\n-1,0.125,7\n", "plain.csv")
+    assert calls and table.columns == ["a", "b", "c"]
+    np.testing.assert_array_equal(table.data, [[1, 2.5, np.nan], [2, np.nan, 300], [3, 4, 5], [-1, 0.125, 7]])
+    script = ("import sys; from app.ingest import load_bytes; "
+              "load_bytes(b'a,b\\n1,2\\n3,4\\n5,7\\n', 'p.csv'); print('pandas' in sys.modules)")
+    done = subprocess.run([sys.executable, "-c", script], cwd=ROOT, capture_output=True, text=True, timeout=60)
+    assert done.stdout.strip() == "False", done.stderr
+
+
+def test_plain_numbers_reader_agrees_with_the_general_reader_on_the_corpus(files, monkeypatch):
+    for name, (_, path) in sorted(files.items()):
+        content = path.read_bytes()
+        assert _load_outcome(content, name, True, monkeypatch) == _load_outcome(content, name, False,
+                                                                                 monkeypatch), name
+
+
+# cells a numeric-looking file may hold, the awkward ones included; the general reader decides
+_CELLS = ["1", "-2", "+3", "0.5", ".5", "5.", "1e5", "1E-5", "2.5e+3", "-0", "007", "1e400", "1e-400",
+          "9007199254740993", "123456789012345678901234567890", "inf", "-inf", "Infinity", "+inf", "NaN",
+          "nan", "NAN", "NA", "", "null", "NULL", "None", "N/A", "#N/A", "-nan", " 1.5", "1.5 ", '"2.5"',
+          '" 3"', '""', "abc", "TRUE", "0x1A", "1_000", "1,5", "2024-01-05", "\u00a07"]
+
+
+@settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(
+    cells=st.lists(st.lists(st.one_of(st.sampled_from(_CELLS),
+                                      st.floats(allow_nan=False, width=64).map(repr)),
+                            min_size=3, max_size=3), min_size=1, max_size=12),
+    plain_share=st.sampled_from([0.0, 0.9, 1.0]),
+    delimiter=st.sampled_from([",", ";", "\t", "|"]),
+    newline=st.sampled_from(["\n", "\r\n"]),
+    blank_rows=st.booleans(),
+    short_row=st.booleans(),
+)
+def test_plain_numbers_reader_agrees_with_the_general_reader(cells, plain_share, delimiter, newline,
+                                                            blank_rows, short_row, monkeypatch):
+    # mostly plain numbers, so that the speed path is really taken in many examples
+    rows = [[c if (zlib.crc32(f"{i},{j},{c}".encode()) % 10) / 10 >= plain_share else repr(float(i * 3 + j) / 4)
+             for j, c in enumerate(row)] for i, row in enumerate(cells)]
+    lines = [delimiter.join(["x", "y", "z"])] + [delimiter.join(r) for r in rows]
+    if blank_rows:
+        lines.insert(2, delimiter * 2)
+        lines.append("")
+    if short_row:
+        lines.append(delimiter.join(["4", "5"]))
+    content = (newline.join(lines) + newline).encode("utf-8")
+    assert _load_outcome(content, "cells.csv", True, monkeypatch) == _load_outcome(content, "cells.csv", False,
+                                                                                   monkeypatch)
