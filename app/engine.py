@@ -11,6 +11,7 @@ import contextlib
 import gc
 import math
 import os
+import threading
 import time
 from dataclasses import asdict, dataclass, field
 from typing import Callable, Iterable, Sequence
@@ -349,8 +350,8 @@ def _fast_measure(measure: str, work: tuple, swapped: bool, a: Variable, b: Vari
         r, l = allpairs.rank_counts(bv, b_order)
         return chatterjee.xi_from_order(order, r, l, permutations=settings.permutations, seed=seed)
     if measure == "pearson" and not settings.permutations:
-        # the registry's call without the (unused) seed: O(n) numpy on the rows
-        return linear.pearson(av, bv, confidence=settings.confidence)
+        # the registry's call without the (unused) seed, past the screening this pair has passed
+        return linear.pearson_screened(av, bv, confidence=settings.confidence)
     # anything without a presorted form
     return _compute_one(measure, av, bv, a.name, b.name, settings, False, False)
 
@@ -391,6 +392,15 @@ def _warm(settings: AnalysisSettings) -> None:
     _fast_pair_rows(prepare_columns(tiny, variables), variables[0], variables[1], light)
     with _one_blas_thread():  # finds the BLAS library once, before the workers fork
         pass
+
+
+def warm_kernels(settings: AnalysisSettings) -> None:
+    """Load the compiled kernels ``settings`` will use, e.g. while a file is read (thread-safe)."""
+    with _WARM_LOCK:
+        _warm(settings)
+
+
+_WARM_LOCK = threading.Lock()
 
 
 def prepare_columns(data: np.ndarray, variables: Sequence[Variable],
@@ -515,7 +525,7 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
         # Sorted once here; forked workers share the orders copy-on-write, and the
         # kernels they call are already loaded. Remote workers sort for themselves.
         prepared = prepare_columns(data, variables, row_mask)
-        _warm(settings)
+        warm_kernels(settings)
     frozen = isinstance(executor, ProcessExecutor) and gc.isenabled()
     if frozen:
         # Objects that exist before the fork are never collected in the workers, so

@@ -84,3 +84,11 @@ def test_bad_invocations_exit_2_with_one_line(small_csv, args):
     lines = [line for line in out.stderr.splitlines() if line.strip()]
     assert len(lines) == 1, out.stderr
     assert "Traceback" not in out.stderr + out.stdout
+
+
+def test_a_bad_file_is_reported_before_bad_options(small_csv):
+    # the options are checked while the file is read; the file's problem still comes first
+    both = _run("pairs", "missing-file.csv", "--measures", "pearson,unknown")
+    assert both.returncode == 2 and both.stderr.startswith("missing-file.csv: file not found"), both.stderr
+    options = _run("pairs", str(small_csv), "--measures", "pearson,unknown")
+    assert options.returncode == 2 and "unknown" in options.stderr and "Traceback" not in options.stderr

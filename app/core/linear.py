@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 
+import numba
 import numpy as np
 from scipy import special
 
@@ -19,30 +20,71 @@ __all__ = ["pearson", "pearson_matrix", "correlation_t_pvalue", "complete_pairs"
 _ILL_CONDITIONED = 1e-8
 
 
-def _centred_unit(v: np.ndarray) -> np.ndarray | None:
-    # Centre before scaling: subtracting nearby values is exact, dividing first is not.
-    # The second pass removes the rounding left in the first mean.
-    centred = v - v.mean()
-    centred -= centred.mean()
-    # Scaling by the largest magnitude keeps the squares from overflowing or underflowing.
-    peak = float(np.max(np.abs(centred)))
-    if peak == 0.0 or not math.isfinite(peak):
-        return None
-    centred /= peak
-    norm = math.sqrt(float(np.dot(centred, centred)))
-    if norm == 0.0 or not math.isfinite(norm):
-        return None
-    return centred / norm
+@numba.njit(cache=True, nogil=True)
+def _mean(v):
+    # blocks of 256 summed apart, then the block sums (see _r_kernel)
+    n = v.shape[0]
+    total = 0.0
+    for start in range(0, n, 256):
+        block = 0.0
+        for k in range(start, min(start + 256, n)):
+            block += v[k]
+        total += block
+    return total / n
+
+
+@numba.njit(cache=True, nogil=True)
+def _centred_scaled(v):
+    """v minus its mean (two passes: the second removes the first mean's rounding), divided by its
+    largest magnitude so that squares can neither overflow nor underflow; (values, peak)."""
+    n = v.shape[0]
+    m = _mean(v)
+    out = np.empty(n)
+    for k in range(n):
+        out[k] = v[k] - m
+    m2 = _mean(out)
+    peak = 0.0
+    for k in range(n):
+        out[k] -= m2
+        a = abs(out[k])
+        if a > peak or a != a:
+            peak = a
+    if peak > 0.0 and peak < np.inf:
+        for k in range(n):
+            out[k] /= peak
+    return out, peak
+
+
+@numba.njit(cache=True, nogil=True)
+def _r_kernel(x, y):
+    """r of complete arrays with spread, in four passes; NaN when a side has none after centring."""
+    cx, px = _centred_scaled(x)
+    cy, py = _centred_scaled(y)
+    if not (px > 0.0 and px < np.inf and py > 0.0 and py < np.inf):
+        return np.nan
+    n = cx.shape[0]
+    sxx = syy = sxy = 0.0
+    # blocks of 256 summed apart, then the block sums: rounding grows with 256 + n/256
+    # terms rather than n (numpy's pairwise summation does the same)
+    for start in range(0, n, 256):
+        bxx = byy = bxy = 0.0
+        for k in range(start, min(start + 256, n)):
+            bxx += cx[k] * cx[k]
+            byy += cy[k] * cy[k]
+            bxy += cx[k] * cy[k]
+        sxx += bxx
+        syy += byy
+        sxy += bxy
+    if not (sxx > 0.0 and syy > 0.0):
+        return np.nan
+    return min(1.0, max(-1.0, sxy / (np.sqrt(sxx) * np.sqrt(syy))))
 
 
 def _direct_r(x: np.ndarray, y: np.ndarray) -> float:
     """Two-pass r of complete arrays; NaN when a side is constant."""
     if x.size < 2 or np.all(x == x[0]) or np.all(y == y[0]):
         return math.nan
-    ux, uy = _centred_unit(x), _centred_unit(y)
-    if ux is None or uy is None:
-        return math.nan
-    return min(1.0, max(-1.0, float(np.dot(ux, uy))))
+    return float(_r_kernel(np.ascontiguousarray(x, dtype=np.float64), np.ascontiguousarray(y, dtype=np.float64)))
 
 
 def complete_pairs(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -114,6 +156,12 @@ def correlation_t_pvalue(r, n):
     >>> round(float(correlation_t_pvalue(0.3, 50)), 6)
     0.034286
     """
+    if isinstance(r, float) and isinstance(n, int):
+        # one pair: the same operations on scalars, without the array machinery
+        if not n >= MIN_ROWS or r != r:
+            return math.nan
+        r = min(1.0, max(-1.0, r))
+        return float(special.betainc((n - 2.0) / 2.0, 0.5, (1.0 - r) * (1.0 + r)))
     r_arr = np.clip(np.asarray(r, dtype=float), -1.0, 1.0)
     n_arr = np.asarray(n, dtype=float)
     df = n_arr - 2.0
@@ -317,8 +365,18 @@ def pearson(x: np.ndarray, y: np.ndarray, *, confidence: float = 0.95, permutati
     x, y, degenerate = screen_pair(x, y, method)
     if degenerate is not None:
         return degenerate
+    return pearson_screened(x, y, confidence=confidence, permutations=permutations, seed=seed)
+
+
+def pearson_screened(x: np.ndarray, y: np.ndarray, *, confidence: float = 0.95, permutations: int = 0,
+                     seed=None) -> TestResult:
+    """:func:`pearson` of a pair that passed :func:`screen_pair` (complete, >= 3 rows, spread on both sides).
+
+    The engine's presorted path has screened the pair already; both paths end here.
+    """
+    method = "t, n-2 df"
     n = x.size
-    r = _direct_r(x, y)
+    r = float(_r_kernel(np.ascontiguousarray(x, dtype=np.float64), np.ascontiguousarray(y, dtype=np.float64)))
     if math.isnan(r):
         return undefined(n, "column without spread after centring", method)
     if permutations > 0:
