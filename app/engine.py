@@ -318,6 +318,14 @@ def compute_pair(data: np.ndarray, xvar: Variable, yvar: Variable, settings: Ana
     return rows
 
 
+def _distance_statistics(cache: dict, dist_inputs: tuple) -> "distance.DistanceStatistics":
+    """The pair's distance statistics, computed once for dCor, its bias-corrected form and Kendall."""
+    st = cache.get("distance")
+    if st is None:
+        st = cache["distance"] = distance.centred_statistics_presorted(*dist_inputs)
+    return st
+
+
 def _fast_measure(measure: str, work: tuple, swapped: bool, a: Variable, b: Variable,
                   settings: AnalysisSettings, cache: dict) -> TestResult:
     """One measure of a regular pair (>= 3 rows, no constant side) from the presorted orders.
@@ -332,13 +340,13 @@ def _fast_measure(measure: str, work: tuple, swapped: bool, a: Variable, b: Vari
         return rank.spearman_from_sums(sums[0], sums[1], sums[2], n, confidence=settings.confidence)
     if measure == "kendall":
         d, tx, ty, txy, x3, x5, y3, y5 = counts
+        if d < 0:  # counted with the distance cross sum
+            d = _distance_statistics(cache, dist_inputs).discordant
         kc = rank.KendallCounts(n, int(d), int(tx), int(ty), int(txy), float(x3), float(x5),
                                 float(y3), float(y5))
         return rank.kendall_from_counts(kc, confidence=settings.confidence)
     if measure in ("dcor", "dcor_bc") and n >= 4:
-        st = cache.get("distance")
-        if st is None:
-            st = cache["distance"] = distance.centred_statistics_presorted(*dist_inputs)
+        st = _distance_statistics(cache, dist_inputs)
         # the seed only drives resamples; without them it is not drawn from
         seed = pair_seed(settings.seed, a.name, b.name, measure) if settings.permutations else None
         finish = distance.dcor_from_statistics if measure == "dcor" else distance.dcor_bc_from_statistics

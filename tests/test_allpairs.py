@@ -141,12 +141,18 @@ def test_centring_that_merges_distinct_values():
     x = np.array([1.0 + eps, -1.0, 1.0, -1.0, -2.0, -1.0, -3.0, 1.0 + eps, 1.0, -1.0, -1.5])
     rng = np.random.default_rng(13)
     y = rng.normal(size=x.size)
-    data = np.column_stack([x, y, y[::-1]])
-    settings = AnalysisSettings(measures=("dcor", "dcor_bc"), permutations=29)
-    _assert_rows_equal(_fast_table(data, ["x", "y", "z"], settings),
-                       _oracle_rows(data, ["x", "y", "z"], settings))
+    # x first and last, so that the merged column is once the x and once the y of a pair;
+    # Kendall's discordant pairs then cannot come from the distance tree
+    data = np.column_stack([x, y, y[::-1], x[::-1]])
+    names = ["x", "y", "z", "w"]
+    settings = AnalysisSettings(measures=("kendall", "dcor", "dcor_bc"), permutations=29)
+    _assert_rows_equal(_fast_table(data, names, settings), _oracle_rows(data, names, settings))
     xc = x - np.median(x)
     assert xc[0] == xc[2]  # the case is real
+    prep = allpairs.prepare_columns(data)
+    for i, j in ((0, 1), (1, 3)):
+        _, _, _, counts, _ = allpairs.pair_work(prep, i, j, 3, spearman=False, kendall=True, distance=True)
+        assert counts[0] >= 0  # complete counts, not left to the tree
 
 
 def test_infinite_values_take_the_per_pair_path():
@@ -249,8 +255,10 @@ def test_one_call_kernels_are_the_separate_steps():
     y_sorted = yv[y_order]
     arow = distance._row_sums_sorted(xv)
     brow_sorted = distance._row_sums_sorted(y_sorted)
-    expected = (xv, yv, yr, arow, brow_sorted, brow_sorted[yr], distance._cross_sum(xv, yv, yr),
-                distance._third_quantities_1d(xv, arow), distance._third_quantities_1d(y_sorted, brow_sorted))
+    cross, discordant = distance._cross_sum(xv, yv, yr)
+    expected = (xv, yv, yr, arow, brow_sorted, brow_sorted[yr], cross,
+                distance._third_quantities_1d(xv, arow), distance._third_quantities_1d(y_sorted, brow_sorted),
+                discordant)
     got = distance._sorted_kernels(xc, yc, order, y_order)
     for e, g in zip(expected, got):
         if isinstance(e, np.ndarray):
@@ -262,9 +270,47 @@ def test_one_call_kernels_are_the_separate_steps():
     regular, v2, sums, counts, dist = allpairs.pair_work(prep, 0, 1, 3, spearman=True, kendall=True,
                                                          distance=True)
     assert regular and sums == allpairs.spearman_sums(view)
-    assert counts == allpairs.kendall_counts_view(view)
+    # with the distance orders asked for too, the discordant pairs come from the cross sum
+    full = allpairs.kendall_counts_view(view)
+    assert counts[0] == -1 and counts[1:] == full[1:]
+    assert distance.centred_statistics_presorted(*dist).discordant == full[0]
     for e, g in zip(allpairs.distance_orders(view), dist):
         np.testing.assert_array_equal(g, e)
+    _, _, _, alone, _ = allpairs.pair_work(prep, 0, 1, 3, spearman=False, kendall=True, distance=False)
+    assert alone == full
+
+
+@pytest.mark.parametrize("seed", range(12))
+def test_cross_sum_counts_the_discordant_pairs(seed):
+    # the count part of the cross sum's tree against the O(n^2) definition and
+    # against scipy.stats.kendalltau's statistic rebuilt from the counts
+    rng = np.random.default_rng(300 + seed)
+    n = int(rng.integers(4, 160))
+    x = np.round(rng.normal(size=n) * rng.choice([1, 3, 100]))
+    y = np.round(0.5 * x + rng.normal(size=n) * rng.choice([1, 2, 50]))
+    sign = np.sign(x[:, None] - x[None, :]) * np.sign(y[:, None] - y[None, :])
+    naive = int((sign < 0).sum() // 2)
+    xc, yc = x - np.median(x), y - np.median(y)
+    order = np.argsort(xc, kind="mergesort")
+    y_order = np.argsort(yc[order], kind="mergesort")
+    st = distance.centred_statistics_presorted(xc, yc, order, y_order)
+    assert st.discordant == naive
+    # the cross sum itself still equals the O(n^2) sum (the dcor library's definition)
+    a = np.abs(x[:, None] - x[None, :])
+    b = np.abs(y[:, None] - y[None, :])
+    xv, yv = xc[order], yc[order]
+    yr = np.empty(n, np.int64)
+    yr[y_order] = np.arange(n)
+    np.testing.assert_allclose(distance._cross_sum(xv, yv, yr)[0], float((a * b).sum()), rtol=1e-12)
+    # tau-b from the fused counts (ties from pair_work, discordant from the tree)
+    prep = allpairs.prepare_columns(np.column_stack([x, y]))
+    regular, _, _, counts, dist = allpairs.pair_work(prep, 0, 1, 3, spearman=False, kendall=True, distance=True)
+    if regular:
+        d = distance.centred_statistics_presorted(*dist).discordant if counts[0] < 0 else counts[0]
+        _, tied_x, tied_y, tied_xy = counts[:4]
+        n0 = n * (n - 1) // 2
+        tau_b = (n0 - tied_x - tied_y + tied_xy - 2 * d) / math.sqrt((n0 - tied_x) * (n0 - tied_y))
+        np.testing.assert_allclose(tau_b, scipy.stats.kendalltau(x, y).statistic, rtol=1e-12, atol=1e-15)
 
 
 def test_median_from_the_order_is_numpys():

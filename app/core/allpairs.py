@@ -182,28 +182,33 @@ def _kendall_counts(xp, ox, yp, oy):
 
 
 @numba.njit(cache=True, nogil=True)
-def _distance_orders(xp, xc, ox, yc, oy):
+def _distance_orders(xp, xc, ox, yp, yc, oy):
     """(argsort(xc), argsort(yc[argsort(xc)])), both stable, from the orders of x and y.
 
     Centring is monotone, so the x order stays sorted; two different x that
     round to the same centred value must then be ordered by row, as a stable
     sort of xc would order them. The y order groups equal centred y and lists
     each group in x-order position, which is what the stable sort of y in x
-    order gives.
+    order gives. ``merged`` is True when centring made two different values
+    of x or of y equal (the ties of the centred columns are then not the data's).
     """
     n = xc.shape[0]
     order = ox.copy()
+    merged = False
     start = 0
     for i in range(1, n + 1):
         if i == n or xc[order[i]] != xc[order[start]]:
             if i - start > 1 and xp[order[start]] != xp[order[i - 1]]:
                 order[start:i] = np.sort(order[start:i])
+                merged = True
             start = i
     group = np.empty(n, np.int64)
     fill = np.empty(n, np.int64)
     start = 0
     for i in range(1, n + 1):
         if i == n or yc[oy[i]] != yc[oy[start]]:
+            if i - start > 1 and yp[oy[start]] != yp[oy[i - 1]]:
+                merged = True
             for k in range(start, i):
                 group[oy[k]] = start
             fill[start] = start
@@ -213,7 +218,31 @@ def _distance_orders(xp, xc, ox, yc, oy):
         g = group[order[k]]
         y_order[fill[g]] = k
         fill[g] += 1
-    return order, y_order
+    return order, y_order, merged
+
+
+@numba.njit(cache=True, nogil=True)
+def _kendall_ties(xp, ox, yp, oy):
+    """Knight's counts without the discordant pairs (returned as -1): the tie sums of
+    each side, and the pairs tied on both, counted per run of x with a tally of y ranks."""
+    n = ox.shape[0]
+    tied_x, x_t3, x_t5, x_dense, _ = _run_sums(xp, ox)
+    tied_y, y_t3, y_t5, y_dense, levels = _run_sums(yp, oy)
+    tied_xy = 0
+    if tied_x > 0 and tied_y > 0:
+        tally = np.zeros(levels, np.int64)
+        start = 0
+        for i in range(1, n + 1):
+            if i == n or x_dense[ox[i]] != x_dense[ox[start]]:
+                if i - start > 1:
+                    for k in range(start, i):
+                        level = y_dense[ox[k]]
+                        tied_xy += tally[level]
+                        tally[level] += 1
+                    for k in range(start, i):
+                        tally[y_dense[ox[k]]] = 0
+                start = i
+    return -1, tied_x, tied_y, tied_xy, x_t3, x_t5, y_t3, y_t5
 
 
 @numba.njit(cache=True, nogil=True)
@@ -277,12 +306,11 @@ def _pair_work(xcol, ycol, xorder, xcount, yorder, ycount, xpresent, ypresent, m
         return regular, xp, yp, ox, oy, sums, counts, empty_f, empty_f, empty_i, empty_i
     if want_spearman:
         sums = _spearman_sums(xp, ox, yp, oy)
-    if want_kendall:
-        counts = _kendall_counts(xp, ox, yp, oy)
     xc = empty_f
     yc = empty_f
     order = empty_i
     y_order = empty_i
+    merged = True
     if want_distance:
         if n % 2:
             mx = xp[ox[n // 2]]
@@ -292,7 +320,13 @@ def _pair_work(xcol, ycol, xorder, xcount, yorder, ycount, xpresent, ypresent, m
             my = (yp[oy[n // 2 - 1]] + yp[oy[n // 2]]) / 2.0
         xc = xp - mx
         yc = yp - my
-        order, y_order = _distance_orders(xp, xc, ox, yc, oy)
+        order, y_order, merged = _distance_orders(xp, xc, ox, yp, yc, oy)
+    if want_kendall:
+        if want_distance and n >= 4 and not merged:
+            # the discordant pairs come with the distance cross sum (counts[0] = -1 until then)
+            counts = _kendall_ties(xp, ox, yp, oy)
+        else:
+            counts = _kendall_counts(xp, ox, yp, oy)
     return regular, xp, yp, ox, oy, sums, counts, xc, yc, order, y_order
 
 
@@ -460,7 +494,7 @@ def distance_orders(view: PairView) -> tuple[np.ndarray, np.ndarray, np.ndarray,
     """
     xc = view.x - median_sorted(view.x, view.x_order)
     yc = view.y - median_sorted(view.y, view.y_order)
-    order, y_order = _distance_orders(view.x, xc, view.x_order, yc, view.y_order)
+    order, y_order, _ = _distance_orders(view.x, xc, view.x_order, view.y, yc, view.y_order)
     return xc, yc, order, y_order
 
 
@@ -489,6 +523,12 @@ def pair_work(prep: PreparedColumns, i: int, j: int, min_rows: int, *, spearman:
     constant (the rest is then not computed); the other parts are what
     :func:`spearman_sums`, :func:`kendall_counts_view` and
     :func:`distance_orders` return, or None when not asked for.
+
+    When both Kendall and the distance orders are asked for (and n >= 4),
+    ``kendall_counts[0]`` is -1: the discordant pairs are then
+    ``DistanceStatistics.discordant`` of the same pair, counted by the cross
+    sum's Fenwick tree, unless centring merged two values of a column (then
+    the counts are complete here).
     """
     regular, xp, yp, ox, oy, sums, counts, xc, yc, order, y_order = _pair_work(
         prep.values[:, i], prep.values[:, j], prep.orders[:, i], int(prep.counts[i]), prep.orders[:, j],

@@ -114,14 +114,20 @@ def _gap_traces(xs):
 
 @numba.njit(cache=True, nogil=True)
 def _cross_sum(xv, yv, yr):
-    """sum_{i,j} |x_i - x_j| |y_i - y_j| in O(n log n).
+    """sum_{i,j} |x_i - x_j| |y_i - y_j| in O(n log n), and the discordant pairs.
 
     xv ascending (rows in x order), yv the y values of the same rows, yr their
-    0-based positions in y order (a permutation of 0..n-1). For each row k the
-    earlier rows j (x_j <= x_k) are split by a Fenwick tree over y positions
-    into y_j below / above y_k; the tree holds the weights 1, x, y, xy, so
-    sum_j (x_k - x_j) |y_k - y_j| follows from four prefix sums.
-    Ties in x or y contribute a zero factor whichever side they fall on.
+    0-based positions in y order (a permutation of 0..n-1; tied y in x order).
+    For each row k the rows j of smaller x are split by a Fenwick tree over y
+    positions into y_j below / above y_k; the tree holds the weights 1, x, y,
+    xy, so sum_j (x_k - x_j) |y_k - y_j| follows from four prefix sums. Rows
+    of tied x enter the tree only once x changes: pairs within a run have a
+    zero factor and are left out.
+
+    The count part of the tree gives, for free, the pairs with x_j < x_k and
+    y_j > y_k: Kendall's discordant pairs, when the ties of xv and yv are
+    those of the data (the engine checks that centring merged no values).
+    Returns (sum, discordant).
     """
     n = xv.shape[0]
     tree = np.zeros((n + 1, 4))
@@ -129,9 +135,26 @@ def _cross_sum(xv, yv, yr):
     sum_y = 0.0
     sum_xy = 0.0
     half = 0.0
+    discordant = 0.0   # a sum of counts: exact in float64 below 2^53
+    run_start = 0      # rows from here to k - 1 share k's x and are not in the tree yet
     for k in range(n):
         x = xv[k]
         y = yv[k]
+        if k > 0 and x != xv[k - 1]:
+            for j in range(run_start, k):
+                xj = xv[j]
+                yj = yv[j]
+                i = yr[j] + 1
+                while i <= n:
+                    tree[i, 0] += 1.0
+                    tree[i, 1] += xj
+                    tree[i, 2] += yj
+                    tree[i, 3] += xj * yj
+                    i += i & (-i)
+                sum_x += xj
+                sum_y += yj
+                sum_xy += xj * yj
+            run_start = k
         c_lo = 0.0
         x_lo = 0.0
         y_lo = 0.0
@@ -144,19 +167,10 @@ def _cross_sum(xv, yv, yr):
             xy_lo += tree[i, 3]
             i -= i & (-i)
         # lower part counted +, upper part (earlier total minus lower) counted -
-        half += ((2.0 * c_lo - k) * x * y - x * (2.0 * y_lo - sum_y)
+        half += ((2.0 * c_lo - run_start) * x * y - x * (2.0 * y_lo - sum_y)
                  - y * (2.0 * x_lo - sum_x) + (2.0 * xy_lo - sum_xy))
-        i = yr[k] + 1
-        while i <= n:
-            tree[i, 0] += 1.0
-            tree[i, 1] += x
-            tree[i, 2] += y
-            tree[i, 3] += x * y
-            i += i & (-i)
-        sum_x += x
-        sum_y += y
-        sum_xy += x * y
-    return 2.0 * half
+        discordant += run_start - c_lo
+    return 2.0 * half, int(discordant)
 
 
 @numba.njit(cache=True, nogil=True)
@@ -199,7 +213,7 @@ def _permuted_sums_1d(xv, arow, order, y, yr, brow, uniforms):
             rp[k] = yr[p]
             acc += arow[k] * brow[p]
         s2[b] = acc
-        s1[b] = _cross_sum(xv, yp, rp)
+        s1[b] = _cross_sum(xv, yp, rp)[0]
     return s1, s2
 
 
@@ -540,10 +554,10 @@ def _sorted_kernels(xc, yc, order, y_order):
     brow = np.empty(n)
     for k in range(n):
         brow[k] = brow_sorted[yr[k]]
-    s1 = _cross_sum(xv, yv, yr)
+    s1, discordant = _cross_sum(xv, yv, yr)
     parts_x = _third_quantities_1d_fused(xv, arow)
     parts_y = _third_quantities_1d_fused(y_sorted, brow_sorted)
-    return xv, yv, yr, arow, brow_sorted, brow, s1, parts_x, parts_y
+    return xv, yv, yr, arow, brow_sorted, brow, s1, parts_x, parts_y, discordant
 
 
 @numba.njit(cache=True, nogil=True)
@@ -612,6 +626,9 @@ class DistanceStatistics(NamedTuple):
     moment. ``resample`` maps a
     NumPy generator and a number of resamples to the permutation values of
     n * dcov2; ``scale`` is the typical size of its terms (tie tolerance).
+    ``discordant`` (univariate fast path only, else -1) counts the pairs with
+    x_i < x_j and y_i > y_j of the centred columns, a by-product of the cross
+    sum that Kendall's tau can use.
     """
 
     n: int
@@ -633,6 +650,7 @@ class DistanceStatistics(NamedTuple):
     third_y: tuple
     resample: Callable[[np.random.Generator, int], np.ndarray]
     scale: float
+    discordant: int = -1
 
 
 def _v_from_sums(n, s1, s2, ta, tb):
@@ -673,7 +691,7 @@ def _third_vector(n, dvar2, parts):
     return (t ** 3, t * dd, ddd, t * n * n * dvar2, q4, tr3, q6, q7)
 
 
-def _from_sums(n, s1, s2, arow, brow, s_aa, s_bb, parts_x, parts_y, resample):
+def _from_sums(n, s1, s2, arow, brow, s_aa, s_bb, parts_x, parts_y, resample, discordant=-1):
     """parts_*: (tr A, sum A_ii^2, sum A_ii^3, sum_u A_uu (A^2)_uu, tr A^3, sum A_uv^3, d'Ad)."""
     ta = float(arow.sum())
     tb = float(brow.sum())
@@ -699,6 +717,7 @@ def _from_sums(n, s1, s2, arow, brow, s_aa, s_bb, parts_x, parts_y, resample):
         third_y=_third_vector(n, dvar2_y, parts_y),
         resample=resample,
         scale=n * (abs(s1) / n**2 + 2.0 * abs(s2) / n**3 + abs(ta * tb) / n**4),
+        discordant=int(discordant),
     )
 
 
@@ -715,7 +734,7 @@ def _fast_statistics(x, y):
 def _fast_statistics_ordered(xc, yc, order, y_order):
     """The O(n log n) statistics once the (median-centred) columns are sorted."""
     n = xc.shape[0]
-    xv, yv, yr, arow, brow_sorted, brow, s1, parts_x, parts_y = _sorted_kernels(
+    xv, yv, yr, arow, brow_sorted, brow, s1, parts_x, parts_y, discordant = _sorted_kernels(
         xc, yc, np.ascontiguousarray(order, dtype=np.int64), np.ascontiguousarray(y_order, dtype=np.int64))
     # numpy's own sums and products, as before (pairwise summation and BLAS give these bits)
     ta = float(arow.sum())
@@ -735,7 +754,7 @@ def _fast_statistics_ordered(xc, yc, order, y_order):
                            np.ascontiguousarray(yc), yr_orig, brow_orig)
         return inner(rng, n_resamples)
 
-    return _from_sums(n, s1, s2, arow, brow, s_aa, s_bb, parts_x, parts_y, resample)
+    return _from_sums(n, s1, s2, arow, brow, s_aa, s_bb, parts_x, parts_y, resample, discordant)
 
 
 def _blocked_statistics(x, y):
