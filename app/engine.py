@@ -524,7 +524,8 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
     workers = workers or os.cpu_count() or 1
     owned = executor is None
     if executor is None:
-        executor = make_executor(workers=workers, cluster=cluster, n_tasks=len(pairs), n_rows=data.shape[0])
+        executor = make_executor(workers=workers, cluster=cluster, n_tasks=len(pairs), n_rows=data.shape[0],
+                                 resamples=settings.permutations)
     tiles = _tiles(pairs, getattr(executor, "parallelism", workers))
     results: list[list[PairRow] | None] = [None] * len(tiles)
     done_pairs = 0

@@ -78,13 +78,15 @@ class ProcessExecutor:
 
 
 def make_executor(*, workers: int | None = None, cluster: str | None = None, n_tasks: int = 0,
-                  n_rows: int = 0) -> Executor:
+                  n_rows: int = 0, resamples: int = 0) -> Executor:
     """The executor for a run: Dask when a cluster address is given, else local."""
     if cluster:
         from .dask_executor import DaskExecutor
 
         return DaskExecutor(cluster)
     workers = workers or os.cpu_count() or 1
-    if workers <= 1 or n_tasks * max(n_rows, 1) < _PARALLEL_MIN_WORK or n_tasks < 2:
+    # each permutation resample costs about as much as the pair's statistic itself
+    work = n_tasks * max(n_rows, 1) * (1 + max(resamples, 0))
+    if workers <= 1 or work < _PARALLEL_MIN_WORK or n_tasks < 2:
         return SerialExecutor()
     return ProcessExecutor(min(workers, n_tasks))

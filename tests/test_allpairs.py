@@ -255,7 +255,7 @@ def test_one_call_kernels_are_the_separate_steps():
     y_sorted = yv[y_order]
     arow = distance._row_sums_sorted(xv)
     brow_sorted = distance._row_sums_sorted(y_sorted)
-    cross, discordant = distance._cross_sum(xv, yv, yr)
+    cross, discordant = distance._cross_sum_discordant(xv, yv, yr)
     expected = (xv, yv, yr, arow, brow_sorted, brow_sorted[yr], cross,
                 distance._third_quantities_1d(xv, arow), distance._third_quantities_1d(y_sorted, brow_sorted),
                 discordant)
@@ -301,7 +301,8 @@ def test_cross_sum_counts_the_discordant_pairs(seed):
     xv, yv = xc[order], yc[order]
     yr = np.empty(n, np.int64)
     yr[y_order] = np.arange(n)
-    np.testing.assert_allclose(distance._cross_sum(xv, yv, yr)[0], float((a * b).sum()), rtol=1e-12)
+    np.testing.assert_allclose(distance._cross_sum_discordant(xv, yv, yr)[0], float((a * b).sum()), rtol=1e-12)
+    np.testing.assert_allclose(distance._cross_sum(xv, yv, yr), float((a * b).sum()), rtol=1e-12)
     # tau-b from the fused counts (ties from pair_work, discordant from the tree)
     prep = allpairs.prepare_columns(np.column_stack([x, y]))
     regular, _, _, counts, dist = allpairs.pair_work(prep, 0, 1, 3, spearman=False, kendall=True, distance=True)

@@ -65,8 +65,12 @@ _BAND = "rgba(180, 71, 43, 0.14)"
 
 
 def plot_text(text: str) -> str:
-    """Text for a Plotly label: Plotly reads a small HTML subset, so escape it to show as typed."""
-    return html.escape(str(text), quote=False)
+    """Text for a Plotly label: Plotly reads a small HTML subset, so escape it to show as typed.
+
+    A column name goes into hover templates too, where ``%{...}`` would be
+    replaced by a value; the brace becomes an entity, which Plotly shows as "{".
+    """
+    return html.escape(str(text), quote=False).replace("%{", "%&#123;")
 
 
 def _fmt(v, digits: int = 3) -> str:
