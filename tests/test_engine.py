@@ -169,3 +169,13 @@ def test_note_is_empty_for_defined_values_and_method_is_kept():
     res = run_analysis(data, names, _settings(measures="pearson,kendall,dcor"), workers=1)
     for r in res.rows:
         assert math.isfinite(r.estimate) and r.note == "" and r.method
+
+
+def test_permutations_count_as_work_when_choosing_local_workers():
+    # 66 pairs of 2,000 rows are too little work to fork for, 999 resamples of each are not
+    from app.executors import ProcessExecutor, SerialExecutor, make_executor
+
+    assert isinstance(make_executor(workers=2, n_tasks=66, n_rows=2000), SerialExecutor)
+    chosen = make_executor(workers=2, n_tasks=66, n_rows=2000, resamples=999)
+    assert isinstance(chosen, ProcessExecutor) and chosen.parallelism == 2
+    assert isinstance(make_executor(workers=1, n_tasks=66, n_rows=2000, resamples=999), SerialExecutor)
