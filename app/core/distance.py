@@ -462,7 +462,10 @@ def _third_quantities_1d_fused(xs, arow):
     Every accumulator sees the same expressions in the same order as in
     _third_quantities_1d, _weighted_row_sums_sorted and _gap_traces (which
     stay as its test oracle); only independent loops are merged, so the
-    floating-point results are identical while the passes overlap.
+    floating-point results are identical while the passes overlap. The sums
+    over d = A_uu = -2 c are not accumulated: scaling by a power of two is
+    exact in binary floating point, so every sum of d-terms is the matching
+    c-sum times -2, 4 or -8, the very bits the oracle's own loops produce.
     """
     n = xs.shape[0]
     m = n - 1
@@ -475,7 +478,6 @@ def _third_quantities_1d_fused(xs, arow):
         sxx += xs[k] * xs[k]
     g /= n * n
     c = np.empty(n)
-    d = np.empty(n)
     # The divisions, in loops without a running sum so that they vectorise;
     # u_k = (k + 1)/n, and (n - k - 1)/n is u_(n-2-k) (the same exact operands).
     for k in range(n):
@@ -485,15 +487,9 @@ def _third_quantities_1d_fused(xs, arow):
         u[k] = (k + 1.0) / n
     tot_wc = 0.0
     tot_xwc = 0.0
-    tot_wd = 0.0
-    tot_xwd = 0.0
     c1 = 0.0
     c2 = 0.0
     c3 = 0.0
-    t = 0.0
-    dd = 0.0
-    ddd = 0.0
-    dc = 0.0
     a3 = 0.0
     p1 = 0.0
     p2 = 0.0
@@ -502,20 +498,12 @@ def _third_quantities_1d_fused(xs, arow):
     acc = 0.0
     for k in range(n):
         ck = c[k]
-        dk = -2.0 * ck
-        d[k] = dk
         tot_wc += ck
         tot_xwc += xs[k] * ck
-        tot_wd += dk
-        tot_xwd += xs[k] * dk
         x = xs[k]
         c1 += ck
         c2 += ck * ck
         c3 += ck * ck * ck
-        t += dk
-        dd += dk * dk
-        ddd += dk * dk * dk
-        dc += dk * ck
         a3 += k * x * x * x - 3.0 * x * x * p1 + 3.0 * x * p2 - p3
         p1 += x
         p2 += x * x
@@ -526,35 +514,33 @@ def _third_quantities_1d_fused(xs, arow):
             wj = 2.0 * (xs[j + 1] - xs[j])
             vj = u[n - 2 - j]
             acc += wj * vj * vj
+    # sum d, sum d^2, sum d^3, sum d c with d = -2c
+    t = -2.0 * c1
+    dd = 4.0 * c2
+    ddd = -8.0 * c3
+    dc = -2.0 * c2
     q4 = 0.0
-    q7 = 0.0
+    cw = 0.0          # sum c_k (W c)_k; the oracle's q7 sum of d_k (W d)_k is 4 cw
     a2s = 0.0
     as2 = 0.0
     bwc = 0.0
     bxwc = 0.0
-    bwd = 0.0
-    bxwd = 0.0
     t3 = 0.0
     below = 0.0
     for k in range(n):
         x = xs[k]
         ck = c[k]
-        dk = d[k]
+        dk = -2.0 * ck
         aw = tot_wc - bwc - ck
         axw = tot_xwc - bxwc - xs[k] * ck
         wck = xs[k] * (bwc - aw) - bxwc + axw
         bwc += ck
         bxwc += xs[k] * ck
-        aw = tot_wd - bwd - dk
-        axw = tot_xwd - bxwd - xs[k] * dk
-        wdk = xs[k] * (bwd - aw) - bxwd + axw
-        bwd += dk
-        bxwd += xs[k] * dk
         sq = n * x * x - 2.0 * x * sx + sxx
         row_sq = (sq - 2.0 * ck * arow[k] - 2.0 * wck + n * ck * ck
                   + 2.0 * ck * c1 + c2)
         q4 += dk * row_sq
-        q7 += dk * wdk
+        cw += ck * wck
         a2s += 2.0 * ck * sq
         as2 += 2.0 * ck * ck * arow[k] + 2.0 * ck * wck
         if k < m:
@@ -565,6 +551,7 @@ def _third_quantities_1d_fused(xs, arow):
             t3 += (6.0 * q * below * above[k] + 3.0 * wk * q * uk * uk * above[k]
                    + 3.0 * wk * q * vk * vk * below + q * q * q)
             below += wk * uk * uk
+    q7 = 4.0 * cw
     q7 -= 2.0 * dc * t
     s3 = 2.0 * n * c3 + 6.0 * c2 * c1
     q6 = 2.0 * a3 - 3.0 * a2s + 3.0 * as2 - s3
