@@ -88,41 +88,6 @@ def _load(args):
     return load_table(args.data, sheet=getattr(args, "sheet", None))
 
 
-def _load_with_kernels(args):
-    """The table and the analysis settings, the compiled kernels loading meanwhile.
-
-    Loading the kernels (mostly LLVM start-up) and reading a file both run largely
-    outside the GIL, so on a machine with two cores the one hides the other.
-    Problems are reported in the usual order: the file first, then the options.
-    """
-    import threading
-
-    outcome: dict = {}
-
-    def prepare() -> None:
-        try:
-            outcome["settings"] = settings = _settings(args)
-        except BaseException as exc:  # noqa: BLE001 - re-raised in the calling thread
-            outcome["error"] = exc
-            return
-        try:
-            from .engine import warm_kernels
-
-            warm_kernels(settings)
-        except Exception:  # noqa: BLE001 - the run loads them itself if this failed
-            pass
-
-    helper = threading.Thread(target=prepare, name="pairlens-kernels", daemon=True)
-    helper.start()
-    try:
-        table = _load(args)
-    finally:
-        helper.join()
-    if "error" in outcome:
-        raise outcome["error"]
-    return table, outcome["settings"]
-
-
 def _settings(args):
     from .engine import AnalysisSettings
 
@@ -155,10 +120,10 @@ class _ProgressBar:
             sys.stderr.flush()
 
 
-def _run(args, table, settings=None):
+def _run(args, table):
     from .engine import run_analysis
 
-    settings = settings or _settings(args)
+    settings = _settings(args)
     bar = _ProgressBar()
     try:
         result = run_analysis(table.data, table.columns, settings, workers=args.workers,
@@ -184,8 +149,8 @@ def cmd_pairs(args) -> int:
     out = args.output
     if out is not None and not out.lower().endswith((".csv", ".json")):
         raise UsageError(f"pairlens pairs: output {out!r} must end in .csv or .json")
-    table, settings = _load_with_kernels(args)
-    _, result = _run(args, table, settings)
+    table = _load(args)
+    _, result = _run(args, table)
     records = result.records()
     text = pairs_to_json(records) + "\n" if out and out.lower().endswith(".json") else pairs_to_csv(records)
     _write_text(out, text)
@@ -241,8 +206,8 @@ def cmd_report(args) -> int:
 
     if not args.output.lower().endswith((".html", ".htm")):
         raise UsageError(f"pairlens report: output {args.output!r} must end in .html")
-    table, settings = _load_with_kernels(args)
-    settings, result = _run(args, table, settings)
+    table = _load(args)
+    settings, result = _run(args, table)
     command = "pairlens report " + " ".join(shlex.quote(a) for a in
                                             [args.data, "-o", args.output, *settings.cli_arguments()])
     html = build_report(table, result, command=command)

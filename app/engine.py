@@ -11,7 +11,6 @@ import contextlib
 import gc
 import math
 import os
-import threading
 import time
 from dataclasses import asdict, dataclass, field
 from typing import Callable, Iterable, Sequence
@@ -402,15 +401,6 @@ def _warm(settings: AnalysisSettings) -> None:
         pass
 
 
-def warm_kernels(settings: AnalysisSettings) -> None:
-    """Load the compiled kernels ``settings`` will use, e.g. while a file is read (thread-safe)."""
-    with _WARM_LOCK:
-        _warm(settings)
-
-
-_WARM_LOCK = threading.Lock()
-
-
 def prepare_columns(data: np.ndarray, variables: Sequence[Variable],
                     row_mask: np.ndarray | None = None) -> "allpairs.PreparedColumns":
     """Sort every single-column variable once for the presorted path (O(n p) memory)."""
@@ -534,7 +524,7 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
         # Sorted once here; forked workers share the orders copy-on-write, and the
         # kernels they call are already loaded. Remote workers sort for themselves.
         prepared = prepare_columns(data, variables, row_mask)
-        warm_kernels(settings)
+        _warm(settings)
     frozen = isinstance(executor, ProcessExecutor) and gc.isenabled()
     if frozen:
         # Objects that exist before the fork are never collected in the workers, so

@@ -87,7 +87,7 @@ def test_bad_invocations_exit_2_with_one_line(small_csv, args):
 
 
 def test_a_bad_file_is_reported_before_bad_options(small_csv):
-    # the options are checked while the file is read; the file's problem still comes first
+    # the file is read before the options are checked: its problem comes first
     both = _run("pairs", "missing-file.csv", "--measures", "pearson,unknown")
     assert both.returncode == 2 and both.stderr.startswith("missing-file.csv: file not found"), both.stderr
     options = _run("pairs", str(small_csv), "--measures", "pearson,unknown")
