@@ -538,3 +538,23 @@ def test_knight_equals_naive_property(xs, ys):
     x, y = _pair(xs, ys)
     # Exact integer agreement of the two counting algorithms (oracle, common practice).
     assert rank.kendall_counts(x, y, method="knight") == rank.kendall_counts(x, y, method="naive")
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_pearson_r_against_exact_rational_arithmetic(seed):
+    # Reference: r computed exactly with fractions.Fraction from the float inputs (Python's
+    # standard library), rounded once at the end; near-zero r is where summation errors show.
+    rng = np.random.default_rng(700 + seed)
+    n = 3000
+    x = rng.normal(size=n) * 10.0 ** rng.uniform(-3, 3) + rng.choice([0.0, 1e3])
+    y = 0.002 * (x - x.mean()) + rng.normal(size=n) * x.std()
+    fx, fy = [Fraction(v) for v in x], [Fraction(v) for v in y]
+    mx, my = sum(fx) / n, sum(fy) / n
+    sxy = sum((a - mx) * (b - my) for a, b in zip(fx, fy))
+    sxx = sum((a - mx) ** 2 for a in fx)
+    syy = sum((b - my) ** 2 for b in fy)
+    exact = float(sxy) / math.sqrt(float(sxx) * float(syy))
+    got = linear.pearson(x, y).estimate
+    assert abs(got - exact) <= 1e-13 * abs(exact) + 1e-16
+    # scipy.stats.pearsonr, for scale: both within a few units of the 15th digit
+    assert abs(stats.pearsonr(x, y).statistic - exact) <= 1e-13 * abs(exact) + 1e-16
