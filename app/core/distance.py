@@ -112,6 +112,37 @@ def _gap_traces(xs):
     return t1, t2, t3
 
 
+@numba.njit(cache=True, nogil=True, inline="always")
+def _tree_add(tree, position, x, y):
+    """Add the weights 1, x, y, xy at 0-based y position ``position`` of the Fenwick tree."""
+    n = tree.shape[0] - 1
+    xy = x * y
+    i = position + 1
+    while i <= n:
+        tree[i, 0] += 1.0
+        tree[i, 1] += x
+        tree[i, 2] += y
+        tree[i, 3] += xy
+        i += i & (-i)
+
+
+@numba.njit(cache=True, nogil=True, inline="always")
+def _tree_below(tree, position):
+    """Sums of the weights 1, x, y, xy over the y positions below ``position``."""
+    c_lo = 0.0
+    x_lo = 0.0
+    y_lo = 0.0
+    xy_lo = 0.0
+    i = position
+    while i > 0:
+        c_lo += tree[i, 0]
+        x_lo += tree[i, 1]
+        y_lo += tree[i, 2]
+        xy_lo += tree[i, 3]
+        i -= i & (-i)
+    return c_lo, x_lo, y_lo, xy_lo
+
+
 @numba.njit(cache=True, nogil=True)
 def _cross_sum(xv, yv, yr):
     """sum_{i,j} |x_i - x_j| |y_i - y_j| in O(n log n), for resamples.
@@ -129,26 +160,10 @@ def _cross_sum(xv, yv, yr):
     for k in range(n):
         x = xv[k]
         y = yv[k]
-        c_lo = 0.0
-        x_lo = 0.0
-        y_lo = 0.0
-        xy_lo = 0.0
-        i = yr[k]
-        while i > 0:
-            c_lo += tree[i, 0]
-            x_lo += tree[i, 1]
-            y_lo += tree[i, 2]
-            xy_lo += tree[i, 3]
-            i -= i & (-i)
+        c_lo, x_lo, y_lo, xy_lo = _tree_below(tree, yr[k])
         half += ((2.0 * c_lo - k) * x * y - x * (2.0 * y_lo - sum_y)
                  - y * (2.0 * x_lo - sum_x) + (2.0 * xy_lo - sum_xy))
-        i = yr[k] + 1
-        while i <= n:
-            tree[i, 0] += 1.0
-            tree[i, 1] += x
-            tree[i, 2] += y
-            tree[i, 3] += x * y
-            i += i & (-i)
+        _tree_add(tree, yr[k], x, y)
         sum_x += x
         sum_y += y
         sum_xy += x * y
@@ -185,30 +200,12 @@ def _cross_sum_discordant(xv, yv, yr):
         y = yv[k]
         if k > 0 and x != xv[k - 1]:
             for j in range(run_start, k):
-                xj = xv[j]
-                yj = yv[j]
-                i = yr[j] + 1
-                while i <= n:
-                    tree[i, 0] += 1.0
-                    tree[i, 1] += xj
-                    tree[i, 2] += yj
-                    tree[i, 3] += xj * yj
-                    i += i & (-i)
-                sum_x += xj
-                sum_y += yj
-                sum_xy += xj * yj
+                _tree_add(tree, yr[j], xv[j], yv[j])
+                sum_x += xv[j]
+                sum_y += yv[j]
+                sum_xy += xv[j] * yv[j]
             run_start = k
-        c_lo = 0.0
-        x_lo = 0.0
-        y_lo = 0.0
-        xy_lo = 0.0
-        i = yr[k]
-        while i > 0:
-            c_lo += tree[i, 0]
-            x_lo += tree[i, 1]
-            y_lo += tree[i, 2]
-            xy_lo += tree[i, 3]
-            i -= i & (-i)
+        c_lo, x_lo, y_lo, xy_lo = _tree_below(tree, yr[k])
         # lower part counted +, upper part (earlier total minus lower) counted -
         half += ((2.0 * c_lo - run_start) * x * y - x * (2.0 * y_lo - sum_y)
                  - y * (2.0 * x_lo - sum_x) + (2.0 * xy_lo - sum_xy))
