@@ -95,14 +95,26 @@ def measure_methods(measures: Iterable[str] | None = None,
     return out
 
 
+# Measured in tests/test_levels_classic.py (10,000 replicates per cell, n = 30 and 200).
+_PEARSON_T_CAUTION = (
+    "Pearson's t-test is exact when at least one of the two variables is normal. When both are skewed "
+    "or heavy-tailed it rejects too often: in our simulations of independent exponential, t(3) and "
+    "lognormal pairs, 1.2-2.4% of p-values fell below 0.01. Spearman and Kendall held their level in "
+    "the same simulations; for Pearson on such data, request permutations, whose p-values hold their "
+    "level whatever the margins.")
+
+
 def inference_methods(*, adjust: str = config.DEFAULT_ADJUST, confidence: float = config.DEFAULT_CONFIDENCE,
-                      permutations: int = 0, missing: str = config.DEFAULT_MISSING) -> list[dict]:
+                      permutations: int = 0, missing: str = config.DEFAULT_MISSING,
+                      measures: Iterable[str] | None = None) -> list[dict]:
     """How p-values, q-values, intervals, the Gaussian fit and the verdict were obtained.
 
     Each entry is ``{"title", "paragraphs": [str], "formula": str, "references": [str]}``.
+    ``measures`` (default: all) decides measure-specific cautions.
     """
     adj = ADJUSTMENT_TEXT[adjust]
     level = f"{confidence * 100:g}%"
+    measures = list(MEASURES) if measures is None else list(measures)
     sections = [
         {
             "title": "p-values",
@@ -116,6 +128,7 @@ def inference_methods(*, adjust: str = config.DEFAULT_ADJUST, confidence: float 
                  if permutations else
                  "No permutations were requested, so every p-value comes from the closed-form or "
                  "approximate null distribution named for its measure."),
+                *([_PEARSON_T_CAUTION] if "pearson" in measures and not permutations else []),
             ],
             "formula": "p = (1 + k) / (B + 1), k = resamples with a statistic at least the observed one"
                        if permutations else "",
@@ -239,9 +252,9 @@ def methods_content(measures: Iterable[str] | None = None, *, settings=None, pai
         for row in pair_table.rows:
             if row.p_value == row.p_value:  # NaN p-values were not produced by any method
                 seen.setdefault(row.measure, Counter())[row.method] += 1
-    kwargs = {}
+    kwargs = {"measures": measures}
     if settings is not None:
-        kwargs = dict(adjust=settings.adjust, confidence=settings.confidence,
+        kwargs.update(adjust=settings.adjust, confidence=settings.confidence,
                       permutations=settings.permutations, missing=settings.missing)
     return {
         "measures": measure_methods(measures, seen),
