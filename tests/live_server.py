@@ -87,3 +87,21 @@ class LiveServer:
         if self.proc.poll() is None:
             self.proc.wait(10)
         self._log.close()
+
+
+def finished(status: dict) -> bool:
+    """An analysis that will not change any more (done, failed, cancelled, interrupted)."""
+    return status["status"] not in ("queued", "running")
+
+
+def wait_for_analysis(client, analysis_id: str, until=finished, *, timeout: float = 90.0,
+                      poll: float = 0.2) -> dict:
+    """Poll ``GET /api/analyses/{id}`` (httpx or FastAPI's TestClient) until ``until(status)`` holds."""
+    deadline = time.monotonic() + timeout
+    status: dict = {}
+    while time.monotonic() < deadline:
+        status = client.get(f"/api/analyses/{analysis_id}").json()
+        if until(status):
+            return status
+        time.sleep(poll)
+    raise AssertionError(f"analysis {analysis_id} did not reach the wanted state in {timeout} s: {status}")

@@ -11,6 +11,7 @@ and blob is compared byte for byte with a copy taken before the kill.
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import io
 import os
@@ -21,7 +22,7 @@ import httpx
 import numpy as np
 import pytest
 
-from live_server import LiveServer
+from live_server import LiveServer, wait_for_analysis
 
 
 def _csv(n: int, k: int, seed: int) -> bytes:
@@ -35,14 +36,14 @@ def _csv(n: int, k: int, seed: int) -> bytes:
     return buf.getvalue().encode()
 
 
-def _wait(client: httpx.Client, aid: str, until, timeout: float = 90.0) -> dict:
-    deadline = time.monotonic() + timeout
-    while time.monotonic() < deadline:
-        s = client.get(f"/api/analyses/{aid}").json()
-        if until(s):
-            return s
-        time.sleep(0.1)
-    raise AssertionError(f"analysis {aid} never reached the wanted state: {s}")
+_wait = functools.partial(wait_for_analysis, timeout=90.0, poll=0.1)
+
+
+def _start_long_analysis(client: httpx.Client, seed: int) -> str:
+    """Upload 6 columns x 3000 rows and start dCor with 50000 permutations per pair (minutes of work)."""
+    ds = client.post("/api/datasets", files={"file": ("long.csv", _csv(3000, 6, seed=seed), "text/csv")}).json()
+    return client.post(f"/api/datasets/{ds['id']}/analyses",
+                       json={"measures": ["dcor"], "permutations": 50000}).json()["id"]
 
 
 def _snapshot(db_path) -> dict:
@@ -94,7 +95,7 @@ def test_kill_9_during_a_long_analysis(tmp_path):
             ds_small = c.post("/api/datasets", files={"file": ("small.csv", small, "text/csv")}).json()
             done = c.post(f"/api/datasets/{ds_small['id']}/analyses",
                           json={"measures": ["pearson", "spearman", "dcor"], "seed": 3}).json()["id"]
-            assert _wait(c, done, lambda s: s["status"] not in ("queued", "running"))["status"] == "done"
+            assert _wait(c, done)["status"] == "done"
             pairs_before = c.get(f"/api/analyses/{done}/pairs").json()
             # A long one: 6 columns, 3000 rows, dCor with 50000 permutations per pair.
             big = _csv(3000, 6, seed=2)
@@ -152,7 +153,7 @@ def test_kill_9_during_a_long_analysis(tmp_path):
             again = _wait(c, new_id, lambda s: s["status"] == "running")
             assert again["settings"] == status["settings"] and again["dataset_id"] == ds_big["id"]
             assert c.post(f"/api/analyses/{new_id}/cancel").status_code == 202
-            assert _wait(c, new_id, lambda s: s["status"] not in ("queued", "running"))["status"] == "cancelled"
+            assert _wait(c, new_id)["status"] == "cancelled"
             # The interrupted one stays interrupted: the rerun is a new analysis.
             assert c.get(f"/api/analyses/{long_id}").json()["status"] == "interrupted"
         after = _snapshot(db_path)
@@ -175,9 +176,7 @@ def test_orphaned_analysis_child_stops_by_itself(tmp_path):
     srv = LiveServer(data_dir)
     try:
         with httpx.Client(base_url=srv.base, timeout=30) as c:
-            ds = c.post("/api/datasets", files={"file": ("long.csv", _csv(3000, 6, seed=4), "text/csv")}).json()
-            aid = c.post(f"/api/datasets/{ds['id']}/analyses",
-                         json={"measures": ["dcor"], "permutations": 50000}).json()["id"]
+            aid = _start_long_analysis(c, seed=4)
             _wait(c, aid, lambda s: s["status"] == "running" and s["phase"] == "pairs")
         con = sqlite3.connect(f"file:{data_dir / 'pairlens.sqlite3'}?mode=ro", uri=True)
         worker_pid = con.execute("SELECT worker_pid FROM analyses WHERE id = ?", (aid,)).fetchone()[0]
@@ -265,9 +264,7 @@ def test_graceful_stop_marks_running_analyses_interrupted(tmp_path):
     srv = LiveServer(data_dir)
     try:
         with httpx.Client(base_url=srv.base, timeout=30) as c:
-            ds = c.post("/api/datasets", files={"file": ("long.csv", _csv(3000, 6, seed=5), "text/csv")}).json()
-            aid = c.post(f"/api/datasets/{ds['id']}/analyses",
-                         json={"measures": ["dcor"], "permutations": 50000}).json()["id"]
+            aid = _start_long_analysis(c, seed=5)
             _wait(c, aid, lambda s: s["status"] == "running")
         owners = list((data_dir / "owners").glob("*.lock"))
         assert len(owners) == 1
@@ -300,7 +297,7 @@ def test_kills_at_random_moments_never_corrupt_or_leave_running(tmp_path):
             ds = c.post("/api/datasets", files={"file": ("k.csv", content, "text/csv")}).json()
             t0 = time.monotonic()
             first = c.post(f"/api/datasets/{ds['id']}/analyses", json=settings).json()["id"]
-            assert _wait(c, first, lambda s: s["status"] not in ("queued", "running"))["status"] == "done"
+            assert _wait(c, first)["status"] == "done"
             duration = time.monotonic() - t0
             reference = c.get(f"/api/analyses/{first}/pairs").json()
             assert len(reference) == n_rows

@@ -13,6 +13,7 @@ and numbers are from memory.
 from __future__ import annotations
 
 import csv
+import functools
 import hashlib
 import html
 import io
@@ -26,7 +27,7 @@ import numpy as np
 import pytest
 from fastapi.testclient import TestClient
 
-from live_server import LiveServer, free_port
+from live_server import LiveServer, free_port, wait_for_analysis
 
 HOSTILE = ["<script>window.__pwned=1</script>", "<img src=x onerror=window.__pwned=1>",
            "</script><script>window.__pwned=2</script>", "\"'><svg onload=window.__pwned=3>",
@@ -46,14 +47,7 @@ def _csv(columns, n=50, seed=3) -> bytes:
     return buf.getvalue().encode()
 
 
-def _wait(client, aid: str, timeout: float = 90.0) -> dict:
-    deadline = time.monotonic() + timeout
-    while time.monotonic() < deadline:
-        s = client.get(f"/api/analyses/{aid}").json()
-        if s["status"] not in ("queued", "running"):
-            return s
-        time.sleep(0.2)
-    raise AssertionError(f"analysis {aid} still running")
+_wait = functools.partial(wait_for_analysis, timeout=90.0)
 
 
 @pytest.fixture(scope="module")

@@ -11,6 +11,7 @@ run that keeps its child process busy for the whole test.
 
 from __future__ import annotations
 
+import functools
 import io
 import statistics
 import threading
@@ -20,7 +21,7 @@ import httpx
 import numpy as np
 import pytest
 
-from live_server import LiveServer
+from live_server import LiveServer, wait_for_analysis
 
 CLIENTS = 20
 SECONDS = 20.0
@@ -39,14 +40,7 @@ def _csv(n: int, k: int, seed: int) -> bytes:
     return buf.getvalue().encode()
 
 
-def _wait(c: httpx.Client, aid: str, until, timeout: float = 120.0) -> dict:
-    deadline = time.monotonic() + timeout
-    while time.monotonic() < deadline:
-        s = c.get(f"/api/analyses/{aid}").json()
-        if until(s):
-            return s
-        time.sleep(0.2)
-    raise AssertionError(f"analysis {aid}: {s}")
+_wait = functools.partial(wait_for_analysis, timeout=120.0)
 
 
 def _percentile(values: list[float], q: float) -> float:
@@ -61,7 +55,7 @@ def test_pages_stay_fast_under_20_clients_during_an_analysis(tmp_path):
             ds = c.post("/api/datasets", files={"file": ("load.csv", _csv(1000, 12, 1), "text/csv")}).json()
             aid = c.post(f"/api/datasets/{ds['id']}/analyses",
                          json={"measures": ["pearson", "spearman", "kendall", "dcor"]}).json()["id"]
-            assert _wait(c, aid, lambda s: s["status"] not in ("queued", "running"))["status"] == "done"
+            assert _wait(c, aid)["status"] == "done"
             columns = ds["numeric_columns"]
             pairs = [(columns[i], columns[i + 1]) for i in range(0, 8, 2)] + [(columns[0], columns[5])]
             slow = c.post("/api/datasets", files={"file": ("slow.csv", _csv(3000, 6, 2), "text/csv")}).json()

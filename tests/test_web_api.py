@@ -8,6 +8,7 @@ and the Gaussian fit against numpy.cov (ddof=1).
 from __future__ import annotations
 
 import csv
+import functools
 import io
 import json
 import math
@@ -29,6 +30,7 @@ from app.core.registry import MEASURES
 from app.export import PAIR_FIELDS
 from app.store import Store
 from app.web.app import create_app
+from live_server import wait_for_analysis
 
 COLUMNS = ["alpha", "beta", "curve", "noise", "gappy"]
 
@@ -55,14 +57,7 @@ def _read_csv_columns(content: bytes) -> dict[str, list[float]]:
     return {c: [float(r[c]) if r[c] != "" else math.nan for r in rows] for c in COLUMNS}
 
 
-def _wait(client: TestClient, aid: str, timeout: float = 90.0) -> dict:
-    deadline = time.monotonic() + timeout
-    while time.monotonic() < deadline:
-        s = client.get(f"/api/analyses/{aid}").json()
-        if s["status"] not in ("queued", "running"):
-            return s
-        time.sleep(0.2)
-    raise AssertionError(f"analysis {aid} did not finish in {timeout} s")
+_wait = functools.partial(wait_for_analysis, timeout=90.0)
 
 
 @pytest.fixture(scope="module")
