@@ -53,7 +53,8 @@ def build_parser() -> argparse.ArgumentParser:
 
     serve = sub.add_parser("serve", help="start the local dashboard")
     serve.add_argument("--host", default=config.DEFAULT_HOST)
-    serve.add_argument("--port", type=int, default=config.DEFAULT_PORT)
+    serve.add_argument("--port", type=int, default=None,
+                       help=f"port to listen on (default: PAIRLENS_PORT if set, else {config.DEFAULT_PORT})")
     serve.add_argument("--data-dir", default=None)
     serve.add_argument("--demo", action="store_true", help="open with the invented vineyard demo dataset")
     serve.add_argument("--max-upload-mb", type=int, default=config.MAX_UPLOAD_MB)
@@ -218,7 +219,13 @@ def cmd_report(args) -> int:
 def cmd_serve(args) -> int:
     from .web.server import serve
 
-    return serve(host=args.host, port=args.port, data_dir=args.data_dir, demo=args.demo,
+    port = args.port
+    if port is None:
+        try:
+            port = config.default_port()
+        except ValueError as exc:
+            raise UsageError(f"pairlens serve: {exc}") from None
+    return serve(host=args.host, port=port, data_dir=args.data_dir, demo=args.demo,
                  max_upload_mb=args.max_upload_mb, cluster=args.cluster, require_token=args.require_token)
 
 

@@ -59,6 +59,20 @@ SAMPLE_DATA_DIR = PROJECT_DIR / "sample_data"
 DEMO_FILE = SAMPLE_DATA_DIR / "vineyard_blocks.csv"
 
 
+def default_port() -> int:
+    """Port ``pairlens serve`` listens on when ``--port`` is not given.
+
+    ``PAIRLENS_PORT`` overrides it, so a second dashboard (or a test running the README's
+    command verbatim) can start while something else holds port 8000.
+    """
+    env = os.environ.get("PAIRLENS_PORT", "").strip()
+    if not env:
+        return DEFAULT_PORT
+    if not env.isdigit() or not 0 < int(env) < 65536:
+        raise ValueError(f"PAIRLENS_PORT must be a port number from 1 to 65535, not {env!r}")
+    return int(env)
+
+
 def default_data_dir() -> Path:
     """Per-user workspace directory (``PAIRLENS_DATA_DIR`` overrides it)."""
     env = os.environ.get("PAIRLENS_DATA_DIR")

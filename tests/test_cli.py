@@ -3,6 +3,7 @@
 import csv
 import io
 import json
+import os
 import subprocess
 import sys
 
@@ -92,3 +93,26 @@ def test_a_bad_file_is_reported_before_bad_options(small_csv):
     assert both.returncode == 2 and both.stderr.startswith("missing-file.csv: file not found"), both.stderr
     options = _run("pairs", str(small_csv), "--measures", "pearson,unknown")
     assert options.returncode == 2 and "unknown" in options.stderr and "Traceback" not in options.stderr
+
+
+def test_serve_takes_its_port_from_pairlens_port(tmp_path):
+    # a bad PAIRLENS_PORT is a usage error on one line (exit 2), found before anything starts
+    env = dict(os.environ, PAIRLENS_PORT="eighty")
+    out = subprocess.run([sys.executable, "-m", "app.cli", "serve", "--data-dir", str(tmp_path)],
+                         capture_output=True, text=True, timeout=120, env=env)
+    assert out.returncode == 2
+    assert out.stderr.strip().splitlines() == [
+        "pairlens serve: PAIRLENS_PORT must be a port number from 1 to 65535, not 'eighty'"]
+
+
+def test_default_port_reads_the_environment(monkeypatch):
+    from app import config
+
+    monkeypatch.delenv("PAIRLENS_PORT", raising=False)
+    assert config.default_port() == config.DEFAULT_PORT == 8000
+    monkeypatch.setenv("PAIRLENS_PORT", "18123")
+    assert config.default_port() == 18123
+    for bad in ("0", "65536", "-1", "80.5"):
+        monkeypatch.setenv("PAIRLENS_PORT", bad)
+        with pytest.raises(ValueError, match="PAIRLENS_PORT"):
+            config.default_port()

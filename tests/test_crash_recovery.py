@@ -105,7 +105,8 @@ def test_kill_9_during_a_long_analysis(tmp_path):
             running = _wait(c, long_id, lambda s: s["status"] == "running" and s["phase"] == "pairs")
             assert running["progress"] < 0.9
             datasets_before = c.get("/api/datasets").json()
-        time.sleep(1.0)  # let it write progress a few times, so the kill lands among writes
+            # let it write progress again, so the kill lands among writes
+            _wait(c, long_id, lambda s: s["progress"] > running["progress"], timeout=180)
         before = _snapshot(db_path)
         con = sqlite3.connect(f"file:{db_path}?mode=ro", uri=True)
         worker_pid = con.execute("SELECT worker_pid FROM analyses WHERE id = ?", (long_id,)).fetchone()[0]

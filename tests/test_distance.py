@@ -8,7 +8,6 @@ import math
 import subprocess
 import sys
 import textwrap
-import time
 from pathlib import Path
 
 import dcor as dcor_lib
@@ -360,32 +359,14 @@ _PERF_SCRIPT = textwrap.dedent("""
 """)
 
 
-def test_one_pair_of_100k_rows_is_fast_and_small():
-    # Generous bounds, not a benchmark: 1 s and 200 MB per pair (DESIGN.md section 5).
+def test_one_pair_of_100k_rows_needs_little_memory():
+    # O(n) memory per univariate pair (DESIGN.md section 5): 200 MB is a generous bound for
+    # n = 100,000 (an n x n matrix would be 80 GB). The time is printed for the record only;
+    # per-pair and per-resample speed are measured by benchmarks/bench_engine.py (W2, W3).
     out = subprocess.run([sys.executable, "-c", _PERF_SCRIPT], cwd=ROOT, capture_output=True,
                          text=True, check=True, timeout=300)
     stats = json.loads(out.stdout.strip().splitlines()[-1])
     print(f"\nn=100000 one pair: {stats['seconds']:.3f} s, tracemalloc peak "
           f"{stats['traced_mb']:.1f} MB, resident peak growth {stats['rss_peak_growth_mb']:.1f} MB")
-    assert stats["seconds"] < 1.0
     assert stats["traced_mb"] < 200 and stats["rss_peak_growth_mb"] < 200
     assert 0 <= stats["estimate"] < 0.05 and 0 < stats["p"] <= 1
-
-
-def test_permutation_kernel_against_dcor_library_speed():
-    # Reports the per-resample speed-up over dcor.independence.distance_covariance_test
-    # at n = 2000 (goal >= 300x); asserts only a generous floor, since CI cores are shared.
-    rng = np.random.default_rng(12)
-    n = 2000
-    x, y = rng.normal(size=n), rng.normal(size=n)
-    distance.dcor(x[:50], y[:50], permutations=5, seed=0)          # compile / load cache
-    b_ours, b_lib = 999, 10
-    t0 = time.perf_counter()
-    distance.dcor(x, y, permutations=b_ours, seed=1)
-    ours = (time.perf_counter() - t0) / b_ours
-    t0 = time.perf_counter()
-    dcor_lib.independence.distance_covariance_test(x, y, num_resamples=b_lib, random_state=1)
-    lib = (time.perf_counter() - t0) / b_lib
-    print(f"\nper resample at n=2000: pairlens {ours * 1e6:.0f} us, dcor {lib * 1e3:.1f} ms, "
-          f"ratio {lib / ours:.0f}x")
-    assert lib / ours > 30

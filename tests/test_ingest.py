@@ -33,6 +33,7 @@ _spec = importlib.util.spec_from_file_location("pairlens_ingest_corpus", ROOT / 
 corpus = importlib.util.module_from_spec(_spec)
 _spec.loader.exec_module(corpus)
 
+# A hang guard (a reader stuck on a hostile file), not a speed goal: those live in benchmarks.
 PER_FILE_SECONDS = 60.0
 
 
@@ -252,7 +253,7 @@ def test_wide_file(files):
     assert table.data.shape == corpus.WIDE_SHAPE
     np.testing.assert_array_equal(table.data, corpus.wide_values())
     assert table.columns[-1] == "sensor_2999"
-    assert elapsed < 10.0, elapsed
+    print(f"\n4 x 3000 wide file read in {elapsed:.2f} s")  # for the record; speed goals live in benchmarks
 
 
 def test_xlsx_first_sheet_and_named_sheet(files):
@@ -336,7 +337,7 @@ def test_hundred_thousand_rows_round_trip(tmp_path):
     np.testing.assert_array_equal(table.data, values)  # %.17g text round-trips a float64 exactly
     v0 = info(table, "v0")
     assert v0.median == statistics.median(values[:, 0].tolist())
-    assert elapsed < 20.0, elapsed
+    print(f"\n100,000 x 20 read in {elapsed:.2f} s")  # for the record; speed goals live in benchmarks
 
 
 def test_load_bytes_matches_load_table_and_uses_base_name(files):

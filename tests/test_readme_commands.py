@@ -17,6 +17,8 @@ from pathlib import Path
 
 import pytest
 
+from live_server import free_port
+
 ROOT = Path(__file__).resolve().parent.parent
 
 
@@ -56,12 +58,20 @@ def test_first_command_in_a_fresh_virtual_environment(tmp_path):
     env["VIRTUAL_ENV"] = str(venv)
     env.pop("PYTHONPATH", None)
     env["PAIRLENS_DATA_DIR"] = str(tmp_path / "workspace")
+    # The command runs verbatim; PAIRLENS_PORT (read by `pairlens serve` when --port is not
+    # given) moves it off 8000, which a user's own dashboard may hold.
+    port = free_port()
+    env["PAIRLENS_PORT"] = str(port)
+    # The same known-good versions as the test command, so a new release elsewhere cannot
+    # silently change what this test installs (pip reads PIP_CONSTRAINT like -c).
+    env["PIP_CONSTRAINT"] = str(ROOT / "constraints.txt")
     proc = subprocess.Popen(first, shell=True, cwd=ROOT, env=env, stdout=subprocess.PIPE,
                             stderr=subprocess.STDOUT, start_new_session=True, text=True)
     try:
         if " serve" in first:
-            assert _wait_for("http://127.0.0.1:8000/", proc, timeout=900) == 200
-            with urllib.request.urlopen("http://127.0.0.1:8000/api/datasets", timeout=10) as resp:
+            assert "--port" not in first  # otherwise PAIRLENS_PORT would not apply
+            assert _wait_for(f"http://127.0.0.1:{port}/", proc, timeout=900) == 200
+            with urllib.request.urlopen(f"http://127.0.0.1:{port}/api/datasets", timeout=10) as resp:
                 assert b"vineyard_blocks" in resp.read()
         else:
             out, _ = proc.communicate(timeout=900)

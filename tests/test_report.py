@@ -645,7 +645,8 @@ def test_report_renders_offline_in_chromium(report):
             box = area.bounding_box()
             k = len(names)  # rows run top to bottom (reversed y axis), columns left to right
             page.mouse.move(box["x"] + (j + 0.5) * box["width"] / k, box["y"] + (i + 0.5) * box["height"] / k)
-            page.wait_for_timeout(300)
+            page.wait_for_function("""() => { const h = document.querySelector('[data-testid="heatmap-pearson"] .hoverlayer');
+                return h && h.textContent.trim().length > 0; }""")
             hover = page.locator('[data-testid="heatmap-pearson"] .hoverlayer').text_content()
             hover = hover.replace("\u2212", "-")
             assert f"{row.estimate:.3f}" in hover and f"n {row.n}" in hover, hover
@@ -663,15 +664,18 @@ def test_report_renders_offline_in_chromium(report):
                 box = area.bounding_box()
                 row, col = names.index(b), names.index(a)
                 page.mouse.click(box["x"] + (col + 0.5) * box["width"] / k, box["y"] + (row + 0.5) * box["height"] / k)
-                page.wait_for_timeout(900)
 
-            click_cell(*with_card)
-            top = page.evaluate("""([a, b]) => Array.from(document.querySelectorAll('article.card'))
+            card_top = """([a, b]) => Array.from(document.querySelectorAll('article.card'))
                 .find(c => (c.dataset.x === a && c.dataset.y === b) || (c.dataset.x === b && c.dataset.y === a))
-                .getBoundingClientRect().top""", list(with_card))
+                .getBoundingClientRect().top"""
+            click_cell(*with_card)
+            # the smooth scroll ends with the card at the top of the window; wait for that state
+            page.wait_for_function(f"(pair) => Math.abs(({card_top})(pair)) < 40", arg=list(with_card))
+            top = page.evaluate(card_top, list(with_card))
             assert abs(top) < 40, top
             if without is not None:
                 click_cell(*without)
+                page.wait_for_function("() => !document.getElementById('pair-chosen').hidden")
                 shown = page.evaluate("""() => Array.from(document.querySelectorAll('#pairs tbody tr'))
                     .filter(r => !r.hidden).map(r => [r.cells[0].textContent, r.cells[1].textContent])""")
                 expected = [[r["x"], r["y"]] for r in report.pairs.records()
@@ -688,7 +692,8 @@ def test_report_renders_offline_in_chromium(report):
             page.emulate_media(media="print")
             assert page.evaluate("getComputedStyle(document.querySelector('.toc')).display") == "none"
             # figures are redrawn at their printed width
-            page.wait_for_timeout(500)
+            page.wait_for_function("""() => { const d = document.querySelector('[data-testid="heatmap-pearson"]');
+                return Math.abs(d.clientWidth - Number(d.querySelector('.main-svg').getAttribute('width'))) <= 2; }""")
             widths = page.evaluate("""() => { const d = document.querySelector('[data-testid="heatmap-pearson"]');
                 return [d.clientWidth, Number(d.querySelector('.main-svg').getAttribute('width'))]; }""")
             assert abs(widths[0] - widths[1]) <= 2, widths
