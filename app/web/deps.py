@@ -259,15 +259,14 @@ class Workspace:
 
     def upload(self, stream: BinaryIO, filename: str) -> DatasetRow:
         """Store an upload: spool + hash, parse, then keep the bytes under their hash."""
-        from ..ingest import load_bytes
+        from ..ingest import load_file_isolated
 
         from .security import display_name
 
         name = display_name(filename)
         tmp, sha, size = self.store.spool_upload(stream, self.max_upload_bytes)
         try:
-            content = tmp.read_bytes()
-            table = load_bytes(content, name)
+            table = load_file_isolated(tmp, name)  # a child process with memory and time limits
         except BaseException:
             tmp.unlink(missing_ok=True)
             raise
@@ -302,11 +301,12 @@ class Workspace:
 
     def table(self, dataset: DatasetRow):
         """The parsed table of a dataset (parsed once, then kept in memory)."""
-        from ..ingest import load_bytes
+        from ..ingest import load_file_isolated
 
         table = self._tables.get(dataset.sha256)
         if table is None:
-            table = self._tables.put(dataset.sha256, load_bytes(self.store.read_blob(dataset.sha256), dataset.name))
+            table = self._tables.put(dataset.sha256, load_file_isolated(self.store.blob_path(dataset.sha256),
+                                                                        dataset.name))
         return table
 
     def dataset_json(self, dataset: DatasetRow) -> dict:
