@@ -220,6 +220,14 @@ def run_job(data_dir: str, analysis_id: str, *, workers: int | None = None, clus
             return row.status if row else "failed"
         row = store.get_analysis(analysis_id)
         assert row is not None
+        def note_progress(*args, **kwargs) -> None:
+            # progress is best effort: a full disk (or a busy database) must not fail the analysis;
+            # only the final status write has to land, and it is retried (_retry_write)
+            try:
+                store.update_progress(*args, **kwargs)
+            except sqlite3.OperationalError:
+                pass
+
         cancel_throttle = _Throttle(0.2)
         cancel_state = {"flag": False, "orphaned": False}
         parent = os.getppid()
@@ -236,22 +244,22 @@ def run_job(data_dir: str, analysis_id: str, *, workers: int | None = None, clus
         def progress(fraction: float, seconds_left: float) -> None:
             if progress_throttle.ready() or fraction >= 1.0:
                 left = seconds_left if math.isfinite(seconds_left) else None
-                store.update_progress(analysis_id, fraction * (1 - VERDICT_FRACTION), left)
+                note_progress(analysis_id, fraction * (1 - VERDICT_FRACTION), left)
 
         try:
             dataset = store.get_dataset(row.dataset_id)
             if dataset is None:
                 raise SettingsError("the dataset of this analysis is gone")
-            store.update_progress(analysis_id, 0.0, None, phase="reading data")
+            note_progress(analysis_id, 0.0, None, phase="reading data")
             table = load_bytes(store.read_blob(dataset.sha256), dataset.name)
             settings = AnalysisSettings.from_dict(row.settings)
-            store.update_progress(analysis_id, 0.0, None, phase="pairs")
+            note_progress(analysis_id, 0.0, None, phase="pairs")
             pair_table = run_analysis(table.data, table.columns, settings, workers=workers, cluster=cluster,
                                       progress=progress, cancel=cancel)
-            store.update_progress(analysis_id, 1 - VERDICT_FRACTION, None, phase="verdicts")
+            note_progress(analysis_id, 1 - VERDICT_FRACTION, None, phase="verdicts")
 
             def verdict_progress(fraction: float) -> None:
-                store.update_progress(analysis_id, 1 - VERDICT_FRACTION + VERDICT_FRACTION * fraction, None)
+                note_progress(analysis_id, 1 - VERDICT_FRACTION + VERDICT_FRACTION * fraction, None)
 
             verdicts = compute_verdicts(table.data, table.columns, pair_table, progress=verdict_progress,
                                         cancel=cancel)
@@ -259,7 +267,7 @@ def run_job(data_dir: str, analysis_id: str, *, workers: int | None = None, clus
                 raise AnalysisCancelled("analysis cancelled")
             from .export import json_records
 
-            store.update_progress(analysis_id, 1.0, 0.0, phase="figures")
+            note_progress(analysis_id, 1.0, 0.0, phase="figures")
             pages = _page_cache(pair_table, verdicts)
             records = [r | {"method": m} for r, m in zip(json_records(pair_table.records()),
                                                           (row_.method for row_ in pair_table.rows))]
