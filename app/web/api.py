@@ -11,7 +11,6 @@ from fastapi.responses import HTMLResponse, JSONResponse, Response
 
 from starlette.concurrency import run_in_threadpool
 from starlette.datastructures import UploadFile
-from ..budget import check_work
 from ..errors import SettingsError
 from .deps import Workspace, get_workspace
 
@@ -105,8 +104,6 @@ def strict_options(options: dict) -> dict:
 def start_analysis(dataset_id: str, options: dict[str, Any] = Body(default_factory=dict),
                    ws: Workspace = Depends(get_workspace)):
     strict_options(options)
-    dataset = ws.dataset(dataset_id)
-    check_work(dataset.n_rows, dataset.summary["numeric"], options)
     row = ws.start_analysis(dataset_id, options)
     return _json({"id": row.id, "status": row.status, "url": f"/analyses/{row.id}"}, 202)
 

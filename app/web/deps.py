@@ -21,6 +21,7 @@ from fastapi import Request
 from markupsafe import Markup
 
 from .. import config
+from ..budget import check_plan, estimate_work
 from ..core.registry import MEASURES
 from ..engine import AnalysisSettings, PairRow, PairTable, SettingsError, pair_detail, plan_variables
 from ..store import AnalysisRow, DatasetRow, Store, UploadTooLarge
@@ -425,7 +426,9 @@ class Workspace:
             settings = AnalysisSettings.from_options(**{k: options.get(k) for k in allowed})
         except (TypeError, ValueError) as exc:
             raise SettingsError(str(exc)) from None
-        plan_variables(dataset.summary["numeric"], settings)  # unknown columns fail now, not in the job
+        variables = plan_variables(dataset.summary["numeric"], settings)  # unknown columns fail now, not in the job
+        # beyond the work budget or the pair-table limit: refused now, with the estimate (app/budget.py)
+        check_plan(estimate_work(len(variables), len(settings.measures), dataset.n_rows, settings.permutations))
         self._check_group_rows(dataset, settings)
         return self.jobs.submit(dataset.id, settings.to_dict())
 
