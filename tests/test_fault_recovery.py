@@ -58,6 +58,7 @@ def _running_without_process(db_path) -> list[tuple]:
     return [r for r in rows if not (r[1] and process_start_time(r[1]) == r[2])]
 
 
+@pytest.mark.slow
 def test_kill_9_of_the_server_alone_ten_rounds(tmp_path):
     data_dir = tmp_path / "workspace"
     db_path = data_dir / "pairlens.sqlite3"
