@@ -635,14 +635,19 @@ def pair_detail(data: np.ndarray, names: Sequence[str], x: str, y: str,
     from .core import verdict as verdict_mod
 
     fit = gaussian_mod.fit_gaussian(xv, yv)
-    pattern = verdict_mod.classify_pair(xv, yv, results, q_values, alpha=config.SIGNIFICANCE_LEVEL, fit=fit)
+    try:
+        pattern = verdict_mod.classify_pair(xv, yv, results, q_values, alpha=config.SIGNIFICANCE_LEVEL, fit=fit)
+        pattern_json = {"label": pattern.label, "reasons": list(pattern.reasons)}
+    except ArithmeticError:  # values near 1e300 overflow a measure's sums: no verdict, the view still shows
+        pattern_json = {"label": "", "reasons": ["no verdict: the values are too large for double precision "
+                                                 "(overflow); rescale the columns"]}
     detail = {
         "x": x,
         "y": y,
         "n": int(len(xv)),
         "measures": measures,
         "gaussian": _gaussian_json(fit),
-        "pattern": {"label": pattern.label, "reasons": list(pattern.reasons)},
+        "pattern": pattern_json,
     }
     if include_points:
         detail["points"] = {"x": xv.tolist(), "y": yv.tolist(), "rows": np.flatnonzero(keep).tolist()}

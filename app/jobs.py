@@ -253,7 +253,13 @@ def run_job(data_dir: str, analysis_id: str, *, workers: int | None = None, clus
             note_progress(analysis_id, 0.0, None, phase="reading data")
             table = load_bytes(store.read_blob(dataset.sha256), dataset.name)
             settings = AnalysisSettings.from_dict(row.settings)
-            note_progress(analysis_id, 0.0, None, phase="pairs")
+            # time left from the up-front estimate until the first tile reports a measured one
+            from .budget import estimate_work
+            from .engine import plan_variables
+
+            estimate = estimate_work(len(plan_variables(table.columns, settings)), len(settings.measures),
+                                     table.n_rows, settings.permutations)
+            note_progress(analysis_id, 0.0, estimate.seconds / max(1, workers or 1), phase="pairs")
             pair_table = run_analysis(table.data, table.columns, settings, workers=workers, cluster=cluster,
                                       progress=progress, cancel=cancel)
             note_progress(analysis_id, 1 - VERDICT_FRACTION, None, phase="verdicts")

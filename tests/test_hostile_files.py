@@ -360,3 +360,40 @@ def test_server_survives_the_corpus(server, name):
         r = httpx.post(server.url(f"/api/datasets/{body['id']}/analyses"), json={}, timeout=60)
         assert r.status_code == 422 and "pairs x 4 measures" in r.json()["detail"]
     assert httpx.get(server.url("/api/datasets"), timeout=60).status_code == 200
+
+
+def test_pair_view_cache_is_bounded_by_bytes_and_keeps_points_as_arrays():
+    from app.web.deps import _PairCache
+
+    cache = _PairCache(max_bytes=10 * 1024 ** 2)
+    n = 200_000  # one pair of 200k points: 4.8 MB as arrays (x, y float64, rows int64)
+    for k in range(5):
+        detail = {"x": "a", "y": f"b{k}", "points": {"x": [float(i) for i in range(n)], "y": [0.5] * n,
+                                                    "rows": list(range(n))}}
+        assert cache.put(("aid", "a", f"b{k}"), detail) is detail
+    # arrays: 3 x 8 bytes a point (lists of floats would take about 32 bytes a value)
+    assert len(cache) == 2 and cache.bytes <= cache.max_bytes
+    assert cache.get(("aid", "a", "b0")) is None  # the oldest went first
+    back = cache.get(("aid", "a", "b4"))
+    assert back["points"]["x"][:3] == [0.0, 1.0, 2.0] and back["points"]["rows"][-1] == n - 1
+    assert isinstance(back["points"]["x"], list)  # callers get lists, as before
+
+
+def test_one_huge_cell_gives_a_per_pair_note_not_a_failed_analysis(server):
+    rng = np.random.default_rng(8)
+    data = rng.normal(size=(60, 3))
+    lines = ["a,b,c"] + [",".join(f"{v:.5f}" for v in row) for row in data]
+    lines[6] = "1e300," + lines[6].split(",", 1)[1]  # finite, but its square overflows a double
+    with httpx.Client(base_url=server.base, timeout=120) as c:
+        ds = c.post("/api/datasets", files={"file": ("huge.csv", "\n".join(lines).encode(), "text/csv")}).json()
+        aid = c.post(f"/api/datasets/{ds['id']}/analyses", json={"measures": ["dcor", "spearman"]}).json()["id"]
+        from live_server import wait_for_analysis
+
+        assert wait_for_analysis(c, aid, timeout=120)["status"] == "done"
+        rows = {(r["x"], r["y"], r["measure"]): r for r in c.get(f"/api/analyses/{aid}/pairs").json()}
+        assert rows[("a", "b", "dcor")]["estimate"] is None and "overflow" in rows[("a", "b", "dcor")]["note"]
+        # ranks do not care how large a value is: Spearman on column a is computed as usual
+        assert rows[("a", "b", "spearman")]["estimate"] is not None
+        assert rows[("b", "c", "dcor")]["estimate"] is not None
+        r = c.get(f"/api/analyses/{aid}/pair", params={"x": "a", "y": "b"})
+        assert r.status_code == 200 and "overflow" in " ".join(r.json()["pattern"]["reasons"])

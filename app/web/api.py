@@ -47,6 +47,16 @@ def get_dataset(dataset_id: str, ws: Workspace = Depends(get_workspace)):
     return _json(ws.dataset_json(ws.dataset(dataset_id)))
 
 
+def _finite(value):
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    if isinstance(value, dict):
+        return {k: _finite(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_finite(v) for v in value]
+    return value
+
+
 def _is_number(value) -> bool:
     return isinstance(value, (int, float)) and not isinstance(value, bool)
 
@@ -121,7 +131,8 @@ def get_pairs(analysis_id: str, ws: Workspace = Depends(get_workspace)):
 @router.get("/analyses/{analysis_id}/pair")
 def get_pair(analysis_id: str, x: str = Query(...), y: str = Query(...), ws: Workspace = Depends(get_workspace)):
     detail = ws.pair(ws.analysis(analysis_id), x, y)
-    return _json({k: v for k, v in detail.items() if k != "seconds"})
+    # a fit over values near 1e300 overflows to inf: JSON has no such number, null says "undefined"
+    return _json({k: (v if k == "points" else _finite(v)) for k, v in detail.items() if k != "seconds"})
 
 
 @router.post("/analyses/{analysis_id}/cancel")
