@@ -6,6 +6,16 @@ import os
 from dataclasses import dataclass
 from pathlib import Path
 
+
+def _env_int(name: str, default: int) -> int:
+    """A limit a user may raise (or lower) with an environment variable; bad values keep the default."""
+    try:
+        value = int(os.environ.get(name, ""))
+    except ValueError:
+        return default
+    return value if value > 0 else default
+
+
 # Analysis defaults -------------------------------------------------------
 DEFAULT_MEASURES: tuple[str, ...] = ("pearson", "spearman", "kendall", "dcor")
 DEFAULT_CONFIDENCE = 0.95
@@ -22,14 +32,42 @@ MAX_UPLOAD_MB = 200
 # Bodies of requests other than uploads (JSON settings, forms) are small; a larger
 # one is refused with 413 instead of being buffered.
 MAX_REQUEST_BODY_KB = 1024
-MAX_ROWS = 5_000_000
+MAX_ROWS = _env_int("PAIRLENS_MAX_ROWS", 5_000_000)
 MAX_COLUMNS = 5_000
-# A .csv.gz may not decompress to more than this (guards against gzip bombs).
-MAX_DECOMPRESSED_MB = 2_048
+# Cells (rows x columns of the file, every column) read from one file: the float64 table alone
+# is 8 bytes a cell, the parsers need several times that while they work.
+MAX_CELLS = _env_int("PAIRLENS_MAX_CELLS", 20_000_000)
+# Workbook cells are parsed one XML element at a time (about 100,000 a second), so their limit
+# is lower; the sheet's declared dimension is checked before any row is read.
+MAX_XLSX_CELLS = _env_int("PAIRLENS_MAX_XLSX_CELLS", 2_000_000)
+# Text (a .csv, or what a .csv.gz inflates to) may not be larger than this; the inflated bytes
+# and lines are counted while decompressing, so a gzip bomb stops at the limit.
+MAX_DECOMPRESSED_MB = _env_int("PAIRLENS_MAX_TEXT_MB", 400)
+# The server parses every upload in a child process with this much memory (on top of what
+# the child has mapped at start, RLIMIT_AS) and this long; a file that needs more is refused.
+PARSE_MEMORY_MB = _env_int("PAIRLENS_PARSE_MEMORY_MB", 900)
+PARSE_SECONDS = _env_int("PAIRLENS_PARSE_SECONDS", 120)
+# Work budget of one analysis. The estimate, made before anything runs, is
+#   seconds = pairs x measures x (PAIR_OVERHEAD_ROWS + rows x (1 + permutations)) / WORK_UNITS_PER_SECOND
+# on one core: every pair and measure has a fixed cost (tests, intervals, bookkeeping; about
+# 0.4 ms, i.e. PAIR_OVERHEAD_ROWS rows) and each resample costs about as much per row as the
+# statistic. Measured on this project's engine on a busy 2-core machine (default measures,
+# n = 3 x 100 columns: 0.39 ms per pair and measure; n = 20,000 x 4 columns: 7.7 ms).
+# An analysis estimated beyond WORK_BUDGET_SECONDS is refused with the estimate and the options
+# that shrink it; raise the budget with PAIRLENS_WORK_BUDGET_SECONDS.
+PAIR_OVERHEAD_ROWS = 1_000
+WORK_UNITS_PER_SECOND = 2_500_000
+WORK_BUDGET_SECONDS = _env_int("PAIRLENS_WORK_BUDGET_SECONDS", 7_200)
+# Rows of the pair table (pairs x measures) one analysis may produce: each is stored and shown.
+MAX_PAIR_ROWS = _env_int("PAIRLENS_MAX_PAIR_ROWS", 2_000_000)
 # A text column counts as numeric when at least this share of its non-missing cells are
 # numbers; the others become missing with a note (app/ingest.py).
 NUMERIC_MIN_SHARE = 0.95
 MAX_PERMUTATIONS = 100_000
+# The pair-view cache of the server holds at most this many bytes (points kept as arrays).
+PAIR_CACHE_MB = 64
+# Parsed tables the server keeps in memory (the latest one is always kept).
+TABLE_CACHE_MB = 400
 # Column groups need pairwise distances; above this many rows the n x n
 # blocks would not fit comfortably in memory, so the user is told to sample.
 MAX_GROUP_ROWS = 20_000
@@ -50,6 +88,11 @@ MAX_CONCURRENT_ANALYSES = 2
 VERDICT_BUDGET_SECONDS = 10.0
 # A cancelled analysis that has not stopped after this long is terminated.
 CANCEL_GRACE_SECONDS = 3.0
+# Every server on a workspace checks this often whether the owners of running analyses are
+# alive (their owner lock), so a killed server's analyses end as interrupted without a restart.
+OWNER_SWEEP_SECONDS = 2.0
+# An analysis process checks this often that its server is alive, and stops when it is gone.
+PARENT_POLL_SECONDS = 0.5
 
 PACKAGE_DIR = Path(__file__).resolve().parent
 PROJECT_DIR = PACKAGE_DIR.parent

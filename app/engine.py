@@ -22,6 +22,7 @@ from .core import allpairs, chatterjee, distance, linear, rank
 from .core.registry import MEASURES, PairContext, get_measure
 from .core.results import TestResult, undefined
 from .core.testing import adjust_pvalues, pair_seed
+from .budget import WorkEstimate, check_plan
 from .errors import SettingsError
 from .executors import Executor, ProcessExecutor, SerialExecutor, make_executor
 from .export import PAIR_FIELDS
@@ -276,6 +277,9 @@ def _compute_one(measure_name: str, xv: np.ndarray, yv: np.ndarray, x_name: str,
                       seed=pair_seed(settings.seed, x_name, y_name, measure_name))
     try:
         return measure.compute(xv, yv, ctx)
+    except ArithmeticError:  # e.g. squares of values near 1e300 overflow: this pair and measure only
+        return undefined(n, f"{measure.name} cannot be computed: the values are too large for double "
+                            "precision (overflow); rescale the columns (e.g. divide by 1e100)")
     except ValueError as exc:  # limits such as the group size cap come back as a note
         return undefined(n, str(exc))
 
@@ -460,7 +464,10 @@ def _run_tile(tile: list[tuple[int, int]]) -> list[PairRow]:
     with _one_blas_thread():
         for i, j in tile:
             xvar, yvar = s["variables"][i], s["variables"][j]
-            rows = _fast_pair_rows(prep, xvar, yvar, s["settings"])
+            try:
+                rows = _fast_pair_rows(prep, xvar, yvar, s["settings"])
+            except ArithmeticError:  # the per-pair path below turns it into a note per measure
+                rows = None
             if rows is None:
                 rows = compute_pair(s["data"], xvar, yvar, s["settings"], s["row_mask"])
             out.extend(rows)
@@ -511,6 +518,8 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
     variables = plan_variables(list(names), settings)
     row_mask = _complete_rows(data, names, settings) if settings.missing == "complete" else None
     pairs = _pairs(variables)
+    # refused before any work: too many pair-table rows, or beyond the work budget (app/budget.py)
+    check_plan(WorkEstimate(len(pairs), len(settings.measures), data.shape[0], settings.permutations))
     workers = workers or os.cpu_count() or 1
     owned = executor is None
     if executor is None:
@@ -626,14 +635,19 @@ def pair_detail(data: np.ndarray, names: Sequence[str], x: str, y: str,
     from .core import verdict as verdict_mod
 
     fit = gaussian_mod.fit_gaussian(xv, yv)
-    pattern = verdict_mod.classify_pair(xv, yv, results, q_values, alpha=config.SIGNIFICANCE_LEVEL, fit=fit)
+    try:
+        pattern = verdict_mod.classify_pair(xv, yv, results, q_values, alpha=config.SIGNIFICANCE_LEVEL, fit=fit)
+        pattern_json = {"label": pattern.label, "reasons": list(pattern.reasons)}
+    except ArithmeticError:  # values near 1e300 overflow a measure's sums: no verdict, the view still shows
+        pattern_json = {"label": "", "reasons": ["no verdict: the values are too large for double precision "
+                                                 "(overflow); rescale the columns"]}
     detail = {
         "x": x,
         "y": y,
         "n": int(len(xv)),
         "measures": measures,
         "gaussian": _gaussian_json(fit),
-        "pattern": {"label": pattern.label, "reasons": list(pattern.reasons)},
+        "pattern": pattern_json,
     }
     if include_points:
         detail["points"] = {"x": xv.tolist(), "y": yv.tolist(), "rows": np.flatnonzero(keep).tolist()}

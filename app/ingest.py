@@ -45,7 +45,9 @@ import gzip
 import hashlib
 import io
 import itertools
+import os
 import re
+import threading
 import warnings
 import zipfile
 import zlib
@@ -57,7 +59,8 @@ import numpy as np
 
 from . import config
 
-__all__ = ["IngestError", "ColumnInfo", "Table", "load_table", "load_bytes", "SUPPORTED_FORMATS"]
+__all__ = ["IngestError", "ColumnInfo", "Table", "load_table", "load_bytes", "load_file_isolated",
+           "read_file_bytes", "SUPPORTED_FORMATS"]
 
 SUPPORTED_FORMATS = ".csv, .tsv, .txt, .csv.gz, .xlsx, .parquet"
 
@@ -286,17 +289,76 @@ def _stem(base: str) -> str:
     return base
 
 
+def _raise_hint(setting: str, env: str) -> str:
+    return f"load a sample, or raise the limit ({setting} in app/config.py, or the {env} environment variable)"
+
+
+def _head_width(head: bytes) -> int:
+    """Fields in the first line of a text table's first bytes (1 when it cannot tell)."""
+    try:
+        text, _ = _decode(head, "head", [])
+    except Exception:  # noqa: BLE001 - only an estimate; the full reader explains bad files
+        return 1
+    text = text.lstrip()
+    if not text:
+        return 1
+    delimiter = _sniff_delimiter(text)
+    try:
+        first = next(iter(_records(text, delimiter)), None)
+    except csv.Error:
+        first = None
+    if first is None:
+        return max(1, len(text.split("\n", 1)[0].split(delimiter)))
+    return max(1, len(first[1]))
+
+
+def _line_count(chunk: bytes) -> int:
+    return max(chunk.count(b"\n"), chunk.count(b"\r"))
+
+
+def _check_text_size(base: str, lines: int, width: int, size: int) -> None:
+    """Refuse a text table whose size, line count (a bound on its rows) or cells pass a limit."""
+    text_limit = int(config.MAX_DECOMPRESSED_MB) * 1024 * 1024
+    if size > text_limit:
+        raise _fail(base, f"holds more than {config.MAX_DECOMPRESSED_MB} MB of text (the limit for a table's text)",
+                    _raise_hint("MAX_DECOMPRESSED_MB", "PAIRLENS_MAX_TEXT_MB"))
+    if lines - 1 > config.MAX_ROWS:
+        raise _fail(base, f"has more than {config.MAX_ROWS} lines below its header; pairlens reads at most {config.MAX_ROWS}",
+                    _raise_hint("MAX_ROWS", "PAIRLENS_MAX_ROWS"))
+    if width > config.MAX_COLUMNS:
+        raise _fail(base, f"has {width} columns; pairlens reads at most {config.MAX_COLUMNS}",
+                    "keep fewer columns (config.MAX_COLUMNS)")
+    if (lines - 1) * width > config.MAX_CELLS:
+        raise _fail(base, f"has more than {config.MAX_CELLS} cells (about {lines - 1} rows x {width} columns); "
+                          f"pairlens reads at most {config.MAX_CELLS} cells from one file",
+                    _raise_hint("MAX_CELLS", "PAIRLENS_MAX_CELLS"))
+
+
 def _gunzip(content: bytes, base: str) -> bytes:
-    limit = int(config.MAX_DECOMPRESSED_MB) * 1024 * 1024
+    """Inflate a .csv.gz in chunks, counting bytes and lines, so a bomb stops at the first limit it passes."""
+    chunk_size = 1 << 20
+    chunks: list[bytes] = []
+    size = lines = 0
+    width = 0
     try:
         with gzip.GzipFile(fileobj=io.BytesIO(content)) as gz:
-            raw = gz.read(limit + 1)
+            while True:
+                chunk = gz.read(chunk_size)
+                if not chunk:
+                    break
+                chunks.append(chunk)
+                size += len(chunk)
+                lines += _line_count(chunk)
+                if not width and (size >= _SNIFF_CHARS or lines > _SNIFF_RECORDS):
+                    width = _head_width(b"".join(chunks)[:_SNIFF_CHARS])
+                _check_text_size(base, lines, max(width, 1), size)
     except (OSError, EOFError, zlib.error) as exc:
         raise _fail(base, f"corrupt gzip data ({_one_line(exc) or 'truncated'})",
                     "compress the file again, or load the uncompressed .csv") from exc
-    if len(raw) > limit:
-        raise _fail(base, f"decompresses to more than {config.MAX_DECOMPRESSED_MB} MB",
-                    "load a smaller extract of the table")
+    raw = b"".join(chunks)
+    chunks.clear()
+    _check_text_size(base, _line_count(raw) + (0 if raw.endswith((b"\n", b"\r")) else 1),
+                     _head_width(raw[:_SNIFF_CHARS]), len(raw))
     return raw
 
 
@@ -658,6 +720,37 @@ def _cell_text(value: object) -> str:
     return str(value)
 
 
+def _used_width(row) -> int:
+    for j in range(len(row) - 1, -1, -1):
+        v = row[j]
+        if v is not None and not (isinstance(v, str) and not v.strip()):
+            return j + 1
+    return 0
+
+
+def _xlsx_too_many_cells(base: str, sheet: str, count: str) -> IngestError:
+    return _fail(base, f"sheet {sheet!r} has {count} cells; pairlens reads at most {config.MAX_XLSX_CELLS} "
+                       "cells from a workbook (workbooks parse slowly)",
+                 "save the table as .csv or .parquet, or raise the limit (MAX_XLSX_CELLS in app/config.py, "
+                 "or the PAIRLENS_MAX_XLSX_CELLS environment variable)")
+
+
+def _check_sheet_dimension(base: str, sheet: str, worksheet) -> None:
+    """Refuse a sheet by the dimension its XML declares, before a single row is parsed."""
+    try:
+        rows, cols = int(worksheet.max_row or 0), int(worksheet.max_column or 0)
+    except Exception:  # noqa: BLE001 - no or unreadable dimension: the running count guards instead
+        return
+    if cols > config.MAX_COLUMNS:
+        raise _fail(base, f"sheet {sheet!r} declares {cols} columns; pairlens reads at most {config.MAX_COLUMNS}",
+                    "keep fewer columns (config.MAX_COLUMNS)")
+    if rows - 1 > config.MAX_ROWS:
+        raise _fail(base, f"sheet {sheet!r} declares {rows} rows; pairlens reads at most {config.MAX_ROWS}",
+                    _raise_hint("MAX_ROWS", "PAIRLENS_MAX_ROWS"))
+    if rows * cols > config.MAX_XLSX_CELLS:
+        raise _xlsx_too_many_cells(base, sheet, f"{rows * cols} ({rows} rows x {cols} columns)")
+
+
 def _read_xlsx(content: bytes, base: str, sheet: str | None, notes: list[str]):
     import openpyxl
 
@@ -684,10 +777,19 @@ def _read_xlsx(content: bytes, base: str, sheet: str | None, notes: list[str]):
         worksheet = book[chosen]
         if not hasattr(worksheet, "iter_rows"):
             raise _fail(base, f"sheet {chosen!r} is a chart, not a table", "pick a sheet that holds the table")
+        _check_sheet_dimension(base, chosen, worksheet)
         header = None
         rows: list[tuple] = []
+        cells = 0
         try:
             for row in worksheet.iter_rows(values_only=True):
+                # counted as read too: a sheet without (or with a false) dimension stops at the limit
+                cells += len(row)
+                if len(row) > config.MAX_COLUMNS and _used_width(row) > config.MAX_COLUMNS:
+                    raise _fail(base, f"sheet {chosen!r} has {_used_width(row)} columns; pairlens reads at most "
+                                      f"{config.MAX_COLUMNS}", "keep fewer columns (config.MAX_COLUMNS)")
+                if cells > config.MAX_XLSX_CELLS:
+                    raise _xlsx_too_many_cells(base, chosen, f"more than {config.MAX_XLSX_CELLS}")
                 if all(v is None or (isinstance(v, str) and not v.strip()) for v in row):
                     continue
                 if header is None:
@@ -756,6 +858,19 @@ class _Typed:
     examples: tuple[str, ...] = ()
 
 
+def _check_parquet_size(base: str, rows: int, width: int) -> None:
+    if width > config.MAX_COLUMNS:
+        raise _fail(base, f"has {width} columns; pairlens reads at most {config.MAX_COLUMNS}",
+                    "keep fewer columns (config.MAX_COLUMNS)")
+    if rows > config.MAX_ROWS:
+        raise _fail(base, f"has {rows} rows or more; pairlens reads at most {config.MAX_ROWS}",
+                    _raise_hint("MAX_ROWS", "PAIRLENS_MAX_ROWS"))
+    if rows * width > config.MAX_CELLS:
+        raise _fail(base, f"has {rows} rows x {width} columns, more than {config.MAX_CELLS} cells; "
+                          f"pairlens reads at most {config.MAX_CELLS} cells from one file",
+                    "write fewer columns or rows, or " + _raise_hint("MAX_CELLS", "PAIRLENS_MAX_CELLS")[len("load a sample, or "):])
+
+
 def _read_parquet(content: bytes, base: str):
     import pandas as pd
     import pyarrow as pa
@@ -766,13 +881,19 @@ def _read_parquet(content: bytes, base: str):
         parquet = pq.ParquetFile(pa.BufferReader(content))
         n_rows = parquet.metadata.num_rows
         schema = parquet.schema_arrow
-        if len(schema) > config.MAX_COLUMNS:
-            raise _fail(base, f"has {len(schema)} columns; pairlens reads at most {config.MAX_COLUMNS}",
-                        "keep fewer columns (config.MAX_COLUMNS)")
-        if n_rows > config.MAX_ROWS:
-            raise _fail(base, f"has {n_rows} rows; pairlens reads at most {config.MAX_ROWS}",
-                        "load a sample of the rows")
-        table = parquet.read()
+        width = max(len(schema), 1)
+        # The footer's counts are checked before anything is decoded...
+        _check_parquet_size(base, n_rows, width)
+        # ... and, since a footer can understate what the pages hold, the rows are counted again
+        # batch by batch while reading, so a lying file stops at the limit it passes.
+        batches = []
+        read_rows = 0
+        for batch in parquet.iter_batches(batch_size=65_536, use_threads=False):
+            read_rows += batch.num_rows
+            _check_parquet_size(base, read_rows, width)
+            batches.append(batch)
+        table = pa.Table.from_batches(batches, schema=batches[0].schema) if batches else parquet.schema_arrow.empty_table()
+        batches.clear()
     except IngestError:
         raise
     except Exception as exc:  # pyarrow raises ArrowInvalid, OSError, ... for damaged files
@@ -1095,6 +1216,9 @@ def _load(content: bytes, base: str, sheet: str | None) -> Table:
                         else "compress the .csv that holds the table")
     elif kind is not None:
         raise _refuse_binary(base, kind, stem)
+    else:
+        _check_text_size(base, _line_count(raw) + (0 if raw.endswith((b"\n", b"\r")) else 1),
+                         _head_width(raw[:_SNIFF_CHARS]), len(raw))
 
     text, encoding = _decode(raw, base, notes)
     names, columns, preview, delimiter, decimal_comma = _read_text_table(text, base, notes)
@@ -1149,11 +1273,31 @@ def load_bytes(content: bytes, name: str, *, sheet: str | None = None) -> Table:
                     f"check that it is a valid file of its type ({SUPPORTED_FORMATS})") from exc
 
 
-def load_table(path: str | Path, *, sheet: str | None = None) -> Table:
-    """Read a file from disk (.csv .tsv .txt .csv.gz .xlsx .parquet); see :func:`load_bytes`."""
+def _file_limit_bytes() -> int:
+    # No format holds a usable table in more bytes than the text limit: a .csv is that text,
+    # workbooks and Parquet files are compressed.
+    return int(config.MAX_DECOMPRESSED_MB) * 1024 * 1024
+
+
+def read_file_bytes(path: str | Path) -> bytes:
+    """The bytes of a regular file (never a device, pipe or socket, even through a link), bounded."""
+    import stat
+
     base = _display_name(path)
     try:
-        content = Path(path).read_bytes()
+        info = os.stat(path)  # follows links: a .csv link to /dev/zero is a device
+        if stat.S_ISDIR(info.st_mode):
+            raise _fail(base, "is a directory, not a file", "give the table file inside it")
+        if not stat.S_ISREG(info.st_mode):
+            raise _fail(base, "is not a regular file (a device, pipe or socket)",
+                        "save the table to a file and give its path")
+        if info.st_size > _file_limit_bytes():
+            raise _fail(base, f"is larger than {config.MAX_DECOMPRESSED_MB} MB",
+                        _raise_hint("MAX_DECOMPRESSED_MB", "PAIRLENS_MAX_TEXT_MB"))
+        with open(path, "rb") as handle:
+            content = handle.read(_file_limit_bytes() + 1)
+    except IngestError:
+        raise
     except FileNotFoundError as exc:
         raise _fail(base, "file not found", "check the path") from exc
     except IsADirectoryError as exc:
@@ -1162,4 +1306,125 @@ def load_table(path: str | Path, *, sheet: str | None = None) -> Table:
         raise _fail(base, "permission denied", "check that you may read the file") from exc
     except (OSError, ValueError) as exc:
         raise _fail(base, f"cannot be opened ({_one_line(exc)})", "check the path") from exc
-    return load_bytes(content, base, sheet=sheet)
+    if len(content) > _file_limit_bytes():  # it grew while being read
+        raise _fail(base, f"is larger than {config.MAX_DECOMPRESSED_MB} MB",
+                    _raise_hint("MAX_DECOMPRESSED_MB", "PAIRLENS_MAX_TEXT_MB"))
+    return content
+
+
+def load_table(path: str | Path, *, sheet: str | None = None) -> Table:
+    """Read a regular file from disk (.csv .tsv .txt .csv.gz .xlsx .parquet); see :func:`load_bytes`."""
+    return load_bytes(read_file_bytes(path), _display_name(path), sheet=sheet)
+
+
+# ---------------------------------------------------------------------------
+# parsing in a child process (the server)
+# ---------------------------------------------------------------------------
+
+_LIMIT_NAMES = ("MAX_ROWS", "MAX_COLUMNS", "MAX_CELLS", "MAX_XLSX_CELLS", "MAX_DECOMPRESSED_MB", "NUMERIC_MIN_SHARE")
+_context_lock = threading.Lock()
+_context = None
+
+
+def _vm_size_bytes() -> int:
+    try:
+        with open("/proc/self/status") as status:
+            for line in status:
+                if line.startswith("VmSize:"):
+                    return int(line.split()[1]) * 1024
+    except OSError:
+        pass
+    return 0
+
+
+def _parse_child(conn, path: str, name: str, sheet, limits: dict, memory_bytes: int) -> None:
+    """Child side of :func:`load_file_isolated`: cap the address space, parse, send the table back."""
+    try:
+        import resource
+
+        ceiling = _vm_size_bytes() + memory_bytes
+        resource.setrlimit(resource.RLIMIT_AS, (ceiling, ceiling))
+    except (ImportError, ValueError, OSError):  # pragma: no cover - not Linux: the time limit still holds
+        pass
+    for key, value in limits.items():
+        setattr(config, key, value)
+    try:
+        table = load_bytes(read_file_bytes(path), name, sheet=sheet)
+        conn.send(("ok", table))
+    except IngestError as exc:
+        conn.send(("error", str(exc)))
+    except BaseException as exc:  # noqa: BLE001 - MemoryError past the cap, anything else
+        conn.send(("error", f"{type(exc).__name__}"))
+    finally:
+        conn.close()
+
+
+def _spawn_context():
+    """A forkserver that has imported the readers once: each parse forks a clean, single-threaded child."""
+    global _context
+    import multiprocessing
+
+    with _context_lock:
+        if _context is None:
+            methods = multiprocessing.get_all_start_methods()
+            ctx = multiprocessing.get_context("forkserver" if "forkserver" in methods else "spawn")
+            if "forkserver" in methods:
+                ctx.set_forkserver_preload(["numpy", "pandas", "pyarrow", "pyarrow.csv", "pyarrow.parquet",
+                                            "openpyxl", "app.ingest"])
+            _context = ctx
+        return _context
+
+
+def load_file_isolated(path: str | Path, name: str, *, sheet: str | None = None,
+                       memory_mb: int | None = None, seconds: float | None = None) -> Table:
+    """:func:`load_bytes` on a stored file, run in a child process with a memory and a time limit.
+
+    The server parses every upload this way, so no file can take the server's memory or
+    hold one of its threads for long: a child that passes ``config.PARSE_MEMORY_MB`` of new
+    address space (RLIMIT_AS) or ``config.PARSE_SECONDS`` is stopped and the file refused
+    with an :class:`IngestError` naming the limit.
+    """
+    base = _display_name(name)
+    memory_mb = int(config.PARSE_MEMORY_MB if memory_mb is None else memory_mb)
+    seconds = float(config.PARSE_SECONDS if seconds is None else seconds)
+    limits = {key: getattr(config, key) for key in _LIMIT_NAMES}
+    ctx = _spawn_context()
+    receiver, sender = ctx.Pipe(duplex=False)
+    child = ctx.Process(target=_parse_child, args=(sender, str(path), name, sheet, limits, memory_mb << 20),
+                        daemon=True, name="pairlens-parse")
+    import sys
+    import types
+
+    with _context_lock:
+        # The child needs app.ingest only; without this, multiprocessing re-runs the caller's main
+        # script (a user's script, the CLI, a test runner) in the child before parsing.
+        main = sys.modules["__main__"]
+        sys.modules["__main__"] = types.ModuleType("__main__")
+        try:
+            child.start()
+        finally:
+            sys.modules["__main__"] = main
+    sender.close()
+    try:
+        if not receiver.poll(seconds):
+            raise _fail(base, f"took longer than {seconds:g} s to read (config.PARSE_SECONDS)",
+                        "save it as .csv or .parquet, load a sample, or raise the limit "
+                        "(the PAIRLENS_PARSE_SECONDS environment variable)")
+        try:
+            outcome, value = receiver.recv()
+        except (EOFError, OSError):
+            outcome, value = "error", "ended"
+    finally:
+        receiver.close()
+        if child.is_alive():
+            child.kill()
+        child.join(5)
+    if outcome == "ok":
+        return value
+    if value in ("MemoryError", "ended", "ArrowMemoryError"):
+        raise _fail(base, f"needs more than {memory_mb} MB of memory to read (config.PARSE_MEMORY_MB)",
+                    "load a sample of the rows or fewer columns, or raise the limit "
+                    "(the PAIRLENS_PARSE_MEMORY_MB environment variable)")
+    if value.startswith(base + ":") or ":" in value:
+        raise IngestError(value)
+    raise _fail(base, f"could not be read ({value})", f"check that it is a valid file of its type ({SUPPORTED_FORMATS})")

@@ -25,6 +25,8 @@ import math
 import argparse
 import os
 import secrets
+import signal
+import sqlite3
 import subprocess
 import sys
 import threading
@@ -36,7 +38,7 @@ from typing import Callable
 import numpy as np
 
 from . import config
-from .store import Store
+from .store import Store, is_disk_full, process_start_time
 
 __all__ = ["JobManager", "run_job", "compute_verdicts", "VERDICT_FRACTION"]
 
@@ -133,6 +135,76 @@ class _Throttle:
         return False
 
 
+def _retry_write(store: Store, write: Callable[[], object], *, attempts: int = 8, first_wait: float = 0.1):
+    """Run a status write, retrying while the database is locked or the disk is full.
+
+    On a full disk the workspace's reserve file is given up first, so the final status of an
+    analysis can still be written (:meth:`Store.release_reserve`). Raises the last error.
+    """
+    wait = first_wait
+    for attempt in range(attempts):
+        try:
+            return write()
+        except (sqlite3.OperationalError, OSError) as exc:
+            if is_disk_full(exc):
+                store.release_reserve()
+            if attempt == attempts - 1:
+                raise
+            time.sleep(wait)
+            wait = min(wait * 2, 2.0)
+    return None
+
+
+def _kill_group(pid: int, sig: int = signal.SIGKILL) -> None:
+    """Signal a process and the pool workers it forked (its own process group when it leads one)."""
+    try:
+        if os.getpgid(pid) == pid:
+            os.killpg(pid, sig)
+        else:
+            os.kill(pid, sig)
+    except (ProcessLookupError, PermissionError):
+        pass
+
+
+def stop_proven_worker(pid: int | None, started: int | None) -> bool:
+    """SIGKILL an analysis process of a dead server, only when its pid still names the same process.
+
+    ``started`` is the start time recorded when it claimed the analysis; a pid the kernel has
+    given to another process since has another start time and is left alone.
+    """
+    if not pid or started is None or pid == os.getpid():
+        return False
+    if process_start_time(pid) != started:
+        return False
+    _kill_group(pid)
+    return True
+
+
+def _watch_parent(data_dir: str, analysis_id: str, parent: int, interval: float) -> None:
+    """Child-side watchdog: when the server that started this process dies, record it and stop at once.
+
+    Polled every ``interval`` seconds on a thread of its own, so a long tile cannot delay it.
+    """
+    def watch() -> None:
+        while True:
+            time.sleep(interval)
+            if os.getppid() == parent:
+                continue
+            store = Store(data_dir)
+            try:
+                _retry_write(store, lambda: store.finish(
+                    analysis_id, "interrupted", "the server stopped before this analysis finished; run it again"),
+                    attempts=3)
+            except Exception:  # noqa: BLE001 - the next server marks it; stopping matters more
+                pass
+            finally:
+                store.close()
+            _kill_group(os.getpid())
+            os._exit(3)
+
+    threading.Thread(target=watch, name="pairlens-parent-watch", daemon=True).start()
+
+
 def run_job(data_dir: str, analysis_id: str, *, workers: int | None = None, cluster: str | None = None) -> str:
     """Run one queued analysis to its end in this process; returns the final status.
 
@@ -143,11 +215,19 @@ def run_job(data_dir: str, analysis_id: str, *, workers: int | None = None, clus
 
     store = Store(data_dir)
     try:
-        if not store.claim(analysis_id, os.getpid()):
+        if not store.claim(analysis_id, os.getpid(), process_start_time(os.getpid())):
             row = store.get_analysis(analysis_id)
             return row.status if row else "failed"
         row = store.get_analysis(analysis_id)
         assert row is not None
+        def note_progress(*args, **kwargs) -> None:
+            # progress is best effort: a full disk (or a busy database) must not fail the analysis;
+            # only the final status write has to land, and it is retried (_retry_write)
+            try:
+                store.update_progress(*args, **kwargs)
+            except sqlite3.OperationalError:
+                pass
+
         cancel_throttle = _Throttle(0.2)
         cancel_state = {"flag": False, "orphaned": False}
         parent = os.getppid()
@@ -164,22 +244,28 @@ def run_job(data_dir: str, analysis_id: str, *, workers: int | None = None, clus
         def progress(fraction: float, seconds_left: float) -> None:
             if progress_throttle.ready() or fraction >= 1.0:
                 left = seconds_left if math.isfinite(seconds_left) else None
-                store.update_progress(analysis_id, fraction * (1 - VERDICT_FRACTION), left)
+                note_progress(analysis_id, fraction * (1 - VERDICT_FRACTION), left)
 
         try:
             dataset = store.get_dataset(row.dataset_id)
             if dataset is None:
                 raise SettingsError("the dataset of this analysis is gone")
-            store.update_progress(analysis_id, 0.0, None, phase="reading data")
+            note_progress(analysis_id, 0.0, None, phase="reading data")
             table = load_bytes(store.read_blob(dataset.sha256), dataset.name)
             settings = AnalysisSettings.from_dict(row.settings)
-            store.update_progress(analysis_id, 0.0, None, phase="pairs")
+            # time left from the up-front estimate until the first tile reports a measured one
+            from .budget import estimate_work
+            from .engine import plan_variables
+
+            estimate = estimate_work(len(plan_variables(table.columns, settings)), len(settings.measures),
+                                     table.n_rows, settings.permutations)
+            note_progress(analysis_id, 0.0, estimate.seconds / max(1, workers or 1), phase="pairs")
             pair_table = run_analysis(table.data, table.columns, settings, workers=workers, cluster=cluster,
                                       progress=progress, cancel=cancel)
-            store.update_progress(analysis_id, 1 - VERDICT_FRACTION, None, phase="verdicts")
+            note_progress(analysis_id, 1 - VERDICT_FRACTION, None, phase="verdicts")
 
             def verdict_progress(fraction: float) -> None:
-                store.update_progress(analysis_id, 1 - VERDICT_FRACTION + VERDICT_FRACTION * fraction, None)
+                note_progress(analysis_id, 1 - VERDICT_FRACTION + VERDICT_FRACTION * fraction, None)
 
             verdicts = compute_verdicts(table.data, table.columns, pair_table, progress=verdict_progress,
                                         cancel=cancel)
@@ -187,33 +273,44 @@ def run_job(data_dir: str, analysis_id: str, *, workers: int | None = None, clus
                 raise AnalysisCancelled("analysis cancelled")
             from .export import json_records
 
-            store.update_progress(analysis_id, 1.0, 0.0, phase="figures")
+            note_progress(analysis_id, 1.0, 0.0, phase="figures")
             pages = _page_cache(pair_table, verdicts)
-            saved = store.save_results(analysis_id, variables=list(pair_table.variables),
-                                       records=[r | {"method": m} for r, m in
-                                                zip(json_records(pair_table.records()),
-                                                    (row_.method for row_ in pair_table.rows))],
-                                       verdicts=verdicts, seconds=pair_table.seconds, pages=pages)
+            records = [r | {"method": m} for r, m in zip(json_records(pair_table.records()),
+                                                          (row_.method for row_ in pair_table.rows))]
+            saved = _retry_write(store, lambda: store.save_results(
+                analysis_id, variables=list(pair_table.variables), records=records, verdicts=verdicts,
+                seconds=pair_table.seconds, pages=pages))
             if not saved:
-                store.finish(analysis_id, "cancelled")
+                _retry_write(store, lambda: store.finish(analysis_id, "cancelled"))
                 return store.get_analysis(analysis_id).status  # type: ignore[union-attr]
             return "done"
         except AnalysisCancelled:
             if cancel_state["orphaned"]:
-                store.finish(analysis_id, "interrupted", "the server stopped before this analysis finished; "
-                                                         "run it again")
+                _retry_write(store, lambda: store.finish(
+                    analysis_id, "interrupted", "the server stopped before this analysis finished; run it again"))
                 return "interrupted"
-            store.finish(analysis_id, "cancelled")
+            _retry_write(store, lambda: store.finish(analysis_id, "cancelled"))
             return "cancelled"
         except (SettingsError, IngestError) as exc:
-            store.finish(analysis_id, "failed", " ".join(str(exc).split()))
+            _retry_write(store, lambda: store.finish(analysis_id, "failed", " ".join(str(exc).split())))
             return "failed"
         except Exception as exc:  # noqa: BLE001 - the user sees one line; the log keeps the traceback
             traceback.print_exc()
-            store.finish(analysis_id, "failed", f"internal error: {type(exc).__name__}: {exc}")
+            if is_disk_full(exc):
+                message = "the disk is full: free some space and run the analysis again"
+            else:
+                message = f"internal error: {type(exc).__name__}: {exc}"
+            _retry_write(store, lambda: store.finish(analysis_id, "failed", message))
             return "failed"
     finally:
         store.close()
+
+
+def is_disk_full_exit(returncode: int | None) -> bool:
+    return returncode == _DISK_FULL_EXIT
+
+
+_DISK_FULL_EXIT = 28  # ENOSPC's number: the child could not even write its final status
 
 
 def _child_command(data_dir: str, analysis_id: str, workers: int | None, cluster: str | None) -> list[str]:
@@ -275,14 +372,16 @@ class JobManager:
         self._stop = threading.Event()
         self._lock = threading.Lock()
         self._thread: threading.Thread | None = None
+        self._last_sweep = time.monotonic()
 
     # Life cycle ---------------------------------------------------------------
 
     def start(self) -> None:
         self._owner_lock = self.store.hold_owner_lock(self.token)
-        self.interrupted_at_start = self.store.mark_interrupted(self.token)
+        self.interrupted_at_start = self.sweep()
         self.store.remove_dead_owner_locks()
         self.store.remove_leftovers()
+        self.store.ensure_reserve()
         self._thread = threading.Thread(target=self._loop, name="pairlens-jobs", daemon=True)
         self._thread.start()
 
@@ -297,10 +396,14 @@ class JobManager:
             self._procs.clear()
         for aid, proc in procs.items():
             if proc.poll() is None:
-                proc.terminate()
+                _kill_group(proc.pid, signal.SIGTERM)
         for aid, proc in procs.items():
             _reap(proc, timeout)
-            self.store.finish(aid, "interrupted", "the server stopped before this analysis finished; run it again")
+            try:
+                _retry_write(self.store, lambda: self.store.finish(
+                    aid, "interrupted", "the server stopped before this analysis finished; run it again"), attempts=3)
+            except Exception:  # noqa: BLE001 - the next server marks it at start-up
+                traceback.print_exc()
         for row in self.store.list_analyses(status=("queued",)):
             if row.owner_pid == os.getpid():
                 self.store.finish(row.id, "interrupted", "the server stopped before this analysis started")
@@ -316,9 +419,36 @@ class JobManager:
         return row
 
     def cancel(self, analysis_id: str):
-        row = self.store.request_cancel(analysis_id)
+        """Flag an analysis to stop; one that no live process runs any more is cancelled at once."""
+        row = _retry_write(self.store, lambda: self.store.request_cancel(analysis_id))
+        if row is not None and row.status == "running" and not self._has_live_process(row):
+            _retry_write(self.store, lambda: self.store.finish(analysis_id, "cancelled"))
+            row = self.store.get_analysis(analysis_id)
         self._wake.set()
         return row
+
+    def _has_live_process(self, row) -> bool:
+        with self._lock:
+            if row.id in self._procs:
+                return True
+        if row.owner_token == self.token:
+            return False  # ours, but not among our processes: it ended without a final write
+        if self.store.owner_state(row.owner_token) == "alive":
+            return True  # another live server runs it and will see the flag
+        return process_start_time(row.worker_pid) is not None and \
+            process_start_time(row.worker_pid) == row.worker_started
+
+    def sweep(self) -> list[str]:
+        """Analyses of servers that are gone become ``interrupted``; their proven workers are stopped.
+
+        Every server on a workspace runs this every ``config.OWNER_SWEEP_SECONDS``, so the death of
+        one is seen by the others without a restart (an owner is alive while it holds its lock).
+        """
+        workers: list = []
+        changed = self.store.mark_interrupted(self.token, workers=workers)
+        for pid, started in workers:
+            stop_proven_worker(pid, started)
+        return changed
 
     def running_ids(self) -> list[str]:
         with self._lock:
@@ -341,34 +471,49 @@ class JobManager:
             self._wake.wait(self.poll_interval)
             self._wake.clear()
 
+    def _finalize(self, aid: str, proc: subprocess.Popen) -> None:
+        """The final status of an analysis whose process ended; kept for the next tick if it cannot be written."""
+        row = self.store.get_analysis(aid)
+        if row is not None and row.status in ("queued", "running"):
+            if row.cancel_requested:
+                self.store.finish(aid, "cancelled")
+            elif is_disk_full_exit(proc.returncode):
+                self.store.finish(aid, "failed", "the disk is full: free some space and run the analysis again")
+            else:
+                self.store.finish(aid, "failed", f"the analysis process ended unexpectedly "
+                                                 f"(exit code {proc.returncode})")
+        with self._lock:
+            self._procs.pop(aid, None)
+        self._cancel_seen.pop(aid, None)
+        if row is not None and row.status == "done" and self.on_done is not None:
+            threading.Thread(target=self._notify_done, args=(aid,), daemon=True).start()
+
     def _tick(self) -> None:
         now = time.monotonic()
+        if now - self._last_sweep >= config.OWNER_SWEEP_SECONDS:
+            self._last_sweep = now
+            self.sweep()
+            self.store.ensure_reserve()
         with self._lock:
             procs = dict(self._procs)
         for aid, proc in procs.items():
             if proc.poll() is not None:
-                with self._lock:
-                    self._procs.pop(aid, None)
-                self._cancel_seen.pop(aid, None)
-                row = self.store.get_analysis(aid)
-                if row is not None and row.status == "done" and self.on_done is not None:
-                    threading.Thread(target=self._notify_done, args=(aid,), daemon=True).start()
-                if row is not None and row.status in ("queued", "running"):
-                    if row.cancel_requested:
-                        self.store.finish(aid, "cancelled")
-                    else:
-                        self.store.finish(aid, "failed", f"the analysis process ended unexpectedly "
-                                                         f"(exit code {proc.returncode})")
+                try:
+                    self._finalize(aid, proc)
+                except (sqlite3.OperationalError, OSError) as exc:
+                    if is_disk_full(exc):
+                        self.store.release_reserve()
+                    traceback.print_exc()  # retried at the next tick
                 continue
             if self.store.cancel_requested(aid):
                 first = self._cancel_seen.setdefault(aid, now)
                 if now - first > _CANCEL_GRACE:
-                    proc.terminate()
+                    _kill_group(proc.pid, signal.SIGKILL)
                     _reap(proc, 2.0)
-                    with self._lock:
-                        self._procs.pop(aid, None)
-                    self._cancel_seen.pop(aid, None)
-                    self.store.finish(aid, "cancelled")
+                    try:
+                        self._finalize(aid, proc)
+                    except (sqlite3.OperationalError, OSError):
+                        traceback.print_exc()
         with self._lock:
             free = self.max_concurrent - len(self._procs)
             active = set(self._procs)
@@ -382,8 +527,9 @@ class JobManager:
                 break
             if row.id in active:
                 continue
+            # its own process group, so the pool workers it forks are stopped with it
             proc = subprocess.Popen(_child_command(str(self.store.data_dir), row.id, self.workers, self.cluster),
-                                    env=_child_env(), stdin=subprocess.DEVNULL)
+                                    env=_child_env(), stdin=subprocess.DEVNULL, process_group=0)
             with self._lock:
                 self._procs[row.id] = proc
             free -= 1
@@ -401,7 +547,14 @@ def main(argv: list[str] | None = None) -> int:
         os.nice(5)  # keep the web server responsive on small machines
     except (OSError, AttributeError):
         pass
-    status = run_job(args.data_dir, args.analysis_id, workers=args.workers, cluster=args.cluster)
+    _watch_parent(args.data_dir, args.analysis_id, os.getppid(), config.PARENT_POLL_SECONDS)
+    try:
+        status = run_job(args.data_dir, args.analysis_id, workers=args.workers, cluster=args.cluster)
+    except (sqlite3.OperationalError, OSError) as exc:
+        if is_disk_full(exc):  # the server records the final status from this exit code
+            traceback.print_exc()
+            return _DISK_FULL_EXIT
+        raise
     return 0 if status in ("done", "cancelled") else 1
 
 

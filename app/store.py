@@ -32,7 +32,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import BinaryIO, Iterator
 
-__all__ = ["Store", "StoreError", "StoreBusy", "DatasetRow", "AnalysisRow", "STATUSES", "ACTIVE_STATUSES",
+__all__ = ["Store", "StoreError", "StoreBusy", "DatabaseDamaged", "process_start_time", "is_disk_full", "DatasetRow", "AnalysisRow", "STATUSES", "ACTIVE_STATUSES",
            "FINAL_STATUSES", "DB_NAME"]
 
 DB_NAME = "pairlens.sqlite3"
@@ -65,6 +65,7 @@ CREATE TABLE IF NOT EXISTS analyses (
     owner_pid        INTEGER,
     owner_token      TEXT NOT NULL DEFAULT '',
     worker_pid       INTEGER,
+    worker_started   INTEGER,
     created          REAL NOT NULL,
     started          REAL,
     finished         REAL,
@@ -133,6 +134,7 @@ class AnalysisRow:
     started: float | None
     finished: float | None
     updated: float
+    worker_started: int | None = None
 
     def public(self) -> dict:
         return {"id": self.id, "dataset_id": self.dataset_id, "status": self.status,
@@ -157,19 +159,46 @@ def _new_id() -> str:
 class Store:
     """One process's handle on a data directory. Thread-safe (one connection per thread)."""
 
-    def __init__(self, data_dir: str | os.PathLike) -> None:
+    def __init__(self, data_dir: str | os.PathLike, *, check: bool = False) -> None:
         self.data_dir = Path(data_dir)
         self.blob_dir = self.data_dir / "blobs"
         self.data_dir.mkdir(parents=True, exist_ok=True)
         self.blob_dir.mkdir(exist_ok=True)
         self.db_path = self.data_dir / DB_NAME
         self._local = threading.local()
+        if check:
+            self.check_database()
         # executescript manages its own transaction; the schema is idempotent.
         con = self._connection()
         con.executescript(_SCHEMA)
         con.executescript(_IMMUTABLE_RESULTS)
         if "pages" not in {r[1] for r in con.execute("PRAGMA table_info(results)")}:
             con.execute("ALTER TABLE results ADD COLUMN pages BLOB")
+        if "worker_started" not in {r[1] for r in con.execute("PRAGMA table_info(analyses)")}:
+            con.execute("ALTER TABLE analyses ADD COLUMN worker_started INTEGER")
+
+    def check_database(self) -> None:
+        """Refuse a damaged or foreign database file with one line naming it (SQLite's quick_check).
+
+        ``PRAGMA quick_check`` reads every page and checks the b-trees (it skips only the
+        index-content cross-check of ``integrity_check``): https://www.sqlite.org/pragma.html#pragma_quick_check
+        """
+        if not self.db_path.exists():
+            return
+        fix = (f"move it aside (the server then starts with an empty workspace) or restore it from a backup; "
+               f"the uploaded files stay in {self.blob_dir}")
+        try:
+            con = sqlite3.connect(f"file:{self.db_path}?mode=ro", uri=True, timeout=30.0)
+            try:
+                rows = con.execute("PRAGMA quick_check").fetchall()
+            finally:
+                con.close()
+        except sqlite3.DatabaseError as exc:
+            raise DatabaseDamaged(f"{self.db_path} is not a usable pairlens database ({exc}); {fix}") from None
+        if [tuple(r) for r in rows] != [("ok",)]:
+            first = str(rows[0][0]) if rows else "no answer"
+            raise DatabaseDamaged(f"{self.db_path} is damaged (SQLite quick_check: {' '.join(first.split())[:120]}); "
+                                  f"{fix}")
 
     # Connections and transactions -------------------------------------------
 
@@ -203,6 +232,30 @@ class Store:
         if con is not None:
             con.close()
             self._local.con = None
+
+    # Reserve ----------------------------------------------------------------
+    # A few MB kept on the workspace's disk and given up when the disk fills, so the final
+    # status of a running analysis and a cancel can still be written; refilled when space is back.
+
+    RESERVE_NAME = "reserve.bin"
+    RESERVE_BYTES = 4 << 20
+
+    def ensure_reserve(self) -> bool:
+        path = self.data_dir / self.RESERVE_NAME
+        try:
+            if path.exists() and path.stat().st_size >= self.RESERVE_BYTES:
+                return True
+            with open(path, "wb") as handle:
+                handle.write(b"\0" * self.RESERVE_BYTES)
+                handle.flush()
+                os.fsync(handle.fileno())
+            return True
+        except OSError:
+            path.unlink(missing_ok=True)
+            return False
+
+    def release_reserve(self) -> None:
+        (self.data_dir / self.RESERVE_NAME).unlink(missing_ok=True)
 
     # Blobs ------------------------------------------------------------------
 
@@ -309,7 +362,7 @@ class Store:
         return AnalysisRow(r["id"], r["dataset_id"], json.loads(r["settings"]), r["status"], float(r["progress"]),
                            r["phase"], r["seconds_left"], r["error"], bool(r["cancel_requested"]),
                            r["owner_pid"], r["worker_pid"], r["created"], r["owner_token"], r["started"],
-                           r["finished"], r["updated"])
+                           r["finished"], r["updated"], r["worker_started"])
 
     def create_analysis(self, dataset_id: str, settings: dict, owner_pid: int | None = None,
                         owner_token: str = "") -> AnalysisRow:
@@ -342,13 +395,18 @@ class Store:
         args.append(limit)
         return [self._analysis(r) for r in self._connection().execute(sql, args).fetchall()]
 
-    def claim(self, analysis_id: str, worker_pid: int | None = None) -> bool:
-        """queued -> running; False when the analysis is no longer queued (e.g. cancelled)."""
+    def claim(self, analysis_id: str, worker_pid: int | None = None, worker_started: int | None = None) -> bool:
+        """queued -> running; False when the analysis is no longer queued (e.g. cancelled).
+
+        ``worker_started`` (the kernel's start time of ``worker_pid``, :func:`process_start_time`)
+        lets a later server prove that a live pid is still this worker before stopping it.
+        """
         now = time.time()
         with self._tx() as con:
             cur = con.execute("UPDATE analyses SET status = 'running', started = ?, updated = ?, worker_pid = ?, "
-                              "phase = 'starting' WHERE id = ? AND status = 'queued' AND cancel_requested = 0",
-                              (now, now, worker_pid, analysis_id))
+                              "worker_started = ?, phase = 'starting' "
+                              "WHERE id = ? AND status = 'queued' AND cancel_requested = 0",
+                              (now, now, worker_pid, worker_started, analysis_id))
             return cur.rowcount == 1
 
     def set_worker_pid(self, analysis_id: str, worker_pid: int) -> None:
@@ -434,7 +492,7 @@ class Store:
                 "seconds": r["seconds"]}
 
     def mark_interrupted(self, owner_token: str, *, alive_pids: set[int] | None = None,
-                         reason: str = "") -> list[str]:
+                         reason: str = "", workers: list | None = None) -> list[str]:
         """Analyses left queued or running by a process that is gone become ``interrupted``.
 
         An analysis is orphaned when its owner token is not ``owner_token`` (the
@@ -442,7 +500,9 @@ class Store:
         is free, or, for owners without a lock file, its pid is not alive or is
         the caller's own pid (a reused pid: the old owner is gone). The lock
         cannot be fooled by a pid that another process took over. ``alive_pids``
-        replaces the liveness check in tests. Returns the ids changed.
+        replaces the liveness check in tests. Returns the ids changed; the
+        ``(worker_pid, worker_started)`` of each changed running analysis are
+        appended to ``workers`` when given, so the caller can stop them.
         """
         def alive(pid, token=""):
             state = self.owner_state(token) if alive_pids is None else "unknown"
@@ -465,10 +525,12 @@ class Store:
         now = time.time()
         changed: list[str] = []
         with self._tx() as con:
-            for r in con.execute("SELECT id, owner_pid, owner_token FROM analyses "
+            for r in con.execute("SELECT id, owner_pid, owner_token, worker_pid, worker_started FROM analyses "
                                  "WHERE status IN ('queued', 'running')").fetchall():
                 if r["owner_token"] == owner_token or alive(r["owner_pid"], r["owner_token"]):
                     continue
+                if workers is not None and r["worker_pid"]:
+                    workers.append((r["worker_pid"], r["worker_started"]))
                 con.execute("UPDATE analyses SET status = 'interrupted', finished = ?, updated = ?, "
                             "seconds_left = NULL, error = ? WHERE id = ?",
                             (now, now, reason or "the server stopped before this analysis finished; "
@@ -600,6 +662,42 @@ class Store:
             except FileNotFoundError:
                 continue
         return count
+
+
+class DatabaseDamaged(StoreError):
+    """The database file is damaged or not a pairlens database; the message is one line naming it."""
+
+
+def process_start_time(pid: int | None) -> int | None:
+    """The kernel's start time of ``pid`` (clock ticks since boot, /proc/PID/stat field 22), or None.
+
+    A pid can be reused; the pair (pid, start time) names one process for the machine's uptime.
+    """
+    if not pid:
+        return None
+    try:
+        with open(f"/proc/{int(pid)}/stat", "rb") as handle:
+            stat = handle.read().decode("ascii", "replace")
+    except (OSError, ValueError):
+        return None
+    # the command name (field 2) is in parentheses and may hold spaces; fields after it are plain
+    fields = stat[stat.rfind(")") + 2:].split()
+    try:
+        return int(fields[19])
+    except (IndexError, ValueError):
+        return None
+
+
+def is_disk_full(exc: BaseException) -> bool:
+    """True for the errors a full disk gives: OSError ENOSPC/EDQUOT, SQLite's 'database or disk is full'."""
+    import errno
+
+    if isinstance(exc, OSError) and exc.errno in (errno.ENOSPC, getattr(errno, "EDQUOT", errno.ENOSPC)):
+        return True
+    if isinstance(exc, sqlite3.Error):
+        code = getattr(exc, "sqlite_errorcode", None)
+        return code == 13 or "disk is full" in str(exc)  # 13: SQLITE_FULL
+    return False
 
 
 class StoreBusy(StoreError):

@@ -98,3 +98,54 @@ def test_server_still_answers_after_fuzzing(live):
         assert c.get("/api/datasets").status_code == 200
         r = c.get(f"/api/analyses/{live.ids['analysis_id']}/pairs")
         assert r.status_code in (200, 404)  # 404 only if a generated DELETE hit the real id by chance
+
+
+# ---------------------------------------------------------------------------
+# The analysis options, fuzzed by value type (the schema says only "object")
+# ---------------------------------------------------------------------------
+
+from hypothesis import given  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+OPTION_NAMES = ("measures", "columns", "groups", "missing", "adjust", "confidence", "permutations", "seed")
+_scalars = (st.none() | st.booleans() | st.integers(min_value=-(2**70), max_value=2**70)
+            | st.floats(allow_nan=True, allow_infinity=True) | st.text(max_size=12)
+            | st.sampled_from(["pearson", "dcor", "a", "b", "bh", "complete", "g=a,b"]))
+_values = st.recursive(_scalars, lambda inner: st.lists(inner, max_size=4)
+                       | st.dictionaries(st.text(max_size=6), inner, max_size=3), max_leaves=8)
+
+
+def _post_options(live, body: str) -> httpx.Response:
+    return httpx.post(live.url(f"/api/datasets/{live.ids['dataset_id']}/analyses"), content=body.encode(),
+                      headers={"content-type": "application/json"}, timeout=60)
+
+
+@settings(max_examples=80, deadline=None, derandomize=True, database=None,
+          suppress_health_check=list(HealthCheck))
+@given(options=st.dictionaries(st.sampled_from(OPTION_NAMES) | st.text(max_size=8), _values, max_size=5))
+def test_analysis_options_of_any_type_never_give_a_server_error(live, options):
+    import json
+
+    # allow_nan: NaN, Infinity and -Infinity as a careless client (or JavaScript) would send them
+    r = _post_options(live, json.dumps(options, allow_nan=True))
+    assert r.status_code < 500, f"{options!r} -> {r.status_code}: {r.text[:300]}"
+    body = r.json()
+    if r.status_code == 202:  # a valid request: stop the analysis it started
+        httpx.post(live.url(f"/api/analyses/{body['id']}/cancel"), timeout=60)
+    else:
+        assert r.status_code == 422 and isinstance(body.get("detail"), str) and body["detail"], (options, body)
+
+
+@pytest.mark.parametrize("body, field", [
+    ('{"measures": [1]}', "measures"), ('{"measures": [null]}', "measures"), ('{"columns": [1, 2]}', "columns"),
+    ('{"missing": 5}', "missing"), ('{"adjust": 5}', "adjust"), ('{"adjust": ["bh"]}', "adjust"),
+    ('{"permutations": Infinity}', "permutations"), ('{"seed": -Infinity}', "seed"), ('{"seed": 1e400}', "seed"),
+    ('{"permutations": 2.7}', "permutations"), ('{"permutations": true}', "permutations"),
+    ('{"seed": true}', "seed"), ('{"confidence": NaN}', "confidence"), ('{"confidence": "0.9"}', "confidence"),
+    ('{"groups": 5}', "groups"), ('{"groups": {"g": [1]}}', "groups"),
+])
+def test_bad_option_types_get_a_422_naming_the_field(live, body, field):
+    # the values the issue found giving a 500 or being coerced (2.7 -> 2, true -> 1)
+    r = _post_options(live, body)
+    assert r.status_code == 422, r.text
+    assert r.json()["detail"].startswith(field), r.json()

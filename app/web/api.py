@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import json
+import math
 from typing import Any
 
 from fastapi import APIRouter, Body, Depends, Query, Request
@@ -9,6 +11,7 @@ from fastapi.responses import HTMLResponse, JSONResponse, Response
 
 from starlette.concurrency import run_in_threadpool
 from starlette.datastructures import UploadFile
+from ..errors import SettingsError
 from .deps import Workspace, get_workspace
 
 router = APIRouter(prefix="/api")
@@ -44,9 +47,73 @@ def get_dataset(dataset_id: str, ws: Workspace = Depends(get_workspace)):
     return _json(ws.dataset_json(ws.dataset(dataset_id)))
 
 
+def _finite(value):
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    if isinstance(value, dict):
+        return {k: _finite(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_finite(v) for v in value]
+    return value
+
+
+def _is_number(value) -> bool:
+    return isinstance(value, (int, float)) and not isinstance(value, bool)
+
+
+def _text_list(field: str, value, *, allow_text: bool = True) -> None:
+    if value is None or (allow_text and isinstance(value, str)):
+        return
+    if not isinstance(value, list) or not all(isinstance(v, str) for v in value):
+        raise SettingsError(f"{field}: must be a list of names (strings){' or one comma-separated string' if allow_text else ''}"
+                            f", got {_shown(value)}")
+
+
+def _shown(value) -> str:
+    text = json.dumps(value, allow_nan=True, default=str)
+    return text if len(text) <= 60 else text[:57] + "..."
+
+
+def strict_options(options: dict) -> dict:
+    """Check the JSON types of the analysis options; a wrong type is a 422 naming the field.
+
+    Nothing is coerced: ``2.7`` or ``true`` is not a number of permutations, ``Infinity`` and
+    ``1e400`` (which JSON parsers turn into infinity) are not numbers at all. Values of the
+    right type are checked by :class:`app.engine.AnalysisSettings`; unknown names by the workspace.
+    """
+    if not isinstance(options, dict):
+        raise SettingsError("the options must be a JSON object")
+    for field in ("measures", "columns"):
+        _text_list(field, options.get(field))
+    groups = options.get("groups")
+    if groups is not None:
+        if isinstance(groups, dict):
+            for name, members in groups.items():
+                _text_list(f"groups.{name}", members)
+        elif isinstance(groups, list):
+            if not all(isinstance(g, str) for g in groups):
+                raise SettingsError(f"groups: must be an object {{name: [columns]}} or a list of 'NAME=COL,COL' "
+                                    f"strings, got {_shown(groups)}")
+        else:
+            raise SettingsError(f"groups: must be an object {{name: [columns]}}, got {_shown(groups)}")
+    for field in ("missing", "adjust"):
+        value = options.get(field)
+        if value is not None and not isinstance(value, str):
+            raise SettingsError(f"{field}: must be a string, got {_shown(value)}")
+    value = options.get("confidence")
+    if value is not None and (not _is_number(value) or not math.isfinite(value)):
+        raise SettingsError(f"confidence: must be a finite number such as 0.95, got {_shown(value)}")
+    for field in ("permutations", "seed"):
+        value = options.get(field)
+        if value is not None and not (isinstance(value, int) and not isinstance(value, bool)):
+            raise SettingsError(f"{field}: must be a whole number, got {_shown(value)}")
+    return options
+
+
 @router.post("/datasets/{dataset_id}/analyses", status_code=202)
 def start_analysis(dataset_id: str, options: dict[str, Any] = Body(default_factory=dict),
                    ws: Workspace = Depends(get_workspace)):
+    strict_options(options)
     row = ws.start_analysis(dataset_id, options)
     return _json({"id": row.id, "status": row.status, "url": f"/analyses/{row.id}"}, 202)
 
@@ -64,7 +131,8 @@ def get_pairs(analysis_id: str, ws: Workspace = Depends(get_workspace)):
 @router.get("/analyses/{analysis_id}/pair")
 def get_pair(analysis_id: str, x: str = Query(...), y: str = Query(...), ws: Workspace = Depends(get_workspace)):
     detail = ws.pair(ws.analysis(analysis_id), x, y)
-    return _json({k: v for k, v in detail.items() if k != "seconds"})
+    # a fit over values near 1e300 overflows to inf: JSON has no such number, null says "undefined"
+    return _json({k: (v if k == "points" else _finite(v)) for k, v in detail.items() if k != "seconds"})
 
 
 @router.post("/analyses/{analysis_id}/cancel")

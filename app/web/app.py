@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import json
 import math
+import sqlite3
+import traceback
 from contextlib import asynccontextmanager
 from datetime import datetime, timezone
 from pathlib import Path
@@ -21,7 +23,7 @@ from ..core.registry import MEASURES
 from ..engine import SettingsError
 from ..ingest import IngestError
 from ..jobs import JobManager
-from ..store import Store, UploadTooLarge
+from ..store import Store, UploadTooLarge, is_disk_full
 from .deps import Conflict, NotFound, Workspace, embed_json
 from .security import RequestGuard, refuse_request
 
@@ -267,6 +269,30 @@ def create_app(settings: ServerSettings | None = None, *, jobs: JobManager | Non
         if exc.status_code == 413:
             detail = _limit_message(workspace.max_upload_bytes)
         return error(request, exc.status_code, detail)
+
+    @app.exception_handler(OSError)
+    async def _os_error(request: Request, exc: OSError):
+        return _storage_error(request, exc)
+
+    @app.exception_handler(sqlite3.Error)
+    async def _sqlite_error(request: Request, exc: sqlite3.Error):
+        return _storage_error(request, exc)
+
+    def _storage_error(request: Request, exc: BaseException):
+        if is_disk_full(exc):
+            return error(request, 507, f"the disk holding the workspace ({data_dir}) is full: free some space "
+                                       "and try again")
+        if isinstance(exc, sqlite3.DatabaseError) and not isinstance(exc, sqlite3.OperationalError):
+            return error(request, 500, f"the database {store.db_path} is damaged ({exc}): stop the server, move "
+                                       "the file aside or restore it from a backup")
+        traceback.print_exception(exc)
+        return error(request, 500, f"internal error ({type(exc).__name__}); the server log has the details")
+
+    @app.exception_handler(Exception)
+    async def _internal(request: Request, exc: Exception):
+        # A JSON (or page) answer instead of a plain-text 500; the log keeps the traceback.
+        traceback.print_exception(exc)
+        return error(request, 500, f"internal error ({type(exc).__name__}); the server log has the details")
 
     from starlette.exceptions import HTTPException as StarletteHTTPException
 

@@ -21,6 +21,7 @@ from fastapi import Request
 from markupsafe import Markup
 
 from .. import config
+from ..budget import check_plan, estimate_work
 from ..core.registry import MEASURES
 from ..engine import AnalysisSettings, PairRow, PairTable, SettingsError, pair_detail, plan_variables
 from ..store import AnalysisRow, DatasetRow, Store, UploadTooLarge
@@ -63,8 +64,13 @@ def _num(v):
 
 
 class _LRU:
-    def __init__(self, size: int) -> None:
+    """At most ``size`` entries, and at most ``max_bytes`` by ``sizeof`` when both are given."""
+
+    def __init__(self, size: int, *, max_bytes: int | None = None, sizeof=None) -> None:
         self.size = size
+        self.max_bytes = max_bytes
+        self.sizeof = sizeof
+        self._sizes: dict = {}
         self._items: OrderedDict = OrderedDict()
         self._lock = threading.Lock()
 
@@ -77,15 +83,103 @@ class _LRU:
 
     def pop(self, key):
         with self._lock:
+            self._sizes.pop(key, None)
             return self._items.pop(key, None)
 
     def put(self, key, value):
+        size = self.sizeof(value) if self.sizeof is not None else 0
         with self._lock:
             self._items[key] = value
+            self._sizes[key] = size
             self._items.move_to_end(key)
-            while len(self._items) > self.size:
-                self._items.popitem(last=False)
+            while len(self._items) > self.size or (
+                    self.max_bytes is not None and len(self._items) > 1 and sum(self._sizes.values()) > self.max_bytes):
+                dropped, _ = self._items.popitem(last=False)
+                self._sizes.pop(dropped, None)
         return value
+
+
+def _approx_bytes(value, depth: int = 0) -> int:
+    """Rough memory of a JSON-like value (arrays by their buffer): enough to bound a cache."""
+    if isinstance(value, np.ndarray):
+        return int(value.nbytes) + 112
+    if isinstance(value, dict):
+        return 64 + sum(_approx_bytes(k, depth + 1) + _approx_bytes(v, depth + 1) for k, v in value.items())
+    if isinstance(value, (list, tuple)):
+        if len(value) > 64 or depth > 6:  # a long list: its first items stand for the rest
+            sample = value[:16]
+            per = sum(_approx_bytes(v, depth + 1) for v in sample) / max(len(sample), 1)
+            return 56 + int(8 * len(value) + per * len(value))
+        return 56 + 8 * len(value) + sum(_approx_bytes(v, depth + 1) for v in value)
+    if isinstance(value, str):
+        return 49 + len(value)
+    return 32
+
+
+class _PairCache:
+    """The pair-view cache, bounded by bytes; points are kept as NumPy arrays (8 bytes a value).
+
+    Python lists of floats cost about 32 bytes a value, and a 1M-row pair is three such lists:
+    kept per pair, they took the server's memory pair by pair. Entries are evicted least
+    recently used first once ``max_bytes`` is passed; an entry larger than the whole cache is
+    not kept. ``get`` returns a copy whose points are lists again, as the callers expect.
+    """
+
+    def __init__(self, max_bytes: int) -> None:
+        self.max_bytes = int(max_bytes)
+        self.bytes = 0
+        self._items: OrderedDict = OrderedDict()
+        self._lock = threading.Lock()
+
+    @staticmethod
+    def _pack(detail: dict) -> dict:
+        packed = dict(detail)
+        points = detail.get("points")
+        if isinstance(points, dict):
+            packed["points"] = {k: (np.asarray(v, dtype=np.int64 if k == "rows" else np.float64)
+                                    if isinstance(v, list) else v) for k, v in points.items()}
+        return packed
+
+    @staticmethod
+    def _unpack(packed: dict) -> dict:
+        detail = dict(packed)
+        points = packed.get("points")
+        if isinstance(points, dict):
+            detail["points"] = {k: (v.tolist() if isinstance(v, np.ndarray) else v) for k, v in points.items()}
+        return detail
+
+    def get(self, key):
+        with self._lock:
+            entry = self._items.get(key)
+            if entry is None:
+                return None
+            self._items.move_to_end(key)
+        return self._unpack(entry[0])
+
+    def pop(self, key):
+        with self._lock:
+            entry = self._items.pop(key, None)
+            if entry is not None:
+                self.bytes -= entry[1]
+        return None if entry is None else self._unpack(entry[0])
+
+    def put(self, key, value):
+        packed = self._pack(value)
+        size = _approx_bytes(packed)
+        with self._lock:
+            old = self._items.pop(key, None)
+            if old is not None:
+                self.bytes -= old[1]
+            if size <= self.max_bytes:
+                self._items[key] = (packed, size)
+                self.bytes += size
+            while self.bytes > self.max_bytes and self._items:
+                _, (_, dropped) = self._items.popitem(last=False)
+                self.bytes -= dropped
+        return value
+
+    def __len__(self) -> int:
+        return len(self._items)
 
 
 def _spark(values: np.ndarray, bins: int = SPARK_BINS) -> list[int]:
@@ -248,10 +342,11 @@ class Workspace:
         self.jobs = jobs
         self.max_upload_bytes = int(max_upload_mb) * 1024 * 1024
         self.cluster = cluster
-        self._tables = _LRU(4)
+        self._tables = _LRU(4, max_bytes=config.TABLE_CACHE_MB << 20,
+                            sizeof=lambda t: int(getattr(getattr(t, "data", None), "nbytes", 0)))
         self._pair_tables = _LRU(8)
         self._figures = _LRU(16)
-        self._details = _LRU(64)
+        self._details = _PairCache(config.PAIR_CACHE_MB << 20)
         self._locks: dict = {}
         self._locks_guard = threading.Lock()
 
@@ -259,15 +354,14 @@ class Workspace:
 
     def upload(self, stream: BinaryIO, filename: str) -> DatasetRow:
         """Store an upload: spool + hash, parse, then keep the bytes under their hash."""
-        from ..ingest import load_bytes
+        from ..ingest import load_file_isolated
 
         from .security import display_name
 
         name = display_name(filename)
         tmp, sha, size = self.store.spool_upload(stream, self.max_upload_bytes)
         try:
-            content = tmp.read_bytes()
-            table = load_bytes(content, name)
+            table = load_file_isolated(tmp, name)  # a child process with memory and time limits
         except BaseException:
             tmp.unlink(missing_ok=True)
             raise
@@ -302,11 +396,12 @@ class Workspace:
 
     def table(self, dataset: DatasetRow):
         """The parsed table of a dataset (parsed once, then kept in memory)."""
-        from ..ingest import load_bytes
+        from ..ingest import load_file_isolated
 
         table = self._tables.get(dataset.sha256)
         if table is None:
-            table = self._tables.put(dataset.sha256, load_bytes(self.store.read_blob(dataset.sha256), dataset.name))
+            table = self._tables.put(dataset.sha256, load_file_isolated(self.store.blob_path(dataset.sha256),
+                                                                        dataset.name))
         return table
 
     def dataset_json(self, dataset: DatasetRow) -> dict:
@@ -331,7 +426,9 @@ class Workspace:
             settings = AnalysisSettings.from_options(**{k: options.get(k) for k in allowed})
         except (TypeError, ValueError) as exc:
             raise SettingsError(str(exc)) from None
-        plan_variables(dataset.summary["numeric"], settings)  # unknown columns fail now, not in the job
+        variables = plan_variables(dataset.summary["numeric"], settings)  # unknown columns fail now, not in the job
+        # beyond the work budget or the pair-table limit: refused now, with the estimate (app/budget.py)
+        check_plan(estimate_work(len(variables), len(settings.measures), dataset.n_rows, settings.permutations))
         self._check_group_rows(dataset, settings)
         return self.jobs.submit(dataset.id, settings.to_dict())
 

@@ -324,12 +324,24 @@ async def refuse_request(send, status: int, detail: str, is_api: bool, extra=Non
     await send({"type": "http.response.body", "body": body})
 
 
+def local_location(path: str) -> str:
+    """A redirect target that can only be a path on this server.
+
+    Browsers read ``\\`` as ``/`` and drop tabs and line breaks from a Location, so
+    ``/\\evil.example/`` or ``/<tab>/evil.example`` would leave the site like ``//evil.example``.
+    Every character outside the unreserved and path-safe ASCII set (backslash, control
+    characters, spaces, non-ASCII) is percent-encoded, and leading slashes collapse to one.
+    """
+    from urllib.parse import quote
+
+    encoded = quote(str(path), safe="/:@!$&'()*+,;=-._~%")
+    return "/" + encoded.lstrip("/")
+
+
 async def _exchange_token(send, scope, query: dict, token: str, cookie_name: str) -> None:
     """``?token=`` -> cookie + redirect to the same address without the token."""
     rest = {k: v for k, v in query.items() if k != "token"}
-    # "//host" would be a protocol-relative redirect to another site.
-    path = "/" + scope.get("path", "/").lstrip("/")
-    location = path + (("?" + urlencode(rest)) if rest else "")
+    location = local_location(scope.get("path", "/")) + (("?" + urlencode(rest)) if rest else "")
     cookie = (f"{cookie_name}={token}; Path=/; HttpOnly; SameSite=Strict").encode()
     headers = [(b"location", location.encode("latin-1", "replace")), (b"set-cookie", cookie),
                (b"cache-control", b"no-store"), (b"content-length", b"0")] + _SECURITY_HEADERS

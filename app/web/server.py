@@ -54,6 +54,13 @@ def serve(host: str = config.DEFAULT_HOST, port: int = config.DEFAULT_PORT, data
     directory = Path(data_dir) if data_dir else config.default_data_dir()
     settings = ServerSettings(host=host, port=port, data_dir=directory, max_upload_mb=max_upload_mb, demo=demo,
                               cluster=cluster, token=token)
+    from ..store import DatabaseDamaged, Store
+
+    try:
+        Store(directory, check=True).close()  # a damaged database stops the start, on one line
+    except DatabaseDamaged as exc:
+        print(f"pairlens serve: {exc}", file=sys.stderr)
+        return 2
     app = create_app(settings)
     print(f"pairlens: serving {access_link(host, port, token)}  (data in {directory}; Ctrl+C stops)",
           file=sys.stderr, flush=True)
