@@ -53,10 +53,27 @@ CANCEL_GRACE_SECONDS = 3.0
 
 PACKAGE_DIR = Path(__file__).resolve().parent
 PROJECT_DIR = PACKAGE_DIR.parent
-TEMPLATES_DIR = PROJECT_DIR / "templates"
-STATIC_DIR = PROJECT_DIR / "static"
-SAMPLE_DATA_DIR = PROJECT_DIR / "sample_data"
+
+
+def _data_folder(name: str) -> Path:
+    # An installed wheel carries the folder inside the package (pyproject.toml maps it
+    # there); a checkout, editable install included, keeps it beside app/.
+    inside = PACKAGE_DIR / name
+    return inside if inside.is_dir() else PROJECT_DIR / name
+
+
+TEMPLATES_DIR = _data_folder("templates")
+STATIC_DIR = _data_folder("static")
+SAMPLE_DATA_DIR = _data_folder("sample_data")
 DEMO_FILE = SAMPLE_DATA_DIR / "vineyard_blocks.csv"
+
+
+def default_port() -> int:
+    """Port of ``pairlens serve`` when --port is not given: ``PAIRLENS_PORT``, else :data:`DEFAULT_PORT`."""
+    env = os.environ.get("PAIRLENS_PORT", "").strip()
+    if env.isdigit() and 0 < int(env) < 65536:
+        return int(env)
+    return DEFAULT_PORT
 
 
 def default_data_dir() -> Path:
