@@ -30,56 +30,121 @@ class _Parser(argparse.ArgumentParser):
         raise UsageError(f"{self.prog}: {message}")
 
 
+class _HelpFormatter(argparse.HelpFormatter):
+    """Shows each option's default after its help, unless the default is empty or already stated."""
+
+    def _get_help_string(self, action):
+        text = action.help or ""
+        default = action.default
+        empty = default is None or default is False or default is argparse.SUPPRESS or default == []
+        if "%(default)" in text or "default:" in text or empty or not action.option_strings:
+            return text
+        return f"{text} (default: %(default)s)"
+
+
 def _add_analysis_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("data", metavar="DATA", help="table file: .csv .tsv .txt .csv.gz .xlsx .parquet")
     p.add_argument("--sheet", help="worksheet of an .xlsx file (default: the first)")
-    p.add_argument("--measures", help="comma-separated measures (default: %s)" % ",".join(config.DEFAULT_MEASURES))
-    p.add_argument("--columns", help="comma-separated numeric columns to use (default: all)")
+    p.add_argument("--measures", metavar="LIST",
+                   help="comma-separated measures from: %s (default: %s)"
+                        % (", ".join(_measure_names()), ",".join(config.DEFAULT_MEASURES)))
+    p.add_argument("--columns", metavar="LIST", help="comma-separated numeric columns to use (default: all)")
     p.add_argument("--group", action="append", default=[], metavar="NAME=COL,COL",
-                   help="analyse several columns as one multivariate variable (repeatable)")
-    p.add_argument("--missing", choices=config.MISSING_POLICIES, default=config.DEFAULT_MISSING)
-    p.add_argument("--adjust", choices=config.ADJUST_METHODS, default=config.DEFAULT_ADJUST)
-    p.add_argument("--confidence", type=float, default=config.DEFAULT_CONFIDENCE)
-    p.add_argument("--permutations", type=int, default=0, metavar="B")
-    p.add_argument("--seed", type=int, default=config.DEFAULT_SEED)
+                   help="analyse several columns as one multivariate variable (repeatable; default: none)")
+    p.add_argument("--missing", choices=config.MISSING_POLICIES, default=config.DEFAULT_MISSING,
+                   help="pairwise: each pair uses the rows where both values are present; "
+                        "complete: only rows with no missing value in the chosen columns")
+    p.add_argument("--adjust", choices=config.ADJUST_METHODS, default=config.DEFAULT_ADJUST,
+                   help="multiple-testing adjustment of each measure's p-values into q-values: "
+                        "bh = Benjamini-Hochberg, holm = Holm, none = q equals p")
+    p.add_argument("--confidence", type=float, default=config.DEFAULT_CONFIDENCE, metavar="LEVEL",
+                   help="confidence level of the intervals, at least 0.5 and below 1")
+    p.add_argument("--permutations", type=int, default=0, metavar="B",
+                   help="permutation resamples for the tests that use them; 0 keeps the default tests")
+    p.add_argument("--seed", type=int, default=config.DEFAULT_SEED, metavar="S",
+                   help="random seed; the same seed gives the same results on any number of workers")
     p.add_argument("--workers", type=int, default=None, metavar="N", help="local worker processes (default: all cores)")
-    p.add_argument("--cluster", default=None, metavar="ADDRESS", help="Dask scheduler, e.g. tcp://127.0.0.1:8786")
+    p.add_argument("--cluster", default=None, metavar="ADDRESS",
+                   help="Dask scheduler to run on, e.g. tcp://127.0.0.1:8786 (default: this machine)")
 
 
-def build_parser() -> argparse.ArgumentParser:
-    parser = _Parser(prog="pairlens", description="Association analysis for every pair of columns.")
-    parser.add_argument("--version", action="version", version=f"pairlens {__version__}")
-    sub = parser.add_subparsers(dest="command", required=True, parser_class=_Parser)
+def _measure_names() -> list[str]:
+    # The registry imports NumPy; the top-level --help must not pay for it.
+    from .core.registry import MEASURES
 
-    serve = sub.add_parser("serve", help="start the local dashboard")
-    serve.add_argument("--host", default=config.DEFAULT_HOST)
-    serve.add_argument("--port", type=int, default=None,
-                       help=f"port to listen on (default: PAIRLENS_PORT if set, else {config.DEFAULT_PORT})")
-    serve.add_argument("--data-dir", default=None)
-    serve.add_argument("--demo", action="store_true", help="open with the invented vineyard demo dataset")
-    serve.add_argument("--max-upload-mb", type=int, default=config.MAX_UPLOAD_MB)
-    serve.add_argument("--cluster", default=None, metavar="ADDRESS")
-    serve.add_argument("--require-token", action="store_true",
-                       help="ask for the access token even on loopback (other users of this machine can "
-                            "reach 127.0.0.1); always on when bound beyond loopback")
+    return list(MEASURES)
 
-    pairs = sub.add_parser("pairs", help="the pair table for every pair of columns")
-    _add_analysis_options(pairs)
-    pairs.add_argument("-o", "--output", default=None, metavar="OUT.csv|OUT.json")
 
-    inspect = sub.add_parser("inspect", help="everything about one pair")
-    inspect.add_argument("data", metavar="DATA")
-    inspect.add_argument("--sheet")
-    inspect.add_argument("--x", required=True, metavar="COL")
-    inspect.add_argument("--y", required=True, metavar="COL")
-    inspect.add_argument("--json", action="store_true", help="machine-readable output")
-    inspect.add_argument("--confidence", type=float, default=config.DEFAULT_CONFIDENCE)
-    inspect.add_argument("--permutations", type=int, default=0)
-    inspect.add_argument("--seed", type=int, default=config.DEFAULT_SEED)
+def _subparser(sub, name: str, summary: str, description: str) -> argparse.ArgumentParser:
+    return sub.add_parser(name, help=summary, description=description, formatter_class=_HelpFormatter)
 
-    report = sub.add_parser("report", help="a self-contained HTML report")
-    _add_analysis_options(report)
-    report.add_argument("-o", "--output", required=True, metavar="REPORT.html")
+
+def build_parser(command: str | None = None) -> argparse.ArgumentParser:
+    """The argument parser; with ``command`` only that subcommand's options are built in full.
+
+    Building every subcommand would import the measure registry (and NumPy) for
+    ``pairlens --help``; a subcommand that is not run gets a bare parser.
+    """
+    parser = _Parser(prog="pairlens", formatter_class=_HelpFormatter,
+                     description="Association analysis for every pair of columns: several measures, "
+                                 "p-values that hold their level, q-values, a Gaussian fit per pair.",
+                     epilog="Run 'pairlens COMMAND --help' for the options of a command. "
+                            "The contracts of the command line are in docs/contracts.md.")
+    parser.add_argument("--version", action="version", version=f"pairlens {__version__}",
+                        help="print the version and exit")
+    sub = parser.add_subparsers(dest="command", required=True, parser_class=_Parser, metavar="COMMAND")
+
+    def full(name: str) -> bool:
+        return command is None or command == name
+
+    serve = _subparser(sub, "serve", "start the local dashboard",
+                       "Start the local dashboard (bound to 127.0.0.1 unless --host says otherwise).")
+    if full("serve"):
+        serve.add_argument("--host", default=config.DEFAULT_HOST,
+                           help="address to listen on; beyond loopback every request needs the access token")
+        serve.add_argument("--port", type=int, default=None,
+                           help=f"TCP port to listen on (default: PAIRLENS_PORT if set, else {config.DEFAULT_PORT})")
+        serve.add_argument("--data-dir", default=None, metavar="DIR",
+                           help="workspace folder for uploads and results (default: PAIRLENS_DATA_DIR, "
+                                "else a per-user data folder)")
+        serve.add_argument("--demo", action="store_true", help="open with the invented vineyard demo dataset")
+        serve.add_argument("--max-upload-mb", type=int, default=config.MAX_UPLOAD_MB, metavar="N",
+                           help="largest upload accepted, in megabytes")
+        serve.add_argument("--cluster", default=None, metavar="ADDRESS",
+                           help="Dask scheduler to run analyses on (default: local worker processes)")
+        serve.add_argument("--require-token", action="store_true",
+                           help="ask for the access token even on loopback (other users of this machine can "
+                                "reach 127.0.0.1); always on when bound beyond loopback")
+
+    pairs = _subparser(sub, "pairs", "the pair table for every pair of columns",
+                       "The pair table: one row per pair per measure, as CSV or JSON.")
+    if full("pairs"):
+        _add_analysis_options(pairs)
+        pairs.add_argument("-o", "--output", default=None, metavar="OUT.csv|OUT.json",
+                           help="write to this file, CSV or JSON by its ending (default: CSV on standard output)")
+
+    inspect = _subparser(sub, "inspect", "everything about one pair",
+                         "Every measure, the bivariate Gaussian fit and the verdict for one pair.")
+    if full("inspect"):
+        inspect.add_argument("data", metavar="DATA", help="table file: .csv .tsv .txt .csv.gz .xlsx .parquet")
+        inspect.add_argument("--sheet", help="worksheet of an .xlsx file (default: the first)")
+        inspect.add_argument("--x", required=True, metavar="COL",
+                             help="name of the first column (the predictor for the asymmetric xi)")
+        inspect.add_argument("--y", required=True, metavar="COL", help="name of the second column")
+        inspect.add_argument("--json", action="store_true",
+                             help="machine-readable output (shape in docs/contracts.md) instead of text")
+        inspect.add_argument("--confidence", type=float, default=config.DEFAULT_CONFIDENCE, metavar="LEVEL",
+                             help="confidence level of the intervals, at least 0.5 and below 1")
+        inspect.add_argument("--permutations", type=int, default=0, metavar="B",
+                             help="permutation resamples for the tests that use them; 0 keeps the default tests")
+        inspect.add_argument("--seed", type=int, default=config.DEFAULT_SEED, metavar="S",
+                             help="random seed of the tests that draw random numbers")
+
+    report = _subparser(sub, "report", "a self-contained HTML report",
+                        "One HTML file with the maps, the pair table and the methods; it opens offline.")
+    if full("report"):
+        _add_analysis_options(report)
+        report.add_argument("-o", "--output", required=True, metavar="REPORT.html", help="the HTML file to write")
     return parser
 
 
@@ -177,6 +242,10 @@ def _fmt(v, digits: int = 4) -> str:
     return "-" if v is None else f"{v:.{digits}g}"
 
 
+# Keys of the Gaussian-implied values that are not measures of the registry.
+_IMPLIED_LABELS = {"mi": "mutual information"}
+
+
 def format_detail(d: dict) -> str:
     """A readable text form of :func:`app.engine.pair_detail`."""
     lines = [f"{d['x']}  vs  {d['y']}    (n = {d['n']} rows with both values)", ""]
@@ -191,8 +260,10 @@ def format_detail(d: dict) -> str:
     c = g["conditional"]
     lines.append(f"  E[{d['y']} | {d['x']}] = {_fmt(c['intercept'])} + {_fmt(c['slope'])} * {d['x']}, "
                  f"residual sd {_fmt(c['residual_sd'])}")
-    implied = ", ".join(f"{k} {_fmt(v, 3)}" for k, v in g["implied"].items())
+    implied = ", ".join(f"{_IMPLIED_LABELS.get(k, k)} {_fmt(v, 3)}" for k, v in g["implied"].items())
     lines.append(f"  a Gaussian with this rho implies: {implied}")
+    if "mi" in g["implied"]:
+        lines.append("    (mutual information in nats, -1/2 ln(1 - rho^2); not estimated from the data)")
     nm = g["normality"]
     lines.append(f"  joint normality (Henze-Zirkler): statistic {_fmt(nm['statistic'])}, p = {_fmt(nm['p_value'])}")
     p = d["pattern"]
@@ -234,14 +305,16 @@ COMMANDS = {"pairs": cmd_pairs, "inspect": cmd_inspect, "report": cmd_report, "s
 
 def main(argv: list[str] | None = None) -> int:
     from .errors import SettingsError
-    from .ingest import IngestError
 
+    argv = sys.argv[1:] if argv is None else list(argv)
     try:
-        args = build_parser().parse_args(argv)
+        # Only the subcommand being run gets its full parser (see build_parser).
+        command = next((a for a in argv if a in COMMANDS), "")
+        args = build_parser(command).parse_args(argv)
         return COMMANDS[args.command](args)
     except SystemExit as exc:  # --help and --version
         return int(exc.code or 0)
-    except (UsageError, IngestError, SettingsError) as exc:
+    except (UsageError, SettingsError) as exc:
         print(_one_line(str(exc)), file=sys.stderr)
         return EXIT_BAD_INPUT
     except KeyboardInterrupt:
@@ -250,11 +323,21 @@ def main(argv: list[str] | None = None) -> int:
     except BrokenPipeError:
         return 0
     except Exception as exc:  # noqa: BLE001 - the user gets one line, developers a traceback on request
+        if _is_ingest_error(exc):
+            print(_one_line(str(exc)), file=sys.stderr)
+            return EXIT_BAD_INPUT
         if os.environ.get("PAIRLENS_DEBUG"):
             raise
         print(_one_line(f"pairlens: internal error ({type(exc).__name__}: {exc}); "
                         "rerun with PAIRLENS_DEBUG=1 and report it"), file=sys.stderr)
         return EXIT_INTERNAL
+
+
+def _is_ingest_error(exc: BaseException) -> bool:
+    # The reader module imports NumPy; it is looked up only if a command loaded it,
+    # since an IngestError cannot come from anywhere else.
+    ingest = sys.modules.get(__package__ + ".ingest")
+    return ingest is not None and isinstance(exc, ingest.IngestError)
 
 
 def _one_line(text: str) -> str:

@@ -95,6 +95,40 @@ def test_a_bad_file_is_reported_before_bad_options(small_csv):
     assert options.returncode == 2 and "unknown" in options.stderr and "Traceback" not in options.stderr
 
 
+def test_every_option_of_every_command_has_help_and_shows_its_default():
+    import argparse
+
+    from app import config
+    from app.cli import build_parser
+
+    parser = build_parser()
+    subparsers = next(a for a in parser._actions if isinstance(a, argparse._SubParsersAction))
+    assert set(subparsers.choices) == {"serve", "pairs", "inspect", "report"}
+    for name, sub in subparsers.choices.items():
+        text = sub.format_help()
+        for action in sub._actions:
+            assert action.help, f"pairlens {name}: {action.option_strings or action.dest} has no help text"
+        # each non-empty default appears in the help text the user sees
+        for action in sub._actions:
+            if action.option_strings and action.default not in (None, False, [], argparse.SUPPRESS):
+                assert f"(default: {action.default})" in " ".join(text.split()), (name, action.dest)
+    pairs_help = " ".join(subparsers.choices["pairs"].format_help().split())
+    assert f"(default: {config.DEFAULT_SEED})" in pairs_help and "(default: bh)" in pairs_help
+
+
+def test_version_and_module_entry_point():
+    from app import __version__
+
+    out = subprocess.run([sys.executable, "-m", "app", "--version"], capture_output=True, text=True, timeout=60)
+    assert out.returncode == 0 and out.stdout.strip() == f"pairlens {__version__}"
+
+
+def test_inspect_text_explains_mutual_information(small_csv):
+    out = _run("inspect", str(small_csv), "--x", "alpha", "--y", "gamma")
+    assert out.returncode == 0, out.stderr
+    assert " mi " not in out.stdout and "mutual information in nats" in out.stdout
+
+
 def test_serve_takes_its_port_from_pairlens_port(tmp_path):
     # a bad PAIRLENS_PORT is a usage error on one line (exit 2), found before anything starts
     env = dict(os.environ, PAIRLENS_PORT="eighty")
