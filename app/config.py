@@ -39,6 +39,19 @@ SCATTER_DENSITY_THRESHOLD = 20_000
 # beyond it when at most one pair is discordant or concordant): the same rule
 # as scipy.stats.kendalltau(method="auto"), so the two agree.
 KENDALL_EXACT_MAX_N = 33
+# Spearman's default p-value (app/core/rank.py). Untied rows up to this many: the exact
+# permutation law of sum d^2, counted by a subset recursion (2^n n^3 steps; 12 rows take
+# about 0.1 s once, then cached).
+SPEARMAN_EXACT_MAX_N = 12
+# Tied rows up to this many: the exact permutation law of the mid-rank statistic, counted
+# for each pair (its scores differ from pair to pair).
+SPEARMAN_TIED_EXACT_MAX_N = 10
+# From this many rows on, the t approximation with n-2 df; below it untied rows use the
+# Edgeworth series of Best & Roberts (1975, AS 89) and tied rows a seeded permutation test.
+# Chosen by the level the t approximation holds against the exact permutation law
+# (benchmarks/spearman_level.py, README "p-values").
+SPEARMAN_T_MIN_N = 100
+SPEARMAN_SMALL_N_PERMUTATIONS = 9999
 
 # Server ------------------------------------------------------------------
 DEFAULT_HOST = "127.0.0.1"

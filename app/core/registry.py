@@ -50,7 +50,7 @@ def _pearson(x, y, ctx: PairContext) -> TestResult:
 
 
 def _spearman(x, y, ctx: PairContext) -> TestResult:
-    return rank.spearman(x, y, confidence=ctx.confidence)
+    return rank.spearman(x, y, confidence=ctx.confidence, seed=ctx.seed)
 
 
 def _kendall(x, y, ctx: PairContext) -> TestResult:
@@ -84,10 +84,13 @@ MEASURES: dict[str, Measure] = {
         Measure(
             name="spearman", label="Spearman rho", family="rank", symmetric=True, signed=True,
             lower=-1.0, upper=1.0, multivariate=False, reflection="flips sign",
-            default_test="t approximation with n-2 degrees of freedom",
+            default_test="permutation law of rho: exact up to 12 untied rows (10 tied), Edgeworth series "
+                         "(untied) or 9,999 permutations (tied) below 100 rows, t approximation with n-2 "
+                         "degrees of freedom from 100 rows",
             interval="Fisher z, SE = sqrt((1 + rho^2/2)/(n-3)) (Bonett & Wright 2000)",
             formula="rho_s = Pearson r of the mid-ranks of x and y",
-            reference="Spearman, C. (1904) Am. J. Psychol. 15:72-101; Bonett, D.G. & Wright, T.A. (2000) "
+            reference="Spearman, C. (1904) Am. J. Psychol. 15:72-101; Best, D.J. & Roberts, D.E. (1975) "
+                      "Applied Statistics 24:377-379, doi:10.2307/2347111; Bonett, D.G. & Wright, T.A. (2000) "
                       "Psychometrika 65:23-28, doi:10.1007/BF02294183",
             compute=_spearman,
         ),
