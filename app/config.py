@@ -52,6 +52,15 @@ SPEARMAN_TIED_EXACT_MAX_N = 10
 # (benchmarks/spearman_level.py, README "p-values").
 SPEARMAN_T_MIN_N = 100
 SPEARMAN_SMALL_N_PERMUTATIONS = 9999
+# Every default p-value is raised, where an approximation puts it lower, to the smallest
+# value a permutation test on the rows allows (app.core.testing.permutation_floor). Above
+# this many rows that floor is 0 in float64 for all but almost wholly tied columns, and is
+# not computed.
+PVALUE_FLOOR_MAX_N = 1000
+# Up to this many rows the floor is the exact smallest p-value of the measure's permutation
+# law, found by computing its statistic for all n! pairings (8! = 40,320; vectorised, a few
+# milliseconds); above it the floor is 2 K / n!, K the pairings that reproduce the rows.
+PVALUE_FLOOR_ENUMERATE_MAX_N = 8
 
 # Server ------------------------------------------------------------------
 DEFAULT_HOST = "127.0.0.1"

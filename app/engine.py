@@ -19,9 +19,9 @@ import numpy as np
 
 from . import config
 from .core import allpairs, chatterjee, distance, linear, rank
-from .core.registry import MEASURES, PairContext, get_measure
+from .core.registry import MEASURES, PairContext, get_measure, pvalue_floor
 from .core.results import TestResult, undefined
-from .core.testing import adjust_pvalues, pair_seed
+from .core.testing import adjust_pvalues, floor_pvalue, pair_seed
 from .errors import SettingsError
 from .executors import Executor, ProcessExecutor, SerialExecutor, make_executor
 from .export import PAIR_FIELDS
@@ -383,7 +383,11 @@ def _fast_pair_rows(prep: "allpairs.PreparedColumns", xvar: Variable, yvar: Vari
     rows: list[PairRow] = []
     for m in measures:
         for a, b, swapped in _directions(m, xvar, yvar):
-            rows.append(_pair_row(a, b, m, _fast_measure(m, work, swapped, a, b, settings, cache)))
+            res = _fast_measure(m, work, swapped, a, b, settings, cache)
+            if res.p_value == res.p_value:  # the registry's floor, as on the per-pair path
+                av, bv = (work[1].y, work[1].x) if swapped else (work[1].x, work[1].y)
+                res = floor_pvalue(res, pvalue_floor(MEASURES[m], av, bv))
+            rows.append(_pair_row(a, b, m, res))
     return rows
 
 

@@ -524,7 +524,7 @@ def spearman_null_counts(n: int) -> tuple[np.ndarray, np.ndarray]:
     --------
     >>> s, c = spearman_null_counts(3)
     >>> s.tolist(), c.tolist()
-    [[0, 2, 6, 8], [1, 2, 2, 1]]
+    ([0, 2, 6, 8], [1, 2, 2, 1])
     """
     counts, offset = _untied_counts(int(n))
     t = np.arange(counts.size, dtype=np.int64) + offset
