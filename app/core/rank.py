@@ -642,7 +642,8 @@ def spearman(x: np.ndarray, y: np.ndarray, *, confidence: float = 0.95, seed=Non
     confidence : float
         Level of the interval.
     seed : int or numpy.random.SeedSequence, optional
-        Drives the random permutations of small tied samples only.
+        Drives the random permutations of small tied samples only (default:
+        :data:`app.config.DEFAULT_SEED`, so a call is reproducible).
 
     Returns
     -------
@@ -658,12 +659,12 @@ def spearman(x: np.ndarray, y: np.ndarray, *, confidence: float = 0.95, seed=Non
     x ranks is equally likely; the p-value refers :math:`\\rho_s` to that law:
 
     * no ties, :math:`n \\le 12`: exact (:func:`spearman_exact_pvalue`);
-    * no ties, :math:`12 < n < 100`: Edgeworth series of Best & Roberts
+    * no ties, :math:`12 < n < 150`: Edgeworth series of Best & Roberts
       (1975) (:func:`spearman_edgeworth_pvalue`);
     * ties, :math:`n \\le 10`: exact, all n! pairings of the mid-rank scores
-      counted; ties, :math:`10 < n < 100`: 9,999 seeded random permutations,
+      counted; ties, :math:`10 < n < 150`: 9,999 seeded random permutations,
       :math:`(1 + \\#\\{|\\rho^*| \\ge |\\rho_s|\\})/(1 + B)`;
-    * :math:`n \\ge 100`: :math:`t = \\rho_s\\sqrt{(n-2)/(1-\\rho_s^2)}`
+    * :math:`n \\ge 150`: :math:`t = \\rho_s\\sqrt{(n-2)/(1-\\rho_s^2)}`
       referred to :math:`t_{n-2}` (``scipy.stats.spearmanr``'s p-value), whose
       level holds there (``benchmarks/spearman_level.py``).
 
@@ -766,8 +767,12 @@ def spearman_from_sums(sum_xy: float, sum_xx: float, sum_yy: float, n: int, *,
             p, method = _exact_from_counts(counts, offset, t_observed), "exact permutation (ties)"
         else:
             b = config.SPEARMAN_SMALL_N_PERMUTATIONS
-            p = _permutation_pvalue(np.asarray(x_scores, np.int64), np.asarray(y_scores, np.int64),
-                                    t_observed, b, seed)
+            a_s, b_s = np.asarray(x_scores, np.int64), np.asarray(y_scores, np.int64)
+            # the same side is shuffled whichever column comes first, so rho(x, y) and rho(y, x)
+            # get the same p-value; without a seed the analysis default keeps it reproducible
+            if a_s.tobytes() > b_s.tobytes():
+                a_s, b_s = b_s, a_s
+            p = _permutation_pvalue(a_s, b_s, t_observed, b, config.DEFAULT_SEED if seed is None else seed)
             method = f"permutation, B={b} (ties, n < {config.SPEARMAN_T_MIN_N})"
     low, high, note = _rank_interval(rho, n, 1.0 + rho * rho / 2.0, 3, confidence)
     return TestResult(rho, p, method, low, high, n, note)

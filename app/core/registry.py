@@ -200,8 +200,8 @@ MEASURES: dict[str, Measure] = {
             name="spearman", label="Spearman rho", family="rank", symmetric=True, signed=True,
             lower=-1.0, upper=1.0, multivariate=False, reflection="flips sign",
             default_test="permutation law of rho: exact up to 12 untied rows (10 tied), Edgeworth series "
-                         "(untied) or 9,999 permutations (tied) below 100 rows, t approximation with n-2 "
-                         "degrees of freedom from 100 rows",
+                         "(untied) or 9,999 permutations (tied) below 150 rows, t approximation with n-2 "
+                         "degrees of freedom from 150 rows",
             interval="Fisher z, SE = sqrt((1 + rho^2/2)/(n-3)) (Bonett & Wright 2000)",
             formula="rho_s = Pearson r of the mid-ranks of x and y",
             reference="Spearman, C. (1904) Am. J. Psychol. 15:72-101; Best, D.J. & Roberts, D.E. (1975) "
