@@ -77,6 +77,30 @@ SCATTER_DENSITY_THRESHOLD = 20_000
 # beyond it when at most one pair is discordant or concordant): the same rule
 # as scipy.stats.kendalltau(method="auto"), so the two agree.
 KENDALL_EXACT_MAX_N = 33
+# Spearman's default p-value (app/core/rank.py). Untied rows up to this many: the exact
+# permutation law of sum d^2, counted by a subset recursion (2^n n^3 steps; 12 rows take
+# about 0.1 s once, then cached).
+SPEARMAN_EXACT_MAX_N = 12
+# Tied rows up to this many: the exact permutation law of the mid-rank statistic, counted
+# for each pair (its scores differ from pair to pair).
+SPEARMAN_TIED_EXACT_MAX_N = 10
+# From this many rows on, the t approximation with n-2 df; below it untied rows use the
+# Edgeworth series of Best & Roberts (1975, AS 89) and tied rows a seeded permutation test.
+# Chosen by the level the t approximation holds against the permutation law of untied ranks
+# (benchmarks/spearman_level.py, 10^7 permutations per n): its rejection rate at
+# alpha = 0.001 is 1.07 alpha at n = 100, 1.03 alpha at 125, 1.02 alpha at 150 (at 0.05, 0.01
+# and 0.005 within 1.01 alpha from 150): the first n tried within 5% at every alpha, with margin.
+SPEARMAN_T_MIN_N = 150
+SPEARMAN_SMALL_N_PERMUTATIONS = 9999
+# Every default p-value is raised, where an approximation puts it lower, to the smallest
+# value a permutation test on the rows allows (app.core.testing.permutation_floor). Above
+# this many rows that floor is 0 in float64 for all but almost wholly tied columns, and is
+# not computed.
+PVALUE_FLOOR_MAX_N = 1000
+# Up to this many rows the floor is the exact smallest p-value of the measure's permutation
+# law, found by computing its statistic for all n! pairings (8! = 40,320; vectorised, a few
+# milliseconds); above it the floor is 2 K / n!, K the pairings that reproduce the rows.
+PVALUE_FLOOR_ENUMERATE_MAX_N = 8
 
 # Server ------------------------------------------------------------------
 DEFAULT_HOST = "127.0.0.1"

@@ -19,9 +19,9 @@ import numpy as np
 
 from . import config
 from .core import allpairs, chatterjee, distance, linear, rank
-from .core.registry import MEASURES, PairContext, get_measure
+from .core.registry import MEASURES, PairContext, get_measure, pvalue_floor
 from .core.results import TestResult, undefined
-from .core.testing import adjust_pvalues, pair_seed
+from .core.testing import adjust_pvalues, floor_pvalue, pair_seed
 from .budget import WorkEstimate, check_plan
 from .errors import SettingsError
 from .executors import Executor, ProcessExecutor, SerialExecutor, make_executor
@@ -339,7 +339,8 @@ def _fast_measure(measure: str, work: tuple, swapped: bool, a: Variable, b: Vari
     _, view, sums, counts, dist_inputs = work
     n = view.n
     av, bv = (view.y, view.x) if swapped else (view.x, view.y)
-    if measure == "spearman" and sums is not None:
+    if measure == "spearman" and not rank.spearman_needs_rows(sums[1], sums[2], n):
+        # a tied pair below SPEARMAN_T_MIN_N rows takes the per-pair path: its permutation test needs the rows
         return rank.spearman_from_sums(sums[0], sums[1], sums[2], n, confidence=settings.confidence)
     if measure == "kendall":
         d, tx, ty, txy, x3, x5, y3, y5 = counts
@@ -382,13 +383,15 @@ def _fast_pair_rows(prep: "allpairs.PreparedColumns", xvar: Variable, yvar: Vari
                               distance="dcor" in measures or "dcor_bc" in measures)
     if not work[0]:
         return None  # degenerate pairs: every measure's own note, from the per-pair path
-    if "spearman" in measures and work[1].n > allpairs.EXACT_RANK_SUM_MAX_N:
-        work = (work[0], work[1], None, work[3], work[4])
     cache: dict = {}
     rows: list[PairRow] = []
     for m in measures:
         for a, b, swapped in _directions(m, xvar, yvar):
-            rows.append(_pair_row(a, b, m, _fast_measure(m, work, swapped, a, b, settings, cache)))
+            res = _fast_measure(m, work, swapped, a, b, settings, cache)
+            if res.p_value == res.p_value:  # the registry's floor, as on the per-pair path
+                av, bv = (work[1].y, work[1].x) if swapped else (work[1].x, work[1].y)
+                res = floor_pvalue(res, pvalue_floor(MEASURES[m], av, bv))
+            rows.append(_pair_row(a, b, m, res))
     return rows
 
 

@@ -104,6 +104,26 @@ _PEARSON_T_CAUTION = (
     "level whatever the margins.")
 
 
+_BEST_ROBERTS = ("Best, D.J. & Roberts, D.E. (1975). Algorithm AS 89: the upper tail probabilities of "
+                 "Spearman's rho. Applied Statistics 24:377-379. doi:10.2307/2347111")
+
+_SPEARMAN_SMALL_N = (
+    "Spearman's rho is referred to its permutation law: every pairing of the y ranks with the x ranks is "
+    f"equally likely under independence. Up to {config.SPEARMAN_EXACT_MAX_N} rows without ties (and "
+    f"{config.SPEARMAN_TIED_EXACT_MAX_N} with ties) the law is counted exactly; below "
+    f"{config.SPEARMAN_T_MIN_N} rows it is approximated by the Edgeworth series of Best & Roberts (1975, "
+    f"algorithm AS 89) without ties, or by {config.SPEARMAN_SMALL_N_PERMUTATIONS:,} seeded random pairings "
+    f"with ties; from {config.SPEARMAN_T_MIN_N} rows on, by the t distribution with n - 2 degrees of "
+    "freedom, which there rejects within a few percent of the nominal rate even at the 0.1% level. With few "
+    "rows the t approximation alone would overstate the evidence: three rows in the same (or the "
+    "reverse) rank order occur by chance in two orderings of six, which it reports as p = 0.")
+
+_PERMUTATION_FLOOR = (
+    "No p-value is reported below the smallest value a permutation test on the same rows can give (for n "
+    "rows without ties, 1/n! or 2/n!). Where an approximation would go lower on a very small sample, the "
+    "p-value is raised to that smallest value and the note of the pair says so.")
+
+
 def inference_methods(*, adjust: str = config.DEFAULT_ADJUST, confidence: float = config.DEFAULT_CONFIDENCE,
                       permutations: int = 0, missing: str = config.DEFAULT_MISSING,
                       measures: Iterable[str] | None = None) -> list[dict]:
@@ -129,10 +149,12 @@ def inference_methods(*, adjust: str = config.DEFAULT_ADJUST, confidence: float 
                  "No permutations were requested, so every p-value comes from the closed-form or "
                  "approximate null distribution named for its measure."),
                 *([_PEARSON_T_CAUTION] if "pearson" in measures and not permutations else []),
+                *([_SPEARMAN_SMALL_N] if "spearman" in measures else []),
+                _PERMUTATION_FLOOR,
             ],
             "formula": "p = (1 + k) / (B + 1), k = resamples with a statistic at least the observed one"
                        if permutations else "",
-            "references": [_PHIPSON] if permutations else [],
+            "references": ([_PHIPSON] if permutations else []) + ([_BEST_ROBERTS] if "spearman" in measures else []),
         },
         {
             "title": "q-values (many pairs)",

@@ -367,6 +367,57 @@ def w3(args, tmp: Path, report: dict) -> None:
     _print("W3", res)
 
 
+def w4(args, tmp: Path, report: dict) -> None:
+    """Long tables: 10 columns, 10^4 .. 10^6 rows, default measures; exponent in n and ratio per size."""
+    from app import config
+    from app.engine import AnalysisSettings, run_analysis
+
+    sizes = [10_000, 30_000, 100_000] if args.quick else [10_000, 100_000, 300_000, 1_000_000]
+    p = 10
+    measures = ",".join(config.DEFAULT_MEASURES)
+    settings = AnalysisSettings(measures=config.DEFAULT_MEASURES)
+    pairs = p * (p - 1) // 2
+    full, names = make_table(max(sizes), p, 0.0, seed=4)
+    run_analysis(full[:50], names, settings, workers=1)  # kernels loaded before timing
+    res: dict = {"columns": p, "pairs": pairs, "measures": measures, "workers": args.workers,
+                 "baseline": f"pandas + scipy.stats + dcor loop (baseline_loop.py) on the first {args.w4_pairs} "
+                             f"pairs, scaled to all {pairs}"}
+    engine, serial, baseline = {}, {}, {}
+    for rows in sizes:
+        data = full[:rows]
+        times, times1 = [], []
+        for _ in range(args.repeats):
+            t = time.perf_counter()
+            run_analysis(data, names, settings, workers=args.workers)
+            times.append(time.perf_counter() - t)
+            # one worker runs in this process: its CPU time is what a busy shared machine perturbs least
+            t = time.process_time()
+            run_analysis(data, names, settings, workers=1)
+            times1.append(time.process_time() - t)
+        engine[rows], serial[rows] = median(times), median(times1)
+        csv, out = tmp / f"w4_{rows}.csv", tmp / f"w4_{rows}_base.csv"
+        write_csv(csv, data, names)
+        loops = []
+        for _ in range(max(1, args.w4_baseline_repeats)):
+            b = run_process(baseline_cmd(csv, out, measures, pairs=args.w4_pairs))
+            loops.append(json.loads(b["stdout"].strip().splitlines()[-1])["loop_s"] / args.w4_pairs * pairs)
+        baseline[rows] = median(loops)
+        csv.unlink()
+        res[f"n={rows}"] = {"engine_s": engine[rows], "engine_runs_s": times, "engine_serial_cpu_s": serial[rows],
+                            "baseline_loop_scaled_s": baseline[rows],
+                            "ratio_engine": baseline[rows] / engine[rows],
+                            "ratio_engine_serial_cpu": baseline[rows] / serial[rows]}
+        _print(f"W4 n={rows}", res[f"n={rows}"])
+    big = [k for k in sizes if k >= 100_000]
+    res["exponent_n_all"] = _slope(sizes, [engine[k] for k in sizes])
+    res["exponent_n_1e5_to_max"] = _slope(big, [engine[k] for k in big])
+    res["exponent_n_serial_cpu_all"] = _slope(sizes, [serial[k] for k in sizes])
+    res["exponent_n_serial_cpu_1e5_to_max"] = _slope(big, [serial[k] for k in big])
+    res["exponent_n_log_n_reference"] = _slope(big, [k * math.log(k) for k in big])
+    report["W4"] = res
+    _print("W4", {k: v for k, v in res.items() if not k.startswith("n=")})
+
+
 def startup(args, report: dict) -> None:
     """Import cost of the pair-table command and of the baseline's libraries."""
     code_ours = ("import time; t=time.perf_counter(); import app.cli, app.ingest, app.engine, app.export; "
@@ -409,11 +460,13 @@ def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--repeats", type=int, default=3)
     ap.add_argument("--workers", type=int, default=os.cpu_count() or 1)
-    ap.add_argument("--only", default="startup,W1,W2,W3")
+    ap.add_argument("--only", default="startup,W1,W2,W3", help="any of startup,W1,W2,W3,W4 (W4: long tables)")
     ap.add_argument("--quick", action="store_true")
     ap.add_argument("--w2-pairs", type=int, default=1, help="baseline permutation test: pairs measured")
     ap.add_argument("--w2-repeats", type=int, default=1)
     ap.add_argument("--w3-pairs", type=int, default=3)
+    ap.add_argument("--w4-pairs", type=int, default=3, help="long tables: baseline pairs measured per size")
+    ap.add_argument("--w4-baseline-repeats", type=int, default=1)
     ap.add_argument("--json", default=None, help="also write the results here")
     args = ap.parse_args(argv)
     report = {"machine": machine(), "command": " ".join([Path(sys.executable).name, *sys.argv]),
@@ -425,7 +478,7 @@ def main(argv=None) -> int:
         tmp = Path(d)
         if "startup" in only:
             startup(args, report)
-        for name, fn in (("W1", w1), ("W2", w2), ("W3", w3)):
+        for name, fn in (("W1", w1), ("W2", w2), ("W3", w3), ("W4", w4)):
             if name in only:
                 fn(args, tmp, report)
     report["machine"]["loadavg_end"] = os.getloadavg()

@@ -20,14 +20,11 @@ from dataclasses import dataclass
 import numba
 import numpy as np
 
+from .rank import exact_score_sums
+
 __all__ = ["PreparedColumns", "prepare_columns", "PairView", "pair_view", "spearman_sums",
            "kendall_order", "kendall_counts_view", "distance_orders", "xi_order", "rank_counts", "median_sorted",
-           "pair_work", "warm_kernels", "EXACT_RANK_SUM_MAX_N"]
-
-# Centred mid-ranks are multiples of 1/2, their products multiples of 1/4, and
-# every partial sum of n of them is at most n^3/4 in size: below this n all of
-# them are exact in float64 (n^3 < 2^53), whatever the order of summation.
-EXACT_RANK_SUM_MAX_N = 200_000
+           "pair_work", "warm_kernels"]
 
 
 # --- compiled kernels ---------------------------------------------------------------
@@ -36,6 +33,10 @@ EXACT_RANK_SUM_MAX_N = 200_000
 def _pair_view(xcol, ycol, xorder, xcount, yorder, ycount, xpresent, ypresent):
     """Complete rows of a pair in row order and both stable orders, by filtering."""
     n_rows = xcol.shape[0]
+    if xcount == n_rows and ycount == n_rows:
+        # nothing missing: the columns' own orders, with no scattered reads (at 10^6 rows the
+        # filter below is memory-bound, a cache miss per row)
+        return xcol.copy(), ycol.copy(), xorder[:n_rows].copy(), yorder[:n_rows].copy()
     position = np.empty(n_rows, np.int64)
     m = 0
     for row in range(n_rows):
@@ -84,16 +85,26 @@ def _centred_midranks(values, order):
 
 @numba.njit(cache=True, nogil=True)
 def _spearman_sums(xp, ox, yp, oy):
+    """Exact integer sums of the scores 2 r (r the centred mid-ranks) as high and low parts.
+
+    Integers at any n, so the sums do not depend on the order of summation and
+    no pair ever needs its columns sorted again (float sums of n^3 size stop
+    being exact near n = 2e5).
+    """
     rx = _centred_midranks(xp, ox)
     ry = _centred_midranks(yp, oy)
-    sxy = 0.0
-    sxx = 0.0
-    syy = 0.0
-    for k in range(rx.shape[0]):
-        sxy += rx[k] * ry[k]
-        sxx += rx[k] * rx[k]
-        syy += ry[k] * ry[k]
-    return sxy, sxx, syy
+    n = rx.shape[0]
+    ax = np.empty(n, np.int64)
+    ay = np.empty(n, np.int64)
+    for k in range(n):
+        ax[k] = np.int64(2.0 * rx[k])
+        ay[k] = np.int64(2.0 * ry[k])
+    return exact_score_sums(ax, ay)
+
+
+def _rank_sums_as_floats(hi: np.ndarray, lo: np.ndarray) -> tuple[float, float, float]:
+    """sum rx ry, sum rx^2, sum ry^2: each exact integer sum of scores / 4, rounded once."""
+    return tuple((int(h) * 2**32 + int(l)) / 4 for h, l in zip(hi, lo))
 
 
 @numba.njit(cache=True, nogil=True)
@@ -297,7 +308,7 @@ def _pair_work(xcol, ycol, xorder, xcount, yorder, ycount, xpresent, ypresent, m
     """
     xp, yp, ox, oy = _pair_view(xcol, ycol, xorder, xcount, yorder, ycount, xpresent, ypresent)
     n = xp.shape[0]
-    sums = (0.0, 0.0, 0.0)
+    sums = (np.zeros(3, np.int64), np.zeros(3, np.int64))
     counts = (0, 0, 0, 0, 0.0, 0.0, 0.0, 0.0)
     empty_f = np.empty(0)
     empty_i = np.empty(0, np.int64)
@@ -440,7 +451,7 @@ def pair_view(prep: PreparedColumns, i: int, j: int) -> PairView:
 
 
 def spearman_sums(view: PairView) -> tuple[float, float, float]:
-    """sum rx ry, sum rx^2, sum ry^2 of the centred mid-ranks (exact below EXACT_RANK_SUM_MAX_N rows).
+    """sum rx ry, sum rx^2, sum ry^2 of the centred mid-ranks: exact integer sums, rounded once.
 
     Examples
     --------
@@ -449,7 +460,7 @@ def spearman_sums(view: PairView) -> tuple[float, float, float]:
     >>> spearman_sums(v)
     (-1.5, 1.5, 2.0)
     """
-    return _spearman_sums(view.x, view.x_order, view.y, view.y_order)
+    return _rank_sums_as_floats(*_spearman_sums(view.x, view.x_order, view.y, view.y_order))
 
 
 def kendall_order(view: PairView) -> np.ndarray:
@@ -537,7 +548,7 @@ def pair_work(prep: PreparedColumns, i: int, j: int, min_rows: int, *, spearman:
     view = PairView(xp, yp, ox, oy)
     if not regular:
         return False, view, None, None, None
-    return (True, view, sums if spearman else None, counts if kendall else None,
+    return (True, view, _rank_sums_as_floats(*sums) if spearman else None, counts if kendall else None,
             (xc, yc, order, y_order) if distance else None)
 
 

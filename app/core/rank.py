@@ -10,6 +10,7 @@ import numba
 import numpy as np
 from scipy import special
 
+from .. import config
 from ..config import KENDALL_EXACT_MAX_N
 from .linear import correlation_t_pvalue, pearson_matrix, screen_pair
 from .results import TestResult
@@ -25,6 +26,10 @@ __all__ = [
     "knight_counts",
     "kendall_exact_pvalue",
     "spearman_from_sums",
+    "spearman_needs_rows",
+    "spearman_null_counts",
+    "spearman_exact_pvalue",
+    "spearman_edgeworth_pvalue",
     "kendall_from_counts",
 ]
 
@@ -97,6 +102,68 @@ def _merge_sort_inversions(values):
     return inversions
 
 
+@numba.njit(cache=True, nogil=True)
+def _assignment_counts(a, b, top):
+    """counts[t] = #{permutations p : sum_i a[i] * b[p[i]] = t}, for non-negative integers a, b.
+
+    Dynamic programme over the subsets of b already placed: position k is
+    filled when k items are used, so a state is a bit mask and a count per
+    partial sum. O(2^n n top) time, O(2^n top) memory; ``top`` bounds the sum.
+    """
+    n = a.shape[0]
+    full = 1 << n
+    dp = np.zeros((full, top + 1), np.int64)
+    reach = np.zeros(full, np.int64)  # largest partial sum reached by each mask
+    dp[0, 0] = 1
+    for mask in range(full):
+        k = 0
+        m = mask
+        while m:
+            k += m & 1
+            m >>= 1
+        if k == n:
+            continue
+        hi = reach[mask]
+        for j in range(n):
+            if mask & (1 << j):
+                continue
+            step = a[k] * b[j]
+            nxt = mask | (1 << j)
+            for t in range(hi + 1):
+                c = dp[mask, t]
+                if c:
+                    dp[nxt, t + step] += c
+            if hi + step > reach[nxt]:
+                reach[nxt] = hi + step
+    return dp[full - 1].copy()
+
+
+@numba.njit(cache=True, nogil=True)
+def exact_score_sums(x_scores, y_scores):
+    """Exact sums of products of integer rank scores, split in high and low 32-bit parts.
+
+    Each product is below 2^45 for n up to 5e6; the low parts (< 2^32 each)
+    and the arithmetic-shifted high parts add up without overflow for any n
+    below 2^23, so ``hi * 2^32 + lo`` is the exact integer sum.
+    """
+    n = x_scores.shape[0]
+    hi = np.zeros(3, np.int64)
+    lo = np.zeros(3, np.int64)
+    for k in range(n):
+        a = x_scores[k]
+        b = y_scores[k]
+        for idx in range(3):
+            if idx == 0:
+                prod = a * b
+            elif idx == 1:
+                prod = a * a
+            else:
+                prod = b * b
+            hi[idx] += prod >> 32
+            lo[idx] += prod & 0xFFFFFFFF
+    return hi, lo
+
+
 # --- private helpers ----------------------------------------------------------
 
 def _tie_stats_unique(v: np.ndarray) -> tuple[int, float, float]:
@@ -105,6 +172,81 @@ def _tie_stats_unique(v: np.ndarray) -> tuple[int, float, float]:
     tf = t.astype(float)
     return (int((t * (t - 1) // 2).sum()), float((tf * (tf - 1) * (tf - 2)).sum()),
             float((tf * (tf - 1) * (2 * tf + 5)).sum()))
+
+
+def _scores(values: np.ndarray) -> np.ndarray:
+    """Integer rank scores 2 * midrank - (n + 1): centred mid-ranks times 2, exact in int64."""
+    return np.rint(2.0 * midranks(values) - (values.size + 1)).astype(np.int64)
+
+
+def _join_sums(hi: np.ndarray, lo: np.ndarray) -> tuple[int, int, int]:
+    return tuple(int(h) * 2**32 + int(l) for h, l in zip(hi, lo))
+
+
+def _two_sided_counts(a: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, int]:
+    """Counts of T = sum a_i b_p(i) over all n! permutations p, as (counts, offset): T = index + offset."""
+    a_min, b_min = int(a.min()), int(b.min())
+    a0, b0 = (a - a_min).astype(np.int64), (b - b_min).astype(np.int64)
+    # rearrangement inequality: the largest sum pairs the sorted scores
+    top = int(np.dot(np.sort(a0), np.sort(b0)))
+    counts = _assignment_counts(a0, b0, top)
+    offset = a_min * int(b0.sum()) + b_min * int(a0.sum()) + a.size * a_min * b_min
+    return counts, offset
+
+
+@lru_cache(maxsize=32)
+def _untied_counts(n: int) -> tuple[np.ndarray, int]:
+    scores = np.arange(-(n - 1), n, 2, dtype=np.int64)
+    return _two_sided_counts(scores, scores)
+
+
+def _exact_from_counts(counts: np.ndarray, offset: int, t_observed: int) -> float:
+    """P(|T| >= |t|) from the exact counts of T, in integers; T is centred (E T = 0)."""
+    t_values = np.arange(counts.size, dtype=np.int64) + offset
+    hits = int(counts[np.abs(t_values) >= abs(t_observed)].sum())
+    total = int(counts.sum())
+    return min(1.0, hits / total)
+
+
+def _edgeworth_upper(n: int, s: float) -> float:
+    """P(S >= s) for S = sum d^2 of n untied rows, by the Edgeworth series of Best & Roberts (1975).
+
+    The coefficients and the continuity correction (s - 1) are those of
+    algorithm AS 89, as printed in the paper and carried by R's prho.c.
+    """
+    n3 = n * (n * n - 1) / 3.0
+    if s <= 0:
+        return 1.0
+    if s > n3:
+        return 0.0
+    c1, c2, c3, c4, c5, c6 = 0.2274, 0.2531, 0.1745, 0.0758, 0.1033, 0.3932
+    c7, c8, c9, c10, c11, c12 = 0.0879, 0.0151, 0.0072, 0.0831, 0.0131, 4.6e-4
+    b = 1.0 / n
+    x = (6.0 * (s - 1.0) * b / (n * n - 1.0) - 1.0) * math.sqrt(n - 1.0)
+    y = x * x
+    u = x * b * (c1 + b * (c2 + c3 * b) + y * (-c4 + b * (c5 + c6 * b)
+                 - y * b * (c7 + c8 * b - y * (c9 - c10 * b + y * b * (c11 - c12 * y)))))
+    p = u / math.exp(y / 2.0) + 0.5 * float(special.erfc(x / math.sqrt(2.0)))
+    return min(1.0, max(0.0, p))
+
+
+def _permutation_pvalue(a: np.ndarray, b: np.ndarray, t_observed: int, draws: int, seed) -> float:
+    """(1 + #{|T_b| >= |t|}) / (1 + B) over B seeded random permutations of b."""
+    rng = np.random.default_rng(seed)
+    hits = 0
+    chunk = max(1, min(draws, 2_000_000 // max(a.size, 1)))
+    done = 0
+    while done < draws:
+        c = min(chunk, draws - done)
+        perms = rng.permuted(np.broadcast_to(b, (c, b.size)), axis=1)
+        hits += int(np.count_nonzero(np.abs(perms @ a) >= abs(t_observed)))
+        done += c
+    return (1.0 + hits) / (1.0 + draws)
+
+
+def _is_untied(sum_sq_4: int, n: int) -> bool:
+    # sum of squared integer scores equals (n^3 - n)/3 exactly when there are no ties
+    return sum_sq_4 == (n * n * n - n) // 3
 
 
 def _naive_counts(x: np.ndarray, y: np.ndarray) -> KendallCounts:
@@ -350,8 +492,148 @@ def spearman_matrix(data: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return pearson_matrix(ranks, missing="complete")
 
 
-def spearman(x: np.ndarray, y: np.ndarray, *, confidence: float = 0.95) -> TestResult:
-    """Spearman rho, t approximation p-value, Fisher z interval with Bonett & Wright SE.
+def spearman_null_counts(n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Exact null law of :math:`S = \\sum d_i^2` for n untied rows: values and permutation counts.
+
+    Parameters
+    ----------
+    n : int
+        Rows, 2 to about 16 (the recursion takes 2^n n^3 steps and memory).
+
+    Returns
+    -------
+    s_values, counts : numpy.ndarray
+        The even values S takes and how many of the n! permutations give each.
+
+    Notes
+    -----
+    With integer scores :math:`a_i = 2i - (n+1)` the statistic
+    :math:`T = \\sum_i a_i a_{p(i)}` equals :math:`4\\sum r_x r_y` for centred
+    ranks, and :math:`S = (n^3 - n)/6 - T/2`. Its counts come from a recursion
+    over the subsets of values already placed (position k is filled once k
+    values are used), exact in integers.
+
+    References
+    ----------
+    Kendall, M.G., Kendall, S.F.H. & Babington Smith, B. (1939). The
+    distribution of Spearman's coefficient of rank correlation in a universe
+    in which all rankings occur an equal number of times. Biometrika
+    30:251-273. doi:10.1093/biomet/30.3-4.251
+
+    Examples
+    --------
+    >>> s, c = spearman_null_counts(3)
+    >>> s.tolist(), c.tolist()
+    ([0, 2, 6, 8], [1, 2, 2, 1])
+    """
+    counts, offset = _untied_counts(int(n))
+    t = np.arange(counts.size, dtype=np.int64) + offset
+    keep = counts > 0
+    s_values = (n * n * n - n) // 6 - t[keep] // 2
+    order = np.argsort(s_values)
+    return s_values[order], counts[keep][order]
+
+
+def spearman_exact_pvalue(n: int, s: int) -> float:
+    """Two-sided exact p-value of Spearman's rho for n untied rows with :math:`\\sum d^2 = s`.
+
+    Parameters
+    ----------
+    n : int
+        Rows (3 to about 16).
+    s : int
+        Observed :math:`S = \\sum (r_{x,i} - r_{y,i})^2`.
+
+    Returns
+    -------
+    float
+        :math:`P(|S' - m| \\ge |s - m|)`, :math:`m = (n^3 - n)/6`, over the n!
+        equally likely permutations; the law is symmetric about m, so this is
+        twice the smaller tail, capped at 1.
+
+    Notes
+    -----
+    Counts from :func:`spearman_null_counts`; the smallest value is
+    :math:`2/n!` (rho = 1 or -1).
+
+    References
+    ----------
+    Kendall, Kendall & Babington Smith (1939). Biometrika 30:251-273.
+    doi:10.1093/biomet/30.3-4.251
+
+    Examples
+    --------
+    >>> spearman_exact_pvalue(3, 0)
+    0.3333333333333333
+    """
+    counts, offset = _untied_counts(int(n))
+    t_observed = 2 * ((n * n * n - n) // 6 - int(s))
+    return _exact_from_counts(counts, offset, t_observed)
+
+
+def spearman_edgeworth_pvalue(n: int, s: int) -> float:
+    """Two-sided p-value of Spearman's rho for n untied rows by the Edgeworth series (AS 89).
+
+    Parameters
+    ----------
+    n : int
+        Rows (meant for n above :data:`app.config.SPEARMAN_EXACT_MAX_N`).
+    s : int
+        Observed :math:`S = \\sum d^2` (an even integer).
+
+    Returns
+    -------
+    float
+        :math:`\\min(1, 2 P)`, P the tail on the observed side:
+        :math:`P(S' \\ge s)` when s is above the mean :math:`(n^3 - n)/6`, else
+        :math:`P(S' \\le s)`, each from the series.
+
+    Notes
+    -----
+    Best & Roberts (1975) write :math:`P(S \\ge s)` as
+    :math:`1 - \\Phi(x) + u(x) e^{-x^2/2}` with
+    :math:`x = (6(s-1)/(n^3-n) - 1)\\sqrt{n-1}` and u a polynomial in x and
+    1/n (twelve published coefficients); the lower tail is
+    :math:`P(S \\le s) = 1 - P(S \\ge s + 2)`, S being even. R's
+    ``cor.test(method = "spearman")`` uses the same series for
+    9 < n < 1290 without ties and the same two-sided rule (from memory).
+
+    References
+    ----------
+    Best, D.J. & Roberts, D.E. (1975). Algorithm AS 89: The upper tail
+    probabilities of Spearman's rho. Applied Statistics 24:377-379.
+    doi:10.2307/2347111
+
+    Examples
+    --------
+    >>> round(spearman_edgeworth_pvalue(20, 1330), 6)
+    1.0
+    """
+    s = int(s)
+    # S is even: P(S >= s) = P(S >= s - 1) and P(S <= s) = 1 - P(S >= s + 2); the series is
+    # evaluated at those arguments, as AS 89 is called by R's cor.test (from memory).
+    if 6 * s > n * n * n - n:
+        tail = _edgeworth_upper(n, s - 1)
+    else:
+        tail = 1.0 - _edgeworth_upper(n, s + 2)
+    return min(1.0, 2.0 * tail)
+
+
+def spearman_needs_rows(sum_xx: float, sum_yy: float, n: int) -> bool:
+    """True when the default p-value of these sums needs the rows (tied and small: a permutation test).
+
+    Examples
+    --------
+    >>> spearman_needs_rows(10.0, 10.0, 5), spearman_needs_rows(9.5, 10.0, 5)
+    (False, True)
+    """
+    if n >= config.SPEARMAN_T_MIN_N:
+        return False
+    return not (_is_untied(round(4 * sum_xx), n) and _is_untied(round(4 * sum_yy), n))
+
+
+def spearman(x: np.ndarray, y: np.ndarray, *, confidence: float = 0.95, seed=None) -> TestResult:
+    """Spearman rho, its permutation p-value (exact or approximated), Fisher z interval (Bonett & Wright SE).
 
     Parameters
     ----------
@@ -359,25 +641,43 @@ def spearman(x: np.ndarray, y: np.ndarray, *, confidence: float = 0.95) -> TestR
         1-D arrays of equal length; rows with NaN on either side are dropped.
     confidence : float
         Level of the interval.
+    seed : int or numpy.random.SeedSequence, optional
+        Drives the random permutations of small tied samples only (default:
+        :data:`app.config.DEFAULT_SEED`, so a call is reproducible).
 
     Returns
     -------
     TestResult
-        Method ``"t approximation, n-2 df"``. Undefined when fewer than 3
-        rows remain or a column is constant; with 3 rows the interval is the
-        whole range (-1, 1), with a note.
+        ``method`` names the p-value's law (see Notes). Undefined when fewer
+        than 3 rows remain or a column is constant; with 3 rows the interval
+        is the whole range (-1, 1), with a note.
 
     Notes
     -----
     :math:`\\rho_s` is the Pearson correlation of the mid-ranks (ties share
-    the mean rank). p-value: :math:`t = \\rho_s\\sqrt{(n-2)/(1-\\rho_s^2)}`
-    referred to :math:`t_{n-2}`. Interval:
+    the mean rank). Under independence every pairing of the y ranks with the
+    x ranks is equally likely; the p-value refers :math:`\\rho_s` to that law:
+
+    * no ties, :math:`n \\le 12`: exact (:func:`spearman_exact_pvalue`);
+    * no ties, :math:`12 < n < 150`: Edgeworth series of Best & Roberts
+      (1975) (:func:`spearman_edgeworth_pvalue`);
+    * ties, :math:`n \\le 10`: exact, all n! pairings of the mid-rank scores
+      counted; ties, :math:`10 < n < 150`: 9,999 seeded random permutations,
+      :math:`(1 + \\#\\{|\\rho^*| \\ge |\\rho_s|\\})/(1 + B)`;
+    * :math:`n \\ge 150`: :math:`t = \\rho_s\\sqrt{(n-2)/(1-\\rho_s^2)}`
+      referred to :math:`t_{n-2}` (``scipy.stats.spearmanr``'s p-value), whose
+      level holds there (``benchmarks/spearman_level.py``).
+
+    The limits are in :mod:`app.config`. Interval:
     :math:`\\tanh(\\operatorname{atanh}\\rho_s \\mp z_{(1+c)/2}\\,
     \\sqrt{(1 + \\rho_s^2/2)/(n-3)})` (Bonett & Wright 2000).
 
     References
     ----------
     Spearman, C. (1904). Am. J. Psychol. 15:72-101. doi:10.2307/1412159
+
+    Best, D.J. & Roberts, D.E. (1975). Algorithm AS 89. Applied Statistics
+    24:377-379. doi:10.2307/2347111
 
     Bonett, D.G. & Wright, T.A. (2000). Sample size requirements for
     estimating Pearson, Kendall and Spearman correlations. Psychometrika
@@ -386,38 +686,45 @@ def spearman(x: np.ndarray, y: np.ndarray, *, confidence: float = 0.95) -> TestR
     Examples
     --------
     >>> rng = np.random.default_rng(2)
-    >>> x = rng.normal(size=60)
-    >>> res = spearman(x, np.exp(x) + 0.5 * rng.normal(size=60))
+    >>> x = rng.normal(size=160)
+    >>> res = spearman(x, np.exp(x) + 0.5 * rng.normal(size=160))
     >>> res.method, res.n, bool(-1 <= res.ci_low < res.estimate < res.ci_high <= 1)
-    ('t approximation, n-2 df', 60, True)
+    ('t approximation, n-2 df', 160, True)
+    >>> spearman(np.arange(3.0), np.arange(3.0) ** 2).p_value
+    0.3333333333333333
     """
-    method = "t approximation, n-2 df"
-    x, y, degenerate = screen_pair(x, y, method)
+    x, y, degenerate = screen_pair(x, y, "t approximation, n-2 df")
     if degenerate is not None:
         return degenerate
     n = x.size
-    rx, ry = midranks(x), midranks(y)
-    rx -= (n + 1) / 2.0
-    ry -= (n + 1) / 2.0
-    return spearman_from_sums(float(np.dot(rx, ry)), float(np.dot(rx, rx)), float(np.dot(ry, ry)), n,
-                              confidence=confidence)
+    ax, ay = _scores(x), _scores(y)
+    txy, txx, tyy = _join_sums(*exact_score_sums(ax, ay))
+    return spearman_from_sums(txy / 4, txx / 4, tyy / 4, n, confidence=confidence,
+                              x_scores=ax, y_scores=ay, seed=seed)
 
 
 def spearman_from_sums(sum_xy: float, sum_xx: float, sum_yy: float, n: int, *,
-                       confidence: float = 0.95) -> TestResult:
+                       confidence: float = 0.95, x_scores: np.ndarray | None = None,
+                       y_scores: np.ndarray | None = None, seed=None) -> TestResult:
     """:func:`spearman` of a non-degenerate pair from its centred mid-rank sums.
 
     Parameters
     ----------
     sum_xy, sum_xx, sum_yy : float
         :math:`\\sum r_x r_y`, :math:`\\sum r_x^2`, :math:`\\sum r_y^2` over the
-        rows, :math:`r` the mid-ranks minus :math:`(n+1)/2`. They are
-        multiples of 1/4 and exact in float64 for n up to about 2e5, so any
-        order of summation gives the same bits.
+        rows, :math:`r` the mid-ranks minus :math:`(n+1)/2`: multiples of 1/4,
+        best computed exactly (:func:`exact_score_sums`) and rounded once, so
+        any order of summation gives the same bits.
     n : int
         Rows (at least 3; neither column constant).
     confidence : float
         Level of the interval.
+    x_scores, y_scores : numpy.ndarray, optional
+        The integer scores :math:`2 r`; needed only when
+        :func:`spearman_needs_rows` (tied and fewer than
+        :data:`app.config.SPEARMAN_T_MIN_N` rows).
+    seed : optional
+        Seed of the permutations of a tied small sample.
 
     Returns
     -------
@@ -427,8 +734,9 @@ def spearman_from_sums(sum_xy: float, sum_xx: float, sum_yy: float, n: int, *,
     Notes
     -----
     :math:`\\rho_s = \\sum r_x r_y / \\sqrt{\\sum r_x^2 \\sum r_y^2}`; p-value and
-    interval as in :func:`spearman`. For an engine that ranks each column
-    once and reuses the orders for every pair.
+    interval as in :func:`spearman`; untied samples are recognised by
+    :math:`\\sum r^2 = (n^3 - n)/12`, and their S is
+    :math:`(n^3 - n)/6 - 2\\sum r_x r_y`.
 
     References
     ----------
@@ -437,13 +745,35 @@ def spearman_from_sums(sum_xy: float, sum_xx: float, sum_yy: float, n: int, *,
     Examples
     --------
     >>> res = spearman_from_sums(8.0, 10.0, 10.0, 5)
-    >>> round(res.estimate, 3), res.method
-    (0.8, 't approximation, n-2 df')
+    >>> round(res.estimate, 3), res.method, round(res.p_value, 4)
+    (0.8, 'exact', 0.1333)
     """
-    method = "t approximation, n-2 df"
     rho = float(sum_xy / math.sqrt(sum_xx * sum_yy))
     rho = min(1.0, max(-1.0, rho))
-    p = correlation_t_pvalue(rho, n)
+    if n >= config.SPEARMAN_T_MIN_N:
+        p, method = correlation_t_pvalue(rho, n), "t approximation, n-2 df"
+    elif not spearman_needs_rows(sum_xx, sum_yy, n):
+        s = (n * n * n - n) // 6 - round(2 * sum_xy)
+        if n <= config.SPEARMAN_EXACT_MAX_N:
+            p, method = spearman_exact_pvalue(n, s), "exact"
+        else:
+            p, method = spearman_edgeworth_pvalue(n, s), "Edgeworth series (AS 89)"
+    else:
+        if x_scores is None or y_scores is None:
+            raise ValueError("a tied sample below SPEARMAN_T_MIN_N rows needs its scores for the permutation test")
+        t_observed = round(4 * sum_xy)
+        if n <= config.SPEARMAN_TIED_EXACT_MAX_N:
+            counts, offset = _two_sided_counts(np.asarray(x_scores, np.int64), np.asarray(y_scores, np.int64))
+            p, method = _exact_from_counts(counts, offset, t_observed), "exact permutation (ties)"
+        else:
+            b = config.SPEARMAN_SMALL_N_PERMUTATIONS
+            a_s, b_s = np.asarray(x_scores, np.int64), np.asarray(y_scores, np.int64)
+            # the same side is shuffled whichever column comes first, so rho(x, y) and rho(y, x)
+            # get the same p-value; without a seed the analysis default keeps it reproducible
+            if a_s.tobytes() > b_s.tobytes():
+                a_s, b_s = b_s, a_s
+            p = _permutation_pvalue(a_s, b_s, t_observed, b, config.DEFAULT_SEED if seed is None else seed)
+            method = f"permutation, B={b} (ties, n < {config.SPEARMAN_T_MIN_N})"
     low, high, note = _rank_interval(rho, n, 1.0 + rho * rho / 2.0, 3, confidence)
     return TestResult(rho, p, method, low, high, n, note)
 

@@ -13,9 +13,11 @@ from typing import Callable
 import numpy as np
 
 from . import chatterjee, distance, linear, rank
+from .. import config
 from .results import TestResult
+from .testing import all_pairings, attainable_minimum, floor_pvalue, permutation_floor
 
-__all__ = ["PairContext", "Measure", "MEASURES", "get_measure", "measure_names"]
+__all__ = ["PairContext", "Measure", "MEASURES", "get_measure", "measure_names", "pvalue_floor"]
 
 
 @dataclass(frozen=True)
@@ -43,6 +45,9 @@ class Measure:
     formula: str
     reference: str
     compute: Callable[[np.ndarray, np.ndarray, PairContext], TestResult]
+    # The default test's statistic for every pairing of the rows (x, y, pairings of shape
+    # (n!, n)), larger meaning more extreme: gives the exact floor of tiny samples' p-values.
+    pairing_statistics: Callable[[np.ndarray, np.ndarray, np.ndarray], np.ndarray] | None = None
 
 
 def _pearson(x, y, ctx: PairContext) -> TestResult:
@@ -50,7 +55,7 @@ def _pearson(x, y, ctx: PairContext) -> TestResult:
 
 
 def _spearman(x, y, ctx: PairContext) -> TestResult:
-    return rank.spearman(x, y, confidence=ctx.confidence)
+    return rank.spearman(x, y, confidence=ctx.confidence, seed=ctx.seed)
 
 
 def _kendall(x, y, ctx: PairContext) -> TestResult:
@@ -69,6 +74,116 @@ def _xi(x, y, ctx: PairContext) -> TestResult:
     return chatterjee.xi(x, y, permutations=ctx.permutations, seed=ctx.seed)
 
 
+def _centred(v: np.ndarray) -> np.ndarray:
+    return v - v.mean()
+
+
+def _pearson_pairings(x, y, pairings):
+    return np.abs(_centred(y)[pairings] @ _centred(x))
+
+
+def _spearman_pairings(x, y, pairings):
+    return np.abs(_centred(rank.midranks(y))[pairings] @ _centred(rank.midranks(x)))
+
+
+def _kendall_pairings(x, y, pairings):
+    # the numerator C - D of tau-b; its denominator does not change under pairings
+    sx = np.sign(x[:, None] - x[None, :])
+    sy = np.sign(y[:, None] - y[None, :])
+    return np.abs(np.einsum("ij,mij->m", sx, sy[pairings[:, :, None], pairings[:, None, :]]))
+
+
+def _distances(v: np.ndarray) -> np.ndarray:
+    v = v.reshape(v.shape[0], -1)
+    return np.sqrt(((v[:, None, :] - v[None, :, :]) ** 2).sum(axis=2))
+
+
+def _double_centred(d: np.ndarray) -> np.ndarray:
+    return d - d.mean(axis=0) - d.mean(axis=1)[:, None] + d.mean()
+
+
+def _u_centred(d: np.ndarray) -> np.ndarray:
+    n = d.shape[0]
+    out = d - d.sum(axis=0) / (n - 2) - d.sum(axis=1)[:, None] / (n - 2) + d.sum() / ((n - 1) * (n - 2))
+    np.fill_diagonal(out, 0.0)
+    return out
+
+
+def _cross(a: np.ndarray, b: np.ndarray, pairings: np.ndarray) -> np.ndarray:
+    # centring commutes with relabelling the rows, so each pairing only permutes b
+    return np.einsum("ij,mij->m", a, b[pairings[:, :, None], pairings[:, None, :]])
+
+
+def _dcor_pairings(x, y, pairings):
+    return _cross(_double_centred(_distances(x)), _double_centred(_distances(y)), pairings)
+
+
+def _dcor_bc_pairings(x, y, pairings):
+    if x.shape[0] < 4:
+        return None
+    return _cross(_u_centred(_distances(x)), _u_centred(_distances(y)), pairings)
+
+
+def _xi_pairings(x, y, pairings):
+    # minus sum |r_(i+1) - r_i| over rows in x order (ties by row); its denominator is fixed
+    order = np.argsort(x, kind="stable")
+    r = np.searchsorted(np.sort(y), y, side="right")
+    return -np.abs(np.diff(r[pairings][:, order], axis=1)).sum(axis=1)
+
+
+def pvalue_floor(measure: "Measure", x: np.ndarray, y: np.ndarray) -> float:
+    """The smallest p-value the permutation law of ``measure`` on these complete rows allows.
+
+    Parameters
+    ----------
+    measure : Measure
+        A registry entry.
+    x, y : numpy.ndarray
+        The pair's complete rows (1-D, or 2-D for column groups).
+
+    Returns
+    -------
+    float
+        Up to :data:`app.config.PVALUE_FLOOR_ENUMERATE_MAX_N` rows the exact
+        minimum: the share of the n! pairings at the most extreme value of the
+        entry's ``pairing_statistics``. Above it, up to
+        :data:`app.config.PVALUE_FLOOR_MAX_N` rows, the bound K/n! of
+        :func:`app.core.testing.permutation_floor`; beyond, 0.
+
+    Examples
+    --------
+    >>> pvalue_floor(MEASURES["pearson"], np.arange(3.0), np.array([1.0, 8.0, 27.0]))  # x symmetric: 2/3!
+    0.3333333333333333
+    """
+    n = int(np.shape(x)[0])
+    if n < 2 or n > config.PVALUE_FLOOR_MAX_N:
+        return 0.0
+    if n <= config.PVALUE_FLOOR_ENUMERATE_MAX_N and measure.pairing_statistics is not None:
+        values = measure.pairing_statistics(np.asarray(x, float), np.asarray(y, float), all_pairings(n))
+        if values is not None:
+            return attainable_minimum(values)
+    return permutation_floor(x, y)
+
+
+def _floored(compute: Callable[[np.ndarray, np.ndarray, PairContext], TestResult], name: str):
+    """Every default p-value at least the smallest its permutation law allows (:func:`pvalue_floor`)."""
+    def run(x, y, ctx: PairContext) -> TestResult:
+        res = compute(x, y, ctx)
+        if not res.p_value == res.p_value:  # NaN: nothing to raise
+            return res
+        return floor_pvalue(res, pvalue_floor(MEASURES[name], *_complete(x, y)))
+    run.__name__ = compute.__name__
+    run.__doc__ = compute.__doc__
+    return run
+
+
+def _complete(x, y):
+    x, y = np.asarray(x, dtype=float), np.asarray(y, dtype=float)
+    keep = ~(np.isnan(x) if x.ndim == 1 else np.isnan(x).any(axis=1))
+    keep &= ~(np.isnan(y) if y.ndim == 1 else np.isnan(y).any(axis=1))
+    return x[keep], y[keep]
+
+
 MEASURES: dict[str, Measure] = {
     m.name: m
     for m in (
@@ -79,17 +194,20 @@ MEASURES: dict[str, Measure] = {
             interval="Fisher z, SE = 1/sqrt(n-3)",
             formula="r = sum((x-mean x)(y-mean y)) / sqrt(sum((x-mean x)^2) sum((y-mean y)^2))",
             reference="Pearson, K. (1895) Proc. R. Soc. Lond. 58:240-242; Fisher, R.A. (1921) Metron 1:3-32",
-            compute=_pearson,
+            compute=_floored(_pearson, "pearson"), pairing_statistics=_pearson_pairings,
         ),
         Measure(
             name="spearman", label="Spearman rho", family="rank", symmetric=True, signed=True,
             lower=-1.0, upper=1.0, multivariate=False, reflection="flips sign",
-            default_test="t approximation with n-2 degrees of freedom",
+            default_test="permutation law of rho: exact up to 12 untied rows (10 tied), Edgeworth series "
+                         "(untied) or 9,999 permutations (tied) below 150 rows, t approximation with n-2 "
+                         "degrees of freedom from 150 rows",
             interval="Fisher z, SE = sqrt((1 + rho^2/2)/(n-3)) (Bonett & Wright 2000)",
             formula="rho_s = Pearson r of the mid-ranks of x and y",
-            reference="Spearman, C. (1904) Am. J. Psychol. 15:72-101; Bonett, D.G. & Wright, T.A. (2000) "
+            reference="Spearman, C. (1904) Am. J. Psychol. 15:72-101; Best, D.J. & Roberts, D.E. (1975) "
+                      "Applied Statistics 24:377-379, doi:10.2307/2347111; Bonett, D.G. & Wright, T.A. (2000) "
                       "Psychometrika 65:23-28, doi:10.1007/BF02294183",
-            compute=_spearman,
+            compute=_floored(_spearman, "spearman"), pairing_statistics=_spearman_pairings,
         ),
         Measure(
             name="kendall", label="Kendall tau-b", family="rank", symmetric=True, signed=True,
@@ -100,7 +218,7 @@ MEASURES: dict[str, Measure] = {
             reference="Kendall, M.G. (1938) Biometrika 30:81-93; Kendall (1945) Biometrika 33:239-251; "
                       "Knight, W.R. (1966) JASA 61:436-439, doi:10.1080/01621459.1966.10480879; "
                       "Fieller, Hartley & Pearson (1957) Biometrika 44:470-481",
-            compute=_kendall,
+            compute=_floored(_kendall, "kendall"), pairing_statistics=_kendall_pairings,
         ),
         Measure(
             name="dcor", label="Distance correlation", family="distance", symmetric=True, signed=False,
@@ -111,7 +229,7 @@ MEASURES: dict[str, Measure] = {
             formula="R_n = dCov_n(x, y) / sqrt(dVar_n(x) dVar_n(y)), double-centred distance matrices",
             reference="Szekely, Rizzo & Bakirov (2007) Ann. Statist. 35:2769-2794, doi:10.1214/009053607000000505; "
                       "Huo & Szekely (2016) Technometrics 58:435-447, doi:10.1080/00401706.2015.1054435",
-            compute=_dcor,
+            compute=_floored(_dcor, "dcor"), pairing_statistics=_dcor_pairings,
         ),
         Measure(
             name="dcor_bc", label="Bias-corrected dCor^2", family="distance", symmetric=True, signed=True,
@@ -121,7 +239,7 @@ MEASURES: dict[str, Measure] = {
             formula="R*_n = <A~, B~> / sqrt(<A~, A~> <B~, B~>), U-centred distance matrices",
             reference="Szekely & Rizzo (2013) J. Multivariate Anal. 117:193-213, doi:10.1016/j.jmva.2013.02.012; "
                       "Szekely & Rizzo (2014) Ann. Statist. 42:2382-2412, doi:10.1214/14-AOS1255",
-            compute=_dcor_bc,
+            compute=_floored(_dcor_bc, "dcor_bc"), pairing_statistics=_dcor_bc_pairings,
         ),
         Measure(
             name="xi", label="Chatterjee xi (x -> y)", family="rank", symmetric=False, signed=True,
@@ -131,7 +249,7 @@ MEASURES: dict[str, Measure] = {
             interval="",
             formula="xi_n = 1 - n sum|r_{i+1} - r_i| / (2 sum l_i (n - l_i)), rows sorted by x",
             reference="Chatterjee, S. (2021) JASA 116:2009-2022, doi:10.1080/01621459.2020.1758115",
-            compute=_xi,
+            compute=_floored(_xi, "xi"), pairing_statistics=_xi_pairings,
         ),
     )
 }

@@ -4,11 +4,17 @@ from __future__ import annotations
 
 import math
 import zlib
+from dataclasses import replace
+from functools import lru_cache
 
 import numpy as np
 from scipy import special
 
-__all__ = ["adjust_pvalues", "fisher_z_interval", "pair_seed"]
+from ..config import PVALUE_FLOOR_ENUMERATE_MAX_N, PVALUE_FLOOR_MAX_N
+from .results import TestResult
+
+__all__ = ["adjust_pvalues", "fisher_z_interval", "pair_seed", "permutation_floor", "attainable_minimum",
+           "all_pairings", "floor_pvalue"]
 
 
 def _as_pvalue_array(p_values) -> np.ndarray:
@@ -17,6 +23,27 @@ def _as_pvalue_array(p_values) -> np.ndarray:
     if finite.size and (finite.min() < 0.0 or finite.max() > 1.0):
         raise ValueError("p-values must lie in [0, 1] (NaN allowed for undefined tests)")
     return p
+
+
+def _group_ids(v: np.ndarray) -> np.ndarray:
+    """Equal rows (or values) share an id."""
+    if v.ndim == 1:
+        return np.unique(v, return_inverse=True)[1].reshape(-1)
+    return np.unique(v, axis=0, return_inverse=True)[1].reshape(-1)
+
+
+def _log_multiplicities(ids: np.ndarray) -> float:
+    counts = np.bincount(ids)
+    return float(special.gammaln(counts[counts > 1] + 1.0).sum())
+
+
+@lru_cache(maxsize=8)
+def _pairings(n: int) -> np.ndarray:
+    import itertools
+
+    out = np.array(list(itertools.permutations(range(n))), dtype=np.int64)
+    out.setflags(write=False)
+    return out
 
 
 def _bh(p: np.ndarray) -> np.ndarray:
@@ -160,3 +187,107 @@ def pair_seed(seed: int, x_name: str, y_name: str, measure: str) -> np.random.Se
     """Seed sequence for one pair and measure, independent of tiling and executor."""
     key = f"{x_name}\x1f{y_name}\x1f{measure}".encode("utf-8")
     return np.random.SeedSequence([int(seed) & 0xFFFFFFFF, zlib.crc32(key), len(key)])
+
+
+def permutation_floor(x: np.ndarray, y: np.ndarray) -> float:
+    """The smallest p-value any permutation test of independence can give on these rows.
+
+    Parameters
+    ----------
+    x, y : numpy.ndarray
+        The pair's complete rows (1-D, or 2-D with one row per observation).
+
+    Returns
+    -------
+    float
+        :math:`K / n!`, K the number of the n! pairings of the y rows with the
+        x rows that leave the multiset of (x, y) rows unchanged; 0.0 above
+        :data:`app.config.PVALUE_FLOOR_MAX_N` rows.
+
+    Notes
+    -----
+    A permutation p-value counts the pairings whose statistic is at least the
+    observed one; the K pairings that reproduce the data all do, for any
+    statistic of the rows as a set, so :math:`p \\ge K/n!`. With x-tie groups
+    G, y values v, :math:`m_{Gv}` the rows of G with value v and :math:`c_v`
+    the rows with value v,
+
+    .. math:: K = \\prod_G \\frac{|G|!}{\\prod_v m_{Gv}!} \\prod_v c_v!
+
+    (1 without ties). Beyond the cap, :math:`K/n!` is far below any p-value
+    that float64 represents apart from 0 unless nearly every row is tied.
+
+    References
+    ----------
+    Good, P. (2005). Permutation, Parametric and Bootstrap Tests of
+    Hypotheses, 3rd ed. Springer. doi:10.1007/b138696
+
+    Examples
+    --------
+    >>> round(permutation_floor(np.array([1.0, 2.0, 3.0]), np.array([3.0, 1.0, 2.0])), 12)  # 1/3!
+    0.166666666667
+    >>> round(permutation_floor(np.array([1.0, 1.0, 2.0]), np.array([3.0, 1.0, 2.0])), 12)  # 2/3!
+    0.333333333333
+    """
+    n = int(np.shape(x)[0])
+    if n == 0 or n > PVALUE_FLOOR_MAX_N:
+        return 0.0
+    gx, gy = _group_ids(np.asarray(x)), _group_ids(np.asarray(y))
+    joint = gx.astype(np.int64) * (int(gy.max()) + 1) + gy
+    log_k = (_log_multiplicities(gx) - _log_multiplicities(joint) + _log_multiplicities(gy))
+    return float(math.exp(log_k - special.gammaln(n + 1.0)))
+
+
+def all_pairings(n: int) -> np.ndarray:
+    """All n! permutations of range(n) as an (n!, n) read-only array (n up to the enumeration cap)."""
+    if n > PVALUE_FLOOR_ENUMERATE_MAX_N:
+        raise ValueError(f"enumerating {n}! pairings is beyond the cap of {PVALUE_FLOOR_ENUMERATE_MAX_N} rows")
+    return _pairings(int(n))
+
+
+def attainable_minimum(extremeness: np.ndarray) -> float:
+    """Smallest p-value of a permutation law: the share of pairings at its most extreme value.
+
+    Parameters
+    ----------
+    extremeness : numpy.ndarray
+        The test's statistic for every one of the n! pairings, oriented so that
+        larger is more extreme (e.g. :math:`|r|` for a two-sided test).
+
+    Returns
+    -------
+    float
+        :math:`\\#\\{\\pi : T_\\pi \\ge \\max T - \\epsilon\\}/n!`, with a relative
+        tolerance of 1e-9 for the rounding of equal statistics computed in a
+        different order.
+
+    Examples
+    --------
+    >>> attainable_minimum(np.array([0.5, 1.0, 1.0, 0.2, 0.0, 0.5]))
+    0.3333333333333333
+    """
+    values = np.asarray(extremeness, dtype=float)
+    top = float(values.max())
+    return float(np.count_nonzero(values >= top - 1e-9 * max(1.0, abs(top))) / values.size)
+
+
+def floor_pvalue(result: TestResult, floor: float) -> TestResult:
+    """``result`` with its p-value raised to ``floor`` where it was below it, said in the note.
+
+    An approximation (t, normal, gamma) can put a tiny sample's p-value below
+    anything its permutations allow, e.g. Pearson's t-test gives p = 0.002 on
+    3 rows, where no test of independence can go below 1/6.
+
+    Examples
+    --------
+    >>> res = floor_pvalue(TestResult(0.99, 0.002, "t", -1.0, 1.0, 3, ""), 1 / 6)
+    >>> round(res.p_value, 4), res.note
+    (0.1667, 'p-value raised to 1/6, the smallest the permutation law of these 3 rows allows')
+    """
+    p = result.p_value
+    if not (p == p) or p >= floor:
+        return result
+    inverse = 1.0 / floor
+    shown = f"1/{round(inverse)}" if abs(inverse - round(inverse)) < 1e-6 * inverse else f"{floor:.3g}"
+    note = f"p-value raised to {shown}, the smallest the permutation law of these {result.n} rows allows"
+    return replace(result, p_value=floor, note="; ".join(filter(None, [result.note, note])))
