@@ -92,6 +92,12 @@ SPEARMAN_TIED_EXACT_MAX_N = 10
 # and 0.005 within 1.01 alpha from 150): the first n tried within 5% at every alpha, with margin.
 SPEARMAN_T_MIN_N = 150
 SPEARMAN_SMALL_N_PERMUTATIONS = 9999
+# Tied rows take that permutation test only up to this many rows; from the next row on, the
+# t approximation, as for 150 rows and more. Why: the permutation test costs B x n per pair
+# (measured 17-46 ms per pair at n = 40-100, 180x Kendall's exact-or-normal test), so a
+# 100-row table of survey scores with 300 columns would spend half an hour on Spearman alone;
+# the t approximation's worst excess is at the smallest n, which stays covered.
+SPEARMAN_TIED_PERMUTATION_MAX_N = 29
 # Every default p-value is raised, where an approximation puts it lower, to the smallest
 # value a permutation test on the rows allows (app.core.testing.permutation_floor). Above
 # this many rows that floor is 0 in float64 for all but almost wholly tied columns, and is

@@ -340,7 +340,7 @@ def _fast_measure(measure: str, work: tuple, swapped: bool, a: Variable, b: Vari
     n = view.n
     av, bv = (view.y, view.x) if swapped else (view.x, view.y)
     if measure == "spearman" and not rank.spearman_needs_rows(sums[1], sums[2], n):
-        # a tied pair below SPEARMAN_T_MIN_N rows takes the per-pair path: its permutation test needs the rows
+        # a small tied pair (SPEARMAN_TIED_PERMUTATION_MAX_N) takes the per-pair path: its permutation test needs the rows
         return rank.spearman_from_sums(sums[0], sums[1], sums[2], n, confidence=settings.confidence)
     if measure == "kendall":
         d, tx, ty, txy, x3, x5, y3, y5 = counts

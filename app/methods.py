@@ -113,7 +113,9 @@ _SPEARMAN_SMALL_N = (
     f"{config.SPEARMAN_TIED_EXACT_MAX_N} with ties) the law is counted exactly; below "
     f"{config.SPEARMAN_T_MIN_N} rows it is approximated by the Edgeworth series of Best & Roberts (1975, "
     f"algorithm AS 89) without ties, or by {config.SPEARMAN_SMALL_N_PERMUTATIONS:,} seeded random pairings "
-    f"with ties; from {config.SPEARMAN_T_MIN_N} rows on, by the t distribution with n - 2 degrees of "
+    f"with ties up to {config.SPEARMAN_TIED_PERMUTATION_MAX_N} rows (beyond that, tied samples use the t "
+    "distribution, whose cost per pair stays small on wide tables); "
+    f"from {config.SPEARMAN_T_MIN_N} rows on, by the t distribution with n - 2 degrees of "
     "freedom, which there rejects within a few percent of the nominal rate even at the 0.1% level. With few "
     "rows the t approximation alone would overstate the evidence: three rows in the same (or the "
     "reverse) rank order occur by chance in two orderings of six, which it reports as p = 0.")

@@ -170,10 +170,15 @@ def test_spearman_methods_by_size():
                       (150, "t approximation, n-2 df")):
         x, y = rng.normal(size=n), rng.normal(size=n)
         assert rank.spearman(x, y).method == method
-    x, y = rng.integers(0, 4, 40).astype(float), rng.normal(size=40)
+    x, y = rng.integers(0, 4, 25).astype(float), rng.normal(size=25)
     res = rank.spearman(x, y, seed=3)
     assert res.method.startswith("permutation, B=9999")
     assert res.p_value == rank.spearman(x, y, seed=3).p_value
+    # tied beyond SPEARMAN_TIED_PERMUTATION_MAX_N rows: the t approximation (scipy.stats.spearmanr's)
+    x, y = rng.integers(0, 4, 40).astype(float), rng.normal(size=40)
+    res = rank.spearman(x, y, seed=3)
+    assert res.method == "t approximation, n-2 df"
+    assert res.p_value == pytest.approx(scipy.stats.spearmanr(x, y).pvalue, rel=1e-9)
     # Reference: the t approximation from 150 rows is scipy.stats.spearmanr's p-value.
     x, y = rng.normal(size=160), rng.normal(size=160)
     assert rank.spearman(x, y).p_value == pytest.approx(scipy.stats.spearmanr(x, y).pvalue, rel=1e-9)

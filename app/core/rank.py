@@ -629,7 +629,8 @@ def spearman_needs_rows(sum_xx: float, sum_yy: float, n: int) -> bool:
     """
     if n >= config.SPEARMAN_T_MIN_N:
         return False
-    return not (_is_untied(round(4 * sum_xx), n) and _is_untied(round(4 * sum_yy), n))
+    tied = not (_is_untied(round(4 * sum_xx), n) and _is_untied(round(4 * sum_yy), n))
+    return tied and n <= config.SPEARMAN_TIED_PERMUTATION_MAX_N
 
 
 def spearman(x: np.ndarray, y: np.ndarray, *, confidence: float = 0.95, seed=None) -> TestResult:
@@ -750,9 +751,10 @@ def spearman_from_sums(sum_xy: float, sum_xx: float, sum_yy: float, n: int, *,
     """
     rho = float(sum_xy / math.sqrt(sum_xx * sum_yy))
     rho = min(1.0, max(-1.0, rho))
-    if n >= config.SPEARMAN_T_MIN_N:
+    tied = not (_is_untied(round(4 * sum_xx), n) and _is_untied(round(4 * sum_yy), n))
+    if n >= config.SPEARMAN_T_MIN_N or (tied and n > config.SPEARMAN_TIED_PERMUTATION_MAX_N):
         p, method = correlation_t_pvalue(rho, n), "t approximation, n-2 df"
-    elif not spearman_needs_rows(sum_xx, sum_yy, n):
+    elif not tied:
         s = (n * n * n - n) // 6 - round(2 * sum_xy)
         if n <= config.SPEARMAN_EXACT_MAX_N:
             p, method = spearman_exact_pvalue(n, s), "exact"
