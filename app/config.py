@@ -39,6 +39,18 @@ SCATTER_DENSITY_THRESHOLD = 20_000
 # beyond it when at most one pair is discordant or concordant): the same rule
 # as scipy.stats.kendalltau(method="auto"), so the two agree.
 KENDALL_EXACT_MAX_N = 33
+# Pearson's default p-value (app/core/linear.py): every relabelling is enumerated up to
+# this many rows (7! = 5040); up to PEARSON_SPLIT_MAX_N rows, or when one point holds more
+# than PEARSON_SPLIT_SHARE of a column's sum of squares, the moment curve is applied to the
+# n parts of the permutation law given the partner of the most extreme value, else to the
+# whole law (chosen by the level table in tests/test_levels_pearson.py and the agreement
+# with scipy.stats.permutation_test in tests/test_pearson_moments.py).
+PEARSON_EXACT_MAX_N = 7
+PEARSON_SPLIT_MAX_N = 60
+PEARSON_SPLIT_SHARE = 0.1
+# Resamples of a permutation test chosen with --test MEASURE=permutation when
+# --permutations is not given.
+DEFAULT_TEST_PERMUTATIONS = 9_999
 
 # Server ------------------------------------------------------------------
 DEFAULT_HOST = "127.0.0.1"
