@@ -41,6 +41,9 @@ def _add_analysis_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--adjust", choices=config.ADJUST_METHODS, default=config.DEFAULT_ADJUST)
     p.add_argument("--confidence", type=float, default=config.DEFAULT_CONFIDENCE)
     p.add_argument("--permutations", type=int, default=0, metavar="B")
+    p.add_argument("--test", action="append", default=[], metavar="MEASURE=METHOD",
+                   help="the p-value method of one measure (repeatable), e.g. pearson=t, pearson=permutation, "
+                        "dcor=permutation")
     p.add_argument("--seed", type=int, default=config.DEFAULT_SEED)
     p.add_argument("--workers", type=int, default=None, metavar="N", help="local worker processes (default: all cores)")
     p.add_argument("--cluster", default=None, metavar="ADDRESS", help="Dask scheduler, e.g. tcp://127.0.0.1:8786")
@@ -74,6 +77,8 @@ def build_parser() -> argparse.ArgumentParser:
     inspect.add_argument("--json", action="store_true", help="machine-readable output")
     inspect.add_argument("--confidence", type=float, default=config.DEFAULT_CONFIDENCE)
     inspect.add_argument("--permutations", type=int, default=0)
+    inspect.add_argument("--test", action="append", default=[], metavar="MEASURE=METHOD",
+                         help="the p-value method of one measure (repeatable), e.g. pearson=t")
     inspect.add_argument("--seed", type=int, default=config.DEFAULT_SEED)
 
     report = sub.add_parser("report", help="a self-contained HTML report")
@@ -93,7 +98,8 @@ def _settings(args):
 
     return AnalysisSettings.from_options(
         measures=args.measures, columns=args.columns, groups=args.group, missing=args.missing,
-        adjust=args.adjust, confidence=args.confidence, permutations=args.permutations, seed=args.seed)
+        adjust=args.adjust, confidence=args.confidence, permutations=args.permutations, seed=args.seed,
+        tests=args.test)
 
 
 class _ProgressBar:
@@ -163,7 +169,7 @@ def cmd_inspect(args) -> int:
 
     table = _load(args)
     settings = AnalysisSettings.from_options(measures=list(MEASURES), confidence=args.confidence,
-                                             permutations=args.permutations, seed=args.seed)
+                                             permutations=args.permutations, seed=args.seed, tests=args.test)
     detail = pair_detail(table.data, table.columns, args.x, args.y, settings)
     if args.json:
         sys.stdout.write(json.dumps(detail, indent=1, ensure_ascii=False, allow_nan=False) + "\n")

@@ -17,7 +17,7 @@ from .testing import fisher_z_interval
 
 __all__ = ["pearson", "pearson_matrix", "correlation_t_pvalue", "permutation_moments",
            "pearson_curve_sf", "moment_pvalue", "complete_pairs", "constant_note", "TESTS",
-           "DEFAULT_TEST"]
+           "DEFAULT_TEST", "resolved_test"]
 
 # Methods of Pearson's p-value that --test pearson=METHOD can choose (the first is the default).
 TESTS = ("moments", "t", "permutation")
@@ -529,11 +529,10 @@ def _curve_sf(z, g, k, nodes, weights):
         nu = 3.0 * (k - b1 - 1.0) / (-den / 2.0)
         if nu < _TYPE_III_LIMIT:
             s = 0.0
-            if g != 0.0:
-                s = 1.0 / math.sqrt(1.0 + 16.0 * (nu + 1.0) / ((nu + 2.0) ** 2 * b1))
-            sgn = 1.0 if g > 0 else (-1.0 if g < 0 else 0.0)
-            alpha = nu / 2.0 * (1.0 - sgn * s)   # right skew: alpha < beta
-            beta = nu / 2.0 * (1.0 + sgn * s)
+            if b1 > 1e-300:   # else symmetric to all digits (b1 may underflow while g does not)
+                s = g / math.sqrt(b1 + 16.0 * (nu + 1.0) / (nu + 2.0) ** 2)
+            alpha = max(nu / 2.0 * (1.0 - s), 1e-300)   # right skew: alpha < beta
+            beta = max(nu / 2.0 * (1.0 + s), 1e-300)
             length = math.sqrt((2.0 + nu) ** 2 * b1 + 16.0 * (1.0 + nu)) / 2.0
             start = -length * alpha / nu
             return _beta_sf(alpha, beta, (z - start) / length)
@@ -780,7 +779,8 @@ def _permutation_pvalue(x: np.ndarray, y: np.ndarray, r: float, permutations: in
     return (1.0 + hits) / (permutations + 1.0)
 
 
-def _choose_test(test: str | None, permutations: int) -> str:
+def resolved_test(test: str | None, permutations: int) -> str:
+    """The method that runs: ``test`` when given, else permutation when resamples were asked for, else the default."""
     if not test:
         return "permutation" if permutations > 0 else DEFAULT_TEST
     if test not in TESTS:
@@ -859,7 +859,7 @@ def pearson(x: np.ndarray, y: np.ndarray, *, confidence: float = 0.95, permutati
     >>> pearson(x, y, test="t").method
     't, n-2 df'
     """
-    chosen = _choose_test(test, permutations)
+    chosen = resolved_test(test, permutations)
     x, y, degenerate = screen_pair(x, y, _METHOD_LABELS.get(chosen, "permutation"))
     if degenerate is not None:
         return degenerate
@@ -874,7 +874,7 @@ def pearson_screened(x: np.ndarray, y: np.ndarray, *, confidence: float = 0.95, 
     """
     from ..config import DEFAULT_TEST_PERMUTATIONS
 
-    chosen = _choose_test(test, permutations)
+    chosen = resolved_test(test, permutations)
     n = x.size
     method = _METHOD_LABELS.get(chosen, "permutation")
     r = float(_r_kernel(np.ascontiguousarray(x, dtype=np.float64), np.ascontiguousarray(y, dtype=np.float64)))
