@@ -63,6 +63,9 @@ def _add_analysis_options(p: argparse.ArgumentParser) -> None:
                    help="permutation resamples for the tests that use them; 0 keeps the default tests")
     p.add_argument("--seed", type=int, default=config.DEFAULT_SEED, metavar="S",
                    help="random seed; the same seed gives the same results on any number of workers")
+    p.add_argument("--test", action="append", default=[], metavar="MEASURE=METHOD",
+                   help="the p-value method of one measure (repeatable; default: each measure's default test), "
+                        "e.g. pearson=t, pearson=permutation, dcor=permutation")
     p.add_argument("--workers", type=int, default=None, metavar="N", help="local worker processes (default: all cores)")
     p.add_argument("--cluster", default=None, metavar="ADDRESS",
                    help="Dask scheduler to run on, e.g. tcp://127.0.0.1:8786 (default: this machine)")
@@ -139,6 +142,9 @@ def build_parser(command: str | None = None) -> argparse.ArgumentParser:
                              help="permutation resamples for the tests that use them; 0 keeps the default tests")
         inspect.add_argument("--seed", type=int, default=config.DEFAULT_SEED, metavar="S",
                              help="random seed of the tests that draw random numbers")
+        inspect.add_argument("--test", action="append", default=[], metavar="MEASURE=METHOD",
+                             help="the p-value method of one measure (repeatable; default: each measure's "
+                                  "default test), e.g. pearson=t")
 
     report = _subparser(sub, "report", "a self-contained HTML report",
                         "One HTML file with the maps, the pair table and the methods; it opens offline.")
@@ -159,7 +165,8 @@ def _settings(args):
 
     return AnalysisSettings.from_options(
         measures=args.measures, columns=args.columns, groups=args.group, missing=args.missing,
-        adjust=args.adjust, confidence=args.confidence, permutations=args.permutations, seed=args.seed)
+        adjust=args.adjust, confidence=args.confidence, permutations=args.permutations, seed=args.seed,
+        tests=args.test)
 
 
 class _ProgressBar:
@@ -229,7 +236,7 @@ def cmd_inspect(args) -> int:
 
     table = _load(args)
     settings = AnalysisSettings.from_options(measures=list(MEASURES), confidence=args.confidence,
-                                             permutations=args.permutations, seed=args.seed)
+                                             permutations=args.permutations, seed=args.seed, tests=args.test)
     detail = pair_detail(table.data, table.columns, args.x, args.y, settings)
     if args.json:
         sys.stdout.write(json.dumps(detail, indent=1, ensure_ascii=False, allow_nan=False) + "\n")

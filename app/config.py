@@ -107,6 +107,18 @@ PVALUE_FLOOR_MAX_N = 1000
 # law, found by computing its statistic for all n! pairings (8! = 40,320; vectorised, a few
 # milliseconds); above it the floor is 2 K / n!, K the pairings that reproduce the rows.
 PVALUE_FLOOR_ENUMERATE_MAX_N = 8
+# Pearson's default p-value (app/core/linear.py): every relabelling is enumerated up to
+# this many rows (7! = 5040); up to PEARSON_SPLIT_MAX_N rows, or when one point holds more
+# than PEARSON_SPLIT_SHARE of a column's sum of squares, the moment curve is applied to the
+# n parts of the permutation law given the partner of the most extreme value, else to the
+# whole law (chosen by the level table in tests/test_levels_pearson.py and the agreement
+# with scipy.stats.permutation_test in tests/test_pearson_moments.py).
+PEARSON_EXACT_MAX_N = 7
+PEARSON_SPLIT_MAX_N = 60
+PEARSON_SPLIT_SHARE = 0.1
+# Resamples of a permutation test chosen with --test MEASURE=permutation when
+# --permutations is not given.
+DEFAULT_TEST_PERMUTATIONS = 9_999
 
 # Server ------------------------------------------------------------------
 DEFAULT_HOST = "127.0.0.1"

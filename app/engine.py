@@ -19,7 +19,7 @@ import numpy as np
 
 from . import config
 from .core import allpairs, chatterjee, distance, linear, rank
-from .core.registry import MEASURES, PairContext, get_measure, pvalue_floor
+from .core.registry import MEASURES, PairContext, get_measure, parse_tests, pvalue_floor
 from .core.results import TestResult, undefined
 from .core.testing import adjust_pvalues, floor_pvalue, pair_seed
 from .budget import WorkEstimate, check_plan
@@ -41,6 +41,13 @@ __all__ = [
 
 
 
+def _parse_tests(tests) -> tuple[tuple[str, str], ...]:
+    try:
+        return parse_tests(tests)
+    except (ValueError, TypeError) as exc:
+        raise SettingsError(str(exc)) from None
+
+
 class AnalysisCancelled(RuntimeError):
     """Raised by :func:`run_analysis` when the cancel callback asked to stop."""
 
@@ -55,10 +62,11 @@ class AnalysisSettings:
     confidence: float = config.DEFAULT_CONFIDENCE
     permutations: int = 0
     seed: int = config.DEFAULT_SEED
+    tests: tuple[tuple[str, str], ...] = ()     # (measure, method) chosen with --test MEASURE=METHOD
 
     @classmethod
     def from_options(cls, *, measures=None, columns=None, groups=None, missing=None, adjust=None,
-                     confidence=None, permutations=None, seed=None) -> "AnalysisSettings":
+                     confidence=None, permutations=None, seed=None, tests=None) -> "AnalysisSettings":
         """Build validated settings from loosely typed options (CLI strings, JSON values)."""
         if isinstance(measures, str):
             measures = [m for m in measures.split(",") if m.strip()]
@@ -88,6 +96,7 @@ class AnalysisSettings:
             confidence=float(config.DEFAULT_CONFIDENCE if confidence is None else confidence),
             permutations=int(permutations or 0),
             seed=int(config.DEFAULT_SEED if seed is None else seed),
+            tests=_parse_tests(tests),
         )
         settings.check()
         return settings
@@ -121,12 +130,26 @@ class AnalysisSettings:
         d["measures"] = list(self.measures)
         d["columns"] = list(self.columns) if self.columns is not None else None
         d["groups"] = {name: list(members) for name, members in self.groups}
+        d["tests"] = dict(self.tests)
         return d
+
+    def test_for(self, measure: str) -> str:
+        """The method chosen for ``measure`` with --test, or "" (its default rule)."""
+        return dict(self.tests).get(measure, "")
+
+    def permutations_for(self, measure: str) -> int:
+        """Resamples ``measure`` runs with: --permutations, or the default B under --test MEASURE=permutation,
+        or none when another method was chosen for it."""
+        test = self.test_for(measure)
+        if test == "permutation":
+            return self.permutations or config.DEFAULT_TEST_PERMUTATIONS
+        return 0 if test else self.permutations
 
     @classmethod
     def from_dict(cls, d: dict) -> "AnalysisSettings":
         return cls.from_options(**{k: d.get(k) for k in (
-            "measures", "columns", "groups", "missing", "adjust", "confidence", "permutations", "seed")})
+            "measures", "columns", "groups", "missing", "adjust", "confidence", "permutations", "seed",
+            "tests")})
 
     def cli_arguments(self) -> list[str]:
         """The options that reproduce these settings on the command line."""
@@ -138,6 +161,8 @@ class AnalysisSettings:
         args += ["--missing", self.missing, "--adjust", self.adjust,
                  "--confidence", repr(self.confidence), "--permutations", str(self.permutations),
                  "--seed", str(self.seed)]
+        for measure, method in self.tests:
+            args += ["--test", f"{measure}={method}"]
         return args
 
 
@@ -274,7 +299,8 @@ def _compute_one(measure_name: str, xv: np.ndarray, yv: np.ndarray, x_name: str,
     if n < config.MIN_ROWS:
         return undefined(n, f"fewer than {config.MIN_ROWS} rows with both values present ({n})")
     ctx = PairContext(confidence=settings.confidence, permutations=settings.permutations,
-                      seed=pair_seed(settings.seed, x_name, y_name, measure_name))
+                      seed=pair_seed(settings.seed, x_name, y_name, measure_name),
+                      test=settings.test_for(measure_name))
     try:
         return measure.compute(xv, yv, ctx)
     except ArithmeticError:  # e.g. squares of values near 1e300 overflow: this pair and measure only
@@ -352,18 +378,19 @@ def _fast_measure(measure: str, work: tuple, swapped: bool, a: Variable, b: Vari
     if measure in ("dcor", "dcor_bc") and n >= 4:
         st = _distance_statistics(cache, dist_inputs)
         # the seed only drives resamples; without them it is not drawn from
-        seed = pair_seed(settings.seed, a.name, b.name, measure) if settings.permutations else None
+        resamples = settings.permutations_for(measure)
+        seed = pair_seed(settings.seed, a.name, b.name, measure) if resamples else None
         finish = distance.dcor_from_statistics if measure == "dcor" else distance.dcor_bc_from_statistics
-        return finish(st, permutations=settings.permutations, seed=seed)
+        return finish(st, permutations=resamples, seed=seed)
     if measure == "xi":
         seed = pair_seed(settings.seed, a.name, b.name, measure)
         a_order, b_order = (view.y_order, view.x_order) if swapped else (view.x_order, view.y_order)
         order = allpairs.xi_order(av, a_order, lambda: chatterjee.xi_tie_keys(seed, n))
         r, l = allpairs.rank_counts(bv, b_order)
-        return chatterjee.xi_from_order(order, r, l, permutations=settings.permutations, seed=seed)
-    if measure == "pearson" and not settings.permutations:
+        return chatterjee.xi_from_order(order, r, l, permutations=settings.permutations_for(measure), seed=seed)
+    if measure == "pearson" and linear.resolved_test(settings.test_for(measure), settings.permutations) != "permutation":
         # the registry's call without the (unused) seed, past the screening this pair has passed
-        return linear.pearson_screened(av, bv, confidence=settings.confidence)
+        return linear.pearson_screened(av, bv, confidence=settings.confidence, test=settings.test_for(measure) or None)
     # anything without a presorted form
     return _compute_one(measure, av, bv, a.name, b.name, settings, False, False)
 
@@ -527,7 +554,7 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
     owned = executor is None
     if executor is None:
         executor = make_executor(workers=workers, cluster=cluster, n_tasks=len(pairs), n_rows=data.shape[0],
-                                 resamples=settings.permutations)
+                                 resamples=max((settings.permutations_for(m) for m in settings.measures), default=0))
     tiles = _tiles(pairs, getattr(executor, "parallelism", workers))
     results: list[list[PairRow] | None] = [None] * len(tiles)
     done_pairs = 0

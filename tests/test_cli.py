@@ -150,3 +150,30 @@ def test_default_port_reads_the_environment(monkeypatch):
         monkeypatch.setenv("PAIRLENS_PORT", bad)
         with pytest.raises(ValueError, match="PAIRLENS_PORT"):
             config.default_port()
+
+
+def test_test_option_pearson_t_equals_scipy_pearsonr(small_csv):
+    out = _run("pairs", str(small_csv), "--measures", "pearson,dcor", "--test", "pearson=t")
+    assert out.returncode == 0, out.stderr
+    rows = list(csv.DictReader(io.StringIO(out.stdout)))
+    data = np.genfromtxt(small_csv, delimiter=",", skip_header=1, usecols=(0, 2))
+    first = [r for r in rows if r["x"] == "alpha" and r["y"] == "gamma" and r["measure"] == "pearson"][0]
+    # reference: scipy.stats.pearsonr (t-test, n-2 df); the CSV keeps enough digits for 1e-6
+    assert float(first["p_value"]) == pytest.approx(ss.pearsonr(data[:, 0], data[:, 1]).pvalue, abs=1e-6)
+
+
+def test_test_option_with_an_unknown_method_exits_2_with_the_allowed_names(small_csv):
+    out = _run("pairs", str(small_csv), "--test", "pearson=bootstrap")
+    assert out.returncode == 2
+    assert "choose from moments, t, permutation" in out.stderr and "Traceback" not in out.stderr
+
+
+def test_test_option_survives_the_reproduce_arguments():
+    from app.engine import AnalysisSettings
+
+    s = AnalysisSettings.from_options(measures="pearson,dcor", tests=["pearson=t", "dcor=permutation"])
+    assert s.to_dict()["tests"] == {"pearson": "t", "dcor": "permutation"}
+    args = s.cli_arguments()
+    assert args[args.index("--test") + 1] == "pearson=t" and "dcor=permutation" in args
+    assert AnalysisSettings.from_dict(s.to_dict()) == s
+    assert AnalysisSettings.from_options(tests={"pearson": "t"}).permutations_for("dcor") == 0

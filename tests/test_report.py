@@ -284,7 +284,13 @@ def test_report_numbers_agree_with_reference_libraries(report):
         assert float(cells[3][0]["data-v"]) == pytest.approx(expected, rel=5e-6), measure
         assert int(cells[8][1]) == int(keep.sum())
     p_cells = by_key[(x_name, y_name, "pearson")]
-    assert float(p_cells[6][0]["data-v"]) == pytest.approx(ss.pearsonr(x, y).pvalue, rel=5e-6, abs=1e-300)
+    from app.core import linear
+
+    # Pearson's default p-value is the permutation-moment one (scipy.stats.pearsonr is the t-test, which
+    # `--test pearson=t` gives); the report shows it as computed, and both are far below any alpha.
+    shown_p = float(p_cells[6][0]["data-v"])
+    assert shown_p == pytest.approx(linear.pearson(x, y).p_value, rel=5e-6, abs=1e-300)
+    assert shown_p < 1e-100 and ss.pearsonr(x, y).pvalue < 1e-100   # reference: scipy.stats.pearsonr
 
 
 def test_methods_and_cautions_are_complete(report):
@@ -329,7 +335,7 @@ def test_methods_content_follows_settings_and_registry(report):
     assert "Holm" in text and "(m - j + 1)" in text and "B = 99" in text and "(1 + k) / (B + 1)" in text
     assert "complete" in text and "Benjamini" not in text
     # the t-test caution (levels measured in tests/test_levels_classic.py) where it applies
-    caution = "Pearson's t-test is exact when at least one of the two variables is normal"
+    caution = "The t-test (--test pearson=t, as scipy.stats.pearsonr) is exact when at least one of the two variables is normal"
     assert caution in json.dumps(methods_content(settings=AnalysisSettings.from_options(measures="pearson")))
     assert caution not in text  # permutations were requested
     assert caution not in json.dumps(methods_content(settings=AnalysisSettings.from_options(measures="kendall")))

@@ -238,3 +238,48 @@ def test_rank_rank_matches_scipy_rankdata():
     assert zu == pytest.approx(stats.norm.ppf(stats.rankdata(x) / 51))  # reference: scipy.stats.norm.ppf
     with pytest.raises(ValueError):
         rank_rank(x, y, scale="bogus")
+
+
+# -- curvature near |r| = 1 (Fisher z scale) -------------------------------------
+
+@pytest.mark.parametrize("curve", ["square", "exp"])
+def test_strong_monotone_curves_are_curved_whatever_r(curve):
+    rng = np.random.default_rng(17)
+    x = rng.uniform(0.1, 3.0, size=500)
+    y = (x ** 2 if curve == "square" else np.exp(x))
+    y = y + 0.01 * y.std() * rng.normal(size=500)     # small noise
+    results, q = _panel(x, y)
+    pattern = classify_pair(x, y, results, q, alpha=0.05)
+    # |r| is close to 1 (0.96-0.97, numpy.corrcoef), where the old gap on the r scale saturated
+    assert abs(np.corrcoef(x, y)[0, 1]) > 0.9
+    assert pattern.label == "monotone but curved", pattern.reasons
+
+
+def test_gaussian_pair_with_rho_099_stays_linear():
+    rng = np.random.default_rng(18)
+    x = rng.normal(size=500)
+    y = 0.99 * x + np.sqrt(1 - 0.99 ** 2) * rng.normal(size=500)
+    results, q = _panel(x, y)
+    assert classify_pair(x, y, results, q, alpha=0.05).label == "linear"
+
+
+def test_curvature_rule_false_alarm_rate_on_gaussian_pairs():
+    from scipy import stats
+
+    from app.core.verdict import CURVED_GAP, curvature_gap
+    rng = np.random.default_rng(19)
+    rates = {}
+    for n in (50, 200):
+        alarms = 0
+        for _ in range(1000):
+            rho = rng.uniform(0.1, 0.99)
+            x = rng.normal(size=n)
+            y = rho * x + np.sqrt(1 - rho * rho) * rng.normal(size=n)
+            # rank-equivalent r from Spearman: 2 sin(pi rho_s / 6) (Kendall 1948; reference scipy.stats.spearmanr)
+            rs = stats.spearmanr(x, y).statistic
+            alarms += curvature_gap(np.corrcoef(x, y)[0, 1], 2 * np.sin(np.pi * rs / 6)) > CURVED_GAP
+        rates[n] = alarms / 1000
+    print(f"curvature rule: atanh|r_rank| - atanh|r| > {CURVED_GAP}; false alarms on 1000 Gaussian pairs "
+          f"(rho uniform on 0.1..0.99): {rates}")
+    assert rates[200] <= 0.01
+    assert rates[50] <= 0.08

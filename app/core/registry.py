@@ -17,7 +17,7 @@ from .. import config
 from .results import TestResult
 from .testing import all_pairings, attainable_minimum, floor_pvalue, permutation_floor
 
-__all__ = ["PairContext", "Measure", "MEASURES", "get_measure", "measure_names", "pvalue_floor"]
+__all__ = ["PairContext", "Measure", "MEASURES", "get_measure", "measure_names", "parse_tests", "pvalue_floor"]
 
 
 @dataclass(frozen=True)
@@ -27,6 +27,18 @@ class PairContext:
     confidence: float = 0.95
     permutations: int = 0
     seed: np.random.SeedSequence | None = None
+    test: str = ""          # a method from the measure's ``tests``; "" = its default rule
+
+
+def _resamples(ctx: PairContext, default_test: str) -> int:
+    """Resamples for measures whose methods are a closed form (``default_test``) or "permutation"."""
+    from ..config import DEFAULT_TEST_PERMUTATIONS
+
+    if ctx.test == "permutation":
+        return ctx.permutations or DEFAULT_TEST_PERMUTATIONS
+    if ctx.test == default_test:
+        return 0
+    return ctx.permutations
 
 
 @dataclass(frozen=True)
@@ -41,6 +53,7 @@ class Measure:
     multivariate: bool          # accepts column groups (2-D arrays)
     reflection: str             # effect of x -> -x: "flips sign" or "unchanged"
     default_test: str
+    tests: tuple[str, ...]      # methods --test MEASURE=METHOD can choose; the first is the default
     interval: str               # "" where no interval is defined
     formula: str
     reference: str
@@ -51,7 +64,8 @@ class Measure:
 
 
 def _pearson(x, y, ctx: PairContext) -> TestResult:
-    return linear.pearson(x, y, confidence=ctx.confidence, permutations=ctx.permutations, seed=ctx.seed)
+    return linear.pearson(x, y, confidence=ctx.confidence, permutations=ctx.permutations, seed=ctx.seed,
+                          test=ctx.test or None)
 
 
 def _spearman(x, y, ctx: PairContext) -> TestResult:
@@ -63,15 +77,15 @@ def _kendall(x, y, ctx: PairContext) -> TestResult:
 
 
 def _dcor(x, y, ctx: PairContext) -> TestResult:
-    return distance.dcor(x, y, permutations=ctx.permutations, seed=ctx.seed)
+    return distance.dcor(x, y, permutations=_resamples(ctx, "gamma"), seed=ctx.seed)
 
 
 def _dcor_bc(x, y, ctx: PairContext) -> TestResult:
-    return distance.dcor_bc(x, y, permutations=ctx.permutations, seed=ctx.seed)
+    return distance.dcor_bc(x, y, permutations=_resamples(ctx, "gamma"), seed=ctx.seed)
 
 
 def _xi(x, y, ctx: PairContext) -> TestResult:
-    return chatterjee.xi(x, y, permutations=ctx.permutations, seed=ctx.seed)
+    return chatterjee.xi(x, y, permutations=_resamples(ctx, "normal"), seed=ctx.seed)
 
 
 def _centred(v: np.ndarray) -> np.ndarray:
@@ -190,7 +204,11 @@ MEASURES: dict[str, Measure] = {
         Measure(
             name="pearson", label="Pearson r", family="linear", symmetric=True, signed=True,
             lower=-1.0, upper=1.0, multivariate=False, reflection="flips sign",
-            default_test="t-test with n-2 degrees of freedom; permutation with --permutations",
+            default_test="approximation to the permutation law of r from its exact first four moments "
+                         "(Pitman 1937) by a Pearson curve, no resamples (exact enumeration up to 7 rows); "
+                         "--test pearson=t: t-test with n-2 df (as scipy.stats.pearsonr); "
+                         "--test pearson=permutation: random relabellings",
+            tests=linear.TESTS,
             interval="Fisher z, SE = 1/sqrt(n-3)",
             formula="r = sum((x-mean x)(y-mean y)) / sqrt(sum((x-mean x)^2) sum((y-mean y)^2))",
             reference="Pearson, K. (1895) Proc. R. Soc. Lond. 58:240-242; Fisher, R.A. (1921) Metron 1:3-32",
@@ -200,8 +218,9 @@ MEASURES: dict[str, Measure] = {
             name="spearman", label="Spearman rho", family="rank", symmetric=True, signed=True,
             lower=-1.0, upper=1.0, multivariate=False, reflection="flips sign",
             default_test="permutation law of rho: exact up to 12 untied rows (10 tied), Edgeworth series "
-                         "(untied) or 9,999 permutations (tied) below 150 rows, t approximation with n-2 "
-                         "degrees of freedom from 150 rows",
+                         "(untied) or 9,999 permutations (tied, up to 29 rows) below 150 rows, t approximation with n-2 "
+                         "degrees of freedom from 150 rows (tied: from 30 rows)",
+            tests=("auto",),
             interval="Fisher z, SE = sqrt((1 + rho^2/2)/(n-3)) (Bonett & Wright 2000)",
             formula="rho_s = Pearson r of the mid-ranks of x and y",
             reference="Spearman, C. (1904) Am. J. Psychol. 15:72-101; Best, D.J. & Roberts, D.E. (1975) "
@@ -213,6 +232,7 @@ MEASURES: dict[str, Measure] = {
             name="kendall", label="Kendall tau-b", family="rank", symmetric=True, signed=True,
             lower=-1.0, upper=1.0, multivariate=False, reflection="flips sign",
             default_test="exact for small untied samples, else normal with tie-corrected variance",
+            tests=("auto",),
             interval="Fisher z, SE = sqrt(0.437/(n-4)) (Fieller, Hartley & Pearson 1957)",
             formula="tau_b = (C - D) / sqrt((n0 - n1)(n0 - n2)), n0 = n(n-1)/2, n1, n2 tied pairs in x, y",
             reference="Kendall, M.G. (1938) Biometrika 30:81-93; Kendall (1945) Biometrika 33:239-251; "
@@ -225,6 +245,7 @@ MEASURES: dict[str, Measure] = {
             lower=0.0, upper=1.0, multivariate=True, reflection="unchanged",
             default_test="shifted gamma approximation to the permutation law of n V_n^2, matched to its exact "
                          "mean, variance and third moment; permutation with --permutations",
+            tests=("gamma", "permutation"),
             interval="",
             formula="R_n = dCov_n(x, y) / sqrt(dVar_n(x) dVar_n(y)), double-centred distance matrices",
             reference="Szekely, Rizzo & Bakirov (2007) Ann. Statist. 35:2769-2794, doi:10.1214/009053607000000505; "
@@ -235,6 +256,7 @@ MEASURES: dict[str, Measure] = {
             name="dcor_bc", label="Bias-corrected dCor^2", family="distance", symmetric=True, signed=True,
             lower=-1.0, upper=1.0, multivariate=True, reflection="unchanged",
             default_test="as dcor",
+            tests=("gamma", "permutation"),
             interval="",
             formula="R*_n = <A~, B~> / sqrt(<A~, A~> <B~, B~>), U-centred distance matrices",
             reference="Szekely & Rizzo (2013) J. Multivariate Anal. 117:193-213, doi:10.1016/j.jmva.2013.02.012; "
@@ -246,6 +268,7 @@ MEASURES: dict[str, Measure] = {
             lower=-0.5, upper=1.0, multivariate=False, reflection="unchanged",
             default_test="asymptotic normal with tie-corrected variance (permutation below 20 rows); "
                          "permutation with --permutations",
+            tests=("normal", "permutation"),
             interval="",
             formula="xi_n = 1 - n sum|r_{i+1} - r_i| / (2 sum l_i (n - l_i)), rows sorted by x",
             reference="Chatterjee, S. (2021) JASA 116:2009-2022, doi:10.1080/01621459.2020.1758115",
@@ -264,3 +287,29 @@ def get_measure(name: str) -> Measure:
         return MEASURES[name]
     except KeyError:
         raise ValueError(f"unknown measure {name!r}; choose from {', '.join(MEASURES)}") from None
+
+
+def parse_tests(tests) -> tuple[tuple[str, str], ...]:
+    """``MEASURE=METHOD`` choices (a dict, a list of "m=method" strings, or one comma-separated string)
+    checked against the registry; ValueError with the allowed names otherwise."""
+    if not tests:
+        return ()
+    if isinstance(tests, str):
+        tests = [t for t in tests.split(",") if t.strip()]
+    items = list(tests.items()) if isinstance(tests, dict) else list(tests)
+    out: dict[str, str] = {}
+    for item in items:
+        if isinstance(item, str):
+            name, sep, method = item.partition("=")
+            if not sep:
+                raise ValueError(f"test {item!r} must look like MEASURE=METHOD, e.g. pearson=t")
+        else:
+            name, method = item
+        name, method = str(name).strip().lower(), str(method).strip().lower()
+        measure = get_measure(name)
+        if method not in measure.tests:
+            raise ValueError(f"unknown test {method!r} for {name}; choose from {', '.join(measure.tests)}")
+        if name in out and out[name] != method:
+            raise ValueError(f"two tests given for {name}: {out[name]} and {method}")
+        out[name] = method
+    return tuple(out.items())

@@ -26,7 +26,10 @@ Rule table (alpha is the significance level applied to the q-values):
                                observed dCor exceeds the dCor a Gaussian with the stronger of
                                |r| and the rank-equivalent r would have by more than 0.15
 5   monotone but curved        a rank correlation has q < alpha and its rank-equivalent r
-                               exceeds |r| by more than 0.10
+                               exceeds |r| by more than 0.10 on Fisher's z scale
+                               (atanh|r_rank| - atanh|r|), which does not saturate near
+                               |r| = 1; "non-monotone" on a dependence test alone with
+                               q between 0.2 alpha and alpha says "weak evidence"
 6   linear                     a trend test has q < alpha (what is left)
 ==  =========================  ==============================================================
 
@@ -87,7 +90,25 @@ DEPENDENCE_MEASURES = ("dcor", "dcor_bc", "xi")
 # about 0.03 at n = 300 for Gaussian data).
 FEW_POINTS_SHRINK = 0.5        # |r| after dropping k points below this fraction of |r|
 FEW_POINTS_MIN_DROP = 0.10     # ... and lower by at least this much
-CURVED_GAP = 0.10              # rank-equivalent r above |r| by more than this
+CURVED_GAP = 0.10              # rank-equivalent r above |r| by more than this, on Fisher's z scale
+# A dependence test alone (no trend) with its smallest q between alpha * WEAK_EVIDENCE_FACTOR and
+# alpha is reported as "weak evidence" in the reasons: a margin below alpha, our own choice.
+WEAK_EVIDENCE_FACTOR = 0.2
+
+
+def curvature_gap(r: float, rank_equiv: float) -> float:
+    """atanh|rank-equivalent r| - atanh|r|: the rank-over-value excess on Fisher's z scale.
+
+    On the correlation scale the gap shrinks to nothing as |r| -> 1 (a bend with
+    r = 0.987 and Spearman 1.000 differs by 0.013); on the z scale it does not
+    saturate (a perfectly monotone curve with |r| < 1 gives an infinite gap),
+    and under a Gaussian both sides estimate the same z, so the gap's noise is
+    about the same at every |rho|.
+    """
+    if not (math.isfinite(r) and math.isfinite(rank_equiv)):
+        return math.nan
+    with np.errstate(divide="ignore"):
+        return float(np.arctanh(min(1.0, abs(rank_equiv))) - np.arctanh(min(1.0, abs(r))))
 DCOR_EXCESS = 0.15             # observed dCor above the Gaussian-implied dCor by more than this
 CLOSE_DCOR = 0.05              # observed and Gaussian-implied dCor called "close" in the reasons
 NEAR_ZERO_R = 0.10             # |r| below this is called "near 0" in the reasons
@@ -324,8 +345,8 @@ def _rule_non_monotone(ev: _Evidence) -> bool:
 
 
 def _rule_curved(ev: _Evidence) -> bool:
-    return (ev.any_sig(RANK_MEASURES) and math.isfinite(ev.rank_equiv) and math.isfinite(ev.r)
-            and abs(ev.rank_equiv) - abs(ev.r) > CURVED_GAP)
+    gap = curvature_gap(ev.r, ev.rank_equiv)
+    return ev.any_sig(RANK_MEASURES) and math.isfinite(gap) and gap > CURVED_GAP
 
 
 def _rule_linear(ev: _Evidence) -> bool:
@@ -341,7 +362,8 @@ RULES: tuple[Rule, ...] = (
     Rule(4, "non-monotone",
          "a dependence test (dcor, dcor_bc, xi) significant and either no trend test is, or dCor exceeds "
          "the Gaussian-implied dCor of max(|r|, rank-equivalent r) by more than 0.15", _rule_non_monotone),
-    Rule(5, "monotone but curved", "a rank correlation significant and its rank-equivalent r exceeds |r| by > 0.10",
+    Rule(5, "monotone but curved", "a rank correlation significant and atanh|rank-equivalent r| exceeds "
+         "atanh|r| by > 0.10",
          _rule_curved),
     Rule(6, "linear", "a trend test (pearson, spearman, kendall) significant", _rule_linear),
 )
@@ -364,7 +386,7 @@ def _trend_reasons(ev: _Evidence) -> list[str]:
     rank_name = ev.rank_source or "spearman"
     pair = f"{_describe(ev, 'pearson')} and {_describe(ev, rank_name)}"
     if math.isfinite(r) and math.isfinite(req):
-        if abs(abs(req) - abs(r)) <= CURVED_GAP:
+        if abs(curvature_gap(r, req)) <= CURVED_GAP:
             out.append(f"{pair} agree (a Gaussian with this r would give {_PRETTY[rank_name]} = "
                        f"{_fmt(_implied_rank(r, rank_name))})")
         elif abs(req) > abs(r):
@@ -478,6 +500,11 @@ def _reasons(rule: Rule, ev: _Evidence) -> list[str]:
     elif label == "non-monotone":
         dep = [m for m in DEPENDENCE_MEASURES if ev.sig(m)]
         out.append("Dependence is significant: " + "; ".join(_describe(ev, m) for m in dep))
+        best = min(ev.q[m] for m in dep)
+        if not ev.any_sig(TREND_MEASURES) and best >= WEAK_EVIDENCE_FACTOR * ev.alpha:
+            out.append(f"Weak evidence: the smallest q of a dependence test ({best:.3f}) is between "
+                       f"{WEAK_EVIDENCE_FACTOR * ev.alpha:.3f} and {ev.alpha:.2f} and no trend backs it; "
+                       f"look at the scatter before reading a shape into it")
         if not ev.any_sig(TREND_MEASURES):
             trend = ev.tested(TREND_MEASURES)
             out.append("but no trend is: " + ("; ".join(_describe(ev, m) for m in trend) if trend

@@ -418,7 +418,8 @@ class Workspace:
 
     def start_analysis(self, dataset_id: str, options: dict) -> AnalysisRow:
         dataset = self.dataset(dataset_id)
-        allowed = ("measures", "columns", "groups", "missing", "adjust", "confidence", "permutations", "seed")
+        allowed = ("measures", "columns", "groups", "missing", "adjust", "confidence", "permutations", "seed",
+                   "tests")
         unknown = sorted(set(options) - set(allowed))
         if unknown:
             raise SettingsError(f"unknown option(s) {', '.join(unknown)}; use {', '.join(allowed)}")

@@ -104,10 +104,12 @@ async def start_analysis_form(dataset_id: str, request: Request, ws: Workspace =
         "confidence": str(form.get("confidence") or config.DEFAULT_CONFIDENCE),
         "permutations": str(form.get("permutations") or 0),
         "seed": str(form.get("seed") or config.DEFAULT_SEED),
+        "tests": [t for t in str(form.get("tests") or "").replace(",", " ").split() if t],
     }
     echo = {"measures": options["measures"], "columns": columns, "groups": str(form.get("groups", "")),
             "missing": options["missing"], "adjust": options["adjust"], "confidence": options["confidence"],
-            "permutations": options["permutations"], "seed": options["seed"]}
+            "permutations": options["permutations"], "seed": options["seed"],
+            "tests": str(form.get("tests") or "")}
     if not options["measures"]:
         return _dataset_page(request, ws, dataset_id, "Choose at least one measure.", 422, echo)
     if options["columns"] is not None and len(options["columns"]) == 0 and not options["groups"]:

@@ -1,0 +1,155 @@
+"""Pearson's default p-value: the exact permutation moments, the Pearson curves, and the t option.
+
+References: full enumeration of the n! relabellings (the definition of the
+permutation law), scipy.special (incomplete beta and gamma), scipy.integrate.quad
+(the type IV tail), scipy.stats.pearsonr (the t-test) and
+scipy.stats.permutation_test (the permutation p-value).
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+
+import numpy as np
+import pytest
+from scipy import integrate, special, stats
+
+from app.core import linear
+
+
+@pytest.mark.parametrize("n", [4, 5, 6, 7])
+@pytest.mark.parametrize("laws", [("exponential", "lognormal"), ("normal", "t3"), ("scores", "scores")])
+def test_permutation_moments_equal_full_enumeration(n, laws):
+    rng = np.random.default_rng([n, len(laws[0]), len(laws[1])])
+    draw = {"exponential": lambda: rng.exponential(size=n), "lognormal": lambda: rng.lognormal(size=n),
+            "normal": lambda: rng.normal(size=n), "t3": lambda: rng.standard_t(3, size=n),
+            "scores": lambda: rng.integers(1, 6, size=n).astype(float)}
+    x, y = draw[laws[0]](), draw[laws[1]]()
+    x, y = x - x.mean(), y - y.mean()
+    # Reference: the definition, every one of the n! relabellings equally likely.
+    s = np.array([x @ y[list(p)] for p in itertools.permutations(range(n))])
+    e2, e3, e4 = linear.permutation_moments(*(np.sum(x ** k) for k in (2, 3, 4)),
+                                            *(np.sum(y ** k) for k in (2, 3, 4)), n)
+    scale = float(np.mean(s ** 2))
+    assert e2 == pytest.approx(scale, rel=1e-10)
+    assert e3 == pytest.approx(np.mean(s ** 3), rel=1e-8, abs=1e-10 * scale ** 1.5)
+    assert e4 == pytest.approx(np.mean(s ** 4), rel=1e-10)
+
+
+def test_variance_of_r_under_relabelling_is_one_over_n_minus_1():
+    # Pitman (1937): Var(r) = 1/(n-1) over relabellings, whatever the data.
+    rng = np.random.default_rng(3)
+    x, y = rng.lognormal(size=25), rng.exponential(size=25)
+    x, y = x - x.mean(), y - y.mean()
+    e2, _, _ = linear.permutation_moments(*(np.sum(x ** k) for k in (2, 3, 4)),
+                                          *(np.sum(y ** k) for k in (2, 3, 4)), 25)
+    assert e2 / (np.sum(x * x) * np.sum(y * y)) == pytest.approx(1 / 24, rel=1e-12)
+
+
+def test_pearson_curve_type_i_matches_a_beta_with_the_same_moments():
+    # Reference: scipy.stats.beta with loc/scale, standardised; its moments from scipy.
+    for a, b in [(2.0, 5.0), (7.0, 3.0), (30.0, 30.0), (0.8, 1.5)]:
+        law = stats.beta(a, b)
+        mean, var, skew, exkurt = (float(v) for v in law.stats(moments="mvsk"))
+        z = np.linspace(-2.5, 2.5, 11)
+        ours = linear.pearson_curve_sf(z, skew, exkurt + 3.0)
+        ref = law.sf(mean + z * math.sqrt(var))
+        np.testing.assert_allclose(ours, ref, rtol=1e-8, atol=1e-12)
+
+
+def test_pearson_curve_type_iii_and_normal_lines():
+    # Reference: scipy.stats.pearson3 (a standardised gamma with the given skewness) and scipy.stats.norm.
+    z = np.linspace(-3, 5, 17)
+    for g in (0.5, -1.2, 2.0):
+        np.testing.assert_allclose(linear.pearson_curve_sf(z, g, 3 + 1.5 * g * g), stats.pearson3.sf(z, g),
+                                   rtol=1e-7, atol=1e-12)
+    np.testing.assert_allclose(linear.pearson_curve_sf(z, 0.0, 3.0), stats.norm.sf(z), rtol=1e-8)
+
+
+def test_pearson_curve_type_iv_tail_against_quadrature_and_student_t():
+    # Symmetric type IV is a scaled Student t (type VII): reference scipy.stats.t.
+    for df in (5.0, 9.0, 30.0):
+        kurt = 3 + 6 / (df - 4)
+        scale = math.sqrt((df - 2) / df)
+        z = np.linspace(-4, 6, 11)
+        np.testing.assert_allclose(linear.pearson_curve_sf(z, 0.0, kurt), stats.t.sf(z / scale, df),
+                                   rtol=1e-7, atol=1e-13)
+    # Skewed type IV: reference scipy.integrate.quad of the density in theta = atan((z - lam)/a).
+    g, k = 0.8, 6.0
+    b1 = g * g
+    r = 6 * (k - b1 - 1) / (2 * k - 3 * b1 - 6)
+    d = 16 * (r - 1) - b1 * (r - 2) ** 2
+    m, nu, a = 1 + r / 2, -r * (r - 2) * g / math.sqrt(d), math.sqrt(d) / 4
+    lam = a * nu / r
+
+    def dens(t):
+        return math.exp((2 * m - 2) * math.log(math.cos(t)) - nu * t)
+
+    total = integrate.quad(dens, -math.pi / 2, math.pi / 2, epsrel=1e-12)[0]
+    for z in (-3.0, -1.0, 0.0, 1.5, 4.0, 9.0):
+        ref = integrate.quad(dens, math.atan((z - lam) / a), math.pi / 2, epsrel=1e-12)[0] / total
+        assert float(linear.pearson_curve_sf(z, g, k)) == pytest.approx(ref, rel=1e-8)
+
+
+def test_small_samples_are_enumerated_exactly():
+    rng = np.random.default_rng(8)
+    x, y = rng.lognormal(size=6), rng.exponential(size=6)
+    res = linear.pearson(x, y)
+    xc, yc = x - x.mean(), y - y.mean()
+    s = abs(xc @ yc)
+    # Reference: the definition, |S| over all 720 relabellings.
+    every = np.array([abs(xc @ yc[list(p)]) for p in itertools.permutations(range(6))])
+    assert res.method.startswith("exact")
+    assert res.p_value == pytest.approx(np.mean(every >= s * (1 - 1e-12)), rel=1e-12)
+
+
+def test_normal_margins_give_nearly_the_t_test():
+    # With a normal margin the permutation law is close to the t-test's law of r (Pitman 1937);
+    # reference scipy.stats.pearsonr.
+    rng = np.random.default_rng(11)
+    for n in (40, 400):
+        for _ in range(5):
+            x, y = rng.normal(size=n), rng.normal(size=n)
+            y = y + 0.1 * x
+            ref = stats.pearsonr(x, y).pvalue
+            assert linear.pearson(x, y).p_value == pytest.approx(ref, rel=0.1, abs=0.005)
+
+
+def test_t_option_equals_scipy_pearsonr():
+    rng = np.random.default_rng(12)
+    for n in (5, 30, 300):
+        x, y = rng.lognormal(size=n), rng.exponential(size=n) + 0.05 * rng.lognormal(size=n)
+        res = linear.pearson(x, y, test="t")
+        ref = stats.pearsonr(x, y)   # reference: scipy.stats.pearsonr (t-test, n-2 df)
+        assert res.method == "t, n-2 df"
+        assert res.estimate == pytest.approx(ref.statistic, abs=1e-12)
+        assert res.p_value == pytest.approx(ref.pvalue, abs=1e-6)
+
+
+def test_unknown_test_name_is_refused():
+    with pytest.raises(ValueError, match="choose from moments, t, permutation"):
+        linear.pearson(np.arange(5.0), np.arange(5.0) ** 2, test="bootstrap")
+
+
+def test_moment_pvalue_agrees_with_permutation_test_on_skewed_simulated_pairs():
+    rng = np.random.default_rng(21)
+    for n, law in ((15, "lognormal"), (45, "exponential"), (120, "lognormal")):
+        x = getattr(rng, law)(size=n)
+        y = 0.2 * x * x.std() / x.std() + getattr(rng, law)(size=n)
+        xc = x - x.mean()
+        scale = math.sqrt(xc @ xc * np.sum((y - y.mean()) ** 2))
+        # Reference: scipy.stats.permutation_test, statistic |r|, upper tail, B = 9999.
+        ref = stats.permutation_test((y - y.mean(),), lambda v, axis=-1: np.abs(v @ xc) / scale,
+                                     permutation_type="pairings", vectorized=True, n_resamples=9999,
+                                     alternative="greater", random_state=2).pvalue
+        se = math.sqrt(ref * (1 - ref) / 9999)
+        assert abs(linear.pearson(x, y).p_value - ref) <= 4 * se + 1e-4, (n, law)
+
+
+def test_compiled_incomplete_beta_and_gamma_match_scipy():
+    # Reference: scipy.special.betaincc and gammainc.
+    for a, b, x in [(0.5, 4.0, 0.2), (3.0, 40.0, 0.01), (200.0, 150.0, 0.6), (2.0, 2.0, 0.999)]:
+        assert linear._beta_sf(a, b, x) == pytest.approx(special.betaincc(a, b, x), rel=1e-10)
+    for a, x in [(0.5, 0.1), (4.0, 9.0), (300.0, 250.0), (10.0, 40.0)]:
+        assert linear._gamma_p(a, x) == pytest.approx(special.gammainc(a, x), rel=1e-10)
