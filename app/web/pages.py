@@ -143,14 +143,20 @@ def analysis_page(analysis_id: str, request: Request, order: str = "input", diff
     figures = ws.heatmaps(row, cluster_on, difference)
     pair_rows = ws.pair_rows(row)
     verdicts = ws.verdicts(row)
+    significant = {m: 0 for m in table.measures}
+    tested = {m: 0 for m in table.measures}
+    alpha = config.SIGNIFICANCE_LEVEL
+    for r in table.rows:
+        if r.q_value == r.q_value:  # defined q: the pair was tested
+            tested[r.measure] += 1
+            if r.q_value < alpha:
+                significant[r.measure] += 1
     context.update({
         "table": table, "measures": table.measures, "order": cluster_on or "input",
-        "difference": difference, "figures": figures, "pair_rows": pair_rows,
-        "top_pairs": figures["top"],
-        "verdicts": verdicts, "n_pairs": pair_rows["n_rows"],
-        "n_variables": len(table.variables), "significant": {
-            m: sum(1 for r in table.rows if r.measure == m and r.q_value == r.q_value
-                   and r.q_value < config.SIGNIFICANCE_LEVEL) for m in table.measures},
+        "difference": difference, "figures": figures, "order_names": figures["order"],
+        "pair_columns": pair_rows["columns"], "pair_columns_json": embed_json(pair_rows["columns"]),
+        "top_pairs": figures["top"], "verdicts": verdicts, "n_pairs": pair_rows["n_rows"],
+        "n_variables": len(table.variables), "significant": significant, "tested": tested,
     })
     return _render(request, "analysis.html", context)
 
