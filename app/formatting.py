@@ -3,7 +3,9 @@
 The rule (also printed on the methods page, :data:`RULE`):
 
 * a missing value is an en dash "–";
-* a number whose size is between 0.001 and 100,000 has three decimals (0.823,
+* an estimate of a measure (all of them lie within about [−1, 1]) has three
+  decimals, always: 0.823, 0.000, −0.041;
+* any other number whose size is between 0.001 and 100,000 has three decimals (0.823,
   −0.041, 12.500); a count is an integer with thin-space grouping (44 850);
 * a smaller or larger non-zero number has two significant digits in scientific
   notation with a real exponent (4.3×10⁻¹⁸);
@@ -20,10 +22,11 @@ from __future__ import annotations
 
 import math
 
-__all__ = ["RULE", "fmt", "fmt_p", "fmt_count", "fmt_interval", "fmt_share"]
+__all__ = ["RULE", "fmt", "fmt_est", "fmt_p", "fmt_count", "fmt_interval", "fmt_share"]
 
-RULE = ("Numbers between 0.001 and 100,000 in size have three decimals (0.823, 12.500); smaller or "
-        "larger ones have two significant digits in scientific notation (4.3×10⁻¹⁸). p- and q-values "
+RULE = ("Estimates of the measures have three decimals (0.823, 0.000). Other numbers between 0.001 and "
+        "100,000 in size have three decimals too (12.500); smaller or larger ones have two significant "
+        "digits in scientific notation (4.3×10⁻¹⁸). p- and q-values "
         "follow the same rule; a p-value below the smallest number the computer holds is written "
         "“< 10⁻³⁰⁰”. Counts are whole numbers (44 850). A missing value is “–”.")
 
@@ -57,6 +60,17 @@ def fmt(v) -> str:
         return "0.000" if text == "-0.000" else text
     mantissa, exponent = f"{x:.1e}".split("e")
     return f"{mantissa}×10{str(int(exponent)).translate(_SUPERSCRIPT)}"
+
+
+def fmt_est(v) -> str:
+    """An estimate of a measure: three decimals whatever its size ("0.000", never "7.0×10⁻⁴")."""
+    x = _finite(v)
+    if x is None:
+        return "–"
+    if abs(x) >= 1e5:  # not a measure's estimate after all: the general rule
+        return fmt(x)
+    text = f"{x:.3f}"
+    return "0.000" if text == "-0.000" else text
 
 
 def fmt_p(v) -> str:

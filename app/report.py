@@ -436,7 +436,7 @@ def _card_rows(pt: PairTable, rows: dict[str, PairRow]) -> list[dict]:
         meas = MEASURES[m]
         out.append({
             "measure": m,
-            "label": meas.label if meas.symmetric else f"{meas.label.replace('(x -> y)', '').strip()} ({r.x} → {r.y})",
+            "label": meas.label if meas.symmetric else f"{meas.label} ({r.x} → {r.y})",
             "estimate": fmt_estimate(r.estimate),
             "interval": (f"[{fmt_estimate(r.ci_low)}, {fmt_estimate(r.ci_high)}]"
                          if _finite(r.ci_low) and _finite(r.ci_high) else "–"),

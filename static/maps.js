@@ -5,7 +5,7 @@
   "use strict";
 
   var P = window.pairlens || {};
-  var fmt = P.fmt, fmtP = P.fmtP;
+  var fmt = P.fmt, fmtEst = P.fmtEst, fmtP = P.fmtP;
   function $(id) { return document.getElementById(id); }
   function el(tag, attrs, text) {
     var node = document.createElement(tag);
@@ -140,7 +140,7 @@
     ctx.font = LABEL_FONT + "px system-ui, -apple-system, 'Segoe UI', Roboto, sans-serif";
     var w = 0;
     vars.forEach(function (v) { w = Math.max(w, ctx.measureText(v).width); });
-    return Math.min(130, Math.ceil(w) + 10);
+    return Math.min(k <= 60 ? 160 : 130, Math.ceil(w) + 10);
   })();
 
   function geometry() {
@@ -234,8 +234,8 @@
       ctx.fillStyle = "rgb(" + m.lut[t * 3] + "," + m.lut[t * 3 + 1] + "," + m.lut[t * 3 + 2] + ")";
       ctx.fillRect(x, 0, 1, bar.height);
     }
-    $("legend-lo").textContent = fmt(m.lo);
-    $("legend-hi").textContent = fmt(m.hi);
+    $("legend-lo").textContent = fmtEst(m.lo);
+    $("legend-hi").textContent = fmtEst(m.hi);
   }
 
   var scheduled = false;
@@ -272,10 +272,10 @@
     tip.textContent = "";
     tip.appendChild(el("strong", null, m.symmetric ? p.x + " × " + p.y : p.x + " → " + p.y));
     if (!m.measure) {
-      tip.appendChild(el("div", null, m.label + " " + fmt(m.E[c.i * k + c.j])));
+      tip.appendChild(el("div", null, m.label + " " + fmtEst(m.E[c.i * k + c.j])));
     }
     measureLines(c.i, c.j).forEach(function (line) {
-      tip.appendChild(el("div", null, line.label + " " + fmt(line.est) + "  q " + fmtP(line.q)));
+      tip.appendChild(el("div", null, line.label + " " + fmtEst(line.est) + "  q " + fmtP(line.q)));
     });
     tip.hidden = false;
     var pane = $("maps-pane").getBoundingClientRect();
@@ -417,7 +417,7 @@
     measureLines(i, j).forEach(function (line) {
       var tr = el("tr", { "data-measure": line.measure });
       tr.appendChild(el("td", null, line.label));
-      tr.appendChild(el("td", { "class": "num" }, fmt(line.est)));
+      tr.appendChild(el("td", { "class": "num" }, fmtEst(line.est)));
       tr.appendChild(el("td", { "class": "num" + (line.q < alpha ? " significant" : "") }, fmtP(line.q)));
       body.appendChild(tr);
     });
@@ -624,7 +624,7 @@
           tr.appendChild(el("td", { "class": "name", title: r[1] }, r[1]));
           tr.appendChild(el("td", { "class": "num" }, P.fmtCount(r[2])));
           cols.forEach(function (c, t) {
-            tr.appendChild(el("td", { "class": "num" }, fmt(r[3][t])));
+            tr.appendChild(el("td", { "class": "num" }, fmtEst(r[3][t])));
             var q = r[4][t];
             tr.appendChild(el("td", { "class": "num" + (q !== null && q < alpha ? " significant" : "") }, fmtP(q)));
           });

@@ -32,6 +32,13 @@
     return parts[0] + "×10" + String(parseInt(parts[1], 10)).split("").map(function (c) { return SUP[c]; }).join("");
   }
 
+  function fmtEst(v) {  // an estimate of a measure: three decimals whatever its size
+    if (v === null || v === undefined || !isFinite(v)) return "–";
+    if (Math.abs(v) >= 1e5) return fmt(v);
+    var text = v.toFixed(3);
+    return text === "-0.000" ? "0.000" : text;
+  }
+
   function fmtP(v) {
     if (v === null || v === undefined || !isFinite(v)) return "–";
     if (v === 0) return "< 10⁻³⁰⁰";
@@ -65,7 +72,7 @@
 
   function openPair(x, y) { window.location.assign(pairUrl(x, y)); }
 
-  window.pairlens = { openPair: openPair, pairUrl: pairUrl, fmt: fmt, fmtP: fmtP, fmtCount: fmtCount };
+  window.pairlens = { openPair: openPair, pairUrl: pairUrl, fmt: fmt, fmtEst: fmtEst, fmtP: fmtP, fmtCount: fmtCount };
 
   /* Home: drag and drop onto the file input ------------------------------------------ */
   function initUpload() {

@@ -114,7 +114,7 @@ MEASURES: dict[str, Measure] = {
             compute=_dcor,
         ),
         Measure(
-            name="dcor_bc", label="Bias-corrected dCor^2", family="distance", symmetric=True, signed=True,
+            name="dcor_bc", label="Bias-corrected dCor²", family="distance", symmetric=True, signed=True,
             lower=-1.0, upper=1.0, multivariate=True, reflection="unchanged",
             default_test="as dcor",
             interval="",
@@ -124,7 +124,7 @@ MEASURES: dict[str, Measure] = {
             compute=_dcor_bc,
         ),
         Measure(
-            name="xi", label="Chatterjee xi (x -> y)", family="rank", symmetric=False, signed=True,
+            name="xi", label="Chatterjee ξ", family="rank", symmetric=False, signed=True,
             lower=-0.5, upper=1.0, multivariate=False, reflection="unchanged",
             default_test="asymptotic normal with tie-corrected variance (permutation below 20 rows); "
                          "permutation with --permutations",

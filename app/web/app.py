@@ -97,7 +97,7 @@ def _sparkline(counts, width: int = 96, height: int = 22) -> str:
 def make_templates() -> Jinja2Templates:
     env = Environment(loader=FileSystemLoader(str(config.TEMPLATES_DIR)),
                       autoescape=select_autoescape(default=True, default_for_string=True))
-    env.filters.update(fmt=_fmt, fmt_p=_fmt_p, fmt_count=formatting.fmt_count,
+    env.filters.update(fmt=_fmt, fmt_p=_fmt_p, fmt_est=formatting.fmt_est, fmt_count=formatting.fmt_count,
                        fmt_interval=formatting.fmt_interval, fmt_share=formatting.fmt_share, rawnum=_rawnum, when=_when, size=_size, sparkline=_sparkline,
                        embed_json=embed_json)
     env.globals.update(MEASURES=MEASURES, config=config, version=__version__)
