@@ -114,9 +114,10 @@
       $("cancel-analysis").disabled = true;
       $("cancel-analysis").textContent = "Cancelling…";
       fetch("/api/analyses/" + encodeURIComponent(analysisId) + "/cancel",
-            { method: "POST", referrerPolicy: "same-origin", credentials: "same-origin" })
-        .then(function () { poll(); });
+            { method: "POST", referrerPolicy: "same-origin", credentials: "same-origin" });
+      // The polling chain below notices the new status; a second chain would reload twice.
     });
+    var leaving = false;
     function poll() {
       fetch("/api/analyses/" + encodeURIComponent(analysisId), { cache: "no-store" })
         .then(function (r) { return r.json(); })
@@ -131,8 +132,9 @@
           phaseWrap.hidden = !s.phase;
           left.textContent = s.status === "queued" ? "waiting to start" : seconds(s.seconds_left);
           if (s.status === "queued" || s.status === "running") {
-            window.setTimeout(poll, 500);
-          } else {
+            window.setTimeout(poll, s.progress >= 0.99 ? 250 : 500);
+          } else if (!leaving) {
+            leaving = true;
             window.location.reload();
           }
         })
