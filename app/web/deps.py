@@ -206,20 +206,36 @@ def pair_rows_payload(table: PairTable, labels: dict) -> dict:
             columns.append({"key": m + ">", "measure": m, "label": meas.label, "direction": "x→y"})
             columns.append({"key": m + "<", "measure": m, "label": meas.label, "direction": "y→x"})
     col_index = {c["key"]: k for k, c in enumerate(columns)}
-    pairs: dict[tuple[str, str], list] = {}
-    for r in table.rows:
-        i, j = position[r.x], position[r.y]
-        a, b = (r.x, r.y) if i < j else (r.y, r.x)
-        entry = pairs.get((a, b))
-        if entry is None:
-            entry = [a, b, int(r.n), [None] * len(columns), [None] * len(columns), labels.get(_pair_key(a, b))]
-            pairs[(a, b)] = entry
-        key = r.measure if MEASURES[r.measure].symmetric else r.measure + (">" if r.x == a else "<")
-        k = col_index[key]
-        entry[3][k] = _num(r.estimate)
-        entry[4][k] = _num(r.q_value)
-        entry[2] = max(entry[2], int(r.n))
-    rows = sorted(pairs.values(), key=lambda e: (position[e[0]], position[e[1]]))
+    # Arrays over all rows, then one fancy assignment: a Python loop per field and row took
+    # seconds at 45,000 pairs, and this runs before an analysis is marked done.
+    nvar, ncol = len(table.variables), len(columns)
+    rows_ = table.rows
+    xi = np.fromiter((position[r.x] for r in rows_), dtype=np.int64, count=len(rows_))
+    yi = np.fromiter((position[r.y] for r in rows_), dtype=np.int64, count=len(rows_))
+    sym_key = {m: (col_index[m] if MEASURES[m].symmetric else -1) for m in table.measures}
+    base = np.fromiter((sym_key[r.measure] if sym_key[r.measure] >= 0 else col_index[r.measure + ">"]
+                        for r in rows_), dtype=np.int64, count=len(rows_))
+    forward = xi < yi
+    asym = np.fromiter((sym_key[r.measure] < 0 for r in rows_), dtype=bool, count=len(rows_))
+    col = np.where(asym & ~forward, base + 1, base)   # "<" sits right after ">"
+    lo, hi = np.minimum(xi, yi), np.maximum(xi, yi)
+    slot = lo * nvar + hi                              # one slot per unordered pair
+    est = np.full((nvar * nvar, ncol), np.nan)
+    qv = np.full((nvar * nvar, ncol), np.nan)
+    nn = np.zeros(nvar * nvar, dtype=np.int64)
+    est[slot, col] = np.fromiter((r.estimate for r in rows_), dtype=float, count=len(rows_))
+    qv[slot, col] = np.fromiter((r.q_value for r in rows_), dtype=float, count=len(rows_))
+    np.maximum.at(nn, slot, np.fromiter((int(r.n) for r in rows_), dtype=np.int64, count=len(rows_)))
+    used = np.unique(slot)                             # sorted: input order of (x, y)
+    est_l = np.where(np.isfinite(est[used]), est[used], np.nan).tolist()
+    q_l = qv[used].tolist()
+    names = table.variables
+    rows = []
+    for t, s_ in enumerate(used.tolist()):
+        a, b = names[s_ // nvar], names[s_ % nvar]
+        e = [None if v != v or v in (math.inf, -math.inf) else v for v in est_l[t]]
+        q = [None if v != v or v in (math.inf, -math.inf) else v for v in q_l[t]]
+        rows.append([a, b, int(nn[s_]), e, q, labels.get(_pair_key(a, b))])
     body = {"columns": columns, "rows": rows, "alpha": config.SIGNIFICANCE_LEVEL}
     return {"columns": columns, "n_rows": len(rows), "embedded": embed_json(body)}
 

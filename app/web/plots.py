@@ -561,12 +561,23 @@ def map_payload(table, order: Sequence[int] | None = None, diff: tuple[str, str]
     k = len(table.variables)
     order = list(range(k)) if order is None else [int(i) for i in order]
     idx = np.asarray(order, dtype=int)
+    # One pass over the rows for every measure's estimate and q (PairTable.matrix walks all rows per call).
+    position = {v: i for i, v in enumerate(table.variables)}
+    full = {m: (np.full((k, k), np.nan), np.full((k, k), np.nan)) for m in table.measures}
+    for r in table.rows:
+        target = full.get(r.measure)
+        if target is None:
+            continue
+        i, j = position[r.x], position[r.y]
+        target[0][i, j], target[1][i, j] = r.estimate, r.q_value
+        if MEASURES[r.measure].symmetric:
+            target[0][j, i], target[1][j, i] = r.estimate, r.q_value
     maps = []
     for m in table.measures:
         meas = MEASURES[m]
         _, lo, hi = colour_range(m)
-        est = table.matrix(m)[np.ix_(idx, idx)]
-        q = table.matrix(m, "q_value")[np.ix_(idx, idx)]
+        est = full[m][0][np.ix_(idx, idx)]
+        q = full[m][1][np.ix_(idx, idx)]
         maps.append({"key": m, "measure": m, "label": meas.label, "signed": bool(meas.signed),
                      "symmetric": bool(meas.symmetric), "lo": float(lo), "hi": float(hi),
                      "stops": _scale_stops(m), "est": _flat(_rounded_for_display(est), meas.symmetric),
@@ -574,7 +585,7 @@ def map_payload(table, order: Sequence[int] | None = None, diff: tuple[str, str]
     top: list[dict] = []
     if diff:
         a_name, b_name = diff
-        a, b = table.matrix(a_name), table.matrix(b_name)
+        a, b = full[a_name][0].copy(), full[b_name][0].copy()
         if not MEASURES[a_name].symmetric:
             a = np.fmax(a, a.T)
         if not MEASURES[b_name].symmetric:
