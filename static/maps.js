@@ -77,27 +77,23 @@
     maps[m.key] = m;
   });
 
-  function cellRGB(m, i, j) {
-    if (i === j) return DIAG;
-    var v = m.E[i * k + j];
-    if (!isFinite(v)) return MISSING;
-    var t = Math.max(0, Math.min(255, Math.round((v - m.lo) / (m.hi - m.lo) * 255)));
-    var r = m.lut[t * 3], g = m.lut[t * 3 + 1], b = m.lut[t * 3 + 2];
-    if (m.Q) {
-      var q = m.Q[i * k + j];
-      if (!(q < alpha)) { r += (255 - r) * PALE; g += (255 - g) * PALE; b += (255 - b) * PALE; }
-    }
-    return [r, g, b];
-  }
-
   function image(m) {  // one pixel per cell, drawn scaled without smoothing
     if (m.image) return m.image;
     var c = document.createElement("canvas");
     c.width = k; c.height = k;
     var ctx = c.getContext("2d"), img = ctx.createImageData(k, k), px = img.data;
+    var E = m.E, Q = m.Q, L = m.lut, lo = m.lo, scale = 255 / (m.hi - m.lo);
     for (var i = 0; i < k; i++) for (var j = 0; j < k; j++) {
-      var rgb = cellRGB(m, i, j), o = (i * k + j) * 4;
-      px[o] = rgb[0]; px[o + 1] = rgb[1]; px[o + 2] = rgb[2]; px[o + 3] = 255;
+      var at = i * k + j, o = at * 4, v = E[at], r, g, b;
+      if (i === j) { r = DIAG[0]; g = DIAG[1]; b = DIAG[2]; }
+      else if (v !== v) { r = MISSING[0]; g = MISSING[1]; b = MISSING[2]; }
+      else {
+        var t = Math.round((v - lo) * scale);
+        t = t < 0 ? 0 : (t > 255 ? 255 : t);
+        r = L[t * 3]; g = L[t * 3 + 1]; b = L[t * 3 + 2];
+        if (Q && !(Q[at] < alpha)) { r += (255 - r) * PALE; g += (255 - g) * PALE; b += (255 - b) * PALE; }
+      }
+      px[o] = r; px[o + 1] = g; px[o + 2] = b; px[o + 3] = 255;
     }
     ctx.putImageData(img, 0, 0);
     m.image = c;
@@ -556,8 +552,8 @@
     variables: vars, state: state, pin: pin, setView: setView, show: function (key) { state.map = key; drawFocus(); }
   };
 
-  drawThumbs();
   drawFocus();
+  window.requestAnimationFrame(drawThumbs);  // the large map first; the small ones one frame later
   var resizeTimer = null;
   window.addEventListener("resize", function () {
     window.clearTimeout(resizeTimer);

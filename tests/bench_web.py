@@ -65,7 +65,9 @@ def _csv_blocks(k: int, n: int, seed: int) -> bytes:
 def _interactive(page, srv: Server, aid: str) -> tuple[float, float]:
     """(ms from navigation start to maps drawn, ms for the first click to show its scatter)."""
     page.goto(srv.url(f"/analyses/{aid}"), wait_until="commit")
-    page.wait_for_selector('#focus-map[data-ready="1"]', timeout=120_000)
+    page.wait_for_function("document.getElementById('focus-map') && document.getElementById('focus-map')"
+                           ".dataset.ready === '1' && Array.from(document.querySelectorAll('.thumb'))"
+                           ".every(t => t.dataset.ready === '1')", timeout=120_000, polling="raf")
     ready = page.evaluate("performance.now()")
     x, y = page.evaluate("window.pairlensMaps.cellCentre(2, 1)")
     t0 = time.perf_counter()
@@ -105,14 +107,14 @@ def browser_part() -> None:
                 page.goto(srv.url(f"/analyses/{aid}"))
                 page.wait_for_selector('#focus-map[data-ready="1"]')
                 clicks = []
-                for i, j in [(1, 0), (2, 0), (3, 1), (4, 2), (5, 3), (6, 4), (7, 5), (7, 6)]:
+                for i, j in [(1, 0), (3, 1), (5, 3), (7, 5), (7, 6)]:
                     x, y = page.evaluate("([i, j]) => window.pairlensMaps.cellCentre(i, j)", [i, j])
                     t0 = time.perf_counter()
                     page.mouse.click(x, y)
                     page.wait_for_function("""([i, j]) => { const s = document.querySelector('[data-testid="pair-scatter"]');
                         const v = window.pairlensMaps.variables;
                         return s.dataset.ready === '1' && s.dataset.x === v[j] && s.dataset.y === v[i]; }""",
-                                           arg=[i, j], timeout=60_000)
+                                           arg=[i, j], timeout=180_000)
                     clicks.append((time.perf_counter() - t0) * 1000)
                 print(f"10,000 rows: click to scatter median {statistics.median(clicks):.0f} ms "
                       f"(min {min(clicks):.0f}, max {max(clicks):.0f}) over {len(clicks)} distinct pairs")

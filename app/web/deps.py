@@ -594,6 +594,7 @@ class Workspace:
         table = self.pair_table(row)
         self.heatmaps(row, None, self.default_difference(table.measures))
         self.pair_rows(row)
+        self.significance_counts(row)
 
     def _key_lock(self, key) -> threading.Lock:
         with self._locks_guard:
@@ -639,6 +640,23 @@ class Workspace:
             else:
                 out = pair_rows_payload(self.pair_table(row), self.verdicts(row).get("labels", {}))
             return self._figures.put(key, out)
+
+    def significance_counts(self, row: AnalysisRow) -> tuple[dict, dict]:
+        """Per measure: pairs with q below the significance level, and pairs with a q at all (cached)."""
+        key = ("significance", row.id)
+        cached = self._figures.get(key)
+        if cached is None:
+            table = self.pair_table(row)
+            significant = {m: 0 for m in table.measures}
+            tested = {m: 0 for m in table.measures}
+            alpha = config.SIGNIFICANCE_LEVEL
+            for r in table.rows:
+                if r.q_value == r.q_value:  # a defined q: the pair was tested
+                    tested[r.measure] += 1
+                    if r.q_value < alpha:
+                        significant[r.measure] += 1
+            cached = self._figures.put(key, (significant, tested))
+        return cached
 
     def pair_grid(self, row: AnalysisRow) -> PairGrid:
         """The pair table as arrays for the paged endpoint (built once per analysis and verdict change)."""

@@ -143,14 +143,7 @@ def analysis_page(analysis_id: str, request: Request, order: str = "input", diff
     figures = ws.heatmaps(row, cluster_on, difference)
     pair_rows = ws.pair_rows(row)
     verdicts = ws.verdicts(row)
-    significant = {m: 0 for m in table.measures}
-    tested = {m: 0 for m in table.measures}
-    alpha = config.SIGNIFICANCE_LEVEL
-    for r in table.rows:
-        if r.q_value == r.q_value:  # defined q: the pair was tested
-            tested[r.measure] += 1
-            if r.q_value < alpha:
-                significant[r.measure] += 1
+    significant, tested = ws.significance_counts(row)
     context.update({
         "table": table, "measures": table.measures, "order": cluster_on or "input",
         "difference": difference, "figures": figures, "order_names": figures["order"],
