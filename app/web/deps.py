@@ -194,17 +194,23 @@ def heatmap_payload(table: PairTable, order: list[int], diff: tuple[str, str] | 
     return {"order": payload["variables"], "top": payload["top"], "embedded": embed_json(payload)}
 
 
-def pair_rows_payload(table: PairTable, labels: dict) -> dict:
-    """The wide pair table: one row per unordered pair, every measure's estimate and q, the verdict."""
-    position = {v: i for i, v in enumerate(table.variables)}
+def pair_columns(measures) -> list[dict]:
+    """Columns of the wide pair table: one per measure, one per direction of an asymmetric one."""
     columns: list[dict] = []
-    for m in table.measures:
+    for m in measures:
         meas = MEASURES[m]
         if meas.symmetric:
             columns.append({"key": m, "measure": m, "label": meas.label, "direction": ""})
         else:
             columns.append({"key": m + ">", "measure": m, "label": meas.label, "direction": "x→y"})
             columns.append({"key": m + "<", "measure": m, "label": meas.label, "direction": "y→x"})
+    return columns
+
+
+def pair_rows_payload(table: PairTable, labels: dict) -> dict:
+    """The wide pair table: one row per unordered pair, every measure's estimate and q, the verdict."""
+    position = {v: i for i, v in enumerate(table.variables)}
+    columns = pair_columns(table.measures)
     col_index = {c["key"]: k for k, c in enumerate(columns)}
     # Arrays over all rows, then one fancy assignment: a Python loop per field and row took
     # seconds at 45,000 pairs, and this runs before an analysis is marked done.
