@@ -14,6 +14,7 @@ from typing import Iterable
 
 from . import config
 from .core.registry import MEASURES
+from .formatting import RULE
 
 __all__ = ["ADJUSTMENT_TEXT", "measure_methods", "inference_methods", "cautions", "methods_content"]
 
@@ -131,12 +132,15 @@ _PERMUTATION_FLOOR = (
 
 def inference_methods(*, adjust: str = config.DEFAULT_ADJUST, confidence: float = config.DEFAULT_CONFIDENCE,
                       permutations: int = 0, missing: str = config.DEFAULT_MISSING,
-                      measures: Iterable[str] | None = None) -> list[dict]:
+                      measures: Iterable[str] | None = None, general: bool = False) -> list[dict]:
     """How p-values, q-values, intervals, the Gaussian fit and the verdict were obtained.
 
     Each entry is ``{"title", "paragraphs": [str], "formula": str, "references": [str]}``.
-    ``measures`` (default: all) decides measure-specific cautions.
+    ``measures`` (default: all) decides measure-specific cautions. ``general`` (the
+    dashboard's methods page) describes every choice instead of one analysis's settings.
     """
+    if general:
+        return _general_inference(measures)
     adj = ADJUSTMENT_TEXT[adjust]
     level = f"{confidence * 100:g}%"
     measures = list(MEASURES) if measures is None else list(measures)
@@ -227,8 +231,44 @@ def inference_methods(*, adjust: str = config.DEFAULT_ADJUST, confidence: float 
             "formula": "",
             "references": [],
         },
+        {"title": "How numbers are written", "paragraphs": [RULE], "formula": "", "references": []},
     ]
     return sections
+
+
+def _general_inference(measures) -> list[dict]:
+    """:func:`inference_methods` for no analysis in particular: every option, no settings."""
+    one = {s["title"]: s for s in inference_methods(measures=measures, permutations=1)}
+    one["p-values"]["paragraphs"] = [
+        one["p-values"]["paragraphs"][0],
+        "With permutations requested (B resamples), the rows of y are shuffled against fixed x, the "
+        "statistic is recomputed for each shuffle, and the observed value is counted as one of the "
+        "resamples so that a p-value is never zero. Without them, every p-value comes from the "
+        "closed-form or approximate null distribution named for its measure.",
+        _PEARSON_T_CAUTION,
+    ]
+    q = one["q-values (many pairs)"]
+    q["paragraphs"] = [
+        "p-values are adjusted separately within each measure over all of its pairs (both directions of "
+        "an asymmetric measure count as pairs), by the method chosen for the analysis. Pairs whose p-value "
+        "is undefined are left out of m, so they do not make the others harder to detect.",
+        *(f"{a['label']}: {a['meaning']} ({a['formula']})" for a in ADJUSTMENT_TEXT.values()),
+        f"A pair is called significant when its q-value is below {config.SIGNIFICANCE_LEVEL:g}.",
+    ]
+    q["formula"] = ""
+    q["references"] = [a["reference"] for a in ADJUSTMENT_TEXT.values() if a["reference"]]
+    ci = one["Confidence intervals"]
+    ci["paragraphs"] = [ci["paragraphs"][0].replace(
+        ci["paragraphs"][0].split(". ")[0] + ". ",
+        f"Intervals are at the confidence level chosen for the analysis ({config.DEFAULT_CONFIDENCE * 100:g}% "
+        "unless changed). ")]
+    one["Missing values"]["paragraphs"] = [
+        "pairwise (the default): each pair uses every row where both of its variables are present, so n "
+        "can differ between pairs. complete: only rows where every analysed variable is present are used, "
+        "so every pair has the same n.",
+        one["Missing values"]["paragraphs"][1],
+    ]
+    return list(one.values())
 
 
 def _verdict_labels() -> list[str]:
@@ -279,7 +319,7 @@ def methods_content(measures: Iterable[str] | None = None, *, settings=None, pai
         for row in pair_table.rows:
             if row.p_value == row.p_value:  # NaN p-values were not produced by any method
                 seen.setdefault(row.measure, Counter())[row.method] += 1
-    kwargs = {"measures": measures}
+    kwargs = {"measures": measures, "general": settings is None}
     if settings is not None:
         kwargs.update(adjust=settings.adjust, confidence=settings.confidence,
                       permutations=settings.permutations, missing=settings.missing)

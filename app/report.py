@@ -26,7 +26,7 @@ import numpy as np
 from jinja2 import Environment, FileSystemLoader, StrictUndefined
 from markupsafe import Markup
 
-from . import __version__, config
+from . import __version__, config, formatting
 from .core.registry import MEASURES
 from .engine import PairRow, PairTable, pair_detail
 from .methods import methods_content
@@ -111,26 +111,18 @@ def _finite(v) -> bool:
 
 
 def fmt_estimate(v) -> str:
-    if not _finite(v):
-        return "–"
-    return f"{float(v):.3f}"
+    """An estimate by the one rule of :mod:`app.formatting` (three decimals)."""
+    return formatting.fmt_est(v)
 
 
 def fmt_p(v) -> str:
-    if not _finite(v):
-        return "–"
-    v = float(v)
-    if v == 0.0:  # below the smallest double; the true value is positive
-        return "< 1e-300"
-    if v < 1e-3:
-        return f"{v:.1e}"
-    return f"{v:.3f}" if v >= 0.01 else f"{v:.4f}"
+    """A p- or q-value by the one rule of :mod:`app.formatting`."""
+    return formatting.fmt_p(v)
 
 
 def fmt_num(v, digits: int = 4) -> str:
-    if not _finite(v):
-        return "–"
-    return f"{float(v):.{digits}g}"
+    """Any other number by the one rule of :mod:`app.formatting` (``digits`` is ignored)."""
+    return formatting.fmt(v)
 
 
 def _sort_value(v) -> str:
@@ -436,7 +428,7 @@ def _card_rows(pt: PairTable, rows: dict[str, PairRow]) -> list[dict]:
         meas = MEASURES[m]
         out.append({
             "measure": m,
-            "label": meas.label if meas.symmetric else f"{meas.label.replace('(x -> y)', '').strip()} ({r.x} → {r.y})",
+            "label": meas.label if meas.symmetric else f"{meas.label} ({r.x} → {r.y})",
             "estimate": fmt_estimate(r.estimate),
             "interval": (f"[{fmt_estimate(r.ci_low)}, {fmt_estimate(r.ci_high)}]"
                          if _finite(r.ci_low) and _finite(r.ci_high) else "–"),

@@ -18,18 +18,36 @@
     return node;
   }
 
-  function fmt(v, digits) {
+  /* The one number rule of app/formatting.py (written on the methods page): three decimals
+     between 0.001 and 100,000 in size, else two significant digits as a×10ⁿ. */
+  var SUP = { "-": "⁻", "0": "⁰", "1": "¹", "2": "²", "3": "³", "4": "⁴", "5": "⁵", "6": "⁶", "7": "⁷", "8": "⁸", "9": "⁹" };
+  function fmt(v) {
     if (v === null || v === undefined || !isFinite(v)) return "–";
-    digits = digits || 3;
     var a = Math.abs(v);
-    if (a !== 0 && (a < 1e-3 || a >= 1e5)) return v.toExponential(digits - 1);
-    return a >= 1 ? v.toPrecision(digits + 1) : v.toFixed(digits);
+    if (a === 0 || (a >= 1e-3 && a < 1e5)) {
+      var text = v.toFixed(3);
+      return text === "-0.000" ? "0.000" : text;
+    }
+    var parts = v.toExponential(1).split("e");
+    return parts[0] + "×10" + String(parseInt(parts[1], 10)).split("").map(function (c) { return SUP[c]; }).join("");
+  }
+
+  function fmtEst(v) {  // an estimate of a measure: three decimals whatever its size
+    if (v === null || v === undefined || !isFinite(v)) return "–";
+    if (Math.abs(v) >= 1e5) return fmt(v);
+    var text = v.toFixed(3);
+    return text === "-0.000" ? "0.000" : text;
   }
 
   function fmtP(v) {
     if (v === null || v === undefined || !isFinite(v)) return "–";
-    if (v === 0) return "< 1e-300";
-    return v < 1e-4 ? v.toExponential(1) : v.toFixed(4);
+    if (v === 0) return "< 10⁻³⁰⁰";
+    return fmt(v);
+  }
+
+  function fmtCount(v) {
+    if (v === null || v === undefined || !isFinite(v)) return "–";
+    return String(Math.round(v)).replace(/\B(?=(\d{3})+(?!\d))/g, "\u2009");
   }
 
   function seconds(s) {
@@ -54,7 +72,7 @@
 
   function openPair(x, y) { window.location.assign(pairUrl(x, y)); }
 
-  window.pairlens = { openPair: openPair, pairUrl: pairUrl };
+  window.pairlens = { openPair: openPair, pairUrl: pairUrl, fmt: fmt, fmtEst: fmtEst, fmtP: fmtP, fmtCount: fmtCount };
 
   /* Home: drag and drop onto the file input ------------------------------------------ */
   function initUpload() {
@@ -89,16 +107,17 @@
     var bar = $("progress");
     if (!bar || !analysisId) return;
     var fill = $("progress-fill"), pct = $("progress-percent"), left = $("progress-left"),
-        status = $("progress-status"), phase = $("progress-phase");
+        status = $("progress-status"), phase = $("progress-phase"), phaseWrap = $("progress-phase-wrap");
     var cancelForm = $("cancel-form");
     if (cancelForm) cancelForm.addEventListener("submit", function (e) {
       e.preventDefault();
       $("cancel-analysis").disabled = true;
       $("cancel-analysis").textContent = "Cancelling…";
       fetch("/api/analyses/" + encodeURIComponent(analysisId) + "/cancel",
-            { method: "POST", referrerPolicy: "same-origin", credentials: "same-origin" })
-        .then(function () { poll(); });
+            { method: "POST", referrerPolicy: "same-origin", credentials: "same-origin" });
+      // The polling chain below notices the new status; a second chain would reload twice.
     });
+    var leaving = false;
     function poll() {
       fetch("/api/analyses/" + encodeURIComponent(analysisId), { cache: "no-store" })
         .then(function (r) { return r.json(); })
@@ -110,178 +129,18 @@
           pct.textContent = Math.round(p) + "%";
           status.textContent = s.status + (s.cancel_requested && s.status === "running" ? " (cancelling)" : "");
           phase.textContent = s.phase || "";
+          phaseWrap.hidden = !s.phase;
           left.textContent = s.status === "queued" ? "waiting to start" : seconds(s.seconds_left);
           if (s.status === "queued" || s.status === "running") {
-            window.setTimeout(poll, 500);
-          } else {
+            window.setTimeout(poll, s.progress >= 0.99 ? 250 : 500);
+          } else if (!leaving) {
+            leaving = true;
             window.location.reload();
           }
         })
         .catch(function () { window.setTimeout(poll, 1500); });
     }
     poll();
-  }
-
-  /* Analysis page: heatmaps side by side --------------------------------------------- */
-  function attachClick(div, fig, measure) {
-    var vars = fig.layout.meta.variables;
-    var symmetric = !(fig.layout.yaxis.title && fig.layout.yaxis.title.text === "from (row)");
-    var labelIndex = {};
-    fig.data[0].x.forEach(function (lab, i) { labelIndex[lab] = i; });
-    function cell(row, col) {
-      if (row === col) return null;
-      return symmetric ? { x: vars[col], y: vars[row] } : { x: vars[row], y: vars[col] };
-    }
-    div.pairlensCell = cell;
-    div.on("plotly_click", function (ev) {
-      if (!ev || !ev.points || !ev.points.length) return;
-      var p = ev.points[0], row, col;
-      if (p.curveNumber === 0 && Array.isArray(p.pointNumber)) {
-        row = p.pointNumber[0]; col = p.pointNumber[1];
-      } else {
-        row = labelIndex[p.y]; col = labelIndex[p.x];
-      }
-      var c = cell(row, col);
-      if (c) openPair(c.x, c.y);
-    });
-  }
-
-  function initHeatmaps() {
-    var data = readJSON("heatmap-data");
-    if (!data || !window.Plotly) return;
-    Object.keys(data.figures).forEach(function (m, k) {
-      var div = $("heatmap-" + m);
-      if (!div) return;
-      var fig = data.figures[m];
-      // All heatmaps share one order: row names only on the first, hover still names both.
-      if (k > 0 && window.matchMedia("(min-width: 1100px)").matches) fig.layout.yaxis.showticklabels = false;
-      Plotly.newPlot(div, fig.data, fig.layout, PLOT_CONFIG).then(function () {
-        attachClick(div, fig, m);
-        div.dataset.ready = "1";
-      });
-    });
-    if (data.difference && $("heatmap-difference")) {
-      var d = $("heatmap-difference");
-      Plotly.newPlot(d, data.difference.data, data.difference.layout, PLOT_CONFIG).then(function () {
-        attachClick(d, data.difference, "difference");
-        d.dataset.ready = "1";
-      });
-    }
-    var form = $("view-form");
-    ["order-select", "diff-select"].forEach(function (id) {
-      var s = $(id);
-      if (s) s.addEventListener("change", function () { form.submit(); });
-    });
-  }
-
-  /* Analysis page: the pair table (sort, filter, page) ------------------------------- */
-  function initPairTable() {
-    var data = readJSON("pair-data");
-    var head = $("pair-head"), body = $("pair-body");
-    if (!data || !head || !body) return;
-    var cols = data.columns, rows = data.rows, alpha = data.alpha;
-    var PAGE = 100, shown = PAGE;
-    var sortKey = { kind: "none", index: -1, dir: 1 };
-    var fText = $("filter-text"), fMeasure = $("filter-measure"), fQ = $("filter-q"), fVerdict = $("filter-verdict"),
-        more = $("pair-more"), count = $("pair-count");
-
-    var verdicts = {};
-    rows.forEach(function (r) { if (r[5]) verdicts[r[5]] = true; });
-    Object.keys(verdicts).sort().forEach(function (v) { fVerdict.appendChild(el("option", { value: v }, v)); });
-
-    var headers = [{ label: "x", kind: "x" }, { label: "y", kind: "y" }, { label: "n", kind: "n" }];
-    cols.forEach(function (c, k) {
-      var dir = c.direction ? " " + c.direction : "";
-      headers.push({ label: c.label + dir, kind: "est", index: k });
-      headers.push({ label: "q", kind: "q", index: k, title: "q-value of " + c.label + dir });
-    });
-    headers.push({ label: "verdict", kind: "verdict" });
-    headers.forEach(function (h) {
-      var th = el("th", { scope: "col", tabindex: "0", "data-kind": h.kind }, h.label);
-      if (h.title) th.setAttribute("title", h.title);
-      if (h.kind === "est" || h.kind === "q" || h.kind === "n") th.className = "num";
-      th.addEventListener("click", function () { sortBy(h, th); });
-      th.addEventListener("keydown", function (e) { if (e.key === "Enter") sortBy(h, th); });
-      head.appendChild(th);
-    });
-
-    function value(r, h) {
-      switch (h.kind) {
-        case "x": return r[0];
-        case "y": return r[1];
-        case "n": return r[2];
-        case "est": return r[3][h.index];
-        case "q": return r[4][h.index];
-        case "verdict": return r[5] || "";
-      }
-      return null;
-    }
-
-    function sortBy(h, th) {
-      if (sortKey.h === h) sortKey.dir = -sortKey.dir;
-      else { sortKey.h = h; sortKey.dir = (h.kind === "est") ? -1 : 1; }
-      head.querySelectorAll("th").forEach(function (t) { t.removeAttribute("aria-sort"); });
-      th.setAttribute("aria-sort", sortKey.dir > 0 ? "ascending" : "descending");
-      shown = PAGE;
-      render();
-    }
-
-    function filtered() {
-      var text = (fText.value || "").toLowerCase();
-      var mi = fMeasure.value === "" ? -1 : parseInt(fMeasure.value, 10);
-      var qmax = parseFloat(fQ.value);
-      var verdict = fVerdict.value;
-      var out = rows.filter(function (r) {
-        if (text && r[0].toLowerCase().indexOf(text) < 0 && r[1].toLowerCase().indexOf(text) < 0) return false;
-        if (mi >= 0 && isFinite(qmax)) { var q = r[4][mi]; if (q === null || !(q < qmax)) return false; }
-        if (verdict && r[5] !== verdict) return false;
-        return true;
-      });
-      if (sortKey.h) {
-        var h = sortKey.h, dir = sortKey.dir;
-        var useAbs = h.kind === "est";
-        out.sort(function (a, b) {
-          var va = value(a, h), vb = value(b, h);
-          if (va === null || va === undefined) return 1;
-          if (vb === null || vb === undefined) return -1;
-          if (typeof va === "string") return dir * va.localeCompare(vb);
-          if (useAbs) { va = Math.abs(va); vb = Math.abs(vb); }
-          return dir * (va - vb);
-        });
-      }
-      return out;
-    }
-
-    function render() {
-      var list = filtered();
-      body.textContent = "";
-      var frag = document.createDocumentFragment();
-      list.slice(0, shown).forEach(function (r) {
-        var tr = el("tr", { tabindex: "0", "class": "pair-row" });
-        tr.dataset.x = r[0]; tr.dataset.y = r[1];
-        tr.appendChild(el("td", { "class": "name" }, r[0]));
-        tr.appendChild(el("td", { "class": "name" }, r[1]));
-        tr.appendChild(el("td", { "class": "num" }, String(r[2])));
-        cols.forEach(function (c, k) {
-          tr.appendChild(el("td", { "class": "num" }, fmt(r[3][k])));
-          var q = r[4][k];
-          tr.appendChild(el("td", { "class": "num" + (q !== null && q < alpha ? " significant" : "") }, fmtP(q)));
-        });
-        tr.appendChild(el("td", { "class": "verdict" }, r[5] || "–"));
-        tr.addEventListener("click", function () { openPair(r[0], r[1]); });
-        tr.addEventListener("keydown", function (e) { if (e.key === "Enter") openPair(r[0], r[1]); });
-        frag.appendChild(tr);
-      });
-      body.appendChild(frag);
-      count.textContent = "showing " + Math.min(shown, list.length) + " of " + list.length + " pairs (" + rows.length + " in all)";
-      more.hidden = list.length <= shown;
-    }
-    more.addEventListener("click", function () { shown += PAGE; render(); });
-    [fText, fMeasure, fQ, fVerdict].forEach(function (f) {
-      f.addEventListener("input", function () { shown = PAGE; render(); });
-      f.addEventListener("change", function () { shown = PAGE; render(); });
-    });
-    render();
   }
 
   /* Pair view ------------------------------------------------------------------------ */
@@ -415,8 +274,6 @@
     initUpload();
     initColumnToggle();
     initProgress();
-    initHeatmaps();
-    initPairTable();
     initPair();
   });
 })();

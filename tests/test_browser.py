@@ -115,16 +115,6 @@ def _wait_heatmaps(page, measures, timeout=120_000) -> None:
         page.wait_for_selector(f'[data-testid="heatmap-{m}"][data-ready="1"]', timeout=timeout)
 
 
-def _cell_centre(page, testid: str, row: int, col: int) -> tuple[float, float]:
-    return page.evaluate(
-        """([testid, row, col]) => {
-            const gd = document.querySelector(`[data-testid="${testid}"]`);
-            const xa = gd._fullLayout.xaxis, ya = gd._fullLayout.yaxis;
-            const box = gd.getBoundingClientRect();
-            return [box.left + xa._offset + xa.l2p(col), box.top + ya._offset + ya.l2p(row)];
-        }""", [testid, row, col])
-
-
 def test_full_flow(server, page, files):
     # Home, upload.
     page.goto(server.url("/"))
@@ -145,25 +135,33 @@ def test_full_flow(server, page, files):
     _wait_heatmaps(page, MEASURES)
     _not_pwned(page)
 
-    # One heatmap per measure, side by side in one row, left to right.
+    # One map per measure, side by side in one row, left to right.
     boxes = [page.locator(f'[data-testid="heatmap-{m}"]').bounding_box() for m in MEASURES]
-    assert all(b is not None and b["width"] > 150 for b in boxes)
+    assert all(b is not None and b["width"] > 80 for b in boxes)
     tops = [b["y"] for b in boxes]
     assert max(tops) - min(tops) < 2
     lefts = [b["x"] for b in boxes]
     assert lefts == sorted(lefts) and len(set(round(v) for v in lefts)) == len(MEASURES)
-    # The same column order on every heatmap.
-    orders = [page.evaluate(f"document.querySelector('[data-testid=heatmap-{m}]')._fullLayout.meta.variables")
-              for m in MEASURES]
-    assert all(o == FLOW_COLUMNS for o in orders)
+    # The same column order on every map (one order for the page).
+    assert page.evaluate("window.pairlensMaps.variables") == FLOW_COLUMNS
+    page.wait_for_selector('#pair-table[data-ready="1"]')
     _transitions_done(page)
     screenshot(page, "analysis", doc=True)
-    page.get_by_text("Show more").count()  # the table has rendered
 
-    # Click the cell at row "sugar" (1), column "moisture" (0) of the Pearson heatmap.
-    x, y = _cell_centre(page, "heatmap-pearson", 1, 0)
+    # Click the cell at row "sugar" (1), column "moisture" (0): the pair's scatter appears beside the map.
+    x, y = page.evaluate("window.pairlensMaps.cellCentre(1, 0)")
+    page.mouse.click(x, y)
+    page.wait_for_selector('[data-testid="pair-scatter"][data-ready="1"]')
+    assert "/analyses/" in page.url and "/pair?" not in page.url
+    panel = page.evaluate("""() => { const s = document.querySelector('[data-testid="pair-scatter"]');
+                                     return [s.dataset.x, s.dataset.y, Number(s.dataset.n)]; }""")
+    assert panel == ["moisture", "sugar", 240 - 25]
+    # Another measure's map: the same pair at the same cell.
+    page.click('[data-testid="heatmap-dcor"]')
+    page.wait_for_function("document.getElementById('focus-map').dataset.map === 'dcor'")
+    # The full pair view is one click further.
     with page.expect_navigation():
-        page.mouse.click(x, y)
+        page.click("#panel-open")
     assert "/pair?" in page.url
     page.wait_for_selector('[data-testid="pair-scatter"][data-ready="1"]')
     _not_pwned(page)
@@ -206,6 +204,7 @@ def test_full_flow(server, page, files):
     # A row of the pair table opens its pair view too.
     page.go_back()
     _wait_heatmaps(page, MEASURES)
+    page.wait_for_selector('#pair-table[data-ready="1"]')
     page.locator("#pair-body tr").first.click()
     page.wait_for_url("**/pair?**")
     page.wait_for_selector('[data-testid="pair-scatter"][data-ready="1"]')
@@ -298,13 +297,18 @@ def test_hostile_column_names_render_as_text(server, page, files):
         page.click('[data-testid="run-analysis"]')
     _wait_heatmaps(page, ["pearson", "spearman"])
     _not_pwned(page)
+    page.wait_for_selector('#pair-table[data-ready="1"]')
     table_text = page.locator("#pair-table").inner_text()
     for name in HOSTILE:
         assert name in table_text
-    ticks = page.locator('[data-testid="heatmap-pearson"] .xtick text').all_text_contents()
+    ticks = page.locator("#col-labels .map-label").all_text_contents()
     assert sorted(ticks) == sorted(HOSTILE)
+    page.wait_for_selector('#pair-table[data-ready="1"]')
     screenshot(page, "hostile-analysis")
-    page.locator("#pair-body tr").first.click()
+    rows = page.locator("#pair-body tr")
+    first_pair = next(i for i in range(rows.count())   # rows come by strength of evidence, not file order
+                      if {rows.nth(i).get_attribute("data-x"), rows.nth(i).get_attribute("data-y")} == set(HOSTILE[:2]))
+    rows.nth(first_pair).click()
     page.wait_for_url("**/pair?**")
     page.wait_for_selector('[data-testid="pair-scatter"][data-ready="1"]')
     page.wait_for_selector('#verdict:not([data-complete="no"])', timeout=60_000)

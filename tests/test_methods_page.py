@@ -21,3 +21,23 @@ def test_methods_page_lists_every_measure_with_formula_and_reference(tmp_path):
     for caution in content["cautions"]:
         assert caution["title"] in html
     assert "causation" in html.lower()
+
+
+def test_general_methods_page_states_general_facts_and_the_number_rule(tmp_path):
+    import html as html_lib
+
+    from app.formatting import RULE
+
+    client = TestClient(create_app(ServerSettings(data_dir=tmp_path)))
+    text = html_lib.unescape(client.get("/methods").text)
+    assert RULE in text
+    # Facts of one analysis belong on its page and in its report, not on the general page.
+    for per_analysis in ("No permutations were requested", "Intervals are at the 95% level",
+                         "Permutation p-values were requested with B ="):
+        assert per_analysis not in text
+    # ... where they still appear (app.engine.AnalysisSettings with its defaults: no permutations).
+    from app.engine import AnalysisSettings
+
+    one = methods_content(settings=AnalysisSettings.from_options(measures=["pearson"]))
+    words = " ".join(p for s in one["inference"] for p in s["paragraphs"])
+    assert "No permutations were requested" in words and "Intervals are at the 95% level" in words

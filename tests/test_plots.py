@@ -32,3 +32,42 @@ def test_column_names_with_template_syntax_stay_text():
                 assert h.count(field) == p.count(field), (field, h)
             assert "%&#123;y}" in h and "&lt;b&gt;" in h
     json.dumps(plots.pair_figure(hostile))  # still plain JSON for the page
+
+
+def test_map_payload_holds_the_pair_table_in_one_order():
+    import scipy.stats
+
+    from app.engine import run_analysis
+
+    rng = np.random.default_rng(8)
+    n = 80
+    a = rng.normal(size=n)
+    data = np.column_stack([a, a + rng.normal(size=n), a ** 2 + 0.3 * rng.normal(size=n), rng.normal(size=n)])
+    names = ["a", "b", "c", "d"]
+    table = run_analysis(data, names, AnalysisSettings(measures=("pearson", "xi")))
+    order = [2, 0, 3, 1]
+    payload = plots.map_payload(table, order, ("xi", "pearson"))
+    assert payload["variables"] == ["c", "a", "d", "b"]
+    maps = {m["key"]: m for m in payload["maps"]}
+    k = 4
+    # Pearson: the upper triangle in the page's order, each value equal to scipy.stats.pearsonr to 3 decimals.
+    upper = [(i, j) for i in range(k) for j in range(i + 1, k)]
+    cols = {v: data[:, names.index(v)] for v in names}
+    for (i, j), value in zip(upper, maps["pearson"]["est"]):
+        x, y = payload["variables"][i], payload["variables"][j]
+        assert value == round(scipy.stats.pearsonr(cols[x], cols[y]).statistic, 3)
+    # xi is asymmetric: the whole matrix, row = x (predictor), column = y.
+    xi = np.array(maps["xi"]["est"], dtype=float).reshape(k, k)
+    records = {(r.x, r.y): r.estimate for r in table.rows if r.measure == "xi"}
+    for i in range(k):
+        for j in range(k):
+            if i != j:
+                assert xi[i, j] == round(records[(payload["variables"][i], payload["variables"][j])], 3)
+    assert maps["xi"]["est"][0] is None                 # the diagonal is empty
+    # The difference map and its top pairs: the stronger xi direction minus |r|, largest first.
+    diffs = [t["difference"] for t in payload["top"]]
+    assert diffs == sorted(diffs, reverse=True)
+    best = payload["top"][0]
+    expected = max(records[(best["x"], best["y"])], records[(best["y"], best["x"])]) - abs(
+        scipy.stats.pearsonr(cols[best["x"]], cols[best["y"]]).statistic)
+    assert abs(best["difference"] - expected) < 1e-9

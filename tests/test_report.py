@@ -249,14 +249,15 @@ def test_pair_table_equals_the_analysis_records(report):
                 continue
             # machine-readable value: 6 significant digits of the record
             assert float(attrs["data-v"]) == pytest.approx(value, rel=5e-6, abs=1e-300)
-            if shown == "< 1e-300":
+            if shown == "< 10⁻³⁰⁰":
                 assert value == 0.0
                 continue
-            # displayed value: rounded, so within half a unit of its last digit
-            digits = shown.split("e")[0]
+            # displayed value (app.formatting's rule, "4.3×10⁻¹⁸" or "0.822"): rounded, so within
+            # half a unit of its last digit
+            digits, _, power = shown.partition("×10")
             decimals = len(digits.split(".")[1]) if "." in digits else 0
-            scale = 10 ** int(shown.split("e")[1]) if "e" in shown else 1
-            assert float(shown) == pytest.approx(value, abs=0.5 * 10 ** -decimals * scale + 1e-15)
+            scale = 10.0 ** int(power.translate(str.maketrans("⁻⁰¹²³⁴⁵⁶⁷⁸⁹", "-0123456789"))) if power else 1
+            assert float(digits) * scale == pytest.approx(value, abs=0.5 * 10 ** -decimals * scale + 1e-15)
         assert int(texts[8]) == rec["n"]
         assert texts[9].strip() == rec["note"]
 

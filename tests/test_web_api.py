@@ -446,10 +446,12 @@ def test_hostile_column_names_are_escaped(env):
         assert "</script><!--x" not in html
     assert "&lt;script&gt;window.__pwned=1&lt;/script&gt;" in pages[0]
     # The embedded JSON keeps the names intact once parsed.
-    blob = re.search(r'<script type="application/json" id="pair-data">(.*?)</script>', pages[1], re.S).group(1)
+    blob = re.search(r'<script type="application/json" id="heatmap-data">(.*?)</script>', pages[1], re.S).group(1)
     assert "<" not in blob
     parsed = json.loads(blob)
-    assert {r[0] for r in parsed["rows"]} | {r[1] for r in parsed["rows"]} == set(names)
+    assert set(parsed["variables"]) == set(names)
+    rows = c.get(f"/api/analyses/{aid}/pair-table", params={"limit": 1000}).json()["rows"]
+    assert {r[0] for r in rows} | {r[1] for r in rows} == set(names)
 
 
 # Store and recovery ------------------------------------------------------------
@@ -478,3 +480,74 @@ def test_analyses_of_a_dead_server_become_interrupted(tmp_path):
         for aid, expected in ((queued.id, "interrupted"), (running.id, "interrupted"), (alive.id, "queued")):
             assert client.get(f"/api/analyses/{aid}").json()["status"] == expected
         assert "run it again" in client.get(f"/api/analyses/{queued.id}").json()["error"]
+
+
+# The analysis page's pair table, sorted, filtered and paged on the server ---------
+
+def _wide_from_records(records: list[dict]) -> dict[tuple[str, str], dict]:
+    """The contract's long pair table (one row per pair and measure) folded by unordered pair."""
+    out: dict[tuple[str, str], dict] = {}
+    for r in records:
+        key = tuple(sorted((r["x"], r["y"]), key=COLUMNS.index))
+        e = out.setdefault(key, {"q": [], "est": []})
+        if r["q_value"] is not None:
+            e["q"].append(r["q_value"])
+        if r["estimate"] is not None:
+            e["est"].append(abs(r["estimate"]))
+    return out
+
+
+def test_pair_table_sorts_filters_and_pages_on_the_server(env):
+    c, aid = env["client"], env["analysis"]
+    records = c.get(f"/api/analyses/{aid}/pairs").json()
+    wide = _wide_from_records(records)
+    body = c.get(f"/api/analyses/{aid}/pair-table", params={"limit": 1000}).json()
+    assert body["total"] == body["filtered"] == len(wide) == 10
+    rows = body["rows"]
+    assert {(r[0], r[1]) for r in rows} == set(wide)
+    # Default order: strength of evidence, the smallest q over the measures first, then the largest |value|.
+    keys = [(min(wide[(r[0], r[1])]["q"]), -max(wide[(r[0], r[1])]["est"])) for r in rows]
+    assert keys == sorted(keys)
+    # Sorting by the size of one measure's estimate.
+    k = next(i for i, col in enumerate(body["columns"]) if col["measure"] == "pearson")
+    by_size = c.get(f"/api/analyses/{aid}/pair-table", params={"sort": f"est:{k}", "desc": "true"}).json()["rows"]
+    sizes = [abs(r[3][k]) for r in by_size]
+    assert sizes == sorted(sizes, reverse=True)
+    # Filters: q of one measure below a level, a name.
+    sig = c.get(f"/api/analyses/{aid}/pair-table", params={"column": k, "q": 0.05}).json()
+    expected = sum(1 for r in records if r["measure"] == "pearson" and r["q_value"] is not None
+                   and r["q_value"] < 0.05)
+    assert sig["filtered"] == expected and all(r[4][k] < 0.05 for r in sig["rows"])
+    named = c.get(f"/api/analyses/{aid}/pair-table", params={"text": "CURVE"}).json()["rows"]
+    assert named and all("curve" in (r[0] + r[1]).lower() for r in named)
+    assert len(named) == len(COLUMNS) - 1
+    # Paging is a slice of the same order.
+    page = c.get(f"/api/analyses/{aid}/pair-table", params={"offset": 3, "limit": 4}).json()["rows"]
+    assert page == rows[3:7]
+    # Downloads hold exactly the filtered rows, in the shown order.
+    params = {"column": k, "q": 0.05, "sort": f"est:{k}", "desc": "true"}
+    shown = c.get(f"/api/analyses/{aid}/pair-table", params=params | {"limit": 1000}).json()["rows"]
+    got = c.get(f"/api/analyses/{aid}/pair-table", params=params | {"download": "csv"})
+    assert got.status_code == 200 and "attachment" in got.headers["content-disposition"]
+    parsed = list(csv.DictReader(io.StringIO(got.text)))  # Python's csv module reads it back
+    assert [(r["x"], r["y"]) for r in parsed] == [(r[0], r[1]) for r in shown]
+    assert [float(r["pearson"]) for r in parsed] == [r[3][k] for r in shown]
+    got = c.get(f"/api/analyses/{aid}/pair-table", params=params | {"download": "json"}).json()
+    assert [(r["x"], r["y"]) for r in got["rows"]] == [(r[0], r[1]) for r in shown]
+    bad = c.get(f"/api/analyses/{aid}/pair-table", params={"sort": "colour"})
+    assert bad.status_code == 422 and "sort" in bad.json()["detail"]
+
+
+def test_pair_preview_has_the_points_and_the_analysis_numbers(env):
+    c, aid, data = env["client"], env["analysis"], env["data"]
+    x, y = COLUMNS[0], COLUMNS[4]
+    d = c.get(f"/api/analyses/{aid}/pair-preview", params={"x": x, "y": y}).json()
+    keep = ~np.isnan(data[:, 0]) & ~np.isnan(data[:, 4])
+    assert len(d["points"]["x"]) == int(keep.sum()) == 140
+    np.testing.assert_allclose(d["points"]["y"], data[keep, 4], atol=1e-6)  # the CSV holds 6 decimals
+    records = c.get(f"/api/analyses/{aid}/pairs").json()
+    for r in records:
+        if {r["x"], r["y"]} == {x, y}:
+            assert d["measures"][r["measure"]]["q_value"] == r["q_value"]
+    # numpy.cov (ddof=1) is the reference for the fitted covariance.
+    np.testing.assert_allclose(d["gaussian"]["cov"], np.cov(data[keep, 0], data[keep, 4]), rtol=1e-5)

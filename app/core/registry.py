@@ -253,7 +253,7 @@ MEASURES: dict[str, Measure] = {
             compute=_floored(_dcor, "dcor"), pairing_statistics=_dcor_pairings,
         ),
         Measure(
-            name="dcor_bc", label="Bias-corrected dCor^2", family="distance", symmetric=True, signed=True,
+            name="dcor_bc", label="Bias-corrected dCor²", family="distance", symmetric=True, signed=True,
             lower=-1.0, upper=1.0, multivariate=True, reflection="unchanged",
             default_test="as dcor",
             tests=("gamma", "permutation"),
@@ -264,7 +264,7 @@ MEASURES: dict[str, Measure] = {
             compute=_floored(_dcor_bc, "dcor_bc"), pairing_statistics=_dcor_bc_pairings,
         ),
         Measure(
-            name="xi", label="Chatterjee xi (x -> y)", family="rank", symmetric=False, signed=True,
+            name="xi", label="Chatterjee ξ", family="rank", symmetric=False, signed=True,
             lower=-0.5, upper=1.0, multivariate=False, reflection="unchanged",
             default_test="asymptotic normal with tie-corrected variance (permutation below 20 rows); "
                          "permutation with --permutations",

@@ -135,6 +135,51 @@ def get_pair(analysis_id: str, x: str = Query(...), y: str = Query(...), ws: Wor
     return _json({k: (v if k == "points" else _finite(v)) for k, v in detail.items() if k != "seconds"})
 
 
+@router.get("/analyses/{analysis_id}/pair-preview")
+def get_pair_preview(analysis_id: str, x: str = Query(...), y: str = Query(...),
+                     ws: Workspace = Depends(get_workspace)):
+    """The quick part of a pair (points, the analysis's numbers, Gaussian moments) for the map's side panel.
+
+    ``complete`` is False when the verdict and the normality test still have to
+    come from ``/pair``.
+    """
+    detail, complete = ws.pair_view(ws.analysis(analysis_id), x, y)
+    return _json({k: v for k, v in detail.items() if k != "seconds"} | {"complete": complete})
+
+
+@router.get("/analyses/{analysis_id}/pair-table")
+def get_pair_table(analysis_id: str, sort: str = "evidence", desc: bool = False, text: str = "",
+                   column: int = -1, q: float | None = None, verdict: str = "",
+                   offset: int = Query(0, ge=0), limit: int = Query(100, ge=1, le=1000),
+                   download: str = "", ws: Workspace = Depends(get_workspace)):
+    """One page of the wide pair table, sorted and filtered on the server.
+
+    ``download=csv`` or ``download=json`` sends every filtered row in the asked
+    order as a file instead of one page.
+    """
+    row = ws.analysis(analysis_id)
+    grid = ws.pair_grid(row)
+    try:
+        index = grid.query(sort=sort, descending=desc, text=text, column=column, q_below=q, verdict=verdict)
+    except ValueError as exc:
+        return _json({"detail": str(exc)}, 422)
+    if download == "csv":
+        return Response(grid.csv(index), media_type="text/csv; charset=utf-8", headers={
+            "Content-Disposition": f'attachment; filename="pairs-{row.id}.csv"'})
+    if download == "json":
+        return Response(
+            json.dumps({"columns": grid.columns, "rows": grid.records(index)}, ensure_ascii=False,
+                       allow_nan=False, separators=(",", ":")),
+            media_type="application/json", headers={
+                "Content-Disposition": f'attachment; filename="pairs-{row.id}.json"'})
+    if download:
+        return _json({"detail": "download is csv or json"}, 422)
+    page = index[offset:offset + limit]
+    return _json({"total": len(grid.rows), "filtered": int(index.size), "offset": offset,
+                  "columns": grid.columns, "verdicts": grid.verdicts(),
+                  "rows": [grid.rows[int(i)] for i in page]})
+
+
 @router.post("/analyses/{analysis_id}/cancel")
 def cancel_analysis(analysis_id: str, ws: Workspace = Depends(get_workspace)):
     row = ws.cancel(analysis_id)

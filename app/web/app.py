@@ -17,7 +17,7 @@ from fastapi.staticfiles import StaticFiles
 from fastapi.templating import Jinja2Templates
 from jinja2 import Environment, FileSystemLoader, select_autoescape
 
-from .. import __version__, config
+from .. import __version__, config, formatting
 from ..config import ServerSettings
 from ..core.registry import MEASURES
 from ..engine import SettingsError
@@ -41,32 +41,17 @@ def _plotly_js() -> Path:
 
 
 def _fmt(v, digits: int = 3) -> str:
-    if v is None:
-        return "–"
-    try:
-        v = float(v)
-    except (TypeError, ValueError):
-        return str(v)
-    if not math.isfinite(v):
-        return "–"
-    if v != 0 and (abs(v) < 1e-3 or abs(v) >= 1e5):
-        return f"{v:.{max(digits - 1, 1)}e}"
-    if abs(v) >= 1:
-        return f"{v:.{digits + 1}g}"
-    return f"{v:.{digits}f}"
+    """The one number rule of :mod:`app.formatting` (``digits`` kept for old templates, ignored)."""
+    if v is not None and not isinstance(v, (int, float)):
+        try:
+            float(v)
+        except (TypeError, ValueError):
+            return str(v)
+    return formatting.fmt(v)
 
 
 def _fmt_p(v) -> str:
-    if v is None:
-        return "–"
-    v = float(v)
-    if not math.isfinite(v):
-        return "–"
-    if v == 0.0:
-        return "< 1e-300"  # underflow: smaller than a double can hold
-    if v < 1e-4:
-        return f"{v:.1e}"
-    return f"{v:.4f}"
+    return formatting.fmt_p(v)
 
 
 def _rawnum(v) -> str:
@@ -114,7 +99,8 @@ def _sparkline(counts, width: int = 96, height: int = 22) -> str:
 def make_templates() -> Jinja2Templates:
     env = Environment(loader=FileSystemLoader(str(config.TEMPLATES_DIR)),
                       autoescape=select_autoescape(default=True, default_for_string=True))
-    env.filters.update(fmt=_fmt, fmt_p=_fmt_p, rawnum=_rawnum, when=_when, size=_size, sparkline=_sparkline,
+    env.filters.update(fmt=_fmt, fmt_p=_fmt_p, fmt_est=formatting.fmt_est, fmt_count=formatting.fmt_count,
+                       fmt_interval=formatting.fmt_interval, fmt_share=formatting.fmt_share, rawnum=_rawnum, when=_when, size=_size, sparkline=_sparkline,
                        embed_json=embed_json)
     env.globals.update(MEASURES=MEASURES, config=config, version=__version__)
     return Jinja2Templates(env=env)

@@ -27,7 +27,7 @@ from ..engine import AnalysisSettings, PairRow, PairTable, SettingsError, pair_d
 from ..store import AnalysisRow, DatasetRow, Store, UploadTooLarge
 
 __all__ = ["Workspace", "NotFound", "Conflict", "get_workspace", "embed_json", "UploadTooLarge",
-           "SPARK_BINS"]
+           "SPARK_BINS", "PairGrid"]
 
 SPARK_BINS = 16
 _PREVIEW_CELL_CHARS = 80
@@ -277,46 +277,173 @@ def default_difference(measures: tuple[str, ...]) -> tuple[str, str] | None:
     return (distance or others)[0], base
 
 
+MAPS_FORMAT = 2  # pages stored by older versions held Plotly figures; those are rebuilt
+
+
 def heatmap_payload(table: PairTable, order: list[int], diff: tuple[str, str] | None) -> dict:
-    """Heatmaps of every measure (and the difference view) in one order, embedded for a page."""
+    """The canvas maps of every measure (and the difference map) in one order, embedded for a page."""
     from . import plots
 
-    figures = {m: plots.heatmap_figure(table, m, order=order, hover="template") for m in table.measures}
-    difference = (plots.difference_figure(table, diff[0], diff[1], order=order, hover="template")
-                  if diff else None)
-    top = difference["layout"]["meta"]["top"] if difference else []
-    return {"order": [table.variables[i] for i in order], "top": top,
-            "embedded": embed_json({"figures": figures, "difference": difference})}
+    payload = plots.map_payload(table, order, diff)
+    return {"order": payload["variables"], "top": payload["top"], "embedded": embed_json(payload)}
 
 
-def pair_rows_payload(table: PairTable, labels: dict) -> dict:
-    """The wide pair table: one row per unordered pair, every measure's estimate and q, the verdict."""
-    position = {v: i for i, v in enumerate(table.variables)}
+def pair_columns(measures) -> list[dict]:
+    """Columns of the wide pair table: one per measure, one per direction of an asymmetric one."""
     columns: list[dict] = []
-    for m in table.measures:
+    for m in measures:
         meas = MEASURES[m]
         if meas.symmetric:
             columns.append({"key": m, "measure": m, "label": meas.label, "direction": ""})
         else:
             columns.append({"key": m + ">", "measure": m, "label": meas.label, "direction": "x→y"})
             columns.append({"key": m + "<", "measure": m, "label": meas.label, "direction": "y→x"})
+    return columns
+
+
+def pair_rows_payload(table: PairTable, labels: dict) -> dict:
+    """The wide pair table: one row per unordered pair, every measure's estimate and q, the verdict."""
+    position = {v: i for i, v in enumerate(table.variables)}
+    columns = pair_columns(table.measures)
     col_index = {c["key"]: k for k, c in enumerate(columns)}
-    pairs: dict[tuple[str, str], list] = {}
-    for r in table.rows:
-        i, j = position[r.x], position[r.y]
-        a, b = (r.x, r.y) if i < j else (r.y, r.x)
-        entry = pairs.get((a, b))
-        if entry is None:
-            entry = [a, b, int(r.n), [None] * len(columns), [None] * len(columns), labels.get(_pair_key(a, b))]
-            pairs[(a, b)] = entry
-        key = r.measure if MEASURES[r.measure].symmetric else r.measure + (">" if r.x == a else "<")
-        k = col_index[key]
-        entry[3][k] = _num(r.estimate)
-        entry[4][k] = _num(r.q_value)
-        entry[2] = max(entry[2], int(r.n))
-    rows = sorted(pairs.values(), key=lambda e: (position[e[0]], position[e[1]]))
+    # Arrays over all rows, then one fancy assignment: a Python loop per field and row took
+    # seconds at 45,000 pairs, and this runs before an analysis is marked done.
+    nvar, ncol = len(table.variables), len(columns)
+    rows_ = table.rows
+    xi = np.fromiter((position[r.x] for r in rows_), dtype=np.int64, count=len(rows_))
+    yi = np.fromiter((position[r.y] for r in rows_), dtype=np.int64, count=len(rows_))
+    sym_key = {m: (col_index[m] if MEASURES[m].symmetric else -1) for m in table.measures}
+    base = np.fromiter((sym_key[r.measure] if sym_key[r.measure] >= 0 else col_index[r.measure + ">"]
+                        for r in rows_), dtype=np.int64, count=len(rows_))
+    forward = xi < yi
+    asym = np.fromiter((sym_key[r.measure] < 0 for r in rows_), dtype=bool, count=len(rows_))
+    col = np.where(asym & ~forward, base + 1, base)   # "<" sits right after ">"
+    lo, hi = np.minimum(xi, yi), np.maximum(xi, yi)
+    slot = lo * nvar + hi                              # one slot per unordered pair
+    est = np.full((nvar * nvar, ncol), np.nan)
+    qv = np.full((nvar * nvar, ncol), np.nan)
+    nn = np.zeros(nvar * nvar, dtype=np.int64)
+    est[slot, col] = np.fromiter((r.estimate for r in rows_), dtype=float, count=len(rows_))
+    qv[slot, col] = np.fromiter((r.q_value for r in rows_), dtype=float, count=len(rows_))
+    np.maximum.at(nn, slot, np.fromiter((int(r.n) for r in rows_), dtype=np.int64, count=len(rows_)))
+    used = np.unique(slot)                             # sorted: input order of (x, y)
+    est_l = np.where(np.isfinite(est[used]), est[used], np.nan).tolist()
+    q_l = qv[used].tolist()
+    names = table.variables
+    rows = []
+    for t, s_ in enumerate(used.tolist()):
+        a, b = names[s_ // nvar], names[s_ % nvar]
+        e = [None if v != v or v in (math.inf, -math.inf) else v for v in est_l[t]]
+        q = [None if v != v or v in (math.inf, -math.inf) else v for v in q_l[t]]
+        rows.append([a, b, int(nn[s_]), e, q, labels.get(_pair_key(a, b))])
     body = {"columns": columns, "rows": rows, "alpha": config.SIGNIFICANCE_LEVEL}
     return {"columns": columns, "n_rows": len(rows), "embedded": embed_json(body)}
+
+
+class PairGrid:
+    """The wide pair table as arrays, for the server-side sort, filter and paging of the analysis page.
+
+    One row per unordered pair: names, n, every measure column's estimate and
+    q (two columns for an asymmetric measure, one per direction) and the verdict.
+    """
+
+    SORTS = ("evidence", "x", "y", "n", "verdict")
+
+    def __init__(self, body: dict) -> None:
+        self.columns = body["columns"]
+        rows = body["rows"]
+        c = len(self.columns)
+        self.x = [r[0] for r in rows]
+        self.y = [r[1] for r in rows]
+        self.n = np.array([r[2] for r in rows], dtype=float)
+        self.est = np.array([[np.nan if v is None else v for v in r[3]] for r in rows], dtype=float).reshape(-1, c)
+        self.q = np.array([[np.nan if v is None else v for v in r[4]] for r in rows], dtype=float).reshape(-1, c)
+        self.verdict = [r[5] or "" for r in rows]
+        self.rows = rows
+        self._lower_x = [v.lower() for v in self.x]
+        self._lower_y = [v.lower() for v in self.y]
+        with np.errstate(invalid="ignore"):
+            qmin = np.where(np.isnan(self.q), np.inf, self.q).min(axis=1) if c else np.zeros(len(rows))
+            emax = np.nan_to_num(np.abs(self.est), nan=-1.0).max(axis=1) if c else np.zeros(len(rows))
+        # Strength of evidence: the smallest q over the measures, then the largest |estimate|.
+        self._evidence = np.lexsort((-emax, qmin))
+
+    def verdicts(self) -> list[str]:
+        return sorted({v for v in self.verdict if v})
+
+    def query(self, *, sort: str = "evidence", descending: bool = False, text: str = "", column: int = -1,
+              q_below: float | None = None, verdict: str = "") -> np.ndarray:
+        """Indices of the rows that pass the filters, in the asked order.
+
+        ``sort`` is one of :attr:`SORTS` or ``"est:K"`` / ``"q:K"`` for column K;
+        an estimate sorts by its size |estimate|; ``descending`` reverses the
+        order; missing values come last either way.
+        """
+        keep = np.ones(len(self.rows), dtype=bool)
+        text = (text or "").strip().lower()
+        if text:
+            keep &= np.array([text in a or text in b for a, b in zip(self._lower_x, self._lower_y)], dtype=bool)
+        if 0 <= column < len(self.columns) and q_below is not None:
+            with np.errstate(invalid="ignore"):
+                keep &= self.q[:, column] < q_below
+        if verdict:
+            keep &= np.array([v == verdict for v in self.verdict], dtype=bool)
+        if sort == "evidence":
+            order = self._evidence
+            if descending:
+                order = order[::-1]
+        else:
+            kind, _, col = sort.partition(":")
+            if kind in ("est", "q"):
+                k = int(col)
+                if not 0 <= k < len(self.columns):
+                    raise ValueError(f"no column {k}")
+                values = np.abs(self.est[:, k]) if kind == "est" else self.q[:, k]
+                order = np.argsort(-values if descending else values, kind="stable")
+                missing = np.isnan(values[order])
+                order = np.concatenate([order[~missing], order[missing]])  # missing last either way
+            elif kind == "n":
+                order = np.argsort(-self.n if descending else self.n, kind="stable")
+            elif kind in ("x", "y", "verdict"):
+                keys = {"x": self.x, "y": self.y, "verdict": self.verdict}[kind]
+                order = np.array(sorted(range(len(keys)), key=lambda i: keys[i].lower(), reverse=descending),
+                                 dtype=int)
+            else:
+                raise ValueError(f"sort by one of {', '.join(self.SORTS)}, est:K or q:K, not {sort!r}")
+        return order[keep[order]]
+
+    def records(self, index: np.ndarray) -> list[dict]:
+        """Rows as JSON records: names, n, one ``{label, direction, estimate, q_value}`` per column, verdict."""
+        out = []
+        for i in index:
+            r = self.rows[int(i)]
+            out.append({"x": r[0], "y": r[1], "n": r[2],
+                        "values": [{"key": c["key"], "estimate": r[3][k], "q_value": r[4][k]}
+                                   for k, c in enumerate(self.columns)],
+                        "verdict": r[5]})
+        return out
+
+    def csv(self, index: np.ndarray) -> str:
+        """Rows as CSV in the asked order; names neutralised as in every CSV pairlens writes."""
+        import csv
+        import io
+
+        from ..export import neutralise_cell
+
+        buf = io.StringIO()
+        w = csv.writer(buf, lineterminator="\n")
+        head = ["x", "y", "n"]
+        for c in self.columns:
+            name = c["measure"] + ("" if not c["direction"] else ("_xy" if c["key"].endswith(">") else "_yx"))
+            head += [name, name + "_q"]
+        w.writerow(head + ["verdict"])
+        for i in index:
+            r = self.rows[int(i)]
+            cells = [neutralise_cell(r[0]), neutralise_cell(r[1]), r[2]]
+            for k in range(len(self.columns)):
+                cells += ["" if r[3][k] is None else repr(r[3][k]), "" if r[4][k] is None else repr(r[4][k])]
+            w.writerow(cells + [r[5] or ""])
+        return buf.getvalue()
 
 
 def precompute_pages(table: PairTable, verdicts: dict) -> dict:
@@ -329,7 +456,7 @@ def precompute_pages(table: PairTable, verdicts: dict) -> dict:
     heat = heatmap_payload(table, list(range(len(table.variables))), diff)
     rows = pair_rows_payload(table, verdicts.get("labels", {}))
     return {"heatmaps": {"diff": list(diff) if diff else None, "order": heat["order"], "top": heat["top"],
-                         "embedded": str(heat["embedded"])},
+                         "embedded": str(heat["embedded"]), "format": MAPS_FORMAT},
             "pairrows": {"columns": rows["columns"], "n_rows": rows["n_rows"], "embedded": str(rows["embedded"])}}
 
 
@@ -571,6 +698,7 @@ class Workspace:
         table = self.pair_table(row)
         self.heatmaps(row, None, self.default_difference(table.measures))
         self.pair_rows(row)
+        self.significance_counts(row)
 
     def _key_lock(self, key) -> threading.Lock:
         with self._locks_guard:
@@ -591,7 +719,8 @@ class Workspace:
     def _build_heatmaps(self, row: AnalysisRow, cluster_on, diff, key) -> dict:
         table = self.pair_table(row)
         stored = (self._results(row).get("pages") or {}).get("heatmaps")
-        if stored and cluster_on is None and diff is not None and list(diff) == stored["diff"]:
+        if (stored and stored.get("format") == MAPS_FORMAT and cluster_on is None and diff is not None
+                and list(diff) == stored["diff"]):
             out = {"order": stored["order"], "top": stored["top"], "embedded": Markup(stored["embedded"])}
         else:
             out = heatmap_payload(table, self.order(row, cluster_on), diff)
@@ -615,6 +744,34 @@ class Workspace:
             else:
                 out = pair_rows_payload(self.pair_table(row), self.verdicts(row).get("labels", {}))
             return self._figures.put(key, out)
+
+    def significance_counts(self, row: AnalysisRow) -> tuple[dict, dict]:
+        """Per measure: pairs with q below the significance level, and pairs with a q at all (cached)."""
+        key = ("significance", row.id)
+        cached = self._figures.get(key)
+        if cached is None:
+            table = self.pair_table(row)
+            significant = {m: 0 for m in table.measures}
+            tested = {m: 0 for m in table.measures}
+            alpha = config.SIGNIFICANCE_LEVEL
+            for r in table.rows:
+                if r.q_value == r.q_value:  # a defined q: the pair was tested
+                    tested[r.measure] += 1
+                    if r.q_value < alpha:
+                        significant[r.measure] += 1
+            cached = self._figures.put(key, (significant, tested))
+        return cached
+
+    def pair_grid(self, row: AnalysisRow) -> PairGrid:
+        """The pair table as arrays for the paged endpoint (built once per analysis and verdict change)."""
+        key = ("pairgrid", row.id)
+        cached = self._figures.get(key)
+        if cached is not None and not self._results(row).get("labels_changed_grid"):
+            return cached
+        with self._key_lock(key):
+            body = json.loads(str(self.pair_rows(row)["embedded"]))
+            self._results(row)["labels_changed_grid"] = False
+            return self._figures.put(key, PairGrid(body))
 
     def pair(self, row: AnalysisRow, x: str, y: str) -> dict:
         """:func:`app.engine.pair_detail` with points, q-values from the analysis, cached per pair."""
@@ -640,6 +797,7 @@ class Workspace:
             a, b = sorted((x, y), key=table.variables.index)
             labels[_pair_key(a, b)] = pattern["label"]
             self._results(row)["labels_changed"] = True
+            self._results(row)["labels_changed_grid"] = True
             self._figures.pop(("pairrows", row.id))
         return self._details.put(key, detail)
 

@@ -12,7 +12,7 @@ from ..engine import SettingsError
 from ..ingest import IngestError
 from ..methods import methods_content
 from ..store import UploadTooLarge
-from .deps import Workspace, embed_json, get_workspace
+from .deps import Workspace, embed_json, get_workspace, pair_columns
 from . import plots
 
 router = APIRouter(include_in_schema=False)
@@ -143,16 +143,18 @@ def analysis_page(analysis_id: str, request: Request, order: str = "input", diff
     if difference is None:
         difference = ws.default_difference(table.measures)
     figures = ws.heatmaps(row, cluster_on, difference)
-    pair_rows = ws.pair_rows(row)
+    # Only the table's columns here: its rows come page by page from /api/.../pair-table, so a
+    # verdict learnt since (which rebuilds the rows) never delays the maps.
+    columns = pair_columns(table.measures)
+    k = len(table.variables)
     verdicts = ws.verdicts(row)
+    significant, tested = ws.significance_counts(row)
     context.update({
         "table": table, "measures": table.measures, "order": cluster_on or "input",
-        "difference": difference, "figures": figures, "pair_rows": pair_rows,
-        "top_pairs": figures["top"],
-        "verdicts": verdicts, "n_pairs": pair_rows["n_rows"],
-        "n_variables": len(table.variables), "significant": {
-            m: sum(1 for r in table.rows if r.measure == m and r.q_value == r.q_value
-                   and r.q_value < config.SIGNIFICANCE_LEVEL) for m in table.measures},
+        "difference": difference, "figures": figures, "order_names": figures["order"],
+        "pair_columns": columns, "pair_columns_json": embed_json(columns),
+        "top_pairs": figures["top"], "verdicts": verdicts, "n_pairs": k * (k - 1) // 2,
+        "n_variables": len(table.variables), "significant": significant, "tested": tested,
     })
     return _render(request, "analysis.html", context)
 

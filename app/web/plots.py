@@ -501,3 +501,106 @@ def rank_figure(detail: dict) -> dict:
         "paper_bgcolor": "rgba(0,0,0,0)", "plot_bgcolor": "#fbfcfc", "showlegend": False,
     }
     return {"data": [trace], "layout": layout}
+
+
+def _rounded_for_display(a: np.ndarray) -> np.ndarray:
+    """What :func:`app.formatting.fmt` would show, as numbers: 3 decimals, or 2 significant digits when small."""
+    a = np.asarray(a, dtype=float)
+    small = np.isfinite(a) & (np.abs(a) < 1e-3) & (a != 0)
+    out = np.round(a, 3)
+    if small.any():
+        out[small] = _round_significant(a[small], 2)
+    return out
+
+
+def _flat(a: np.ndarray, symmetric: bool) -> list:
+    """Row by row; only the upper triangle (i < j) when the matrix is symmetric."""
+    v = a[np.triu_indices(a.shape[0], 1)] if symmetric else a.ravel()
+    out = v.tolist()
+    for i in np.flatnonzero(~np.isfinite(v)):
+        out[int(i)] = None
+    return out
+
+
+def _scale_stops(measure: str) -> list:
+    scale, lo, hi = colour_range(measure)
+    if isinstance(scale, str):  # "Cividis": the named plotly scale, its stops written out
+        try:
+            from plotly.colors import sequential
+
+            stops = _stops(sequential.Cividis)
+        except Exception:  # pragma: no cover - plotly is a dependency
+            stops = _stops(["rgb(0,32,76)", "rgb(65,77,107)", "rgb(124,123,120)", "rgb(188,175,111)",
+                            "rgb(255,233,69)"])
+        return stops
+    return scale
+
+
+def map_payload(table, order: Sequence[int] | None = None, diff: tuple[str, str] | None = None,
+                alpha: float = config.SIGNIFICANCE_LEVEL) -> dict:
+    """Everything the canvas maps of the analysis page and the report draw, in one order.
+
+    Parameters
+    ----------
+    table : app.engine.PairTable
+    order : sequence of int, optional
+        Order of the variables (indices into ``table.variables``).
+    diff : (str, str), optional
+        Measures ``a, b`` of the difference map ``a − |b|`` (stronger direction of an asymmetric one).
+    alpha : float
+        Cells with q below ``alpha`` are drawn at full colour, the others paler.
+
+    Returns
+    -------
+    dict
+        ``{"variables", "alpha", "maps": [{"key", "measure", "label", "signed", "symmetric", "lo",
+        "hi", "stops", "est", "q"}]}``; ``est`` and ``q`` are the k x k matrices flattened row by
+        row (row = x, column = y for an asymmetric measure; only the cells above the diagonal
+        for a symmetric one), rounded as the pages print them, missing values None. A difference map has ``q`` None.
+    """
+    k = len(table.variables)
+    order = list(range(k)) if order is None else [int(i) for i in order]
+    idx = np.asarray(order, dtype=int)
+    # One pass over the rows for every measure's estimate and q (PairTable.matrix walks all rows per call).
+    position = {v: i for i, v in enumerate(table.variables)}
+    full = {m: (np.full((k, k), np.nan), np.full((k, k), np.nan)) for m in table.measures}
+    for r in table.rows:
+        target = full.get(r.measure)
+        if target is None:
+            continue
+        i, j = position[r.x], position[r.y]
+        target[0][i, j], target[1][i, j] = r.estimate, r.q_value
+        if MEASURES[r.measure].symmetric:
+            target[0][j, i], target[1][j, i] = r.estimate, r.q_value
+    maps = []
+    for m in table.measures:
+        meas = MEASURES[m]
+        _, lo, hi = colour_range(m)
+        est = full[m][0][np.ix_(idx, idx)]
+        q = full[m][1][np.ix_(idx, idx)]
+        maps.append({"key": m, "measure": m, "label": meas.label, "signed": bool(meas.signed),
+                     "symmetric": bool(meas.symmetric), "lo": float(lo), "hi": float(hi),
+                     "stops": _scale_stops(m), "est": _flat(_rounded_for_display(est), meas.symmetric),
+                     "q": _flat(_rounded_for_display(q), meas.symmetric)})
+    top: list[dict] = []
+    if diff:
+        a_name, b_name = diff
+        a, b = full[a_name][0].copy(), full[b_name][0].copy()
+        if not MEASURES[a_name].symmetric:
+            a = np.fmax(a, a.T)
+        if not MEASURES[b_name].symmetric:
+            b = np.fmax(b, b.T)
+        d = (a - np.abs(b))[np.ix_(idx, idx)]
+        finite = np.abs(d[np.isfinite(d)])
+        bound = float(max(0.05, finite.max() if finite.size else 1.0))
+        la, lb = MEASURES[a_name].label, MEASURES[b_name].label
+        maps.append({"key": "difference", "measure": None, "label": f"{la} − |{lb}|", "signed": True,
+                     "symmetric": True, "lo": -bound, "hi": bound, "stops": SIGNED_SCALE,
+                     "est": _flat(_rounded_for_display(d), True), "q": None})
+        names = [table.variables[i] for i in order]
+        iu = np.triu_indices(k, 1)
+        vals = d[iu]
+        good = np.flatnonzero(np.isfinite(vals))
+        best = good[np.argsort(-vals[good], kind="stable")][:15]
+        top = [{"x": names[iu[0][t]], "y": names[iu[1][t]], "difference": float(vals[t])} for t in best]
+    return {"variables": [table.variables[i] for i in order], "alpha": alpha, "maps": maps, "top": top}
