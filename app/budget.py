@@ -1,4 +1,4 @@
-"""Up-front estimate of an analysis's work, and its refusal beyond the budget in :mod:`app.config`.
+"""Up-front estimate of an analysis's work, and its refusal beyond the budget in :mod:`pairlens.config`.
 
 The estimate is made before anything runs, from the plan alone (pairs, measures, rows,
 permutations), so a request that would compute for hours, or produce a pair table

@@ -254,7 +254,7 @@ _IMPLIED_LABELS = {"mi": "mutual information"}
 
 
 def format_detail(d: dict) -> str:
-    """A readable text form of :func:`app.engine.pair_detail`."""
+    """A readable text form of :func:`pairlens.engine.pair_detail`."""
     lines = [f"{d['x']}  vs  {d['y']}    (n = {d['n']} rows with both values)", ""]
     lines.append(f"{'measure':<10} {'estimate':>10} {'interval':>22} {'p-value':>10}  method / note")
     for name, m in d["measures"].items():

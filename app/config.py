@@ -99,7 +99,7 @@ SPEARMAN_SMALL_N_PERMUTATIONS = 9999
 # the t approximation's worst excess is at the smallest n, which stays covered.
 SPEARMAN_TIED_PERMUTATION_MAX_N = 29
 # Every default p-value is raised, where an approximation puts it lower, to the smallest
-# value a permutation test on the rows allows (app.core.testing.permutation_floor). Above
+# value a permutation test on the rows allows (pairlens.core.testing.permutation_floor). Above
 # this many rows that floor is 0 in float64 for all but almost wholly tied columns, and is
 # not computed.
 PVALUE_FLOOR_MAX_N = 1000
@@ -124,7 +124,7 @@ DEFAULT_TEST_PERMUTATIONS = 9_999
 DEFAULT_HOST = "127.0.0.1"
 DEFAULT_PORT = 8000
 MAX_CONCURRENT_ANALYSES = 2
-# After the pair table the background job labels pairs (app.core.verdict) for this
+# After the pair table the background job labels pairs (pairlens.core.verdict) for this
 # long at most, most significant pairs first; the rest get their label when their
 # pair view opens. Measured: about 50 ms per pair at n = 960 (153 pairs in 8 s).
 VERDICT_BUDGET_SECONDS = 10.0

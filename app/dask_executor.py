@@ -240,7 +240,7 @@ class DaskExecutor:
         try:
             answers = {"scheduler": self.client.run_on_scheduler(_worker_probe)}
             answers.update(self.client.run(_worker_probe))
-        except Exception as exc:  # noqa: BLE001 - usually ModuleNotFoundError: No module named 'app'
+        except Exception as exc:  # noqa: BLE001 - usually ModuleNotFoundError: No module named 'pairlens'
             raise ClusterUnavailable(
                 f"the Dask cluster at {self.address} cannot run pairlens ({type(exc).__name__}: "
                 f"{_one_line(exc)}); install pairlens on the scheduler and every worker: "

@@ -1370,7 +1370,7 @@ def _spawn_context():
             ctx = multiprocessing.get_context("forkserver" if "forkserver" in methods else "spawn")
             if "forkserver" in methods:
                 ctx.set_forkserver_preload(["numpy", "pandas", "pyarrow", "pyarrow.csv", "pyarrow.parquet",
-                                            "openpyxl", "app.ingest"])
+                                            "openpyxl", "pairlens.ingest"])
             _context = ctx
         return _context
 
@@ -1396,7 +1396,7 @@ def load_file_isolated(path: str | Path, name: str, *, sheet: str | None = None,
     import types
 
     with _context_lock:
-        # The child needs app.ingest only; without this, multiprocessing re-runs the caller's main
+        # The child needs pairlens.ingest only; without this, multiprocessing re-runs the caller's main
         # script (a user's script, the CLI, a test runner) in the child before parsing.
         main = sys.modules["__main__"]
         sys.modules["__main__"] = types.ModuleType("__main__")

@@ -2,10 +2,10 @@
 
 The web server never computes a pair table itself. :class:`JobManager` keeps a
 queue (at most ``config.MAX_CONCURRENT_ANALYSES`` run at once) and starts a
-child process per analysis: a fresh interpreter running ``python -m app.jobs``
+child process per analysis: a fresh interpreter running ``python -m pairlens.jobs``
 (never a fork of the threaded server, and independent of the server's main
 module). The child (:func:`run_job`) reads the
-dataset's bytes from the store, calls :func:`app.engine.run_analysis` with a
+dataset's bytes from the store, calls :func:`pairlens.engine.run_analysis` with a
 progress callback that writes to SQLite and a cancel callback that reads the
 analysis's cancel flag, then computes per-pair verdicts within a time budget
 and writes the results and the ``done`` status in one transaction.
@@ -314,7 +314,7 @@ _DISK_FULL_EXIT = 28  # ENOSPC's number: the child could not even write its fina
 
 
 def _child_command(data_dir: str, analysis_id: str, workers: int | None, cluster: str | None) -> list[str]:
-    cmd = [sys.executable, "-m", "app.jobs", str(data_dir), analysis_id]
+    cmd = [sys.executable, "-m", "pairlens.jobs", str(data_dir), analysis_id]
     if workers:
         cmd += ["--workers", str(int(workers))]
     if cluster:
@@ -536,8 +536,8 @@ class JobManager:
 
 
 def main(argv: list[str] | None = None) -> int:
-    """Child-process entry point: ``python -m app.jobs DATA_DIR ANALYSIS_ID``."""
-    parser = argparse.ArgumentParser(prog="python -m app.jobs", description="run one queued pairlens analysis")
+    """Child-process entry point: ``python -m pairlens.jobs DATA_DIR ANALYSIS_ID``."""
+    parser = argparse.ArgumentParser(prog="python -m pairlens.jobs", description="run one queued pairlens analysis")
     parser.add_argument("data_dir")
     parser.add_argument("analysis_id")
     parser.add_argument("--workers", type=int, default=None)

@@ -61,7 +61,7 @@ def _frame(table: "Table") -> "pd.DataFrame":
 
 
 def _table_from_frame(df: "pd.DataFrame", name: str | None) -> "Table":
-    """The :class:`~app.ingest.Table` behind ``df``: the one read() made when unchanged, else a new one."""
+    """The :class:`~pairlens.ingest.Table` behind ``df``: the one read() made when unchanged, else a new one."""
     import numpy as np
     import pandas as pd
 
@@ -126,7 +126,7 @@ def read(path: str | os.PathLike, *, sheet: str | None = None) -> "pd.DataFrame"
 
     Raises
     ------
-    app.ingest.IngestError
+    pairlens.ingest.IngestError
         The file cannot be used; the message names the file, the problem and a fix.
 
     Notes
@@ -210,7 +210,7 @@ def analyze(df: "pd.DataFrame", *, measures=None, columns=None, groups=None, mis
 
     Raises
     ------
-    app.errors.SettingsError
+    pairlens.errors.SettingsError
         An option is not valid; the message says which and what is allowed.
 
     Notes

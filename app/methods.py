@@ -1,6 +1,6 @@
 """What pairlens computes and how, as structured data for the report and the dashboard.
 
-The measure entries come from :data:`app.core.registry.MEASURES` (formula,
+The measure entries come from :data:`pairlens.core.registry.MEASURES` (formula,
 reference, default test, interval), so a new measure shows up here without
 an edit. The text about p-values, q-values, intervals, the Gaussian fit and
 the verdict is ours. Everything is plain strings, lists and dicts, ready for
@@ -307,9 +307,9 @@ def methods_content(measures: Iterable[str] | None = None, *, settings=None, pai
     ----------
     measures : iterable of str, optional
         Measures to describe (default: those of ``settings``, else all).
-    settings : app.engine.AnalysisSettings, optional
+    settings : pairlens.engine.AnalysisSettings, optional
         Adjustment, confidence, permutations and missing policy to describe.
-    pair_table : app.engine.PairTable, optional
+    pair_table : pairlens.engine.PairTable, optional
         When given, the p-value methods actually used are counted per measure.
     """
     if measures is None and settings is not None:

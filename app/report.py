@@ -111,17 +111,17 @@ def _finite(v) -> bool:
 
 
 def fmt_estimate(v) -> str:
-    """An estimate by the one rule of :mod:`app.formatting` (three decimals)."""
+    """An estimate by the one rule of :mod:`pairlens.formatting` (three decimals)."""
     return formatting.fmt_est(v)
 
 
 def fmt_p(v) -> str:
-    """A p- or q-value by the one rule of :mod:`app.formatting`."""
+    """A p- or q-value by the one rule of :mod:`pairlens.formatting`."""
     return formatting.fmt_p(v)
 
 
 def fmt_num(v, digits: int = 4) -> str:
-    """Any other number by the one rule of :mod:`app.formatting` (``digits`` is ignored)."""
+    """Any other number by the one rule of :mod:`pairlens.formatting` (``digits`` is ignored)."""
     return formatting.fmt(v)
 
 
@@ -666,10 +666,10 @@ def build_report(table, pair_table: PairTable, *, command: str, generated_at: da
 
     Parameters
     ----------
-    table : app.ingest.Table
+    table : pairlens.ingest.Table
         The data the analysis ran on (fingerprint, columns, values for scatters).
-    pair_table : app.engine.PairTable
-        Result of :func:`app.engine.run_analysis` on ``table``.
+    pair_table : pairlens.engine.PairTable
+        Result of :func:`pairlens.engine.run_analysis` on ``table``.
     command : str
         The ``pairlens report ...`` command line that reproduces the file.
     generated_at : datetime, optional

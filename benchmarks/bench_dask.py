@@ -40,11 +40,11 @@ REPO = Path(__file__).resolve().parents[1]
 # Run this process and the cluster from one copy of the package taken now, so that edits to the
 # working tree during a long benchmark cannot give the client and the workers different code.
 SOURCE_COPY = Path(tempfile.mkdtemp(prefix="pairlens-bench-src-"))
-shutil.copytree(REPO / "app", SOURCE_COPY / "app", ignore=shutil.ignore_patterns("__pycache__"))
+shutil.copytree(REPO / "app", SOURCE_COPY / "pairlens", ignore=shutil.ignore_patterns("__pycache__"))
 sys.path.insert(0, str(SOURCE_COPY))
 
-from app.dask_executor import DaskExecutor  # noqa: E402
-from app.engine import AnalysisSettings, run_analysis  # noqa: E402
+from pairlens.dask_executor import DaskExecutor  # noqa: E402
+from pairlens.engine import AnalysisSettings, run_analysis  # noqa: E402
 
 MEASURES = "pearson,spearman,kendall,dcor"
 

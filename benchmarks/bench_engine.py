@@ -7,7 +7,7 @@
 Not a test: nothing here asserts a speed. It prints, per workload, medians over
 ``--repeats`` runs of
 
-* whole process: ``python -m app.cli pairs DATA.csv -o OUT.csv ...`` in a
+* whole process: ``python -m pairlens.cli pairs DATA.csv -o OUT.csv ...`` in a
   subprocess against ``python benchmarks/baseline_loop.py DATA.csv ...`` in a
   subprocess (imports, reading the CSV, the loop, writing the table), with the
   ratio baseline / ours and the peak memory of each (``ru_maxrss`` of the
@@ -177,7 +177,7 @@ def write_csv(path: Path, data: np.ndarray, names: list[str]) -> None:
 # --- runs -------------------------------------------------------------------------------
 
 def ours_cmd(csv: Path, out: Path, measures: str, workers: int, permutations: int = 0) -> list[str]:
-    cmd = [sys.executable, "-m", "app.cli", "pairs", str(csv), "-o", str(out), "--measures", measures,
+    cmd = [sys.executable, "-m", "pairlens.cli", "pairs", str(csv), "-o", str(out), "--measures", measures,
            "--workers", str(workers)]
     if permutations:
         cmd += ["--permutations", str(permutations)]
@@ -196,8 +196,8 @@ def baseline_cmd(csv: Path, out: Path, measures: str, *, test: str = "ttest", pe
 def engine_seconds(csv: Path, measures: tuple[str, ...], workers: int, repeats: int,
                    permutations: int = 0, rows: int | None = None, columns: int | None = None):
     """Median in-process run_analysis time (the table read once, outside the timing)."""
-    from app.engine import AnalysisSettings, run_analysis
-    from app.ingest import load_table
+    from pairlens.engine import AnalysisSettings, run_analysis
+    from pairlens.ingest import load_table
 
     table = load_table(csv)
     data, names = table.data, list(table.columns)
@@ -369,8 +369,8 @@ def w3(args, tmp: Path, report: dict) -> None:
 
 def w4(args, tmp: Path, report: dict) -> None:
     """Long tables: 10 columns, 10^4 .. 10^6 rows, default measures; exponent in n and ratio per size."""
-    from app import config
-    from app.engine import AnalysisSettings, run_analysis
+    from pairlens import config
+    from pairlens.engine import AnalysisSettings, run_analysis
 
     sizes = [10_000, 30_000, 100_000] if args.quick else [10_000, 100_000, 300_000, 1_000_000]
     p = 10
@@ -420,7 +420,7 @@ def w4(args, tmp: Path, report: dict) -> None:
 
 def startup(args, report: dict) -> None:
     """Import cost of the pair-table command and of the baseline's libraries."""
-    code_ours = ("import time; t=time.perf_counter(); import app.cli, app.ingest, app.engine, app.export; "
+    code_ours = ("import time; t=time.perf_counter(); import pairlens.cli, pairlens.ingest, pairlens.engine, pairlens.export; "
                  "import sys; print(time.perf_counter()-t, 'scipy.stats' in sys.modules, 'numba' in sys.modules)")
     code_base = ("import time; t=time.perf_counter(); import pandas, scipy.stats, dcor; "
                  "print(time.perf_counter()-t)")

@@ -5,11 +5,11 @@
 
 For each n it draws random permutations of untied ranks (the null law of rho:
 every pairing equally likely), or counts all of them exactly where
-app.core.rank can (n <= 14), and prints the actual rejection rate of the t
+pairlens.core.rank can (n <= 14), and prints the actual rejection rate of the t
 approximation (n-2 df, scipy.stats.spearmanr's p-value) and of the Edgeworth
 series (AS 89) at alpha = 0.05, 0.01, 0.005, 0.001 as a ratio to alpha: above 1
 the approximation rejects more often than it claims. The handover n
-(app.config.SPEARMAN_T_MIN_N) was chosen from this table (README, "p-values").
+(pairlens.config.SPEARMAN_T_MIN_N) was chosen from this table (README, "p-values").
 """
 
 from __future__ import annotations
@@ -23,7 +23,7 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from app.core import linear, rank  # noqa: E402
+from pairlens.core import linear, rank  # noqa: E402
 
 ALPHAS = (0.05, 0.01, 0.005, 0.001)
 

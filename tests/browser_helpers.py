@@ -34,7 +34,7 @@ class Server:
         self.port = free_port()
         self.base = f"http://127.0.0.1:{self.port}"
         self.data_dir = data_dir
-        args = [sys.executable, "-m", "app.cli", "serve", "--port", str(self.port), "--data-dir", str(data_dir)]
+        args = [sys.executable, "-m", "pairlens.cli", "serve", "--port", str(self.port), "--data-dir", str(data_dir)]
         if demo:
             args.append("--demo")
         if max_upload_mb is not None:

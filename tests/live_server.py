@@ -23,7 +23,7 @@ def free_port() -> int:
 
 
 class LiveServer:
-    """``python -m app.cli serve`` bound to 127.0.0.1; its own session so the whole group can be killed."""
+    """``python -m pairlens.cli serve`` bound to 127.0.0.1; its own session so the whole group can be killed."""
 
     def __init__(self, data_dir: Path, *, port: int | None = None, args: tuple[str, ...] = (),
                  start_timeout: float = 60.0) -> None:
@@ -33,7 +33,7 @@ class LiveServer:
         self.log_path = self.data_dir.parent / f"serve-{self.port}-{time.monotonic_ns()}.log"
         env = dict(os.environ)
         env["PYTHONPATH"] = str(ROOT) + (os.pathsep + env["PYTHONPATH"] if env.get("PYTHONPATH") else "")
-        cmd = [sys.executable, "-m", "app.cli", "serve", "--host", "127.0.0.1", "--port", str(self.port),
+        cmd = [sys.executable, "-m", "pairlens.cli", "serve", "--host", "127.0.0.1", "--port", str(self.port),
                "--data-dir", str(self.data_dir), *args]
         self._log = open(self.log_path, "wb")
         self.proc = subprocess.Popen(cmd, cwd=str(ROOT), env=env, stdout=self._log, stderr=subprocess.STDOUT,

@@ -16,11 +16,11 @@ import scipy.stats
 from scipy import special
 
 import dcor as dcor_lib
-from app.core import allpairs, chatterjee, distance, rank
-from app.core.registry import MEASURES
-from app.engine import (AnalysisSettings, _fast_pair_rows, _pairs, compute_pair, plan_variables,
+from pairlens.core import allpairs, chatterjee, distance, rank
+from pairlens.core.registry import MEASURES
+from pairlens.engine import (AnalysisSettings, _fast_pair_rows, _pairs, compute_pair, plan_variables,
                         prepare_columns, run_analysis)
-from app.executors import ProcessExecutor, SerialExecutor
+from pairlens.executors import ProcessExecutor, SerialExecutor
 
 ALL = tuple(MEASURES)
 FIELDS = ("x", "y", "measure", "estimate", "ci_low", "ci_high", "p_value", "n", "note", "method")

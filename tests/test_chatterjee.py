@@ -9,9 +9,9 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from app import config
-from app.core.chatterjee import xi, xi_null_variance
-from app.core.testing import pair_seed
+from pairlens import config
+from pairlens.core.chatterjee import xi, xi_null_variance
+from pairlens.core.testing import pair_seed
 
 
 def _scipy_xi(x, y):

@@ -15,7 +15,7 @@ CONTRACT_FIELDS = ["x", "y", "measure", "estimate", "ci_low", "ci_high", "p_valu
 
 
 def _run(*args, timeout=120):
-    return subprocess.run([sys.executable, "-m", "app.cli", *args], capture_output=True, text=True, timeout=timeout)
+    return subprocess.run([sys.executable, "-m", "pairlens.cli", *args], capture_output=True, text=True, timeout=timeout)
 
 
 @pytest.fixture()
@@ -98,8 +98,8 @@ def test_a_bad_file_is_reported_before_bad_options(small_csv):
 def test_every_option_of_every_command_has_help_and_shows_its_default():
     import argparse
 
-    from app import config
-    from app.cli import build_parser
+    from pairlens import config
+    from pairlens.cli import build_parser
 
     parser = build_parser()
     subparsers = next(a for a in parser._actions if isinstance(a, argparse._SubParsersAction))
@@ -117,9 +117,9 @@ def test_every_option_of_every_command_has_help_and_shows_its_default():
 
 
 def test_version_and_module_entry_point():
-    from app import __version__
+    from pairlens import __version__
 
-    out = subprocess.run([sys.executable, "-m", "app", "--version"], capture_output=True, text=True, timeout=60)
+    out = subprocess.run([sys.executable, "-m", "pairlens", "--version"], capture_output=True, text=True, timeout=60)
     assert out.returncode == 0 and out.stdout.strip() == f"pairlens {__version__}"
 
 
@@ -132,7 +132,7 @@ def test_inspect_text_explains_mutual_information(small_csv):
 def test_serve_takes_its_port_from_pairlens_port(tmp_path):
     # a bad PAIRLENS_PORT is a usage error on one line (exit 2), found before anything starts
     env = dict(os.environ, PAIRLENS_PORT="eighty")
-    out = subprocess.run([sys.executable, "-m", "app.cli", "serve", "--data-dir", str(tmp_path)],
+    out = subprocess.run([sys.executable, "-m", "pairlens.cli", "serve", "--data-dir", str(tmp_path)],
                          capture_output=True, text=True, timeout=120, env=env)
     assert out.returncode == 2
     assert out.stderr.strip().splitlines() == [
@@ -140,7 +140,7 @@ def test_serve_takes_its_port_from_pairlens_port(tmp_path):
 
 
 def test_default_port_reads_the_environment(monkeypatch):
-    from app import config
+    from pairlens import config
 
     monkeypatch.delenv("PAIRLENS_PORT", raising=False)
     assert config.default_port() == config.DEFAULT_PORT == 8000
@@ -169,7 +169,7 @@ def test_test_option_with_an_unknown_method_exits_2_with_the_allowed_names(small
 
 
 def test_test_option_survives_the_reproduce_arguments():
-    from app.engine import AnalysisSettings
+    from pairlens.engine import AnalysisSettings
 
     s = AnalysisSettings.from_options(measures="pearson,dcor", tests=["pearson=t", "dcor=permutation"])
     assert s.to_dict()["tests"] == {"pearson": "t", "dcor": "permutation"}

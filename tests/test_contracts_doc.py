@@ -3,7 +3,7 @@
 import argparse
 from pathlib import Path
 
-from app.cli import build_parser
+from pairlens.cli import build_parser
 
 ROOT = Path(__file__).resolve().parents[1]
 

@@ -197,7 +197,7 @@ def test_orphaned_analysis_child_stops_by_itself(tmp_path):
 
 
 def test_finished_results_cannot_be_rewritten(tmp_path):
-    from app.store import Store
+    from pairlens.store import Store
 
     store = Store(tmp_path)
     sha = store.put_blob(b"a,b\n1,2\n2,3\n3,5\n")
@@ -226,7 +226,7 @@ def test_owner_liveness_comes_from_its_lock_not_its_pid(tmp_path):
     import subprocess
     import sys
 
-    from app.store import Store
+    from pairlens.store import Store
 
     store = Store(tmp_path)
     sha = store.put_blob(b"a,b\n1,2\n2,3\n3,5\n")

@@ -31,10 +31,10 @@ distributed = pytest.importorskip(
 import dcor  # noqa: E402
 import scipy.stats as ss  # noqa: E402
 
-from app import config  # noqa: E402
-from app.cli import main  # noqa: E402
-from app.dask_executor import ClusterUnavailable, DaskExecutor, worker_tile_counts  # noqa: E402
-from app.engine import AnalysisCancelled, AnalysisSettings, PairRow, _pairs, _tiles, plan_variables, run_analysis  # noqa: E402
+from pairlens import config  # noqa: E402
+from pairlens.cli import main  # noqa: E402
+from pairlens.dask_executor import ClusterUnavailable, DaskExecutor, worker_tile_counts  # noqa: E402
+from pairlens.engine import AnalysisCancelled, AnalysisSettings, PairRow, _pairs, _tiles, plan_variables, run_analysis  # noqa: E402
 
 REPO = Path(__file__).resolve().parents[1]
 MEASURES = "pearson,spearman,kendall,dcor"
@@ -273,8 +273,8 @@ def test_cancel_stops_the_tiles_on_the_cluster(cluster):
 
 def test_data_left_by_a_dead_client_is_withdrawn_by_the_next_run(cluster):
     # A pairlens process killed mid-run cannot unregister its data plugin; the next run does.
-    from app.dask_executor import _AnalysisData
-    from app.engine import _init_worker
+    from pairlens.dask_executor import _AnalysisData
+    from pairlens.engine import _init_worker
 
     _wait_for_two_workers(cluster)
     data, names = _vineyard_table(n=50, seed=61)
@@ -373,7 +373,7 @@ def test_unreachable_scheduler_is_one_clear_error(monkeypatch, tmp_path, capsys)
 
 
 def test_a_cluster_running_other_pairlens_code_is_refused(cluster, monkeypatch):
-    import app.dask_executor as dx
+    import pairlens.dask_executor as dx
 
     _wait_for_two_workers(cluster)
     monkeypatch.setattr(dx, "_SOURCE_FINGERPRINT", "0" * 16)    # as if this machine had other sources

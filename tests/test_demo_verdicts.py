@@ -13,9 +13,9 @@ import sys
 
 import pytest
 
-from app import config
-from app.engine import AnalysisSettings, pair_detail, run_analysis
-from app.ingest import load_table
+from pairlens import config
+from pairlens.engine import AnalysisSettings, pair_detail, run_analysis
+from pairlens.ingest import load_table
 
 PLANTED = {
     ("soil_moisture_20cm", "soil_moisture_60cm"): "linear",
@@ -75,7 +75,7 @@ def test_every_unplanted_pair_is_called_no_evidence():
 
 
 def test_command_line_pair_table_on_demo_data():
-    out = subprocess.run([sys.executable, "-m", "app.cli", "pairs", str(config.DEMO_FILE)],
+    out = subprocess.run([sys.executable, "-m", "pairlens.cli", "pairs", str(config.DEMO_FILE)],
                          capture_output=True, text=True, timeout=300)
     assert out.returncode == 0, out.stderr
     rows = list(csv.DictReader(io.StringIO(out.stdout)))

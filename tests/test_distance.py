@@ -15,9 +15,9 @@ import numpy as np
 import pytest
 from scipy.stats import special_ortho_group
 
-from app import config
-from app.core import distance
-from app.core.results import TestResult
+from pairlens import config
+from pairlens.core import distance
+from pairlens.core.results import TestResult
 
 ROOT = Path(__file__).resolve().parents[1]
 ATOL = 1e-9
@@ -329,7 +329,7 @@ def test_bivariate_normal_sample_matches_theorem_7():
 _PERF_SCRIPT = textwrap.dedent("""
     import json, time, tracemalloc
     import numpy as np
-    from app.core import distance
+    from pairlens.core import distance
 
     def status_kb(key):
         with open("/proc/self/status") as fh:

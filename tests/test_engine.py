@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 import scipy.stats as ss
 
-from app.core.registry import MEASURES
-from app.engine import AnalysisCancelled, AnalysisSettings, SettingsError, pair_detail, run_analysis
+from pairlens.core.registry import MEASURES
+from pairlens.engine import AnalysisCancelled, AnalysisSettings, SettingsError, pair_detail, run_analysis
 
 
 def _table(seed=0, n=150, missing=0.08):
@@ -173,7 +173,7 @@ def test_note_is_empty_for_defined_values_and_method_is_kept():
 
 def test_permutations_count_as_work_when_choosing_local_workers():
     # 66 pairs of 2,000 rows are too little work to fork for, 999 resamples of each are not
-    from app.executors import ProcessExecutor, SerialExecutor, make_executor
+    from pairlens.executors import ProcessExecutor, SerialExecutor, make_executor
 
     assert isinstance(make_executor(workers=2, n_tasks=66, n_rows=2000), SerialExecutor)
     chosen = make_executor(workers=2, n_tasks=66, n_rows=2000, resamples=999)

@@ -21,9 +21,9 @@ import httpx
 import psutil
 import pytest
 
-from app.jobs import JobManager, stop_proven_worker
-from app.store import Store, process_start_time
-from app.web.security import local_location
+from pairlens.jobs import JobManager, stop_proven_worker
+from pairlens.store import Store, process_start_time
+from pairlens.web.security import local_location
 from live_server import ROOT, LiveServer, free_port, wait_for_analysis
 from test_crash_recovery import _csv, _integrity
 
@@ -162,7 +162,7 @@ def test_cancel_and_delete_work_when_the_process_is_gone(workspace):
 
 
 def test_final_status_write_is_retried(workspace, monkeypatch):
-    from app import jobs as jobs_module
+    from pairlens import jobs as jobs_module
 
     store, _ = workspace
     calls = []
@@ -181,7 +181,7 @@ def test_final_status_write_is_retried(workspace, monkeypatch):
 
 def _serve_exit(data_dir) -> subprocess.CompletedProcess:
     env = dict(os.environ, PYTHONPATH=str(ROOT))
-    return subprocess.run([sys.executable, "-m", "app.cli", "serve", "--port", str(free_port()), "--data-dir",
+    return subprocess.run([sys.executable, "-m", "pairlens.cli", "serve", "--port", str(free_port()), "--data-dir",
                            str(data_dir)], capture_output=True, text=True, env=env, timeout=120)
 
 

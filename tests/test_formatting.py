@@ -1,7 +1,7 @@
 """The one number rule (app/formatting.py) in Python and in the browser's script.
 
 Expected strings are worked examples of the rule as the methods page states
-it (app.formatting.RULE); the browser check runs static/pairlens.js in
+it (pairlens.formatting.RULE); the browser check runs static/pairlens.js in
 Chromium and asks for the same strings, so the faces cannot drift apart.
 """
 
@@ -12,7 +12,7 @@ import os
 
 import pytest
 
-from app.formatting import fmt, fmt_count, fmt_est, fmt_interval, fmt_p, fmt_share
+from pairlens.formatting import fmt, fmt_count, fmt_est, fmt_interval, fmt_p, fmt_share
 
 CASES = [  # value, fmt, fmt_est, fmt_p -- worked examples of the stated rule
     (0.8224, "0.822", "0.822", "0.822"),

@@ -10,8 +10,8 @@ import pingouin
 import pytest
 from scipy import stats
 
-from app import config
-from app.core.gaussian import (fit_gaussian, gaussian_xi, henze_zirkler, implied_measures, observed_slice,
+from pairlens import config
+from pairlens.core.gaussian import (fit_gaussian, gaussian_xi, henze_zirkler, implied_measures, observed_slice,
                                slice_conditional)
 
 

@@ -1,7 +1,7 @@
 """Who may talk to the server and what input it survives: Host, Origin, token, body limits, hostile names.
 
 A real ``pairlens serve`` on a free 127.0.0.1 port answers the network-level
-checks; the token checks drive the app that ``app.web.server.serve`` builds for
+checks; the token checks drive the app that ``pairlens.web.server.serve`` builds for
 a wildcard bind in-process (no socket beyond loopback is ever opened). The
 expected behaviours are common practice for local web tools: the Host check
 against DNS rebinding and the Origin check against cross-site request forgery
@@ -192,7 +192,7 @@ def test_large_json_settings_body_is_413(server, client):
 
 
 def test_too_many_columns_is_a_clear_422(server, client, monkeypatch):
-    from app import config
+    from pairlens import config
 
     wide = ",".join(f"c{i}" for i in range(config.MAX_COLUMNS + 1)).encode() + b"\n" + \
         ",".join("1" for _ in range(config.MAX_COLUMNS + 1)).encode() + b"\n"
@@ -267,7 +267,7 @@ def test_hostile_names_are_inert_everywhere(server, client):
 
 def test_csv_export_neutralises_formula_cells():
     # OWASP "CSV Injection": cells starting with = + - @ are prefixed so a spreadsheet shows them as text.
-    from app.export import pairs_to_csv
+    from pairlens.export import pairs_to_csv
 
     record = {"x": "=HYPERLINK(\"http://example.invalid\")", "y": "@SUM(A1)", "measure": "pearson",
               "estimate": -0.5, "ci_low": -0.7, "ci_high": -0.2, "p_value": 0.01, "q_value": 0.02, "n": 40,
@@ -284,7 +284,7 @@ def wildcard_app(monkeypatch, tmp_path, capsys):
     """The app ``serve --host 0.0.0.0`` would run, captured before uvicorn binds anything."""
     import uvicorn
 
-    from app.web import server as server_mod
+    from pairlens.web import server as server_mod
 
     captured = {}
 
@@ -485,15 +485,15 @@ def test_rerun_form_and_api(server, client):
 
 @pytest.fixture
 def inproc(tmp_path):
-    from app.config import ServerSettings
-    from app.web.app import create_app
+    from pairlens.config import ServerSettings
+    from pairlens.web.app import create_app
 
     with TestClient(create_app(ServerSettings(data_dir=tmp_path / "data")), base_url="http://127.0.0.1:8000") as c:
         yield c
 
 
 def test_too_many_rows_is_a_clear_422(inproc, monkeypatch):
-    from app import config
+    from pairlens import config
 
     monkeypatch.setattr(config, "MAX_ROWS", 40)
     r = inproc.post("/api/datasets", files={"file": ("long.csv", _csv(["a", "b"], n=41), "text/csv")})
@@ -503,7 +503,7 @@ def test_too_many_rows_is_a_clear_422(inproc, monkeypatch):
 
 
 def test_group_over_the_row_limit_is_refused_before_it_runs(inproc, monkeypatch):
-    from app import config
+    from pairlens import config
 
     monkeypatch.setattr(config, "MAX_GROUP_ROWS", 30)
     ds = inproc.post("/api/datasets", files={"file": ("g.csv", _csv(["a", "b", "c"], n=50), "text/csv")}).json()
@@ -520,7 +520,7 @@ def test_group_over_the_row_limit_is_refused_before_it_runs(inproc, monkeypatch)
 
 
 def test_queue_runs_at_most_the_configured_number_at_once(server, client):
-    from app import config
+    from pairlens import config
 
     rng = np.random.default_rng(10)
     text = "c0,c1,c2,c3,c4,c5\n" + "\n".join(",".join(f"{v:.5f}" for v in row) for row in rng.normal(size=(3000, 6)))

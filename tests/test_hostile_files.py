@@ -35,10 +35,10 @@ import numpy as np
 import psutil
 import pytest
 
-from app import config, ingest
-from app.budget import check_work
-from app.errors import SettingsError
-from app.ingest import IngestError, load_bytes, load_file_isolated, load_table
+from pairlens import config, ingest
+from pairlens.budget import check_work
+from pairlens.errors import SettingsError
+from pairlens.ingest import IngestError, load_bytes, load_file_isolated, load_table
 from live_server import ROOT, LiveServer
 
 MEMORY_CAP = 1.5 * 1024 ** 3        # the bound on the server's process tree
@@ -236,7 +236,7 @@ def test_only_regular_files_are_read(tmp_path):
 
 def test_cli_refuses_dev_zero_on_one_line():
     env = dict(os.environ, PYTHONPATH=str(ROOT))
-    done = subprocess.run([sys.executable, "-m", "app.cli", "pairs", "/dev/zero"], capture_output=True,
+    done = subprocess.run([sys.executable, "-m", "pairlens.cli", "pairs", "/dev/zero"], capture_output=True,
                           text=True, env=env, timeout=120)
     assert done.returncode == 2
     assert done.stderr.strip().count("\n") == 0 and "not a regular file" in done.stderr
@@ -363,7 +363,7 @@ def test_server_survives_the_corpus(server, name):
 
 
 def test_pair_view_cache_is_bounded_by_bytes_and_keeps_points_as_arrays():
-    from app.web.deps import _PairCache
+    from pairlens.web.deps import _PairCache
 
     cache = _PairCache(max_bytes=10 * 1024 ** 2)
     n = 200_000  # one pair of 200k points: 4.8 MB as arrays (x, y float64, rows int64)

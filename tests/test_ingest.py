@@ -25,8 +25,8 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from app import config
-from app.ingest import IngestError, Table, load_bytes, load_table
+from pairlens import config
+from pairlens.ingest import IngestError, Table, load_bytes, load_table
 
 ROOT = Path(__file__).resolve().parents[1]
 _spec = importlib.util.spec_from_file_location("pairlens_ingest_corpus", ROOT / "tests" / "corpus" / "make_corpus.py")
@@ -418,7 +418,7 @@ def test_row_and_column_limits(files, monkeypatch, name):
 def test_unexpected_parser_failure_becomes_ingest_error(files, monkeypatch):
     import pandas
 
-    from app import ingest
+    from pairlens import ingest
 
     monkeypatch.setattr(ingest, "_FAST_NUMERIC_READER", False)  # this checks the general reader
 
@@ -467,7 +467,7 @@ def test_random_bytes_never_escape_as_other_errors():
 def _run_cli(args: list[str]) -> subprocess.CompletedProcess:
     env = {k: v for k, v in os.environ.items() if k != "PAIRLENS_DEBUG"}
     env["PYTHONPATH"] = str(ROOT) + os.pathsep + env.get("PYTHONPATH", "")
-    return subprocess.run([sys.executable, "-m", "app.cli", *args], cwd=ROOT, env=env,
+    return subprocess.run([sys.executable, "-m", "pairlens.cli", *args], cwd=ROOT, env=env,
                           capture_output=True, text=True, timeout=PER_FILE_SECONDS)
 
 
@@ -495,7 +495,7 @@ def test_cli_refuses_every_bad_file_with_one_line(files):
 
 def _load_outcome(content: bytes, name: str, fast: bool, monkeypatch) -> tuple:
     """Everything a load gives, comparable with ==: the table's fields, or the error line."""
-    from app import ingest
+    from pairlens import ingest
 
     monkeypatch.setattr(ingest, "_FAST_NUMERIC_READER", fast)
     try:
@@ -513,7 +513,7 @@ def test_plain_numbers_reader_is_taken_for_a_plain_numeric_file(monkeypatch):
     # the speed path must really run (and import no pandas) on the files it is meant for
     import sys
 
-    from app import ingest
+    from pairlens import ingest
 
     calls = []
     original = ingest._read_plain_numbers
@@ -521,7 +521,7 @@ def test_plain_numbers_reader_is_taken_for_a_plain_numeric_file(monkeypatch):
     table = load_bytes(b"a,b,c\n1,2.5,NA\n2,,3e2\n3,4,5\n-1,0.125,7\n", "plain.csv")
     assert calls and table.columns == ["a", "b", "c"]
     np.testing.assert_array_equal(table.data, [[1, 2.5, np.nan], [2, np.nan, 300], [3, 4, 5], [-1, 0.125, 7]])
-    script = ("import sys; from app.ingest import load_bytes; "
+    script = ("import sys; from pairlens.ingest import load_bytes; "
               "load_bytes(b'a,b\\n1,2\\n3,4\\n5,7\\n', 'p.csv'); print('pandas' in sys.modules)")
     done = subprocess.run([sys.executable, "-c", script], cwd=ROOT, capture_output=True, text=True, timeout=60)
     assert done.stdout.strip() == "False", done.stderr

@@ -22,7 +22,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from app.core import linear, rank
+from pairlens.core import linear, rank
 
 REPS = 10000
 SIZES = (30, 200)

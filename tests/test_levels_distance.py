@@ -14,7 +14,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from app.core import distance
+from pairlens.core import distance
 
 MARGINALS = {
     "normal": lambda rng, n: rng.normal(size=n),

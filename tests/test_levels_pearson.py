@@ -11,7 +11,7 @@ assertion uses the 99.9% interval per cell and allows at most 3 of the 90
 outside the 99% one (an exact test does so with probability about 0.94,
 scipy.stats.binom.cdf(3, 90, 0.01)).
 
-The p-values come from :func:`app.core.linear.moment_pvalue` on all
+The p-values come from :func:`pairlens.core.linear.moment_pvalue` on all
 replicates at once (the function ``pearson`` calls; checked equal below).
 """
 
@@ -25,7 +25,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from app.core import linear
+from pairlens.core import linear
 
 REPS = 10_000
 SIZES = (10, 30, 200)

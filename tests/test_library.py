@@ -8,10 +8,10 @@ import pandas as pd
 import pytest
 import scipy.stats as ss
 
-from app import config, library
-from app.errors import SettingsError
-from app.export import PAIR_FIELDS
-from app.ingest import IngestError
+from pairlens import config, library
+from pairlens.errors import SettingsError
+from pairlens.export import PAIR_FIELDS
+from pairlens.ingest import IngestError
 
 
 @pytest.fixture(scope="module")
@@ -63,7 +63,7 @@ def test_matrix_is_labelled_square_with_nan_diagonal(result):
 
 
 def test_same_numbers_as_the_engine_on_the_same_settings(frame, result):
-    from app.engine import AnalysisSettings, run_analysis
+    from pairlens.engine import AnalysisSettings, run_analysis
 
     numeric = frame[["a", "b", "c", "d"]].to_numpy(dtype=float)
     settings = AnalysisSettings.from_options(measures="pearson,kendall,xi")

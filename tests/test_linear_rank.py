@@ -14,9 +14,9 @@ from hypothesis import strategies as st
 from scipy import stats
 from statsmodels.stats.multitest import multipletests
 
-from app import config
-from app.core import linear, rank
-from app.core.testing import adjust_pvalues
+from pairlens import config
+from pairlens.core import linear, rank
+from pairlens.core.testing import adjust_pvalues
 
 REL = 1e-9
 P_ABS = 1e-6

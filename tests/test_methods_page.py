@@ -2,10 +2,10 @@
 
 from fastapi.testclient import TestClient
 
-from app.config import ServerSettings
-from app.core.registry import MEASURES
-from app.methods import methods_content
-from app.web.app import create_app
+from pairlens.config import ServerSettings
+from pairlens.core.registry import MEASURES
+from pairlens.methods import methods_content
+from pairlens.web.app import create_app
 
 
 def test_methods_page_lists_every_measure_with_formula_and_reference(tmp_path):
@@ -26,7 +26,7 @@ def test_methods_page_lists_every_measure_with_formula_and_reference(tmp_path):
 def test_general_methods_page_states_general_facts_and_the_number_rule(tmp_path):
     import html as html_lib
 
-    from app.formatting import RULE
+    from pairlens.formatting import RULE
 
     client = TestClient(create_app(ServerSettings(data_dir=tmp_path)))
     text = html_lib.unescape(client.get("/methods").text)
@@ -35,8 +35,8 @@ def test_general_methods_page_states_general_facts_and_the_number_rule(tmp_path)
     for per_analysis in ("No permutations were requested", "Intervals are at the 95% level",
                          "Permutation p-values were requested with B ="):
         assert per_analysis not in text
-    # ... where they still appear (app.engine.AnalysisSettings with its defaults: no permutations).
-    from app.engine import AnalysisSettings
+    # ... where they still appear (pairlens.engine.AnalysisSettings with its defaults: no permutations).
+    from pairlens.engine import AnalysisSettings
 
     one = methods_content(settings=AnalysisSettings.from_options(measures=["pearson"]))
     words = " ".join(p for s in one["inference"] for p in s["paragraphs"])

@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 from scipy import integrate, special, stats
 
-from app.core import linear
+from pairlens.core import linear
 
 
 @pytest.mark.parametrize("n", [4, 5, 6, 7])

@@ -7,8 +7,8 @@ import json
 
 import numpy as np
 
-from app.engine import AnalysisSettings, pair_detail
-from app.web import plots
+from pairlens.engine import AnalysisSettings, pair_detail
+from pairlens.web import plots
 
 
 def _templates(fig: dict) -> list[str]:
@@ -37,7 +37,7 @@ def test_column_names_with_template_syntax_stay_text():
 def test_map_payload_holds_the_pair_table_in_one_order():
     import scipy.stats
 
-    from app.engine import run_analysis
+    from pairlens.engine import run_analysis
 
     rng = np.random.default_rng(8)
     n = 80

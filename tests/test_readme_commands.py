@@ -89,6 +89,6 @@ def test_first_command_in_a_fresh_virtual_environment(tmp_path):
             except subprocess.TimeoutExpired:
                 os.killpg(proc.pid, signal.SIGKILL)
     # the package in the venv is this checkout, not something already on the machine
-    where = subprocess.run([str(venv / "bin" / "python"), "-c", "import app; print(app.__file__)"],
+    where = subprocess.run([str(venv / "bin" / "python"), "-c", "import pairlens; print(pairlens.__file__)"],
                            capture_output=True, text=True, cwd=tmp_path, timeout=60)
     assert where.stdout.strip() == str(ROOT / "app" / "__init__.py")

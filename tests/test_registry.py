@@ -9,8 +9,8 @@ import math
 import numpy as np
 import pytest
 
-from app.core.registry import MEASURES, PairContext
-from app.core.results import TestResult
+from pairlens.core.registry import MEASURES, PairContext
+from pairlens.core.results import TestResult
 
 ALL = list(MEASURES.values())
 IDS = [m.name for m in ALL]

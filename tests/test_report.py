@@ -25,10 +25,10 @@ import numpy as np
 import pytest
 import scipy.stats as ss
 
-from app import __version__
-from app.engine import AnalysisSettings, run_analysis
-from app.ingest import ColumnInfo, Table, load_table
-from app.report import build_report, extreme_indices, round_floats, script_json, shared_rows, simplify_polyline
+from pairlens import __version__
+from pairlens.engine import AnalysisSettings, run_analysis
+from pairlens.ingest import ColumnInfo, Table, load_table
+from pairlens.report import build_report, extreme_indices, round_floats, script_json, shared_rows, simplify_polyline
 
 ROOT = Path(__file__).resolve().parent.parent
 SCREENSHOTS = Path(__file__).resolve().parent / "screenshots"
@@ -211,7 +211,7 @@ def test_fingerprint_is_sha256_of_the_file_and_counts_match(report):
 
 
 def test_demo_data_are_labelled_invented(report):
-    from app import config
+    from pairlens import config
 
     assert "invented vineyard demo data" not in report.html
     table = load_table(config.DEMO_FILE)
@@ -252,7 +252,7 @@ def test_pair_table_equals_the_analysis_records(report):
             if shown == "< 10⁻³⁰⁰":
                 assert value == 0.0
                 continue
-            # displayed value (app.formatting's rule, "4.3×10⁻¹⁸" or "0.822"): rounded, so within
+            # displayed value (pairlens.formatting's rule, "4.3×10⁻¹⁸" or "0.822"): rounded, so within
             # half a unit of its last digit
             digits, _, power = shown.partition("×10")
             decimals = len(digits.split(".")[1]) if "." in digits else 0
@@ -285,7 +285,7 @@ def test_report_numbers_agree_with_reference_libraries(report):
         assert float(cells[3][0]["data-v"]) == pytest.approx(expected, rel=5e-6), measure
         assert int(cells[8][1]) == int(keep.sum())
     p_cells = by_key[(x_name, y_name, "pearson")]
-    from app.core import linear
+    from pairlens.core import linear
 
     # Pearson's default p-value is the permutation-moment one (scipy.stats.pearsonr is the t-test, which
     # `--test pearson=t` gives); the report shows it as computed, and both are far below any alpha.
@@ -295,7 +295,7 @@ def test_report_numbers_agree_with_reference_libraries(report):
 
 
 def test_methods_and_cautions_are_complete(report):
-    from app.core.registry import MEASURES
+    from pairlens.core.registry import MEASURES
 
     text = html.unescape(report.html)
     for name in report.settings.measures:
@@ -320,8 +320,8 @@ def test_top_pairs_find_the_planted_shapes(report):
 
 
 def test_methods_content_follows_settings_and_registry(report):
-    from app.core.registry import MEASURES
-    from app.methods import methods_content
+    from pairlens.core.registry import MEASURES
+    from pairlens.methods import methods_content
 
     content = methods_content(settings=report.settings, pair_table=report.pairs)
     assert [m["name"] for m in content["measures"]] == list(report.settings.measures)
@@ -536,7 +536,7 @@ def test_thirty_column_report_is_under_six_megabytes(tmp_path):
 
 def _pairlens() -> list[str]:
     exe = shutil.which("pairlens")
-    return [exe] if exe else [sys.executable, "-m", "app.cli"]
+    return [exe] if exe else [sys.executable, "-m", "pairlens.cli"]
 
 
 def test_cli_report_end_to_end_and_its_command_reproduces_it(tmp_path):

@@ -4,7 +4,7 @@ The oracle throughout is the permutation definition of a test of independence:
 every pairing of the y values with the x values is equally likely, so a
 p-value is the share of the n! pairings whose statistic is at least as extreme
 as the observed one. Here the pairings are enumerated in full
-(itertools.permutations), independently of the recursion app.core.rank uses.
+(itertools.permutations), independently of the recursion pairlens.core.rank uses.
 """
 
 from __future__ import annotations
@@ -17,9 +17,9 @@ import numpy as np
 import pytest
 import scipy.stats
 
-from app.core import chatterjee, distance, linear, rank
-from app.core.registry import MEASURES, PairContext
-from app.engine import AnalysisSettings, run_analysis
+from pairlens.core import chatterjee, distance, linear, rank
+from pairlens.core.registry import MEASURES, PairContext
+from pairlens.engine import AnalysisSettings, run_analysis
 
 # Which tail each measure's default test uses: two-sided |statistic| for the signed
 # correlations, the upper tail for the dependence measures (their tests reject for large

@@ -9,7 +9,7 @@ import pytest
 from scipy import stats
 from statsmodels.stats.multitest import multipletests
 
-from app.core.testing import adjust_pvalues, fisher_z_interval, pair_seed
+from pairlens.core.testing import adjust_pvalues, fisher_z_interval, pair_seed
 
 
 def _pvalue_sets():

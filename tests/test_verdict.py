@@ -9,9 +9,9 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import stats
 
-from app.core import chatterjee, distance, linear, rank
-from app.core.gaussian import fit_gaussian
-from app.core.verdict import LABELS, RULES, classify_pair, influence_on_r, rank_rank
+from pairlens.core import chatterjee, distance, linear, rank
+from pairlens.core.gaussian import fit_gaussian
+from pairlens.core.verdict import LABELS, RULES, classify_pair, influence_on_r, rank_rank
 
 N = 400
 
@@ -266,7 +266,7 @@ def test_gaussian_pair_with_rho_099_stays_linear():
 def test_curvature_rule_false_alarm_rate_on_gaussian_pairs():
     from scipy import stats
 
-    from app.core.verdict import CURVED_GAP, curvature_gap
+    from pairlens.core.verdict import CURVED_GAP, curvature_gap
     rng = np.random.default_rng(19)
     rates = {}
     for n in (50, 200):

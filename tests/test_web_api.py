@@ -25,11 +25,11 @@ import pytest
 import scipy.stats
 from fastapi.testclient import TestClient
 
-from app.config import ServerSettings
-from app.core.registry import MEASURES
-from app.export import PAIR_FIELDS
-from app.store import Store
-from app.web.app import create_app
+from pairlens.config import ServerSettings
+from pairlens.core.registry import MEASURES
+from pairlens.export import PAIR_FIELDS
+from pairlens.store import Store
+from pairlens.web.app import create_app
 from live_server import wait_for_analysis
 
 COLUMNS = ["alpha", "beta", "curve", "noise", "gappy"]

@@ -469,7 +469,7 @@ def kendall_order(view: PairView) -> np.ndarray:
 
 
 def kendall_counts_view(view: PairView) -> tuple:
-    """The pair counts of :func:`app.core.rank.knight_counts`, from the two orders in O(n log n).
+    """The pair counts of :func:`pairlens.core.rank.knight_counts`, from the two orders in O(n log n).
 
     Returns ``(discordant, tied_x, tied_y, tied_xy, x_t3, x_t5, y_t3, y_t5)``.
 
@@ -501,7 +501,7 @@ def distance_orders(view: PairView) -> tuple[np.ndarray, np.ndarray, np.ndarray,
     """Median-centred columns and the two stable orders the distance kernels need.
 
     Returns ``(xc, yc, x_order, y_order)`` for
-    :func:`app.core.distance.centred_statistics_presorted`.
+    :func:`pairlens.core.distance.centred_statistics_presorted`.
     """
     xc = view.x - median_sorted(view.x, view.x_order)
     yc = view.y - median_sorted(view.y, view.y_order)
@@ -513,7 +513,7 @@ def xi_order(values: np.ndarray, order: np.ndarray, keys_for) -> np.ndarray:
     """The predictor order of xi: stable, ties broken by the keys ``keys_for()`` returns.
 
     ``keys_for`` is called only when there are ties, so the random stream is
-    drawn exactly when :func:`app.core.chatterjee.xi` draws it.
+    drawn exactly when :func:`pairlens.core.chatterjee.xi` draws it.
     """
     if not _has_ties(values, order):
         return order

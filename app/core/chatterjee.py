@@ -234,7 +234,7 @@ def xi(x: np.ndarray, y: np.ndarray, *, permutations: int = 0,
     seed : SeedSequence, int or None
         Seed for ``numpy.random.default_rng``. The engine passes the pair's
         seed sequence, derived from the analysis seed and the pair (see
-        :func:`app.core.testing.pair_seed`), so random tie-breaking and
+        :func:`pairlens.core.testing.pair_seed`), so random tie-breaking and
         permutations do not depend on tiling or executor.
     method : {"auto", "asymptotic", "permutation"}
         "asymptotic": normal law with the tie-corrected variance (the same

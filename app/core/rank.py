@@ -465,7 +465,7 @@ def spearman_matrix(data: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     Notes
     -----
     :math:`\\rho_s(i, j) = r(R_i, R_j)` with :math:`R` the mid-ranks of each
-    column; the Pearson step is :func:`app.core.linear.pearson_matrix`.
+    column; the Pearson step is :func:`pairlens.core.linear.pearson_matrix`.
 
     References
     ----------
@@ -577,7 +577,7 @@ def spearman_edgeworth_pvalue(n: int, s: int) -> float:
     Parameters
     ----------
     n : int
-        Rows (meant for n above :data:`app.config.SPEARMAN_EXACT_MAX_N`).
+        Rows (meant for n above :data:`pairlens.config.SPEARMAN_EXACT_MAX_N`).
     s : int
         Observed :math:`S = \\sum d^2` (an even integer).
 
@@ -644,7 +644,7 @@ def spearman(x: np.ndarray, y: np.ndarray, *, confidence: float = 0.95, seed=Non
         Level of the interval.
     seed : int or numpy.random.SeedSequence, optional
         Drives the random permutations of small tied samples only (default:
-        :data:`app.config.DEFAULT_SEED`, so a call is reproducible).
+        :data:`pairlens.config.DEFAULT_SEED`, so a call is reproducible).
 
     Returns
     -------
@@ -669,7 +669,7 @@ def spearman(x: np.ndarray, y: np.ndarray, *, confidence: float = 0.95, seed=Non
       referred to :math:`t_{n-2}` (``scipy.stats.spearmanr``'s p-value), whose
       level holds there (``benchmarks/spearman_level.py``).
 
-    The limits are in :mod:`app.config`. Interval:
+    The limits are in :mod:`pairlens.config`. Interval:
     :math:`\\tanh(\\operatorname{atanh}\\rho_s \\mp z_{(1+c)/2}\\,
     \\sqrt{(1 + \\rho_s^2/2)/(n-3)})` (Bonett & Wright 2000).
 
@@ -723,7 +723,7 @@ def spearman_from_sums(sum_xy: float, sum_xx: float, sum_yy: float, n: int, *,
     x_scores, y_scores : numpy.ndarray, optional
         The integer scores :math:`2 r`; needed only when
         :func:`spearman_needs_rows` (tied and fewer than
-        :data:`app.config.SPEARMAN_T_MIN_N` rows).
+        :data:`pairlens.config.SPEARMAN_T_MIN_N` rows).
     seed : optional
         Seed of the permutations of a tied small sample.
 

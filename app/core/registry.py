@@ -158,11 +158,11 @@ def pvalue_floor(measure: "Measure", x: np.ndarray, y: np.ndarray) -> float:
     Returns
     -------
     float
-        Up to :data:`app.config.PVALUE_FLOOR_ENUMERATE_MAX_N` rows the exact
+        Up to :data:`pairlens.config.PVALUE_FLOOR_ENUMERATE_MAX_N` rows the exact
         minimum: the share of the n! pairings at the most extreme value of the
         entry's ``pairing_statistics``. Above it, up to
-        :data:`app.config.PVALUE_FLOOR_MAX_N` rows, the bound K/n! of
-        :func:`app.core.testing.permutation_floor`; beyond, 0.
+        :data:`pairlens.config.PVALUE_FLOOR_MAX_N` rows, the bound K/n! of
+        :func:`pairlens.core.testing.permutation_floor`; beyond, 0.
 
     Examples
     --------

@@ -151,7 +151,7 @@ def fisher_z_interval(estimate: float, se_z: float, confidence: float) -> tuple[
     -----
     :math:`z = \\operatorname{atanh}(r)` is close to normal with a standard
     error that depends on the measure (Pearson :math:`1/\\sqrt{n-3}`, Spearman
-    and Kendall see :mod:`app.core.rank`); the limits are
+    and Kendall see :mod:`pairlens.core.rank`); the limits are
     :math:`\\tanh(z \\mp z_{(1+c)/2}\\,\\mathrm{SE})`. At :math:`|r| = 1` the
     transform is infinite and both limits equal :math:`r`, as the limit of
     the formula.
@@ -202,7 +202,7 @@ def permutation_floor(x: np.ndarray, y: np.ndarray) -> float:
     float
         :math:`K / n!`, K the number of the n! pairings of the y rows with the
         x rows that leave the multiset of (x, y) rows unchanged; 0.0 above
-        :data:`app.config.PVALUE_FLOOR_MAX_N` rows.
+        :data:`pairlens.config.PVALUE_FLOOR_MAX_N` rows.
 
     Notes
     -----

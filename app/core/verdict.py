@@ -60,7 +60,7 @@ reason says that zero correlation does not mean independence here because the
 pair is not jointly normal.
 
 Cost: O(n log n) (Spearman, dCor) plus O(k n) for the influence, and the
-Henze-Zirkler test of :func:`app.core.gaussian.fit_gaussian` (capped at
+Henze-Zirkler test of :func:`pairlens.core.gaussian.fit_gaussian` (capped at
 ``config.HZ_MAX_ROWS`` rows) unless a fit is passed in.
 """
 
@@ -655,7 +655,7 @@ def classify_pair(x: np.ndarray, y: np.ndarray, results: dict[str, TestResult],
 
     Examples
     --------
-    >>> from app.core import linear, rank
+    >>> from pairlens.core import linear, rank
     >>> rng = np.random.default_rng(1)
     >>> x = rng.normal(size=300)
     >>> y = 2 * x + rng.normal(size=300)

@@ -1,4 +1,4 @@
-"""The JSON API (DESIGN.md section 3). Translates HTTP to :class:`~app.web.deps.Workspace` calls."""
+"""The JSON API (DESIGN.md section 3). Translates HTTP to :class:`~pairlens.web.deps.Workspace` calls."""
 
 from __future__ import annotations
 
@@ -79,7 +79,7 @@ def strict_options(options: dict) -> dict:
 
     Nothing is coerced: ``2.7`` or ``true`` is not a number of permutations, ``Infinity`` and
     ``1e400`` (which JSON parsers turn into infinity) are not numbers at all. Values of the
-    right type are checked by :class:`app.engine.AnalysisSettings`; unknown names by the workspace.
+    right type are checked by :class:`pairlens.engine.AnalysisSettings`; unknown names by the workspace.
     """
     if not isinstance(options, dict):
         raise SettingsError("the options must be a JSON object")

@@ -41,7 +41,7 @@ def _plotly_js() -> Path:
 
 
 def _fmt(v, digits: int = 3) -> str:
-    """The one number rule of :mod:`app.formatting` (``digits`` kept for old templates, ignored)."""
+    """The one number rule of :mod:`pairlens.formatting` (``digits`` kept for old templates, ignored)."""
     if v is not None and not isinstance(v, (int, float)):
         try:
             float(v)

@@ -1,6 +1,6 @@
 """What both routers share: the :class:`Workspace` (store + job queue + caches) and its dependencies.
 
-The routers in :mod:`app.web.pages` and :mod:`app.web.api` only translate
+The routers in :mod:`pairlens.web.pages` and :mod:`pairlens.web.api` only translate
 HTTP to calls on the workspace and back. Everything here raises plain Python
 errors (:class:`NotFound`, :class:`Conflict`, ``IngestError``,
 ``SettingsError``, ``UploadTooLarge``) that the app maps to status codes.
@@ -220,7 +220,7 @@ def dataset_summary(table) -> dict:
 
 
 def _gaussian_moments(x: np.ndarray, y: np.ndarray, masses=(0.5, 0.9, 0.99), points: int = 121) -> dict:
-    """The moment part of :func:`app.core.gaussian.fit_gaussian` (same formulas, ddof=1), no normality tests.
+    """The moment part of :func:`pairlens.core.gaussian.fit_gaussian` (same formulas, ddof=1), no normality tests.
 
     Ellipse of mass m: {v : (v - mean)' cov^-1 (v - mean) = -2 ln(1 - m)}, the
     chi-square quantile with 2 degrees of freedom in closed form.
@@ -774,7 +774,7 @@ class Workspace:
             return self._figures.put(key, PairGrid(body))
 
     def pair(self, row: AnalysisRow, x: str, y: str) -> dict:
-        """:func:`app.engine.pair_detail` with points, q-values from the analysis, cached per pair."""
+        """:func:`pairlens.engine.pair_detail` with points, q-values from the analysis, cached per pair."""
         key = (row.id, x, y)
         cached = self._details.get(key)
         if cached is not None:

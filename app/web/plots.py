@@ -1,7 +1,7 @@
 """Plotly figure dicts for heatmaps and the pair view, as pure functions.
 
 Nothing here touches HTTP, SQLite or files: a figure is built from a
-:class:`app.engine.PairTable` or from the dict of :func:`app.engine.pair_detail`
+:class:`pairlens.engine.PairTable` or from the dict of :func:`pairlens.engine.pair_detail`
 and returned as a plain ``{"data": [...], "layout": {...}}`` dict that
 ``Plotly.newPlot(div, fig.data, fig.layout)`` accepts. The web pages and the
 HTML report both use these builders, so the two always look alike.
@@ -202,7 +202,7 @@ def heatmap_figure(table, measure: str, *, order: Sequence[int] | None = None,
 
     Parameters
     ----------
-    table : app.engine.PairTable
+    table : pairlens.engine.PairTable
     measure : str
         A measure in ``table.measures``.
     order : sequence of int, optional
@@ -390,7 +390,7 @@ def pair_figure(detail: dict, *, density_threshold: int = config.SCATTER_DENSITY
     Parameters
     ----------
     detail : dict
-        :func:`app.engine.pair_detail` output with ``include_points=True``.
+        :func:`pairlens.engine.pair_detail` output with ``include_points=True``.
     density_threshold : int
         Above this many points a 2-D density layer is shown and the points are
         hidden behind a legend toggle (still in trace 0).
@@ -504,7 +504,7 @@ def rank_figure(detail: dict) -> dict:
 
 
 def _rounded_for_display(a: np.ndarray) -> np.ndarray:
-    """What :func:`app.formatting.fmt` would show, as numbers: 3 decimals, or 2 significant digits when small."""
+    """What :func:`pairlens.formatting.fmt` would show, as numbers: 3 decimals, or 2 significant digits when small."""
     a = np.asarray(a, dtype=float)
     small = np.isfinite(a) & (np.abs(a) < 1e-3) & (a != 0)
     out = np.round(a, 3)
@@ -542,7 +542,7 @@ def map_payload(table, order: Sequence[int] | None = None, diff: tuple[str, str]
 
     Parameters
     ----------
-    table : app.engine.PairTable
+    table : pairlens.engine.PairTable
     order : sequence of int, optional
         Order of the variables (indices into ``table.variables``).
     diff : (str, str), optional

@@ -18,7 +18,7 @@ request is answered before any body is read:
   address bar by a redirect); the API also takes ``Authorization: Bearer``.
 - Bodies of non-upload requests are capped (JSON settings are small), so a
   client cannot make the server buffer an unbounded body; uploads have their
-  own limit (:class:`app.web.app.UploadLimit`).
+  own limit (:class:`pairlens.web.app.UploadLimit`).
 """
 
 from __future__ import annotations
