@@ -166,7 +166,7 @@ def demo_path() -> Path:
 
 
 def analyze(df: "pd.DataFrame", *, measures=None, columns=None, groups=None, missing=None, adjust=None,
-            confidence=None, permutations=None, seed=None, workers: int | None = None,
+            confidence=None, permutations=None, tests=None, seed=None, workers: int | None = None,
             cluster: str | None = None, progress: bool = True, name: str | None = None,
             **options: Any) -> "Analysis":
     """Every measure for every pair of columns of ``df``.
@@ -190,6 +190,9 @@ def analyze(df: "pd.DataFrame", *, measures=None, columns=None, groups=None, mis
         Level of the intervals (default 0.95).
     permutations : int, optional
         Permutation resamples for the tests that use them (default 0: the default tests).
+    tests : dict or list of str, optional
+        A measure's p-value method, e.g. ``{"pearson": "t"}`` or ``["pearson=t"]`` (default: each
+        measure's default test; the names each measure allows are in its registry entry).
     seed : int, optional
         Random seed; results do not depend on ``workers`` or ``cluster``.
     workers : int, optional
@@ -237,7 +240,7 @@ def analyze(df: "pd.DataFrame", *, measures=None, columns=None, groups=None, mis
 
     table = _table_from_frame(df, name)
     settings = AnalysisSettings.from_options(measures=measures, columns=columns, groups=groups, missing=missing,
-                                             adjust=adjust, confidence=confidence, permutations=permutations,
+                                             adjust=adjust, confidence=confidence, permutations=permutations, tests=tests,
                                              seed=seed, **options)
     update, close = _progress_bar(progress)
     try:

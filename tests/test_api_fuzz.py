@@ -5,7 +5,7 @@ Schemathesis (https://schemathesis.readthedocs.io) generates requests from
 passes: ids as generated (mostly unknown ones), and ids replaced by a real
 dataset and a finished analysis so the handlers behind the 404 are reached too
 (deletes are left out of that pass so the ids stay valid). The contract
-(DESIGN.md section 3) says errors are ``{"detail": ...}`` with a 4xx status.
+(docs/contracts.md) says errors are ``{"detail": ...}`` with a 4xx status.
 """
 
 from __future__ import annotations

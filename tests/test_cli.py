@@ -1,4 +1,4 @@
-"""The pairlens command as DESIGN.md section 3 specifies it."""
+"""The pairlens command as docs/contracts.md specifies it."""
 
 import csv
 import io

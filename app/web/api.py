@@ -1,4 +1,4 @@
-"""The JSON API (DESIGN.md section 3). Translates HTTP to :class:`~pairlens.web.deps.Workspace` calls."""
+"""The JSON API (docs/contracts.md). Translates HTTP to :class:`~pairlens.web.deps.Workspace` calls."""
 
 from __future__ import annotations
 
