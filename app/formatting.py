@@ -101,3 +101,18 @@ def fmt_interval(low, high) -> str:
 def fmt_share(part, whole) -> str:
     """A count with its denominator: "689 of 930"."""
     return f"{fmt_count(part)} of {fmt_count(whole)}"
+
+
+def finite_or_null(value):
+    """``value`` with every non-finite float (NaN, +-inf) replaced by ``None``, through dicts and lists.
+
+    JSON has no NaN or infinity; a pair whose fit overflows (a cell of 1e300, say) must still
+    serialise, with the missing numbers shown as missing.
+    """
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    if isinstance(value, dict):
+        return {k: finite_or_null(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [finite_or_null(v) for v in value]
+    return value

@@ -397,3 +397,7 @@ def test_one_huge_cell_gives_a_per_pair_note_not_a_failed_analysis(server):
         assert rows[("b", "c", "dcor")]["estimate"] is not None
         r = c.get(f"/api/analyses/{aid}/pair", params={"x": "a", "y": "b"})
         assert r.status_code == 200 and "overflow" in " ".join(r.json()["pattern"]["reasons"])
+        # the pages of that pair render too, the overflowing numbers shown as missing
+        for path in (f"/analyses/{aid}/pair", f"/api/analyses/{aid}/pair-preview"):
+            page = c.get(path, params={"x": "a", "y": "b"})
+            assert page.status_code == 200, (path, page.text[:300])

@@ -24,6 +24,7 @@ from .. import config
 from ..budget import check_plan, estimate_work
 from ..core.registry import MEASURES
 from ..engine import AnalysisSettings, PairRow, PairTable, SettingsError, pair_detail, plan_variables
+from ..formatting import finite_or_null
 from ..store import AnalysisRow, DatasetRow, Store, UploadTooLarge
 
 __all__ = ["Workspace", "NotFound", "Conflict", "get_workspace", "embed_json", "UploadTooLarge",
@@ -47,7 +48,10 @@ def embed_json(value) -> Markup:
     ``<``, ``>`` and ``&`` become ``\\u003c`` etc. (so ``</script>`` and ``<!--`` in a
     column name stay inert) and the line separators U+2028/2029 are escaped too.
     """
-    text = json.dumps(value, ensure_ascii=False, allow_nan=False, separators=(",", ":"))
+    try:
+        text = json.dumps(value, ensure_ascii=False, allow_nan=False, separators=(",", ":"))
+    except ValueError:  # a non-finite number (an overflowing fit): shown as missing
+        text = json.dumps(finite_or_null(value), ensure_ascii=False, allow_nan=False, separators=(",", ":"))
     text = (text.replace("<", "\\u003c").replace(">", "\\u003e").replace("&", "\\u0026")
             .replace("\u2028", "\\u2028").replace("\u2029", "\\u2029"))
     return Markup(text)
