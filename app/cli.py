@@ -157,7 +157,9 @@ def build_parser(command: str | None = None) -> argparse.ArgumentParser:
 def _load(args):
     from .ingest import load_table
 
-    return load_table(args.data, sheet=getattr(args, "sheet", None))
+    table = load_table(args.data, sheet=getattr(args, "sheet", None))
+    args.table_notes = list(table.notes)  # said on stderr once the command has succeeded
+    return table
 
 
 def _settings(args):
@@ -318,7 +320,10 @@ def main(argv: list[str] | None = None) -> int:
         # Only the subcommand being run gets its full parser (see build_parser).
         command = next((a for a in argv if a in COMMANDS), "")
         args = build_parser(command).parse_args(argv)
-        return COMMANDS[args.command](args)
+        status = COMMANDS[args.command](args)
+        for note in getattr(args, "table_notes", []):
+            print(_one_line(f"pairlens: note: {note}"), file=sys.stderr)
+        return status
     except SystemExit as exc:  # --help and --version
         return int(exc.code or 0)
     except (UsageError, SettingsError) as exc:

@@ -27,6 +27,13 @@ MISSING_POLICIES: tuple[str, ...] = ("pairwise", "complete")
 MIN_ROWS = 3                      # fewer usable rows than this gives NaN with a note
 SIGNIFICANCE_LEVEL = 0.05         # q-value below which a pair counts as significant
 
+# A numeric column of whole numbers with at most this many distinct values (and at least
+# CLASS_CODE_MIN_ROWS rows, or only two values) looks like a class code (0/1, 1..3): it is
+# still treated as a number, but flagged, and its pairs' verdicts say the Gaussian picture
+# (ellipses, conditional band, Gaussian-implied values) does not apply. Our own thresholds.
+CLASS_CODE_MAX_LEVELS = 5
+CLASS_CODE_MIN_ROWS = 50
+
 # Limits ------------------------------------------------------------------
 MAX_UPLOAD_MB = 200
 # Bodies of requests other than uploads (JSON settings, forms) are small; a larger

@@ -58,6 +58,7 @@ from pathlib import Path
 import numpy as np
 
 from . import config
+from .core.verdict import class_code_levels
 
 __all__ = ["IngestError", "ColumnInfo", "Table", "load_table", "load_bytes", "load_file_isolated",
            "read_file_bytes", "SUPPORTED_FORMATS"]
@@ -1126,6 +1127,9 @@ def _build_table(base: str, sha: str, originals: list[str], columns: list, previ
         low, mid, high = float(finite.min()), float(np.median(finite)), float(finite.max())
         if distinct == 1:
             notes.append(f"column {name!r} is constant (every value {low:g}); its measures will be undefined")
+        elif class_code_levels(finite):
+            notes.append(f"column {name!r} looks like a class code ({distinct} distinct whole numbers); "
+                         f"treated as a number")
         info.append(ColumnInfo(name, original_text, "numeric", True, "", n_missing, n_inf, distinct,
                                low, mid, high, non_numeric=t.non_numeric))
         used_names.append(name)

@@ -150,6 +150,7 @@ class _Evidence:
     loo_r_at_max: float = math.nan
     marg_p: tuple[float, float] = (math.nan, math.nan)
     hz_p: float = math.nan
+    class_codes: tuple[tuple[str, int], ...] = ()   # ("x", levels) for a side that looks like a code
     alpha: float = 0.05
 
     def sig(self, m: str) -> bool | None:
@@ -251,6 +252,8 @@ def _gather(x, y, results, q_values, alpha, fit) -> _Evidence:
         if np.all(v == v[0]):
             ev.degenerate = f"{name} is constant: it cannot depend on anything"
             return ev
+    ev.class_codes = tuple((name, k) for name, k in (("x", class_code_levels(xa)), ("y", class_code_levels(ya)))
+                           if k)
 
     for m, res in results.items():
         q = q_values.get(m) if q_values else None
@@ -456,6 +459,14 @@ def _normality_reasons(ev: _Evidence) -> list[str]:
             out.append(f"{head}: the pair cannot be jointly normal (although Henze-Zirkler, {hz}, does not "
                        f"reject it), so zero correlation does not mean independence here")
         return out
+    if ev.class_codes:
+        sides = " and ".join(f"{side} ({k} distinct whole numbers)" for side, k in ev.class_codes)
+        head = f"Columns {sides} look like class codes" if len(ev.class_codes) == 2 else \
+            f"Column {sides} looks like a class code"
+        out.append(f"{head}, treated as numbers: the Gaussian "
+                   f"picture (ellipses, conditional band, Gaussian-implied values) does not apply; read the rank "
+                   f"and dependence measures, and compare the groups in the scatter")
+        return out
     if math.isfinite(ev.hz_p):
         if ev.hz_p < ev.alpha:
             out.append(f"Henze-Zirkler rejects joint normality ({hz}): ellipses and the Gaussian band may mislead")
@@ -614,6 +625,29 @@ def rank_rank(x: np.ndarray, y: np.ndarray, *, scale: str = "unit") -> tuple[np.
     if scale == "normal":
         return ndtri(u), ndtri(v)
     raise ValueError(f"unknown scale {scale!r}; choose 'unit' or 'normal'")
+
+
+def class_code_levels(values: np.ndarray) -> int:
+    """Number of distinct codes when ``values`` look like a class code, else 0.
+
+    A class code is a column of whole numbers with at most
+    :data:`config.CLASS_CODE_MAX_LEVELS` distinct values and either only two of them
+    (0/1) or at least :data:`config.CLASS_CODE_MIN_ROWS` rows (1..3 over many rows).
+    Such a column is analysed as a number, but a bivariate Gaussian cannot describe it.
+
+    Examples
+    --------
+    >>> class_code_levels(np.array([0.0, 1.0, 1.0, 0.0])), class_code_levels(np.array([0.5, 1.0, 2.0]))
+    (2, 0)
+    """
+    v = np.asarray(values, dtype=np.float64).ravel()
+    v = v[np.isfinite(v)]
+    if v.size == 0 or not np.all(v == np.round(v)):
+        return 0
+    levels = int(np.unique(v).size)
+    if levels == 2 or (2 < levels <= config.CLASS_CODE_MAX_LEVELS and v.size >= config.CLASS_CODE_MIN_ROWS):
+        return levels
+    return 0
 
 
 def classify_pair(x: np.ndarray, y: np.ndarray, results: dict[str, TestResult],
