@@ -145,9 +145,18 @@ PARENT_POLL_SECONDS = 0.5
 
 PACKAGE_DIR = Path(__file__).resolve().parent
 PROJECT_DIR = PACKAGE_DIR.parent
-TEMPLATES_DIR = PROJECT_DIR / "templates"
-STATIC_DIR = PROJECT_DIR / "static"
-SAMPLE_DATA_DIR = PROJECT_DIR / "sample_data"
+
+
+def _data_folder(name: str) -> Path:
+    # An installed wheel carries the folder inside the package (pyproject.toml maps it
+    # there); a checkout, editable install included, keeps it beside app/.
+    inside = PACKAGE_DIR / name
+    return inside if inside.is_dir() else PROJECT_DIR / name
+
+
+TEMPLATES_DIR = _data_folder("templates")
+STATIC_DIR = _data_folder("static")
+SAMPLE_DATA_DIR = _data_folder("sample_data")
 DEMO_FILE = SAMPLE_DATA_DIR / "vineyard_blocks.csv"
 
 
