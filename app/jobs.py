@@ -58,12 +58,13 @@ def compute_verdicts(data: np.ndarray, names: list[str], table, *, budget_second
     Returns ``{"labels": {key: label}, "complete": bool, "seconds": float, "per_pair_ms": float}``.
     Pairs not reached get their verdict when their pair view opens.
     """
-    from .core.results import TestResult
-    from .core.verdict import classify_pair
+    from .pairs import pair_verdict
+    from .plan import analysis_row_mask
 
     budget_seconds = config.VERDICT_BUDGET_SECONDS if budget_seconds is None else budget_seconds
     started = time.perf_counter()
     position = {n: i for i, n in enumerate(names)}
+    row_mask = analysis_row_mask(data, names, table.settings)
     seen: dict[tuple[str, str], dict] = {}
     for r in table.rows:
         if r.x in position and r.y in position:
@@ -88,15 +89,8 @@ def compute_verdicts(data: np.ndarray, names: list[str], table, *, budget_second
             from .engine import AnalysisCancelled
 
             raise AnalysisCancelled("analysis cancelled")
-        rows = table.lookup(x, y)
-        results = {m: TestResult(r.estimate, r.p_value, r.method, r.ci_low, r.ci_high, r.n, r.note)
-                   for m, r in rows.items()}
-        q_values = {m: float(r.q_value) for m, r in rows.items()}
-        xv, yv = data[:, position[x]], data[:, position[y]]
-        keep = ~np.isnan(xv) & ~np.isnan(yv)
         try:
-            pattern = classify_pair(xv[keep], yv[keep], results, q_values, alpha=config.SIGNIFICANCE_LEVEL)
-            labels[_pair_key(x, y)] = pattern.label
+            labels[_pair_key(x, y)] = pair_verdict(data, names, x, y, table, row_mask)
         except Exception:  # noqa: BLE001 - one odd pair must not fail the analysis; its view shows why
             labels[_pair_key(x, y)] = ""
         now = time.perf_counter()
@@ -112,7 +106,7 @@ def compute_verdicts(data: np.ndarray, names: list[str], table, *, budget_second
 def _page_cache(pair_table, verdicts: dict) -> dict | None:
     """The analysis page's default figures, built here so the server's first view is fast."""
     try:
-        from .web.deps import precompute_pages
+        from .payloads import precompute_pages
 
         return precompute_pages(pair_table, verdicts)
     except Exception:  # noqa: BLE001 - without the cache the server builds the figures itself

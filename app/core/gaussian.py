@@ -304,7 +304,8 @@ def henze_zirkler(data: np.ndarray, *, max_rows: int | None = None,
 
 
 def fit_gaussian(x: np.ndarray, y: np.ndarray, *, masses: tuple[float, ...] = (0.5, 0.9, 0.99),
-                 points: int = 121, seed: np.random.SeedSequence | int | None = None) -> GaussianFit:
+                 points: int = 121, seed: np.random.SeedSequence | int | None = None,
+                 tests: bool = True) -> GaussianFit:
     """Fit a bivariate normal to complete rows of (x, y).
 
     Parameters
@@ -317,6 +318,11 @@ def fit_gaussian(x: np.ndarray, y: np.ndarray, *, masses: tuple[float, ...] = (0
         Boundary points per ellipse (first and last coincide).
     seed : SeedSequence, int or None
         Only for the Henze-Zirkler subsample on large n.
+    tests : bool
+        False skips the normality tests (Henze-Zirkler is O(n^2) up to
+        ``config.HZ_MAX_ROWS`` rows): the moments, line and ellipses only, with
+        the tests' results undefined ("not computed"). The pair view's quick
+        first answer uses this.
 
     Returns
     -------
@@ -368,7 +374,7 @@ def fit_gaussian(x: np.ndarray, y: np.ndarray, *, masses: tuple[float, ...] = (0
     syy = float(dy @ dy) / (n - 1)
     sxy = float(dx @ dy) / (n - 1)
     cov = ((sxx, sxy), (sxy, syy))
-    marginal = {"x": _marginal_normality(x), "y": _marginal_normality(y)}
+    marginal = {"x": _marginal_normality(x), "y": _marginal_normality(y)} if tests else {}
     constant = [name for name, s in (("x", sxx), ("y", syy)) if s == 0.0]
     if constant:
         note = " and ".join(constant) + (" is" if len(constant) == 1 else " are") + " constant"
@@ -385,7 +391,8 @@ def fit_gaussian(x: np.ndarray, y: np.ndarray, *, masses: tuple[float, ...] = (0
     mean_vec = np.array([mx, my])
     cov_mat = np.array(cov)
     ellipses = {float(m): _ellipse(mean_vec, cov_mat, float(m), points) for m in masses}
-    normality = henze_zirkler(np.column_stack([x, y]), seed=seed)
+    normality = (henze_zirkler(np.column_stack([x, y]), seed=seed) if tests
+                 else undefined(n, "not computed", _HZ_METHOD))
     note = "the points lie on a line: the Gaussian is degenerate" if abs(rho) == 1.0 else ""
     return GaussianFit((mx, my), cov, rho, slope, intercept, residual_sd, implied_measures(rho),
                        normality, marginal, ellipses, n, note)

@@ -232,6 +232,19 @@ def _rank_equivalent(ev: _Evidence) -> tuple[float, str]:
     return math.nan, ""
 
 
+def marginals_normal_not_joint(marginal_p, joint_p: float | None, alpha: float) -> bool:
+    """True when every marginal normality test keeps normality (p >= alpha) and Henze-Zirkler rejects it.
+
+    The one rule for "normal marginals, yet not jointly normal"; the verdict's
+    reasons and the pair page's caution both use it. ``None`` p-values count as
+    not tested (False).
+    """
+    marginal_p = [math.nan if p is None else float(p) for p in marginal_p]
+    joint = math.nan if joint_p is None else float(joint_p)
+    return (bool(marginal_p) and all(math.isfinite(p) and p >= alpha for p in marginal_p)
+            and math.isfinite(joint) and joint < alpha)
+
+
 def _marginals_normal(ev: _Evidence) -> bool:
     return all(math.isfinite(p) and p >= ev.alpha for p in ev.marg_p)
 
