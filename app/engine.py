@@ -20,6 +20,7 @@ from typing import Callable, Sequence
 import numpy as np
 
 from .budget import WorkEstimate, check_plan
+from .core.registry import MEASURES
 from .core.testing import adjust_pvalues
 from .errors import SettingsError
 from .executors import Executor, ProcessExecutor, SerialExecutor, make_executor
@@ -61,7 +62,7 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
                  workers: int | None = None, cluster: str | None = None,
                  executor: Executor | None = None,
                  progress: ProgressCallback | None = None,
-                 cancel: Callable[[], bool] | None = None) -> PairTable:
+                 cancel: Callable[[], bool] | None = None, verdicts: bool = False) -> PairTable:
     """Compute the pair table for ``settings`` on ``data`` (n, p) with column ``names``.
 
     Parameters
@@ -80,6 +81,12 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
     cancel : callable, optional
         Polled between tiles; when it returns True the run stops with
         :class:`AnalysisCancelled`.
+    verdicts : bool
+        Also give every pair of single columns its verdict label
+        (``PairTable.verdicts``): the tiles gather each pair's evidence on the
+        rows its measures used, and the label is decided here once the
+        q-values exist. No time budget; the cost is measured in
+        benchmarks/bench_engine.py (``verdicts_add``).
     """
     started = time.perf_counter()
     data = np.asarray(data, dtype=np.float64)
@@ -97,7 +104,7 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
         executor = make_executor(workers=workers, cluster=cluster, n_tasks=len(pairs), n_rows=data.shape[0],
                                  resamples=max((settings.permutations_for(m) for m in settings.measures), default=0))
     tiles = make_tiles(pairs, getattr(executor, "parallelism", workers))
-    results: list[list[PairRow] | None] = [None] * len(tiles)
+    results: list[tuple[list[PairRow], list] | None] = [None] * len(tiles)
     done_pairs = 0
     prepared = None
     if isinstance(executor, (SerialExecutor, ProcessExecutor)):
@@ -112,7 +119,7 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
         gc.freeze()
     try:
         for index, rows in executor.run(run_tile, tiles, init_worker,
-                                        (data, variables, settings, row_mask, prepared),
+                                        (data, variables, settings, row_mask, prepared, verdicts),
                                         cancel=cancel):
             results[index] = rows
             done_pairs += len(tiles[index])
@@ -129,11 +136,35 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
             executor.close()
     if any(r is None for r in results):
         raise AnalysisCancelled("analysis cancelled")
-    rows = [r for tile_rows in results for r in (tile_rows or [])]
+    rows = [r for tile_rows, _ in results for r in tile_rows]
     _fill_q_values(rows, settings.adjust)
     table = PairTable([v.name for v in variables], settings.measures, settings, rows)
+    if verdicts:
+        table.verdicts = _labels(table, [e for _, tile_evidence in results for e in tile_evidence])
     table.seconds = time.perf_counter() - started
     return table
+
+
+def _symmetric(measure: str) -> bool:
+    return MEASURES[measure].symmetric
+
+
+def _labels(table: PairTable, evidence: list) -> dict[tuple[str, str], str]:
+    """Each pair's verdict label from its tile's evidence and the analysis's q-values."""
+    from .core.verdict import label_from_evidence
+
+    # q-values of each pair in one pass (PairTable.lookup scans every row: per pair that is
+    # quadratic in the number of pairs); the x -> y row for an asymmetric measure, as lookup
+    q_of: dict[tuple[str, str], dict[str, float]] = {}
+    for r in table.rows:
+        q_of.setdefault((r.x, r.y), {})[r.measure] = float(r.q_value)
+    out: dict[tuple[str, str], str] = {}
+    for (x, y), ev in evidence:
+        q_values = dict(q_of.get((y, x), {}))
+        q_values = {m: q for m, q in q_values.items() if _symmetric(m)}
+        q_values.update(q_of.get((x, y), {}))
+        out[(x, y)] = label_from_evidence(ev, q_values)
+    return out
 
 
 def _fill_q_values(rows: list[PairRow], adjust: str) -> None:

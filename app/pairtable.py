@@ -39,6 +39,8 @@ class PairTable:
     settings: AnalysisSettings
     rows: list[PairRow] = field(default_factory=list)
     seconds: float = 0.0
+    # (x, y) in variable order -> verdict label, for pairs of single columns (run_analysis(verdicts=True))
+    verdicts: dict[tuple[str, str], str] = field(default_factory=dict)
 
     def records(self) -> list[dict]:
         return [r.record() for r in self.rows]

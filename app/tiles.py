@@ -184,11 +184,15 @@ def prepare_columns(data: np.ndarray, variables: Sequence[Variable],
 _WORKER_STATE: dict = {}
 
 
-def init_worker(data, variables, settings, row_mask, prepared=None) -> None:
-    """Worker state for a run; ``prepared`` (the sorted columns) is built here when not given."""
+def init_worker(data, variables, settings, row_mask, prepared=None, verdicts=False) -> None:
+    """Worker state for a run; ``prepared`` (the sorted columns) is built here when not given.
+
+    ``verdicts`` True: each tile also gathers what every pair of single columns
+    needs for its verdict label (:func:`pairlens.core.verdict.label_evidence`).
+    """
     _WORKER_STATE.clear()
     _WORKER_STATE.update(data=data, variables=variables, settings=settings, row_mask=row_mask,
-                         prepared=prepared)
+                         prepared=prepared, verdicts=verdicts)
 
 
 def release_worker() -> None:
@@ -234,10 +238,38 @@ def one_blas_thread():
         yield
 
 
-def run_tile(tile: list[tuple[int, int]]) -> list[PairRow]:
+def _label_evidence(data: np.ndarray, prep: "allpairs.PreparedColumns", xvar: Variable, yvar: Variable,
+                    rows: list[PairRow], row_mask: np.ndarray | None):
+    """The q-independent part of the pair's verdict, on the rows its measures used; None for groups."""
+    from .core.verdict import label_evidence
+
+    if xvar.is_group or yvar.is_group:
+        return None
+    i, j = prep.slot.get(xvar.columns[0]), prep.slot.get(yvar.columns[0])
+    if i is not None and j is not None:
+        # the sorted columns' column-major copy, its presence mask folding in the row mask:
+        # the same rows as below without strided reads of the row-major table
+        xv, yv = prep.values[:, i], prep.values[:, j]
+        keep = prep.present[:, i] & prep.present[:, j]
+    else:
+        xv, yv = data[:, xvar.columns[0]], data[:, yvar.columns[0]]
+        keep = ~np.isnan(xv) & ~np.isnan(yv)
+        if row_mask is not None:
+            keep &= row_mask
+    results = {r.measure: TestResult(r.estimate, r.p_value, r.method, r.ci_low, r.ci_high, r.n, r.note)
+               for r in rows if r.x == xvar.name}
+    try:
+        return label_evidence(xv[keep], yv[keep], results, alpha=config.SIGNIFICANCE_LEVEL)
+    except ArithmeticError:  # values near 1e300 overflow: no verdict, as in the pair view
+        return None
+
+
+def run_tile(tile: list[tuple[int, int]]) -> tuple[list[PairRow], list]:
+    """The rows of every pair in the tile, and (when asked) each pair's verdict evidence ``((x, y), ev)``."""
     s = _WORKER_STATE
     prep = _worker_prepared()
     out: list[PairRow] = []
+    evidence: list = []
     with one_blas_thread():
         for i, j in tile:
             xvar, yvar = s["variables"][i], s["variables"][j]
@@ -248,7 +280,11 @@ def run_tile(tile: list[tuple[int, int]]) -> list[PairRow]:
             if rows is None:
                 rows = compute_pair(s["data"], xvar, yvar, s["settings"], s["row_mask"])
             out.extend(rows)
-    return out
+            if s.get("verdicts"):
+                ev = _label_evidence(s["data"], prep, xvar, yvar, rows, s["row_mask"])
+                if ev is not None:
+                    evidence.append(((xvar.name, yvar.name), ev))
+    return out, evidence
 
 
 def make_tiles(pairs: list[tuple[int, int]], workers: int) -> list[list[tuple[int, int]]]:
