@@ -74,6 +74,7 @@ from typing import Callable
 import numpy as np
 
 from .. import config
+from .registry import MEASURES
 from .results import TestResult
 
 __all__ = ["Pattern", "LABELS", "RULES", "Rule", "classify_pair", "influence_on_r", "rank_rank", "LabelEvidence",
@@ -82,9 +83,10 @@ __all__ = ["Pattern", "LABELS", "RULES", "Rule", "classify_pair", "influence_on_
 LABELS = ("linear", "monotone but curved", "non-monotone", "driven by a few points",
           "no evidence of dependence")
 
-TREND_MEASURES = ("pearson", "spearman", "kendall")
-RANK_MEASURES = ("spearman", "kendall")
-DEPENDENCE_MEASURES = ("dcor", "dcor_bc", "xi")
+# Read from the registry entries' roles (a rank correlation is a trend test too).
+TREND_MEASURES = tuple(n for n, m in MEASURES.items() if m.role in ("trend", "rank"))
+RANK_MEASURES = tuple(n for n, m in MEASURES.items() if m.role == "rank")
+DEPENDENCE_MEASURES = tuple(n for n, m in MEASURES.items() if m.role == "dependence")
 
 # Thresholds of the rule table (see the module docstring). They are effect
 # sizes on the correlation scale, chosen well above the sampling noise of the
@@ -194,8 +196,7 @@ def _fmt_q(q: float | None, name: str = "q") -> str:
     return f"{name} = {q:.3f}"
 
 
-_PRETTY = {"pearson": "Pearson r", "spearman": "Spearman rho", "kendall": "Kendall tau",
-           "dcor": "dCor", "dcor_bc": "bias-corrected dCor^2", "xi": "xi(x -> y)"}
+_PRETTY = {n: m.short_label or m.label for n, m in MEASURES.items()}
 
 
 def _r_from_sums(dx: np.ndarray, dy: np.ndarray) -> float:
