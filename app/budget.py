@@ -67,7 +67,7 @@ def check_plan(estimate: WorkEstimate) -> WorkEstimate:
 
 def check_work(n_rows: int, numeric: list[str], options: dict) -> WorkEstimate | None:
     """:func:`check_plan` for a request's raw options; None when they are invalid (the caller explains)."""
-    from .engine import AnalysisSettings, plan_variables
+    from .plan import AnalysisSettings, plan_variables
 
     allowed = ("measures", "columns", "groups", "missing", "adjust", "confidence", "permutations", "seed")
     try:

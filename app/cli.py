@@ -10,7 +10,6 @@ import argparse
 import json
 import math
 import os
-import shlex
 import sys
 import time
 from pathlib import Path
@@ -163,7 +162,7 @@ def _load(args):
 
 
 def _settings(args):
-    from .engine import AnalysisSettings
+    from .plan import AnalysisSettings
 
     return AnalysisSettings.from_options(
         measures=args.measures, columns=args.columns, groups=args.group, missing=args.missing,
@@ -233,7 +232,8 @@ def cmd_pairs(args) -> int:
 
 
 def cmd_inspect(args) -> int:
-    from .engine import AnalysisSettings, pair_detail
+    from .pairs import pair_detail
+    from .plan import AnalysisSettings
     from .core.registry import MEASURES
 
     table = _load(args)
@@ -289,8 +289,7 @@ def cmd_report(args) -> int:
         raise UsageError(f"pairlens report: output {args.output!r} must end in .html")
     table = _load(args)
     settings, result = _run(args, table)
-    command = "pairlens report " + " ".join(shlex.quote(a) for a in
-                                            [args.data, "-o", args.output, *settings.cli_arguments()])
+    command = settings.reproduce_command(args.data, args.output)
     html = build_report(table, result, command=command)
     _write_text(args.output, html)
     return 0

@@ -131,10 +131,6 @@ DEFAULT_TEST_PERMUTATIONS = 9_999
 DEFAULT_HOST = "127.0.0.1"
 DEFAULT_PORT = 8000
 MAX_CONCURRENT_ANALYSES = 2
-# After the pair table the background job labels pairs (pairlens.core.verdict) for this
-# long at most, most significant pairs first; the rest get their label when their
-# pair view opens. Measured: about 50 ms per pair at n = 960 (153 pairs in 8 s).
-VERDICT_BUDGET_SECONDS = 10.0
 # A cancelled analysis that has not stopped after this long is terminated.
 CANCEL_GRACE_SECONDS = 3.0
 # Every server on a workspace checks this often whether the owners of running analyses are

@@ -63,6 +63,7 @@ class _WorkerRuns:
         self._data: dict[str, tuple[Callable[..., None], tuple]] = {}
         self._active: str | None = None
         self._busy = 0
+        self._last_release: Callable[[], None] | None = None
         self.tiles_run: collections.Counter[str] = collections.Counter()
 
     def add(self, run_id: str, initializer: Callable[..., None], initargs: tuple) -> None:
@@ -71,7 +72,9 @@ class _WorkerRuns:
 
     def remove(self, run_id: str) -> None:
         with self._cond:
-            self._data.pop(run_id, None)
+            entry = self._data.pop(run_id, None)
+            if entry is not None:
+                self._last_release = getattr(entry[0], "release", None)
             if self._active == run_id and self._busy == 0:
                 self._release()
 
@@ -99,11 +102,13 @@ class _WorkerRuns:
                 self._cond.notify_all()
 
     def _release(self) -> None:
-        # Drop the engine's reference to the columns so a long-lived worker does not keep
-        # the last analysis' data in memory.
-        from . import engine
-
-        engine._WORKER_STATE.clear()
+        # The initializer's ``release`` (the executor protocol, app/executors.py) drops the
+        # tiles' reference to the columns so a long-lived worker does not keep the last
+        # analysis' data in memory; the executor needs no import of the engine for it.
+        entry = self._data.get(self._active) if self._active is not None else None
+        release = getattr(entry[0], "release", None) if entry is not None else self._last_release
+        if release is not None:
+            release()
         self._active = None
 
 
@@ -139,7 +144,8 @@ def _source_fingerprint() -> str:
     # Equal version numbers do not mean equal code (editable installs, local patches); results
     # are only bit-for-bit equal when every process runs the same sources of the computation.
     root = Path(__file__).resolve().parent
-    files = [root / "__init__.py", root / "config.py", root / "engine.py", Path(__file__).resolve(),
+    files = [root / "__init__.py", root / "config.py", root / "engine.py", root / "tiles.py", root / "plan.py",
+             root / "pairtable.py", Path(__file__).resolve(),
              *(root / "core").rglob("*.py")]
     digest = hashlib.sha256()
     for path in sorted(set(files)):

@@ -18,6 +18,14 @@ _PARALLEL_MIN_WORK = 2_000_000
 
 
 class Executor(Protocol):
+    """Runs ``fn`` on every task after ``initializer(*initargs)`` in each worker.
+
+    An initializer may carry a ``release`` attribute (a callable without
+    arguments) that frees the worker state it set up; an executor whose workers
+    outlive the run calls it when the run ends. Executors never import the
+    engine: what runs in a worker arrives as these callables.
+    """
+
     parallelism: int
 
     def run(self, fn: Callable[[Any], Any], tasks: Sequence[Any], initializer: Callable[..., None],

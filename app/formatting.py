@@ -20,9 +20,13 @@ compares them in Chromium.
 
 from __future__ import annotations
 
+import json
 import math
 
-__all__ = ["RULE", "fmt", "fmt_est", "fmt_p", "fmt_count", "fmt_interval", "fmt_share"]
+from markupsafe import Markup
+
+__all__ = ["RULE", "fmt", "fmt_est", "fmt_p", "fmt_count", "fmt_interval", "fmt_share", "finite",
+           "finite_or_null", "embed_json"]
 
 RULE = ("Estimates of the measures have three decimals (0.823, 0.000). Other numbers between 0.001 and "
         "100,000 in size have three decimals too (12.500); smaller or larger ones have two significant "
@@ -33,7 +37,8 @@ RULE = ("Estimates of the measures have three decimals (0.823, 0.000). Other num
 _SUPERSCRIPT = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
 
 
-def _finite(v) -> float | None:
+def finite(v) -> float | None:
+    """``v`` as a float when it is a finite number, else None (None, NaN, infinities, text, booleans)."""
     if v is None or isinstance(v, bool):
         return None
     try:
@@ -51,7 +56,7 @@ def fmt(v) -> str:
     >>> fmt(0.8224), fmt(-0.04), fmt(4.31e-18), fmt(None), fmt(0)
     ('0.822', '-0.040', '4.3×10⁻¹⁸', '–', '0.000')
     """
-    x = _finite(v)
+    x = finite(v)
     if x is None:
         return "–"
     a = abs(x)
@@ -64,7 +69,7 @@ def fmt(v) -> str:
 
 def fmt_est(v) -> str:
     """An estimate of a measure: three decimals whatever its size ("0.000", never "7.0×10⁻⁴")."""
-    x = _finite(v)
+    x = finite(v)
     if x is None:
         return "–"
     if abs(x) >= 1e5:  # not a measure's estimate after all: the general rule
@@ -75,7 +80,7 @@ def fmt_est(v) -> str:
 
 def fmt_p(v) -> str:
     """A p- or q-value: :func:`fmt`, except an underflowed zero, which is "< 10⁻³⁰⁰"."""
-    x = _finite(v)
+    x = finite(v)
     if x is None:
         return "–"
     if x == 0.0:
@@ -85,7 +90,7 @@ def fmt_p(v) -> str:
 
 def fmt_count(v) -> str:
     """A whole number with thin-space grouping: 44 850."""
-    x = _finite(v)
+    x = finite(v)
     if x is None:
         return "–"
     return f"{int(round(x)):,}".replace(",", "\u2009")
@@ -93,7 +98,7 @@ def fmt_count(v) -> str:
 
 def fmt_interval(low, high) -> str:
     """``[low, high]`` with both ends by :func:`fmt`; "–" when either end is missing."""
-    if _finite(low) is None or _finite(high) is None:
+    if finite(low) is None or finite(high) is None:
         return "–"
     return f"[{fmt(low)}, {fmt(high)}]"
 
@@ -116,3 +121,18 @@ def finite_or_null(value):
     if isinstance(value, (list, tuple)):
         return [finite_or_null(v) for v in value]
     return value
+
+
+def embed_json(value) -> Markup:
+    """JSON for a ``<script type="application/json">`` block that no string can break out of.
+
+    ``<``, ``>`` and ``&`` become ``\\u003c`` etc. (so ``</script>`` and ``<!--`` in a
+    column name stay inert) and the line separators U+2028/2029 are escaped too.
+    """
+    try:
+        text = json.dumps(value, ensure_ascii=False, allow_nan=False, separators=(",", ":"))
+    except ValueError:  # a non-finite number (an overflowing fit): shown as missing
+        text = json.dumps(finite_or_null(value), ensure_ascii=False, allow_nan=False, separators=(",", ":"))
+    text = (text.replace("<", "\\u003c").replace(">", "\\u003e").replace("&", "\\u0026")
+            .replace("\u2028", "\\u2028").replace("\u2029", "\\u2029"))
+    return Markup(text)

@@ -35,84 +35,29 @@ import traceback
 
 from typing import Callable
 
-import numpy as np
 
 from . import config
 from .store import Store, is_disk_full, process_start_time
 
-__all__ = ["JobManager", "run_job", "compute_verdicts", "VERDICT_FRACTION"]
+__all__ = ["JobManager", "run_job", "verdict_labels"]
 
-# Share of the progress bar given to the verdict pass after the pair table.
-VERDICT_FRACTION = 0.1
 _CANCEL_GRACE = config.CANCEL_GRACE_SECONDS
 
 
-def _pair_key(x: str, y: str) -> str:
-    return f"{x}\u0000{y}"
+def verdict_labels(table) -> dict:
+    """The stored verdicts of an analysis: every pair's label from the engine (``run_analysis(verdicts=True)``).
 
-
-def compute_verdicts(data: np.ndarray, names: list[str], table, *, budget_seconds: float | None = None,
-                     progress=None, cancel=None) -> dict:
-    """Verdict label per pair (``"x\\0y"`` keys) for univariate pairs, until the time budget runs out.
-
-    Returns ``{"labels": {key: label}, "complete": bool, "seconds": float, "per_pair_ms": float}``.
-    Pairs not reached get their verdict when their pair view opens.
+    Returns ``{"labels": {"x\\0y": label}, "complete": True}``; keys are :func:`pairlens.payloads.pair_key`.
     """
-    from .core.results import TestResult
-    from .core.verdict import classify_pair
+    from .payloads import pair_key
 
-    budget_seconds = config.VERDICT_BUDGET_SECONDS if budget_seconds is None else budget_seconds
-    started = time.perf_counter()
-    position = {n: i for i, n in enumerate(names)}
-    seen: dict[tuple[str, str], dict] = {}
-    for r in table.rows:
-        if r.x in position and r.y in position:
-            key = (r.x, r.y) if position[r.x] < position[r.y] else (r.y, r.x)
-            seen.setdefault(key, {})
-    # Most significant pairs first, so a budget that runs out leaves only the dull ones unlabelled.
-    best_q: dict[tuple[str, str], float] = {}
-    for r in table.rows:
-        if r.x in position and r.y in position:
-            key = (r.x, r.y) if position[r.x] < position[r.y] else (r.y, r.x)
-            q = r.q_value if r.q_value == r.q_value else 1.0
-            best_q[key] = min(best_q.get(key, 1.0), q)
-    pairs = sorted(seen, key=lambda k: (best_q.get(k, 1.0), position[k[0]], position[k[1]]))
-    labels: dict[str, str] = {}
-    complete = True
-    last_report = 0.0
-    for k, (x, y) in enumerate(pairs):
-        if time.perf_counter() - started > budget_seconds:
-            complete = False
-            break
-        if cancel is not None and k % 16 == 0 and cancel():
-            from .engine import AnalysisCancelled
-
-            raise AnalysisCancelled("analysis cancelled")
-        rows = table.lookup(x, y)
-        results = {m: TestResult(r.estimate, r.p_value, r.method, r.ci_low, r.ci_high, r.n, r.note)
-                   for m, r in rows.items()}
-        q_values = {m: float(r.q_value) for m, r in rows.items()}
-        xv, yv = data[:, position[x]], data[:, position[y]]
-        keep = ~np.isnan(xv) & ~np.isnan(yv)
-        try:
-            pattern = classify_pair(xv[keep], yv[keep], results, q_values, alpha=config.SIGNIFICANCE_LEVEL)
-            labels[_pair_key(x, y)] = pattern.label
-        except Exception:  # noqa: BLE001 - one odd pair must not fail the analysis; its view shows why
-            labels[_pair_key(x, y)] = ""
-        now = time.perf_counter()
-        if progress is not None and now - last_report > 0.25:
-            last_report = now
-            progress((k + 1) / max(len(pairs), 1))
-    seconds = time.perf_counter() - started
-    done = max(len(labels), 1)
-    return {"labels": labels, "complete": complete and len(labels) == len(pairs), "seconds": seconds,
-            "per_pair_ms": 1000.0 * seconds / done}
+    return {"labels": {pair_key(x, y): label for (x, y), label in table.verdicts.items()}, "complete": True}
 
 
 def _page_cache(pair_table, verdicts: dict) -> dict | None:
     """The analysis page's default figures, built here so the server's first view is fast."""
     try:
-        from .web.deps import precompute_pages
+        from .payloads import precompute_pages
 
         return precompute_pages(pair_table, verdicts)
     except Exception:  # noqa: BLE001 - without the cache the server builds the figures itself
@@ -244,7 +189,7 @@ def run_job(data_dir: str, analysis_id: str, *, workers: int | None = None, clus
         def progress(fraction: float, seconds_left: float) -> None:
             if progress_throttle.ready() or fraction >= 1.0:
                 left = seconds_left if math.isfinite(seconds_left) else None
-                note_progress(analysis_id, fraction * (1 - VERDICT_FRACTION), left)
+                note_progress(analysis_id, fraction, left)
 
         try:
             dataset = store.get_dataset(row.dataset_id)
@@ -255,20 +200,15 @@ def run_job(data_dir: str, analysis_id: str, *, workers: int | None = None, clus
             settings = AnalysisSettings.from_dict(row.settings)
             # time left from the up-front estimate until the first tile reports a measured one
             from .budget import estimate_work
-            from .engine import plan_variables
+            from .plan import plan_variables
 
             estimate = estimate_work(len(plan_variables(table.columns, settings)), len(settings.measures),
                                      table.n_rows, settings.permutations)
             note_progress(analysis_id, 0.0, estimate.seconds / max(1, workers or 1), phase="pairs")
+            # every pair's verdict label is computed in the tiles, with the pair table
             pair_table = run_analysis(table.data, table.columns, settings, workers=workers, cluster=cluster,
-                                      progress=progress, cancel=cancel)
-            note_progress(analysis_id, 1 - VERDICT_FRACTION, None, phase="verdicts")
-
-            def verdict_progress(fraction: float) -> None:
-                note_progress(analysis_id, 1 - VERDICT_FRACTION + VERDICT_FRACTION * fraction, None)
-
-            verdicts = compute_verdicts(table.data, table.columns, pair_table, progress=verdict_progress,
-                                        cancel=cancel)
+                                      progress=progress, cancel=cancel, verdicts=True)
+            verdicts = verdict_labels(pair_table)
             if cancel():
                 raise AnalysisCancelled("analysis cancelled")
             from .export import json_records

@@ -16,7 +16,6 @@ import html
 import json
 import math
 import os
-import shlex
 from collections import OrderedDict
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -26,7 +25,7 @@ from . import config
 if TYPE_CHECKING:  # pragma: no cover - typing only
     import pandas as pd
 
-    from .engine import PairTable
+    from .pairtable import PairTable
     from .ingest import Table
 
 __all__ = ["read", "analyze", "Analysis", "PairView"]
@@ -378,7 +377,7 @@ class Analysis:
         The measures and q-values are those of this analysis; the shape is that of
         ``pairlens inspect --json`` (docs/contracts.md).
         """
-        from .engine import pair_detail
+        from .pairs import pair_detail
 
         detail = pair_detail(self._table.data, self._table.columns, x, y, self._pair_table.settings,
                              table=self._pair_table, include_points=True)
@@ -392,9 +391,7 @@ class Analysis:
 
     def command(self, output: str = "REPORT.html") -> str:
         """The ``pairlens report`` command line that reproduces this analysis from the file."""
-        return "pairlens report " + " ".join(shlex.quote(a) for a in
-                                             [self._table.name, "-o", output,
-                                              *self._pair_table.settings.cli_arguments()])
+        return self._pair_table.settings.reproduce_command(self._table.name, output)
 
     def report(self, path: str | os.PathLike) -> Path:
         """Write the self-contained HTML report (the one of ``pairlens report``) to ``path``.

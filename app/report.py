@@ -27,11 +27,15 @@ from jinja2 import Environment, FileSystemLoader, StrictUndefined
 from markupsafe import Markup
 
 from . import __version__, config, formatting
+from . import figures as plots
 from .core.registry import MEASURES
-from .engine import PairRow, PairTable, pair_detail
+from .formatting import embed_json
 from .methods import methods_content
+from .pairs import full_detail
+from .pairtable import PairRow, PairTable
+from .plan import analysis_row_mask
 
-__all__ = ["MAX_SCATTER_POINTS", "EXTREME_POINTS", "script_json", "round_floats", "extreme_indices",
+__all__ = ["MAX_SCATTER_POINTS", "EXTREME_POINTS", "round_floats", "extreme_indices",
            "shared_rows", "PointStore", "simplify_polyline", "rank_pairs", "disagreement_contrasts",
            "compact_heatmap", "compact_difference", "binned_marginals", "build_report"]
 
@@ -62,22 +66,6 @@ _CONTRASTS = (
 
 
 # JSON and number helpers ----------------------------------------------------
-
-_JSON_ESCAPES = {"<": "\\u003c", ">": "\\u003e", "&": "\\u0026", "\u2028": "\\u2028", "\u2029": "\\u2029"}
-
-
-def script_json(value) -> Markup:
-    """JSON safe to place inside a ``<script>`` element.
-
-    ``<``, ``>`` and ``&`` become ``\\u003c`` ``\\u003e`` ``\\u0026`` so no
-    ``</script>`` or ``<!--`` can end or change the element, and U+2028/U+2029
-    are escaped for JavaScript parsers that treat them as line ends.
-    """
-    text = json.dumps(value, ensure_ascii=False, allow_nan=False, separators=(",", ":"))
-    for char, escaped in _JSON_ESCAPES.items():
-        text = text.replace(char, escaped)
-    return Markup(text)
-
 
 def _round_number(v: float, digits: int):
     if not math.isfinite(v):
@@ -110,19 +98,10 @@ def _finite(v) -> bool:
     return v is not None and isinstance(v, (int, float, np.floating)) and math.isfinite(float(v))
 
 
-def fmt_estimate(v) -> str:
-    """An estimate by the one rule of :mod:`pairlens.formatting` (three decimals)."""
-    return formatting.fmt_est(v)
-
-
-def fmt_p(v) -> str:
-    """A p- or q-value by the one rule of :mod:`pairlens.formatting`."""
-    return formatting.fmt_p(v)
-
-
-def fmt_num(v, digits: int = 4) -> str:
-    """Any other number by the one rule of :mod:`pairlens.formatting` (``digits`` is ignored)."""
-    return formatting.fmt(v)
+# Numbers are written by the one rule of :mod:`pairlens.formatting`, as on the web pages.
+fmt_estimate = formatting.fmt_est
+fmt_p = formatting.fmt_p
+fmt_num = formatting.fmt
 
 
 def _sort_value(v) -> str:
@@ -464,7 +443,7 @@ def _gaussian_summary(detail: dict) -> dict:
         "marginal": [{"axis": detail["x"] if k == "x" else detail["y"] if k == "y" else k,
                       "test": v.get("test", ""), "p": fmt_p(v.get("p_value"))} for k, v in marg.items()],
         "implied": implied,
-        "mi": fmt_num(all_implied["mi"], 3) if _finite(all_implied.get("mi")) else "",
+        "mi": fmt_num(all_implied["mi"]) if _finite(all_implied.get("mi")) else "",
         "note": g.get("note", ""),
     }
 
@@ -488,8 +467,6 @@ def _slim_pair_figure(fig: dict) -> dict:
 
 def _pair_cards(table, pt: PairTable, rankings: list[Ranking], figures: dict,
                 workers: int = 1) -> tuple[list[PairCard], int, dict]:
-    from .web import plots
-
     order = {v: i for i, v in enumerate(pt.variables)}
     columns = set(table.columns)
     cards: dict[tuple[str, str], PairCard] = {}
@@ -508,10 +485,11 @@ def _pair_cards(table, pt: PairTable, rankings: list[Ranking], figures: dict,
     n_columns = len({c for pair in drawable for c in pair})
     limit = max(MIN_SCATTER_POINTS, min(MAX_SCATTER_POINTS, POINT_VALUES_BUDGET // max(n_columns, 1)))
     store = PointStore(table.data, table.columns, shared_rows(table.data.shape[0], limit, pt.settings.seed))
+    row_mask = analysis_row_mask(table.data, table.columns, pt.settings)
+
     def detail_of(pair):
-        # points come from the data below: asking pair_detail for them would build
-        # Python lists of every row, which costs more than the fit for large files
-        return pair_detail(table.data, table.columns, pair[0], pair[1], pt.settings, table=pt)
+        # the pair-detail service: the rows, measures, fit and verdict the pair view shows
+        return full_detail(table.data, table.columns, pair[0], pair[1], pt.settings, pt, row_mask)
 
     # The Gaussian fit's normality test is O(n^2) and NumPy releases the GIL in it,
     # so a few threads shorten the wait; results keep the card order.
@@ -521,11 +499,9 @@ def _pair_cards(table, pt: PairTable, rankings: list[Ranking], figures: dict,
         if x not in columns or y not in columns:
             card.note = "A column group: the report draws scatters for single columns only."
             continue
-        detail = details[(x, y)]
-        xs_all = table.data[:, table.columns.index(x)]
-        ys_all = table.data[:, table.columns.index(y)]
-        prow = np.flatnonzero(~np.isnan(xs_all) & ~np.isnan(ys_all))  # the rows pair_detail fits
-        px, py = xs_all[prow], ys_all[prow]
+        typed = details[(x, y)]
+        detail = typed.to_json()
+        prow, px, py = typed.rows.rows, typed.rows.x, typed.rows.y  # the rows the measures and the fit use
         total = len(px)
         in_sample = np.isin(prow, store.rows)
         far = extreme_indices(px, py)
@@ -536,19 +512,18 @@ def _pair_cards(table, pt: PairTable, rankings: list[Ranking], figures: dict,
             card.points_note = (f"Showing {len(shown_pos)} of {total} points: the rows of a random sample of "
                                 f"{len(store.rows)} shared by every scatter in this report (seed "
                                 f"{pt.settings.seed}), plus the {len(far)} points of this pair farthest from "
-                                f"its centre. Measures, histograms and the Gaussian fit use all {total}.")
+                                f"its centre.")
         else:
-            card.points_note = f"All {total} points with both values present."
-        used = {r["n"] for r in card.rows}
-        if pt.settings.missing == "complete" and used and used != {total}:
-            card.points_note += (f" The measures used only rows complete in every analysed variable "
-                                 f"(n = {', '.join(str(u) for u in sorted(used))}); the scatter and the "
-                                 f"Gaussian fit use every row where both of these values are present.")
+            card.points_note = f"All {total} points are drawn."
+        card.points_note += " " + typed.rows.describe()
         card.figure_id = f"fig-{card.anchor}"
         fig = binned_marginals(plots.pair_figure({**detail, "points": shown}), px, py)
         fig = _slim_pair_figure(fig)
         trace = fig["data"][0] if fig.get("data") else {}
-        if len(trace.get("x") or []) == len(shown_pos):
+        # The shared column values draw every sampled row where both values are present; under
+        # missing = complete the pair uses fewer rows, so its points are stored as they are.
+        shareable = pt.settings.missing != "complete"
+        if shareable and len(trace.get("x") or []) == len(shown_pos):
             # the points trace: shared column values plus this pair's extra far points
             fig["data"][0] = {**trace,
                               "x": {"$column": store.column(x), "$extra": round_floats(px[extra].tolist())},
@@ -679,8 +654,6 @@ def build_report(table, pair_table: PairTable, *, command: str, generated_at: da
     workers : int, optional
         Threads for the per-pair Gaussian fits (default: up to 4, one per core).
     """
-    from .web import plots
-
     generated_at = generated_at or datetime.now(timezone.utc)
     if generated_at.tzinfo is None:
         generated_at = generated_at.replace(tzinfo=timezone.utc)
@@ -718,7 +691,7 @@ def build_report(table, pair_table: PairTable, *, command: str, generated_at: da
     figures = {k: round_floats(v) for k, v in figures.items()}
     sort_js = _asset("report.js")
     plotly_js = _plotly_js()
-    figure_json = script_json(figures)
+    figure_json = embed_json(figures)
     csp = ("default-src 'none'; "
            f"script-src {_csp_hash(plotly_js)} {_csp_hash(sort_js)}; "
            "style-src 'unsafe-inline'; img-src data: blob:; font-src data:; connect-src 'none'; "
@@ -734,7 +707,7 @@ def build_report(table, pair_table: PairTable, *, command: str, generated_at: da
         "plotly_js": Markup(plotly_js),
         "sort_js": Markup(sort_js),
         "figure_json": figure_json,
-        "points_json": script_json(point_store),
+        "points_json": embed_json(point_store),
         "fingerprint": _fingerprint(table, pair_table),
         "is_demo": _is_demo(table),
         "settings": settings,

@@ -2,6 +2,7 @@
 
     python benchmarks/bench_engine.py                 # W1, W2, W3, 3 repeats, all cores
     python benchmarks/bench_engine.py --only W1 --repeats 5 --workers 2
+    python benchmarks/bench_engine.py --only W1V --repeats 5 --workers 2   # what verdicts add to W1
     python benchmarks/bench_engine.py --quick         # small sizes, a smoke run (minutes)
 
 Not a test: nothing here asserts a speed. It prints, per workload, medians over
@@ -194,7 +195,8 @@ def baseline_cmd(csv: Path, out: Path, measures: str, *, test: str = "ttest", pe
 
 
 def engine_seconds(csv: Path, measures: tuple[str, ...], workers: int, repeats: int,
-                   permutations: int = 0, rows: int | None = None, columns: int | None = None):
+                   permutations: int = 0, rows: int | None = None, columns: int | None = None,
+                   verdicts: bool = False):
     """Median in-process run_analysis time (the table read once, outside the timing)."""
     from pairlens.engine import AnalysisSettings, run_analysis
     from pairlens.ingest import load_table
@@ -210,9 +212,49 @@ def engine_seconds(csv: Path, measures: tuple[str, ...], workers: int, repeats: 
     times = []
     for _ in range(repeats):
         t = time.perf_counter()
-        run_analysis(data, names, settings, workers=workers)
+        run_analysis(data, names, settings, workers=workers, verdicts=verdicts)
         times.append(time.perf_counter() - t)
     return median(times), times
+
+
+def verdicts_add(csv: Path, measures: tuple[str, ...], workers: int, repeats: int) -> dict:
+    """What the verdict labels add to the engine's time: runs without and with them, interleaved.
+
+    Interleaving (off, on, off, on, ...) lets a change of load on the shared
+    machine touch both alike; the answer is the ratio of the medians.
+    """
+    from pairlens.engine import AnalysisSettings, run_analysis
+    from pairlens.ingest import load_table
+
+    table = load_table(csv)
+    data, names = table.data, list(table.columns)
+    settings = AnalysisSettings(measures=measures)
+    run_analysis(data[:50], names, settings, workers=1, verdicts=True)  # kernels loaded before timing
+    off, on = [], []
+    labelled = 0
+    for _ in range(repeats):
+        for flag, times in ((False, off), (True, on)):
+            t = time.perf_counter()
+            out = run_analysis(data, names, settings, workers=workers, verdicts=flag)
+            times.append(time.perf_counter() - t)
+            if flag:
+                labelled = len(out.verdicts)
+    p = len(names)
+    return {"engine_without_verdicts_s": median(off), "engine_with_verdicts_s": median(on),
+            "runs_without_s": off, "runs_with_s": on, "pairs": p * (p - 1) // 2, "pairs_labelled": labelled,
+            "verdicts_add": median(on) / median(off) - 1.0}
+
+
+def w1_verdicts(args, tmp: Path, report: dict) -> None:
+    """W1's table: the engine with and without every pair's verdict label (goal: at most +25%)."""
+    n, p = (2000, 20) if args.quick else (10_000, 60)
+    data, names = make_table(n, p, 0.05, seed=1)
+    csv = tmp / "w1v.csv"
+    write_csv(csv, data, names)
+    res = {"shape": [n, p], "workers": args.workers,
+           **verdicts_add(csv, ("pearson", "spearman", "kendall", "dcor"), args.workers, args.repeats)}
+    report["W1V"] = res
+    _print("W1V", res)
 
 
 def compare_answers(ours_csv: Path, base_csv: Path) -> dict:
@@ -460,7 +502,8 @@ def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--repeats", type=int, default=3)
     ap.add_argument("--workers", type=int, default=os.cpu_count() or 1)
-    ap.add_argument("--only", default="startup,W1,W2,W3", help="any of startup,W1,W2,W3,W4 (W4: long tables)")
+    ap.add_argument("--only", default="startup,W1,W1V,W2,W3",
+                    help="any of startup,W1,W1V,W2,W3,W4 (W1V: what verdicts add to W1; W4: long tables)")
     ap.add_argument("--quick", action="store_true")
     ap.add_argument("--w2-pairs", type=int, default=1, help="baseline permutation test: pairs measured")
     ap.add_argument("--w2-repeats", type=int, default=1)
@@ -478,7 +521,7 @@ def main(argv=None) -> int:
         tmp = Path(d)
         if "startup" in only:
             startup(args, report)
-        for name, fn in (("W1", w1), ("W2", w2), ("W3", w3), ("W4", w4)):
+        for name, fn in (("W1", w1), ("W1V", w1_verdicts), ("W2", w2), ("W3", w3), ("W4", w4)):
             if name in only:
                 fn(args, tmp, report)
     report["machine"]["loadavg_end"] = os.getloadavg()

@@ -14,7 +14,8 @@ import sys
 import pytest
 
 from pairlens import config
-from pairlens.engine import AnalysisSettings, pair_detail, run_analysis
+from pairlens.engine import AnalysisSettings, run_analysis
+from pairlens.pairs import pair_detail
 from pairlens.ingest import load_table
 
 PLANTED = {

@@ -7,7 +7,8 @@ import pytest
 import scipy.stats as ss
 
 from pairlens.core.registry import MEASURES
-from pairlens.engine import AnalysisCancelled, AnalysisSettings, SettingsError, pair_detail, run_analysis
+from pairlens.engine import AnalysisCancelled, AnalysisSettings, SettingsError, run_analysis
+from pairlens.pairs import pair_detail
 
 
 def _table(seed=0, n=150, missing=0.08):

@@ -7,8 +7,9 @@ import json
 
 import numpy as np
 
-from pairlens.engine import AnalysisSettings, pair_detail
-from pairlens.web import plots
+from pairlens.engine import AnalysisSettings
+from pairlens.pairs import pair_detail
+from pairlens import figures as plots
 
 
 def _templates(fig: dict) -> list[str]:

@@ -29,7 +29,8 @@ from browser_helpers import chromium_available
 from pairlens import __version__
 from pairlens.engine import AnalysisSettings, run_analysis
 from pairlens.ingest import ColumnInfo, Table, load_table
-from pairlens.report import build_report, extreme_indices, round_floats, script_json, shared_rows, simplify_polyline
+from pairlens.formatting import embed_json as script_json  # the one JSON embedder of every face
+from pairlens.report import build_report, extreme_indices, round_floats, shared_rows, simplify_polyline
 
 ROOT = Path(__file__).resolve().parent.parent
 SCREENSHOTS = Path(__file__).resolve().parent / "screenshots"
@@ -350,10 +351,13 @@ def test_groups_and_complete_rows_are_reported_honestly(tmp_path):
     text = html.unescape(build_report(table, pairs, command="pairlens report g.csv -o g.html", top_k=3))
     assert "Group soil" in text
     assert "A column group: the report draws scatters for single columns only." in text
-    # with complete rows the measures' n differs from the scatter's, and the card says so
-    assert "only rows complete in every analysed variable" in text
+    # with complete rows the scatter, the fit and the verdict use the measures' rows, and the card says so
+    complete = int(np.sum(~np.isnan(table.data).any(axis=1)))
+    assert (f"The measures, the Gaussian fit and the verdict use the {complete} rows complete in every "
+            "analysed variable") in text
+    assert "every row where both of these values are present" not in text
     page = _parse(text)
-    assert {int(c[8][1]) for c in page.pair_rows} == {int(np.sum(~np.isnan(table.data).any(axis=1)))}
+    assert {int(c[8][1]) for c in page.pair_rows} == {complete}
 
 
 # Figures --------------------------------------------------------------------

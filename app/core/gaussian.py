@@ -15,7 +15,9 @@ import numpy as np
 from scipy.special import ndtr
 
 from .. import config
-from .distance import gaussian_dcor
+from .chatterjee import gaussian_xi  # noqa: F401 - kept importable from here
+from .distance import gaussian_dcor  # noqa: F401
+from .registry import MEASURES
 from .results import TestResult, undefined
 
 __all__ = ["GaussianFit", "SliceConditional", "implied_measures", "henze_zirkler", "fit_gaussian",
@@ -129,36 +131,6 @@ def _ellipse(mean: np.ndarray, cov: np.ndarray, mass: float, points: int) -> np.
 
 # -- public functions -------------------------------------------------------
 
-def gaussian_xi(rho: float) -> float:
-    """Population value of Chatterjee's xi for a bivariate normal with correlation rho.
-
-    Notes
-    -----
-    xi = 6 int Var(P(Y >= t | X)) dF_Y(t). For standard normals, with Y1, Y2
-    conditionally independent copies of Y given X (corr rho^2) and Y3 an
-    independent copy, int P(Y >= t | X)^2 dF(t) averages to
-    P(Y1 >= Y3, Y2 >= Y3), an orthant probability with correlation
-    (1 + rho^2)/2, i.e. 1/4 + asin((1 + rho^2)/2)/(2 pi). With
-    int P(Y >= t)^2 dF(t) = 1/3 this gives
-
-        xi = 3/pi asin((1 + rho^2)/2) - 1/2,
-
-    0 at rho = 0 and 1 at |rho| = 1. Checked by simulation in the tests.
-
-    References
-    ----------
-    Chatterjee, S. (2021). JASA 116:2009-2022, doi:10.1080/01621459.2020.1758115
-    (definition of the population xi).
-
-    Examples
-    --------
-    >>> round(gaussian_xi(0.6), 4)
-    0.2141
-    """
-    r2 = min(float(rho) ** 2, 1.0)
-    return 3.0 / math.pi * math.asin((1.0 + r2) / 2.0) - 0.5
-
-
 def implied_measures(rho: float) -> dict[str, float]:
     """Values of each measure under a bivariate normal with correlation rho.
 
@@ -196,20 +168,13 @@ def implied_measures(rho: float) -> dict[str, float]:
     (0.3333, 0.4826)
     """
     rho = float(rho)
+    # each registry entry carries its own Gaussian-implied value as a function of rho
+    implied = [(name, m.implied) for name, m in MEASURES.items() if m.implied is not None]
     if not math.isfinite(rho) or abs(rho) > 1.0 + 1e-12:
-        return {k: _NAN for k in ("pearson", "spearman", "kendall", "dcor", "dcor_bc", "xi", "mi")}
+        return {**{name: _NAN for name, _ in implied}, "mi": _NAN}
     rho = max(-1.0, min(1.0, rho))
-    dcor_value = float(gaussian_dcor(rho))
     mi = math.inf if abs(rho) == 1.0 else -0.5 * math.log1p(-rho * rho)
-    return {
-        "pearson": rho,
-        "spearman": 6.0 / math.pi * math.asin(rho / 2.0),
-        "kendall": 2.0 / math.pi * math.asin(rho),
-        "dcor": dcor_value,
-        "dcor_bc": dcor_value**2,
-        "xi": gaussian_xi(rho),
-        "mi": mi,
-    }
+    return {**{name: float(f(rho)) for name, f in implied}, "mi": mi}
 
 
 def henze_zirkler(data: np.ndarray, *, max_rows: int | None = None,
@@ -307,7 +272,8 @@ def henze_zirkler(data: np.ndarray, *, max_rows: int | None = None,
 
 
 def fit_gaussian(x: np.ndarray, y: np.ndarray, *, masses: tuple[float, ...] = (0.5, 0.9, 0.99),
-                 points: int = 121, seed: np.random.SeedSequence | int | None = None) -> GaussianFit:
+                 points: int = 121, seed: np.random.SeedSequence | int | None = None,
+                 tests: bool = True) -> GaussianFit:
     """Fit a bivariate normal to complete rows of (x, y).
 
     Parameters
@@ -320,6 +286,11 @@ def fit_gaussian(x: np.ndarray, y: np.ndarray, *, masses: tuple[float, ...] = (0
         Boundary points per ellipse (first and last coincide).
     seed : SeedSequence, int or None
         Only for the Henze-Zirkler subsample on large n.
+    tests : bool
+        False skips the normality tests (Henze-Zirkler is O(n^2) up to
+        ``config.HZ_MAX_ROWS`` rows): the moments, line and ellipses only, with
+        the tests' results undefined ("not computed"). The pair view's quick
+        first answer uses this.
 
     Returns
     -------
@@ -371,7 +342,7 @@ def fit_gaussian(x: np.ndarray, y: np.ndarray, *, masses: tuple[float, ...] = (0
     syy = float(dy @ dy) / (n - 1)
     sxy = float(dx @ dy) / (n - 1)
     cov = ((sxx, sxy), (sxy, syy))
-    marginal = {"x": _marginal_normality(x), "y": _marginal_normality(y)}
+    marginal = {"x": _marginal_normality(x), "y": _marginal_normality(y)} if tests else {}
     constant = [name for name, s in (("x", sxx), ("y", syy)) if s == 0.0]
     if constant:
         note = " and ".join(constant) + (" is" if len(constant) == 1 else " are") + " constant"
@@ -388,7 +359,8 @@ def fit_gaussian(x: np.ndarray, y: np.ndarray, *, masses: tuple[float, ...] = (0
     mean_vec = np.array([mx, my])
     cov_mat = np.array(cov)
     ellipses = {float(m): _ellipse(mean_vec, cov_mat, float(m), points) for m in masses}
-    normality = henze_zirkler(np.column_stack([x, y]), seed=seed)
+    normality = (henze_zirkler(np.column_stack([x, y]), seed=seed) if tests
+                 else undefined(n, "not computed", _HZ_METHOD))
     note = "the points lie on a line: the Gaussian is degenerate" if abs(rho) == 1.0 else ""
     return GaussianFit((mx, my), cov, rho, slope, intercept, residual_sd, implied_measures(rho),
                        normality, marginal, ellipses, n, note)

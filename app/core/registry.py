@@ -7,6 +7,7 @@ reference tests.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from typing import Callable
 
@@ -61,6 +62,13 @@ class Measure:
     # The default test's statistic for every pairing of the rows (x, y, pairings of shape
     # (n!, n)), larger meaning more extreme: gives the exact floor of tiny samples' p-values.
     pairing_statistics: Callable[[np.ndarray, np.ndarray, np.ndarray], np.ndarray] | None = None
+    # What the verdict reads: "trend" (a monotone or linear trend test), "rank" (a rank
+    # correlation, also a trend test) or "dependence" (any dependence); "" takes no part.
+    role: str = ""
+    # The name in running text (verdict reasons): "Pearson r", "ξ(x → y)".
+    short_label: str = ""
+    # The measure's value under a bivariate normal with correlation rho; None when unknown.
+    implied: Callable[[float], float] | None = None
 
 
 def _pearson(x, y, ctx: PairContext) -> TestResult:
@@ -213,6 +221,7 @@ MEASURES: dict[str, Measure] = {
             formula="r = sum((x-mean x)(y-mean y)) / sqrt(sum((x-mean x)^2) sum((y-mean y)^2))",
             reference="Pearson, K. (1895) Proc. R. Soc. Lond. 58:240-242; Fisher, R.A. (1921) Metron 1:3-32",
             compute=_floored(_pearson, "pearson"), pairing_statistics=_pearson_pairings,
+            role="trend", short_label="Pearson r", implied=lambda rho: rho,
         ),
         Measure(
             name="spearman", label="Spearman rho", family="rank", symmetric=True, signed=True,
@@ -227,6 +236,7 @@ MEASURES: dict[str, Measure] = {
                       "Applied Statistics 24:377-379, doi:10.2307/2347111; Bonett, D.G. & Wright, T.A. (2000) "
                       "Psychometrika 65:23-28, doi:10.1007/BF02294183",
             compute=_floored(_spearman, "spearman"), pairing_statistics=_spearman_pairings,
+            role="rank", short_label="Spearman rho", implied=lambda rho: 6.0 / math.pi * math.asin(rho / 2.0),
         ),
         Measure(
             name="kendall", label="Kendall tau-b", family="rank", symmetric=True, signed=True,
@@ -239,6 +249,7 @@ MEASURES: dict[str, Measure] = {
                       "Knight, W.R. (1966) JASA 61:436-439, doi:10.1080/01621459.1966.10480879; "
                       "Fieller, Hartley & Pearson (1957) Biometrika 44:470-481",
             compute=_floored(_kendall, "kendall"), pairing_statistics=_kendall_pairings,
+            role="rank", short_label="Kendall tau", implied=lambda rho: 2.0 / math.pi * math.asin(rho),
         ),
         Measure(
             name="dcor", label="Distance correlation", family="distance", symmetric=True, signed=False,
@@ -251,6 +262,7 @@ MEASURES: dict[str, Measure] = {
             reference="Szekely, Rizzo & Bakirov (2007) Ann. Statist. 35:2769-2794, doi:10.1214/009053607000000505; "
                       "Huo & Szekely (2016) Technometrics 58:435-447, doi:10.1080/00401706.2015.1054435",
             compute=_floored(_dcor, "dcor"), pairing_statistics=_dcor_pairings,
+            role="dependence", short_label="dCor", implied=lambda rho: float(distance.gaussian_dcor(rho)),
         ),
         Measure(
             name="dcor_bc", label="Bias-corrected dCor²", family="distance", symmetric=True, signed=True,
@@ -262,6 +274,7 @@ MEASURES: dict[str, Measure] = {
             reference="Szekely & Rizzo (2013) J. Multivariate Anal. 117:193-213, doi:10.1016/j.jmva.2013.02.012; "
                       "Szekely & Rizzo (2014) Ann. Statist. 42:2382-2412, doi:10.1214/14-AOS1255",
             compute=_floored(_dcor_bc, "dcor_bc"), pairing_statistics=_dcor_bc_pairings,
+            role="dependence", short_label="bias-corrected dCor²", implied=lambda rho: float(distance.gaussian_dcor(rho)) ** 2,
         ),
         Measure(
             name="xi", label="Chatterjee ξ", family="rank", symmetric=False, signed=True,
@@ -273,6 +286,7 @@ MEASURES: dict[str, Measure] = {
             formula="xi_n = 1 - n sum|r_{i+1} - r_i| / (2 sum l_i (n - l_i)), rows sorted by x",
             reference="Chatterjee, S. (2021) JASA 116:2009-2022, doi:10.1080/01621459.2020.1758115",
             compute=_floored(_xi, "xi"), pairing_statistics=_xi_pairings,
+            role="dependence", short_label="ξ(x → y)", implied=chatterjee.gaussian_xi,
         ),
     )
 }

@@ -67,22 +67,26 @@ Henze-Zirkler test of :func:`pairlens.core.gaussian.fit_gaussian` (capped at
 from __future__ import annotations
 
 import math
+import dataclasses
 from dataclasses import dataclass, field
 from typing import Callable
 
 import numpy as np
 
 from .. import config
+from .registry import MEASURES
 from .results import TestResult
 
-__all__ = ["Pattern", "LABELS", "RULES", "Rule", "classify_pair", "influence_on_r", "rank_rank"]
+__all__ = ["Pattern", "LABELS", "RULES", "Rule", "classify_pair", "influence_on_r", "rank_rank", "LabelEvidence",
+           "label_evidence", "label_from_evidence", "marginals_normal_not_joint"]
 
 LABELS = ("linear", "monotone but curved", "non-monotone", "driven by a few points",
           "no evidence of dependence")
 
-TREND_MEASURES = ("pearson", "spearman", "kendall")
-RANK_MEASURES = ("spearman", "kendall")
-DEPENDENCE_MEASURES = ("dcor", "dcor_bc", "xi")
+# Read from the registry entries' roles (a rank correlation is a trend test too).
+TREND_MEASURES = tuple(n for n, m in MEASURES.items() if m.role in ("trend", "rank"))
+RANK_MEASURES = tuple(n for n, m in MEASURES.items() if m.role == "rank")
+DEPENDENCE_MEASURES = tuple(n for n, m in MEASURES.items() if m.role == "dependence")
 
 # Thresholds of the rule table (see the module docstring). They are effect
 # sizes on the correlation scale, chosen well above the sampling noise of the
@@ -192,8 +196,7 @@ def _fmt_q(q: float | None, name: str = "q") -> str:
     return f"{name} = {q:.3f}"
 
 
-_PRETTY = {"pearson": "Pearson r", "spearman": "Spearman rho", "kendall": "Kendall tau",
-           "dcor": "dCor", "dcor_bc": "bias-corrected dCor^2", "xi": "xi(x -> y)"}
+_PRETTY = {n: m.short_label or m.label for n, m in MEASURES.items()}
 
 
 def _r_from_sums(dx: np.ndarray, dy: np.ndarray) -> float:
@@ -232,14 +235,57 @@ def _rank_equivalent(ev: _Evidence) -> tuple[float, str]:
     return math.nan, ""
 
 
+def marginals_normal_not_joint(marginal_p, joint_p: float | None, alpha: float) -> bool:
+    """True when every marginal normality test keeps normality (p >= alpha) and Henze-Zirkler rejects it.
+
+    The one rule for "normal marginals, yet not jointly normal"; the verdict's
+    reasons and the pair page's caution both use it. ``None`` p-values count as
+    not tested (False).
+    """
+    marginal_p = [math.nan if p is None else float(p) for p in marginal_p]
+    joint = math.nan if joint_p is None else float(joint_p)
+    return (bool(marginal_p) and all(math.isfinite(p) and p >= alpha for p in marginal_p)
+            and math.isfinite(joint) and joint < alpha)
+
+
 def _marginals_normal(ev: _Evidence) -> bool:
     return all(math.isfinite(p) and p >= ev.alpha for p in ev.marg_p)
 
 
-def _gather(x, y, results, q_values, alpha, fit) -> _Evidence:
+def _may_be_significant(res: TestResult | None, alpha: float) -> bool:
+    """Whether a measure could count as significant once adjusted: its p-value is below alpha.
+
+    Benjamini-Hochberg, Holm and Bonferroni q-values are never below their
+    p-values, and a missing q falls back to the p-value (:func:`_set_q`); the
+    margin covers the rounding of the step-up products (measured: a BH q one
+    ulp below its p).
+    """
+    return res is not None and math.isfinite(res.p_value) and res.p_value < alpha * (1.0 + 1e-9)
+
+
+def _set_q(ev: _Evidence, results, q_values) -> None:
+    for m, res in results.items():
+        q = q_values.get(m) if q_values else None
+        if q is not None and math.isfinite(float(q)):
+            ev.q[m] = float(q)
+        elif res is not None and math.isfinite(res.p_value):
+            ev.q[m] = float(res.p_value)
+            ev.q_from_p.append(m)
+    for m, q in (q_values or {}).items():
+        if m not in ev.q and q is not None and math.isfinite(float(q)):
+            ev.q[m] = float(q)
+
+
+def _gather_data(ev: _Evidence, x, y, results, fit, *, with_fit: bool, q_known: bool) -> _Evidence:
+    """Everything the rules compare except significance: estimates, Gaussian gaps, influence (and the fit).
+
+    Without the q-values (``q_known`` False: the engine's tiles, before they exist)
+    the dCor of the points left after dropping the k most influential ones is
+    computed whenever |r| collapses, significant or not, so the label decided
+    later from the q-values is the one :func:`classify_pair` gives.
+    """
     from . import distance, gaussian, rank
 
-    ev = _Evidence(alpha=alpha)
     xa = np.asarray(x, dtype=np.float64).ravel()
     ya = np.asarray(y, dtype=np.float64).ravel()
     keep = np.isfinite(xa) & np.isfinite(ya)
@@ -254,19 +300,9 @@ def _gather(x, y, results, q_values, alpha, fit) -> _Evidence:
             return ev
     ev.class_codes = tuple((name, k) for name, k in (("x", class_code_levels(xa)), ("y", class_code_levels(ya)))
                            if k)
-
     for m, res in results.items():
-        q = q_values.get(m) if q_values else None
-        if q is not None and math.isfinite(float(q)):
-            ev.q[m] = float(q)
-        elif res is not None and math.isfinite(res.p_value):
-            ev.q[m] = float(res.p_value)
-            ev.q_from_p.append(m)
         if res is not None and math.isfinite(res.estimate):
             ev.est[m] = float(res.estimate)
-    for m, q in (q_values or {}).items():
-        if m not in ev.q and q is not None and math.isfinite(float(q)):
-            ev.q[m] = float(q)
 
     # Estimates the rules compare, computed here when the panel lacks them.
     dx, dy = xa - xa.mean(), ya - ya.mean()
@@ -286,17 +322,23 @@ def _gather(x, y, results, q_values, alpha, fit) -> _Evidence:
         ref = max(abs(r), abs(ev.rank_equiv)) if math.isfinite(ev.rank_equiv) else abs(r)
         ev.dcor_ref_implied = float(distance.gaussian_dcor(min(1.0, ref)))
 
-    # Influence of single points and of the k most influential ones on r.
-    loo = _loo_r(dx, dy)
-    if math.isfinite(r) and np.isfinite(loo).any():
-        change = np.abs(loo - r)
-        i = int(np.nanargmax(change))
-        ev.loo_max_change, ev.loo_r_at_max = float(change[i]), float(loo[i])
     ev.k = min(MAX_DROPPED, max(3, math.ceil(n / 100)), n // 10)
+    if not q_known and not _may_be_significant(results.get("pearson"), ev.alpha):
+        # Only the label is wanted and the influence rule (2) needs Pearson significant; an
+        # adjusted q is never below its p-value, so with p >= alpha rule 2 cannot hold and the
+        # O(k n) influence path (most of the label's cost at large n) is not needed.
+        return ev
+    # Influence of single points and of the k most influential ones on r.
+    if q_known:  # the single-point change is only ever read by the reasons
+        loo = _loo_r(dx, dy)
+        if math.isfinite(r) and np.isfinite(loo).any():
+            change = np.abs(loo - r)
+            i = int(np.nanargmax(change))
+            ev.loo_max_change, ev.loo_r_at_max = float(change[i]), float(loo[i])
     if ev.k >= 1 and math.isfinite(r):
         dropped, path = influence_on_r(xa, ya, ev.k)
         ev.r_drop = float(path[-1])
-        if _r_collapses(ev):
+        if _r_shrinks(ev) and (not q_known or ev.sig("pearson")):
             rest = np.ones(n, dtype=bool)
             rest[dropped] = False
             # A follow-up question about a pair already found dependent, so
@@ -304,12 +346,19 @@ def _gather(x, y, results, q_values, alpha, fit) -> _Evidence:
             left = distance.dcor(xa[rest], ya[rest])
             ev.dcor_drop, ev.dcor_drop_p = float(left.estimate), float(left.p_value)
 
-    if fit is None:
-        fit = gaussian.fit_gaussian(xa, ya)
-    ev.marg_p = (fit.marginal_normality.get("x", TestResult(math.nan, math.nan, "")).p_value,
-                 fit.marginal_normality.get("y", TestResult(math.nan, math.nan, "")).p_value)
-    ev.hz_p = float(fit.normality.p_value)
+    if with_fit:
+        if fit is None:
+            fit = gaussian.fit_gaussian(xa, ya)
+        ev.marg_p = (fit.marginal_normality.get("x", TestResult(math.nan, math.nan, "")).p_value,
+                     fit.marginal_normality.get("y", TestResult(math.nan, math.nan, "")).p_value)
+        ev.hz_p = float(fit.normality.p_value)
     return ev
+
+
+def _gather(x, y, results, q_values, alpha, fit) -> _Evidence:
+    ev = _Evidence(alpha=alpha)
+    _set_q(ev, results, q_values)
+    return _gather_data(ev, x, y, results, fit, with_fit=True, q_known=True)
 
 
 # -- rule predicates ----------------------------------------------------------
@@ -318,11 +367,16 @@ def _rule_degenerate(ev: _Evidence) -> bool:
     return bool(ev.degenerate)
 
 
-def _r_collapses(ev: _Evidence) -> bool:
+def _r_shrinks(ev: _Evidence) -> bool:
+    """Dropping the k most influential points halves |r| (and removes >= 0.10), significant or not."""
     r = ev.r
-    if not ev.sig("pearson") or not (math.isfinite(r) and math.isfinite(ev.r_drop)):
+    if not (math.isfinite(r) and math.isfinite(ev.r_drop)):
         return False
     return abs(ev.r_drop) < FEW_POINTS_SHRINK * abs(r) and abs(r) - abs(ev.r_drop) >= FEW_POINTS_MIN_DROP
+
+
+def _r_collapses(ev: _Evidence) -> bool:
+    return bool(ev.sig("pearson")) and _r_shrinks(ev)
 
 
 def _rule_few_points(ev: _Evidence) -> bool:
@@ -585,8 +639,7 @@ def influence_on_r(x: np.ndarray, y: np.ndarray, k: int) -> tuple[np.ndarray, np
     dx, dy = xa - xa.mean(), ya - ya.mean()
     path = [_r_from_sums(dx, dy)]
     for _ in range(k):
-        xs, ys = xa[active], ya[active]
-        dx, dy = xs - xs.mean(), ys - ys.mean()
+        # dx, dy are centred over the active points (xa[active] equals xa at the first step)
         loo = np.abs(_loo_r(dx, dy))
         if not np.isfinite(loo).any():
             break
@@ -594,7 +647,8 @@ def influence_on_r(x: np.ndarray, y: np.ndarray, k: int) -> tuple[np.ndarray, np
         dropped.append(int(active[j]))
         active = np.delete(active, j)
         xs, ys = xa[active], ya[active]
-        path.append(_r_from_sums(xs - xs.mean(), ys - ys.mean()))
+        dx, dy = xs - xs.mean(), ys - ys.mean()
+        path.append(_r_from_sums(dx, dy))
     return np.asarray(dropped, dtype=np.int64), np.asarray(path)
 
 
@@ -709,3 +763,60 @@ def classify_pair(x: np.ndarray, y: np.ndarray, results: dict[str, TestResult],
         "hz_p": ev.hz_p, "x_normality_p": ev.marg_p[0], "y_normality_p": ev.marg_p[1],
     }
     return Pattern(rule.label, tuple(_reasons(rule, ev)), rule.number, evidence)
+
+
+@dataclass
+class LabelEvidence:
+    """What a pair's verdict label needs besides its q-values, gathered where the pair's rows are.
+
+    Built by :func:`label_evidence` inside the engine's tiles (O(n log n) per
+    pair at most, no Gaussian fit: the label's rules do not read the normality
+    tests, only the reasons do); finished by :func:`label_from_evidence` once
+    the analysis's q-values exist.
+    """
+
+    evidence: _Evidence
+    results: dict
+
+
+def label_evidence(x: np.ndarray, y: np.ndarray, results: dict[str, TestResult], *,
+                   alpha: float = 0.05) -> LabelEvidence:
+    """The q-independent part of :func:`classify_pair` for one pair (no Gaussian fit).
+
+    Parameters
+    ----------
+    x, y : array_like, 1-D
+        The rows the pair's measures used.
+    results : dict
+        Measure name -> TestResult as in :func:`classify_pair`.
+    alpha : float
+        Level at which a q-value counts as significant.
+
+    Returns
+    -------
+    LabelEvidence
+    """
+    ev = _gather_data(_Evidence(alpha=float(alpha)), x, y, results or {}, None, with_fit=False, q_known=False)
+    return LabelEvidence(ev, dict(results or {}))
+
+
+def label_from_evidence(gathered: LabelEvidence, q_values: dict[str, float]) -> str:
+    """The label :func:`classify_pair` gives, from :func:`label_evidence` and the q-values.
+
+    Examples
+    --------
+    >>> from pairlens.core import linear, rank
+    >>> rng = np.random.default_rng(1)
+    >>> x = rng.normal(size=300)
+    >>> y = 2 * x + rng.normal(size=300)
+    >>> res = {"pearson": linear.pearson(x, y), "spearman": rank.spearman(x, y)}
+    >>> q = {m: r.p_value for m, r in res.items()}
+    >>> label_from_evidence(label_evidence(x, y, res), q) == classify_pair(x, y, res, q).label
+    True
+    """
+    ev = dataclasses.replace(gathered.evidence, q={}, q_from_p=[])
+    _set_q(ev, gathered.results, q_values or {})
+    for rule in RULES:
+        if rule.holds(ev):
+            return rule.label
+    return RULES[-1].label

@@ -20,11 +20,12 @@ from jinja2 import Environment, FileSystemLoader, select_autoescape
 from .. import __version__, config, formatting
 from ..config import ServerSettings
 from ..core.registry import MEASURES
-from ..engine import SettingsError
+from ..errors import SettingsError
 from ..ingest import IngestError
 from ..jobs import JobManager
 from ..store import Store, UploadTooLarge, is_disk_full
-from .deps import Conflict, NotFound, Workspace, embed_json
+from ..formatting import embed_json
+from .deps import Conflict, NotFound, Workspace
 from .security import RequestGuard, refuse_request
 
 __all__ = ["create_app", "UPLOAD_PATHS"]
@@ -48,10 +49,6 @@ def _fmt(v, digits: int = 3) -> str:
         except (TypeError, ValueError):
             return str(v)
     return formatting.fmt(v)
-
-
-def _fmt_p(v) -> str:
-    return formatting.fmt_p(v)
 
 
 def _rawnum(v) -> str:
@@ -99,7 +96,7 @@ def _sparkline(counts, width: int = 96, height: int = 22) -> str:
 def make_templates() -> Jinja2Templates:
     env = Environment(loader=FileSystemLoader(str(config.TEMPLATES_DIR)),
                       autoescape=select_autoescape(default=True, default_for_string=True))
-    env.filters.update(fmt=_fmt, fmt_p=_fmt_p, fmt_est=formatting.fmt_est, fmt_count=formatting.fmt_count,
+    env.filters.update(fmt=_fmt, fmt_p=formatting.fmt_p, fmt_est=formatting.fmt_est, fmt_count=formatting.fmt_count,
                        fmt_interval=formatting.fmt_interval, fmt_share=formatting.fmt_share, rawnum=_rawnum, when=_when, size=_size, sparkline=_sparkline,
                        embed_json=embed_json)
     env.globals.update(MEASURES=MEASURES, config=config, version=__version__)

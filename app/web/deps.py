@@ -23,8 +23,13 @@ from markupsafe import Markup
 from .. import config
 from ..budget import check_plan, estimate_work
 from ..core.registry import MEASURES
-from ..engine import AnalysisSettings, PairRow, PairTable, SettingsError, pair_detail, plan_variables
-from ..formatting import finite_or_null
+from ..errors import SettingsError
+from ..formatting import embed_json, finite
+from ..pairs import full_detail, quick_detail
+from ..pairtable import PairRow, PairTable
+from ..payloads import (MAPS_FORMAT, default_difference, heatmap_payload, pair_key, pair_rows_payload,
+                        precompute_pages)
+from ..plan import AnalysisSettings, plan_variables
 from ..store import AnalysisRow, DatasetRow, Store, UploadTooLarge
 
 __all__ = ["Workspace", "NotFound", "Conflict", "get_workspace", "embed_json", "UploadTooLarge",
@@ -42,29 +47,6 @@ class Conflict(RuntimeError):
     """The request does not fit the object's state (e.g. results of a running analysis)."""
 
 
-def embed_json(value) -> Markup:
-    """JSON for a ``<script type="application/json">`` block that no string can break out of.
-
-    ``<``, ``>`` and ``&`` become ``\\u003c`` etc. (so ``</script>`` and ``<!--`` in a
-    column name stay inert) and the line separators U+2028/2029 are escaped too.
-    """
-    try:
-        text = json.dumps(value, ensure_ascii=False, allow_nan=False, separators=(",", ":"))
-    except ValueError:  # a non-finite number (an overflowing fit): shown as missing
-        text = json.dumps(finite_or_null(value), ensure_ascii=False, allow_nan=False, separators=(",", ":"))
-    text = (text.replace("<", "\\u003c").replace(">", "\\u003e").replace("&", "\\u0026")
-            .replace("\u2028", "\\u2028").replace("\u2029", "\\u2029"))
-    return Markup(text)
-
-
-def _num(v):
-    if v is None:
-        return None
-    try:
-        v = float(v)
-    except (TypeError, ValueError):
-        return None
-    return v if math.isfinite(v) else None
 
 
 class _LRU:
@@ -206,7 +188,7 @@ def dataset_summary(table) -> dict:
             "name": c.name, "original": c.original, "kind": c.kind, "used": bool(c.used), "reason": c.reason,
             "missing": int(c.missing), "infinite": int(c.infinite), "distinct": int(c.distinct),
             "missing_share": (c.missing / table.n_rows) if table.n_rows else None,
-            "min": _num(c.minimum), "median": _num(c.median), "max": _num(c.maximum),
+            "min": finite(c.minimum), "median": finite(c.median), "max": finite(c.maximum),
             "spark": _spark(table.data[:, position[c.name]]) if c.name in position else [],
         }
         columns.append(entry)
@@ -221,127 +203,6 @@ def dataset_summary(table) -> dict:
         "encoding": getattr(table, "encoding", ""),
         "delimiter": getattr(table, "delimiter", ""),
     }
-
-
-def _gaussian_moments(x: np.ndarray, y: np.ndarray, masses=(0.5, 0.9, 0.99), points: int = 121) -> dict:
-    """The moment part of :func:`pairlens.core.gaussian.fit_gaussian` (same formulas, ddof=1), no normality tests.
-
-    Ellipse of mass m: {v : (v - mean)' cov^-1 (v - mean) = -2 ln(1 - m)}, the
-    chi-square quantile with 2 degrees of freedom in closed form.
-    """
-    from ..core.gaussian import implied_measures
-
-    n = int(x.size)
-    out = {"mean": [None, None], "cov": [[None, None], [None, None]], "rho": None,
-           "conditional": {"slope": None, "intercept": None, "residual_sd": None},
-           "implied": {k: _num(v) for k, v in implied_measures(math.nan).items()},
-           "normality": {"test": "henze-zirkler", "statistic": None, "p_value": None},
-           "marginal_normality": {}, "ellipses": {}, "note": "", "pending": True}
-    if n < config.MIN_ROWS:
-        out["note"] = f"fewer than {config.MIN_ROWS} complete rows"
-        return out
-    mx, my = float(x.mean()), float(y.mean())
-    dx, dy = x - mx, y - my
-    sxx, syy, sxy = float(dx @ dx) / (n - 1), float(dy @ dy) / (n - 1), float(dx @ dy) / (n - 1)
-    out["mean"] = [mx, my]
-    out["cov"] = [[sxx, sxy], [sxy, syy]]
-    if sxx == 0.0 or syy == 0.0:
-        out["note"] = "a column is constant"
-        return out
-    rho = max(-1.0, min(1.0, sxy / math.sqrt(sxx * syy)))
-    slope = sxy / sxx
-    out["rho"] = rho
-    out["conditional"] = {"slope": slope, "intercept": my - slope * mx,
-                          "residual_sd": math.sqrt(max(syy * (1.0 - rho * rho), 0.0))}
-    out["implied"] = {k: _num(v) for k, v in implied_measures(rho).items()}
-    vals, vecs = np.linalg.eigh(np.array([[sxx, sxy], [sxy, syy]]))
-    scale = vecs * np.sqrt(np.clip(vals, 0.0, None))
-    t = np.linspace(0.0, 2.0 * math.pi, points)
-    circle = np.stack([np.cos(t), np.sin(t)])
-    centre = np.array([mx, my])[:, None]
-    for m in masses:
-        radius = math.sqrt(-2.0 * math.log1p(-m))
-        out["ellipses"][repr(float(m))] = (centre + radius * (scale @ circle)).T.tolist()
-    return out
-
-
-def _pair_key(x: str, y: str) -> str:
-    return f"{x}\u0000{y}"
-
-
-def default_difference(measures: tuple[str, ...]) -> tuple[str, str] | None:
-    """The difference view shown first: a distance measure against the linear one, if chosen."""
-    measures = tuple(measures)
-    if len(measures) < 2:
-        return None
-    linear = [m for m in measures if MEASURES[m].family == "linear"]
-    base = linear[0] if linear else measures[0]
-    others = [m for m in measures if m != base]
-    distance = [m for m in others if MEASURES[m].family == "distance" and not MEASURES[m].signed]
-    return (distance or others)[0], base
-
-
-MAPS_FORMAT = 2  # pages stored by older versions held Plotly figures; those are rebuilt
-
-
-def heatmap_payload(table: PairTable, order: list[int], diff: tuple[str, str] | None) -> dict:
-    """The canvas maps of every measure (and the difference map) in one order, embedded for a page."""
-    from . import plots
-
-    payload = plots.map_payload(table, order, diff)
-    return {"order": payload["variables"], "top": payload["top"], "embedded": embed_json(payload)}
-
-
-def pair_columns(measures) -> list[dict]:
-    """Columns of the wide pair table: one per measure, one per direction of an asymmetric one."""
-    columns: list[dict] = []
-    for m in measures:
-        meas = MEASURES[m]
-        if meas.symmetric:
-            columns.append({"key": m, "measure": m, "label": meas.label, "direction": ""})
-        else:
-            columns.append({"key": m + ">", "measure": m, "label": meas.label, "direction": "x→y"})
-            columns.append({"key": m + "<", "measure": m, "label": meas.label, "direction": "y→x"})
-    return columns
-
-
-def pair_rows_payload(table: PairTable, labels: dict) -> dict:
-    """The wide pair table: one row per unordered pair, every measure's estimate and q, the verdict."""
-    position = {v: i for i, v in enumerate(table.variables)}
-    columns = pair_columns(table.measures)
-    col_index = {c["key"]: k for k, c in enumerate(columns)}
-    # Arrays over all rows, then one fancy assignment: a Python loop per field and row took
-    # seconds at 45,000 pairs, and this runs before an analysis is marked done.
-    nvar, ncol = len(table.variables), len(columns)
-    rows_ = table.rows
-    xi = np.fromiter((position[r.x] for r in rows_), dtype=np.int64, count=len(rows_))
-    yi = np.fromiter((position[r.y] for r in rows_), dtype=np.int64, count=len(rows_))
-    sym_key = {m: (col_index[m] if MEASURES[m].symmetric else -1) for m in table.measures}
-    base = np.fromiter((sym_key[r.measure] if sym_key[r.measure] >= 0 else col_index[r.measure + ">"]
-                        for r in rows_), dtype=np.int64, count=len(rows_))
-    forward = xi < yi
-    asym = np.fromiter((sym_key[r.measure] < 0 for r in rows_), dtype=bool, count=len(rows_))
-    col = np.where(asym & ~forward, base + 1, base)   # "<" sits right after ">"
-    lo, hi = np.minimum(xi, yi), np.maximum(xi, yi)
-    slot = lo * nvar + hi                              # one slot per unordered pair
-    est = np.full((nvar * nvar, ncol), np.nan)
-    qv = np.full((nvar * nvar, ncol), np.nan)
-    nn = np.zeros(nvar * nvar, dtype=np.int64)
-    est[slot, col] = np.fromiter((r.estimate for r in rows_), dtype=float, count=len(rows_))
-    qv[slot, col] = np.fromiter((r.q_value for r in rows_), dtype=float, count=len(rows_))
-    np.maximum.at(nn, slot, np.fromiter((int(r.n) for r in rows_), dtype=np.int64, count=len(rows_)))
-    used = np.unique(slot)                             # sorted: input order of (x, y)
-    est_l = np.where(np.isfinite(est[used]), est[used], np.nan).tolist()
-    q_l = qv[used].tolist()
-    names = table.variables
-    rows = []
-    for t, s_ in enumerate(used.tolist()):
-        a, b = names[s_ // nvar], names[s_ % nvar]
-        e = [None if v != v or v in (math.inf, -math.inf) else v for v in est_l[t]]
-        q = [None if v != v or v in (math.inf, -math.inf) else v for v in q_l[t]]
-        rows.append([a, b, int(nn[s_]), e, q, labels.get(_pair_key(a, b))])
-    body = {"columns": columns, "rows": rows, "alpha": config.SIGNIFICANCE_LEVEL}
-    return {"columns": columns, "n_rows": len(rows), "embedded": embed_json(body)}
 
 
 class PairGrid:
@@ -448,20 +309,6 @@ class PairGrid:
                 cells += ["" if r[3][k] is None else repr(r[3][k]), "" if r[4][k] is None else repr(r[4][k])]
             w.writerow(cells + [r[5] or ""])
         return buf.getvalue()
-
-
-def precompute_pages(table: PairTable, verdicts: dict) -> dict:
-    """What the analysis page shows by default, built once by the background job and stored.
-
-    JSON-serialisable: the embedded JSON text (already escaped for a page) and
-    the small pieces the template renders itself.
-    """
-    diff = default_difference(table.measures)
-    heat = heatmap_payload(table, list(range(len(table.variables))), diff)
-    rows = pair_rows_payload(table, verdicts.get("labels", {}))
-    return {"heatmaps": {"diff": list(diff) if diff else None, "order": heat["order"], "top": heat["top"],
-                         "embedded": str(heat["embedded"]), "format": MAPS_FORMAT},
-            "pairrows": {"columns": rows["columns"], "n_rows": rows["n_rows"], "embedded": str(rows["embedded"])}}
 
 
 class Workspace:
@@ -685,9 +532,9 @@ class Workspace:
         key = ("order", row.id, cluster_on)
         cached = self._figures.get(key)
         if cached is None:
-            from . import plots
+            from .. import figures
 
-            cached = self._figures.put(key, plots.cluster_order(table, cluster_on))
+            cached = self._figures.put(key, figures.cluster_order(table, cluster_on))
         return cached
 
     @staticmethod
@@ -778,7 +625,8 @@ class Workspace:
             return self._figures.put(key, PairGrid(body))
 
     def pair(self, row: AnalysisRow, x: str, y: str) -> dict:
-        """:func:`pairlens.engine.pair_detail` with points, q-values from the analysis, cached per pair."""
+        """The full pair detail (:func:`pairlens.pairs.full_detail`) with points and the analysis's q-values,
+        cached per pair."""
         key = (row.id, x, y)
         cached = self._details.get(key)
         if cached is not None:
@@ -792,14 +640,14 @@ class Workspace:
         if x not in data.columns or y not in data.columns:
             raise SettingsError("the pair view shows single columns; groups appear in the table only")
         started = time.perf_counter()
-        detail = pair_detail(data.data, data.columns, x, y, table.settings, table=table, include_points=True)
+        detail = full_detail(data.data, data.columns, x, y, table.settings, table).to_json(include_points=True)
         detail["seconds"] = time.perf_counter() - started
         detail["analysis_id"] = row.id
         labels = self.verdicts(row).setdefault("labels", {})
         pattern = detail.get("pattern") or {}
-        if pattern.get("label") and labels.get(_pair_key(x, y)) != pattern["label"] and x in table.variables:
+        if pattern.get("label") and labels.get(pair_key(x, y)) != pattern["label"] and x in table.variables:
             a, b = sorted((x, y), key=table.variables.index)
-            labels[_pair_key(a, b)] = pattern["label"]
+            labels[pair_key(a, b)] = pattern["label"]
             self._results(row)["labels_changed"] = True
             self._results(row)["labels_changed_grid"] = True
             self._figures.pop(("pairrows", row.id))
@@ -827,31 +675,16 @@ class Workspace:
         data = self.table(self.dataset(row.dataset_id))
         if x not in data.columns or y not in data.columns:
             raise SettingsError("the pair view shows single columns; groups appear in the table only")
-        xv_all = data.data[:, data.columns.index(x)]
-        yv_all = data.data[:, data.columns.index(y)]
-        keep = ~np.isnan(xv_all) & ~np.isnan(yv_all)
-        xv, yv = xv_all[keep], yv_all[keep]
-        measures = {}
-        for m, r in table.lookup(x, y).items():
-            measures[m] = {"estimate": _num(r.estimate), "ci_low": _num(r.ci_low), "ci_high": _num(r.ci_high),
-                           "p_value": _num(r.p_value), "method": r.method, "n": int(r.n), "note": r.note,
-                           "q_value": _num(r.q_value)}
-        detail = {"x": x, "y": y, "n": int(xv.size), "measures": measures, "gaussian": _gaussian_moments(xv, yv),
-                  "pattern": None,
-                  "points": {"x": xv.tolist(), "y": yv.tolist(), "rows": np.flatnonzero(keep).tolist()}}
+        detail = quick_detail(data.data, data.columns, x, y, table).to_json(include_points=True)
         return detail, False
 
     def report_html(self, row: AnalysisRow) -> str:
-        import shlex
-
         from ..report import build_report
 
         table = self.pair_table(row)
         dataset = self.dataset(row.dataset_id)
         data = self.table(dataset)
-        command = "pairlens report " + " ".join(shlex.quote(a) for a in
-                                                [dataset.name, "-o", "report.html", *table.settings.cli_arguments()])
-        return build_report(data, table, command=command)
+        return build_report(data, table, command=table.settings.reproduce_command(dataset.name, "report.html"))
 
 
 def get_workspace(request: Request) -> Workspace:

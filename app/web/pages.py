@@ -8,12 +8,15 @@ from starlette.concurrency import run_in_threadpool
 from starlette.datastructures import UploadFile
 
 from .. import config
-from ..engine import SettingsError
+from ..errors import SettingsError
 from ..ingest import IngestError
 from ..methods import methods_content
 from ..store import UploadTooLarge
-from .deps import Workspace, embed_json, get_workspace, pair_columns
-from . import plots
+from .. import figures as plots
+from ..core.verdict import marginals_normal_not_joint
+from ..formatting import embed_json
+from ..payloads import pair_columns
+from .deps import Workspace, get_workspace
 
 router = APIRouter(include_in_schema=False)
 
@@ -213,14 +216,12 @@ def pair_page(analysis_id: str, request: Request, x: str, y: str, ws: Workspace 
         "xLabel": detail["x"], "yLabel": detail["y"],
     }
     marg = g.get("marginal_normality") or {}
-    normal_marginals = all((marg.get(k) or {}).get("p_value") is not None and marg[k]["p_value"] > 0.05
-                           for k in ("x", "y")) and bool(marg)
-    joint_p = (g.get("normality") or {}).get("p_value")
-    not_joint = joint_p is not None and joint_p < 0.05
+    misleads = marginals_normal_not_joint([(marg.get(k) or {}).get("p_value") for k in ("x", "y")] if marg else [],
+                                          (g.get("normality") or {}).get("p_value"), config.SIGNIFICANCE_LEVEL)
     return _render(request, "pair.html", {
         "analysis": row, "dataset": dataset, "table": table, "detail": detail, "complete": complete,
         "figures": embed_json({"scatter": scatter, "ranks": ranks}), "slice": embed_json(slice_data),
         "dense": scatter["layout"]["meta"]["dense"],
-        "normal_marginals_not_joint": normal_marginals and not_joint,
+        "normal_marginals_not_joint": misleads,
         "weak_rho": g.get("rho") is not None and abs(g["rho"]) < 0.2,
     })

@@ -1,10 +1,11 @@
 """Plotly figure dicts for heatmaps and the pair view, as pure functions.
 
 Nothing here touches HTTP, SQLite or files: a figure is built from a
-:class:`pairlens.engine.PairTable` or from the dict of :func:`pairlens.engine.pair_detail`
+:class:`pairlens.pairtable.PairTable` or from the dict of :func:`pairlens.pairs.pair_detail`
 and returned as a plain ``{"data": [...], "layout": {...}}`` dict that
 ``Plotly.newPlot(div, fig.data, fig.layout)`` accepts. The web pages and the
-HTML report both use these builders, so the two always look alike.
+HTML report both use these builders (this module sits below both), so the two
+always look alike.
 
 Colour scales (both published as perceptually uniform and colour-blind safe):
 
@@ -25,8 +26,8 @@ from typing import Sequence
 
 import numpy as np
 
-from .. import config
-from ..core.registry import MEASURES
+from . import config
+from .core.registry import MEASURES
 
 __all__ = [
     "SIGNED_SCALE",
@@ -475,9 +476,9 @@ def pair_figure(detail: dict, *, density_threshold: int = config.SCATTER_DENSITY
 
 
 def _midranks(v: np.ndarray) -> np.ndarray:
-    from scipy.stats import rankdata
+    from .core.rank import midranks
 
-    return rankdata(v, method="average") if len(v) else v
+    return midranks(np.asarray(v, dtype=float)) if len(v) else v
 
 
 def rank_figure(detail: dict) -> dict:

@@ -1,0 +1,180 @@
+"""The pair-detail service: one pair's rows, its full and quick detail, and its verdict.
+
+Every face (the web pair view and its quick first answer, the verdict column,
+the report's pair cards, ``pairlens inspect`` and the library) asks this
+module about a pair, so they use the same rows (:func:`pairlens.plan.pair_rows`,
+which honours ``missing``) and say the same thing. Results are typed
+(:class:`PairDetail`); dicts appear only in :meth:`PairDetail.to_json`, the
+JSON edge.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Sequence
+
+import numpy as np
+
+from . import config
+from .core.registry import MEASURES
+from .core.results import TestResult
+from .pairtable import PairRow, PairTable
+from .plan import AnalysisSettings, PairRows, Variable, analysis_row_mask, pair_rows
+from .tiles import compute_pair
+
+__all__ = ["PairDetail", "pair_rows", "full_detail", "quick_detail", "pair_detail", "pair_verdict",
+           "verdict_of", "gaussian_json"]
+
+_OVERFLOW_REASON = ("no verdict: the values are too large for double precision (overflow); rescale the columns")
+
+
+def _num(v) -> float | None:
+    v = float(v)
+    return v if math.isfinite(v) else None
+
+
+def _result_json(res: TestResult | PairRow) -> dict:
+    return {"estimate": _num(res.estimate), "ci_low": _num(res.ci_low), "ci_high": _num(res.ci_high),
+            "p_value": _num(res.p_value), "method": res.method, "n": int(res.n), "note": res.note}
+
+
+def gaussian_json(fit, *, pending: bool = False) -> dict:
+    """A :class:`pairlens.core.gaussian.GaussianFit` as the pair view's JSON (non-finite numbers null)."""
+    out = {
+        "mean": [_num(fit.mean[0]), _num(fit.mean[1])],
+        "cov": [[_num(fit.cov[0][0]), _num(fit.cov[0][1])], [_num(fit.cov[1][0]), _num(fit.cov[1][1])]],
+        "rho": _num(fit.rho),
+        "conditional": {"slope": _num(fit.slope), "intercept": _num(fit.intercept),
+                        "residual_sd": _num(fit.residual_sd)},
+        "implied": {k: _num(v) for k, v in fit.implied.items()},
+        "normality": {"test": "henze-zirkler", "statistic": _num(fit.normality.estimate),
+                      "p_value": _num(fit.normality.p_value)},
+        "marginal_normality": {k: {"test": v.method, "statistic": _num(v.estimate), "p_value": _num(v.p_value)}
+                               for k, v in fit.marginal_normality.items()},
+        "ellipses": {repr(float(m)): np.asarray(b).tolist() for m, b in fit.ellipses.items()},
+        "note": fit.note,
+    }
+    if pending:
+        out["pending"] = True
+    return out
+
+
+@dataclass
+class PairDetail:
+    """One pair: its rows, its rows of the pair table, the Gaussian fit and (when complete) the verdict.
+
+    ``complete`` is False for the quick detail: moments only, no normality
+    tests and no verdict yet.
+    """
+
+    rows: PairRows
+    measures: dict[str, PairRow]
+    fit: object
+    label: str | None
+    reasons: tuple[str, ...]
+    complete: bool
+
+    @property
+    def x(self) -> str:
+        return self.rows.x_name
+
+    @property
+    def y(self) -> str:
+        return self.rows.y_name
+
+    def to_json(self, include_points: bool = False) -> dict:
+        """The ``inspect --json`` / API shape."""
+        detail = {
+            "x": self.x,
+            "y": self.y,
+            "n": self.rows.n,
+            "measures": {m: _result_json(r) | {"q_value": _num(r.q_value)} for m, r in self.measures.items()},
+            "gaussian": gaussian_json(self.fit, pending=not self.complete),
+            "pattern": ({"label": self.label, "reasons": list(self.reasons)} if self.complete else None),
+            "rows_used": self.rows.describe(),
+        }
+        if include_points:
+            detail["points"] = {"x": self.rows.x.tolist(), "y": self.rows.y.tolist(),
+                                "rows": self.rows.rows.tolist()}
+        return detail
+
+
+def _measures_of(data: np.ndarray, names: Sequence[str], rows: PairRows, settings: AnalysisSettings,
+                 table: PairTable | None, row_mask: np.ndarray | None) -> dict[str, PairRow]:
+    if table is not None:
+        return dict(table.lookup(rows.x_name, rows.y_name))
+    position = {n: i for i, n in enumerate(names)}
+    xvar, yvar = Variable(rows.x_name, (position[rows.x_name],)), Variable(rows.y_name, (position[rows.y_name],))
+    single = AnalysisSettings(measures=tuple(MEASURES), confidence=settings.confidence,
+                              permutations=settings.permutations, seed=settings.seed)
+    out: dict[str, PairRow] = {}
+    if row_mask is None:
+        row_mask = analysis_row_mask(data, names, settings)
+    for r in compute_pair(data, xvar, yvar, single, row_mask):
+        if r.x == rows.x_name:
+            r.q_value = r.p_value  # a single pair: nothing to adjust over
+            out[r.measure] = r
+    return out
+
+
+def verdict_of(rows: PairRows, measures: dict[str, PairRow], fit=None) -> tuple[str, tuple[str, ...]]:
+    """The verdict label and reasons of a pair from its rows and its rows of the pair table."""
+    # Loaded here, not at import: the pair table does not need scipy.stats.
+    from .core.verdict import classify_pair
+
+    results = {m: TestResult(r.estimate, r.p_value, r.method, r.ci_low, r.ci_high, r.n, r.note)
+               for m, r in measures.items()}
+    q_values = {m: float(r.q_value) for m, r in measures.items()}
+    try:
+        pattern = classify_pair(rows.x, rows.y, results, q_values, alpha=config.SIGNIFICANCE_LEVEL, fit=fit)
+    except ArithmeticError:  # values near 1e300 overflow a measure's sums: no verdict, the view still shows
+        return "", (_OVERFLOW_REASON,)
+    return pattern.label, tuple(pattern.reasons)
+
+
+def full_detail(data: np.ndarray, names: Sequence[str], x: str, y: str,
+                settings: AnalysisSettings | None = None, table: PairTable | None = None,
+                row_mask: np.ndarray | None = None) -> PairDetail:
+    """Everything about one pair: measures, Gaussian fit with its normality tests, verdict.
+
+    When ``table`` is given its rows (and q-values) are used; otherwise the
+    measures are computed here and each q-value equals its p-value.
+    """
+    from .core.gaussian import fit_gaussian
+
+    settings = settings or AnalysisSettings(measures=tuple(MEASURES))
+    rows = pair_rows(data, names, x, y, settings, row_mask)
+    measures = _measures_of(data, names, rows, settings, table, row_mask)
+    fit = fit_gaussian(rows.x, rows.y)
+    label, reasons = verdict_of(rows, measures, fit)
+    return PairDetail(rows, measures, fit, label, reasons, True)
+
+
+def quick_detail(data: np.ndarray, names: Sequence[str], x: str, y: str, table: PairTable,
+                 row_mask: np.ndarray | None = None) -> PairDetail:
+    """The pair view's first answer: the same rows and measures, Gaussian moments without the tests.
+
+    The Henze-Zirkler statistic needs all pairwise distances of up to
+    ``config.HZ_MAX_ROWS`` rows and the verdict reuses it; the full detail
+    (:func:`full_detail`) follows.
+    """
+    from .core.gaussian import fit_gaussian
+
+    rows = pair_rows(data, names, x, y, table.settings, row_mask)
+    fit = fit_gaussian(rows.x, rows.y, tests=False)
+    return PairDetail(rows, dict(table.lookup(x, y)), fit, None, (), False)
+
+
+def pair_verdict(data: np.ndarray, names: Sequence[str], x: str, y: str, table: PairTable,
+                 row_mask: np.ndarray | None = None) -> str:
+    """The verdict label of one pair of an analysis, from the rows its measures used."""
+    rows = pair_rows(data, names, x, y, table.settings, row_mask)
+    return verdict_of(rows, dict(table.lookup(x, y)))[0]
+
+
+def pair_detail(data: np.ndarray, names: Sequence[str], x: str, y: str,
+                settings: AnalysisSettings | None = None,
+                table: PairTable | None = None, include_points: bool = False) -> dict:
+    """:func:`full_detail` as JSON (the ``inspect --json`` shape)."""
+    return full_detail(data, names, x, y, settings, table).to_json(include_points)

@@ -1,0 +1,295 @@
+"""Running tiles of pairs: the per-measure chain, the presorted fast path, worker state and BLAS threads.
+
+A tile is a list of (i, j) variable indices; :func:`run_tile` computes every
+chosen measure for each pair in it, in a worker process, on a Dask worker or in
+the calling process. Nothing here knows about executors: the executor calls
+:func:`init_worker` once, :func:`run_tile` per tile and :func:`release_worker`
+when the run ends.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import math
+from typing import Sequence
+
+import numpy as np
+
+from . import config
+from .core import allpairs, chatterjee, distance, linear, rank
+from .core.registry import MEASURES, PairContext, get_measure, pvalue_floor
+from .core.results import TestResult, undefined
+from .core.testing import floor_pvalue, pair_seed
+from .pairtable import PairRow
+from .plan import AnalysisSettings, Variable, observed, variable_values
+
+__all__ = ["compute_pair", "fast_pair_rows", "prepare_columns", "init_worker", "release_worker", "run_tile",
+           "make_tiles", "warm_kernels", "one_blas_thread"]
+
+
+# Per-pair work (runs in worker processes) ---------------------------------
+
+def _compute_one(measure_name: str, xv: np.ndarray, yv: np.ndarray, x_name: str, y_name: str,
+                 settings: AnalysisSettings, x_group: bool, y_group: bool) -> TestResult:
+    measure = get_measure(measure_name)
+    n = len(xv)
+    if (x_group or y_group) and not measure.multivariate:
+        return undefined(n, f"{measure.name} is not defined for column groups; use dcor or dcor_bc")
+    if n < config.MIN_ROWS:
+        return undefined(n, f"fewer than {config.MIN_ROWS} rows with both values present ({n})")
+    ctx = PairContext(confidence=settings.confidence, permutations=settings.permutations,
+                      seed=pair_seed(settings.seed, x_name, y_name, measure_name),
+                      test=settings.test_for(measure_name))
+    try:
+        return measure.compute(xv, yv, ctx)
+    except ArithmeticError:  # e.g. squares of values near 1e300 overflow: this pair and measure only
+        return undefined(n, f"{measure.name} cannot be computed: the values are too large for double "
+                            "precision (overflow); rescale the columns (e.g. divide by 1e100)")
+    except ValueError as exc:  # limits such as the group size cap come back as a note
+        return undefined(n, str(exc))
+
+
+def _pair_row(a: Variable, b: Variable, measure: str, res: TestResult) -> PairRow:
+    # The contract's note column is for why a value is missing (or a caveat on it);
+    # the p-value's method travels in PairRow.method, shown by the API, pages and report.
+    return PairRow(a.name, b.name, measure, res.estimate, res.ci_low, res.ci_high,
+                   res.p_value, math.nan, res.n, res.note, res.method)
+
+
+def _directions(measure: str, xvar: Variable, yvar: Variable) -> list[tuple[Variable, Variable, bool]]:
+    out = [(xvar, yvar, False)]
+    if not MEASURES[measure].symmetric:
+        out.append((yvar, xvar, True))
+    return out
+
+
+def compute_pair(data: np.ndarray, xvar: Variable, yvar: Variable, settings: AnalysisSettings,
+                 row_mask: np.ndarray | None = None) -> list[PairRow]:
+    """Every chosen measure for one pair of variables (both directions for asymmetric ones).
+
+    The per-pair path: each measure's own function on the pair's complete rows.
+    It is the oracle of the presorted path (:func:`fast_pair_rows`) and runs
+    column groups.
+    """
+    xv_all = variable_values(data, xvar)
+    yv_all = variable_values(data, yvar)
+    keep = observed(xv_all) & observed(yv_all)
+    if row_mask is not None:
+        keep &= row_mask
+    xv, yv = xv_all[keep], yv_all[keep]
+    rows: list[PairRow] = []
+    for m in settings.measures:
+        for a, b, swapped in _directions(m, xvar, yvar):
+            av, bv = (yv, xv) if swapped else (xv, yv)
+            rows.append(_pair_row(a, b, m, _compute_one(m, av, bv, a.name, b.name, settings,
+                                                        a.is_group, b.is_group)))
+    return rows
+
+
+def _distance_statistics(cache: dict, dist_inputs: tuple) -> "distance.DistanceStatistics":
+    """The pair's distance statistics, computed once for dCor, its bias-corrected form and Kendall."""
+    st = cache.get("distance")
+    if st is None:
+        st = cache["distance"] = distance.centred_statistics_presorted(*dist_inputs)
+    return st
+
+
+def _fast_measure(measure: str, work: tuple, swapped: bool, a: Variable, b: Variable,
+                  settings: AnalysisSettings, cache: dict) -> TestResult:
+    """One measure of a regular pair (>= 3 rows, no constant side) from the presorted orders.
+
+    Every branch finishes with the function the per-pair measure itself ends
+    with, on the same numbers, so the result is the per-pair result.
+    """
+    _, view, sums, counts, dist_inputs = work
+    n = view.n
+    av, bv = (view.y, view.x) if swapped else (view.x, view.y)
+    if measure == "spearman" and not rank.spearman_needs_rows(sums[1], sums[2], n):
+        # a small tied pair (SPEARMAN_TIED_PERMUTATION_MAX_N) takes the per-pair path: its permutation test needs the rows
+        return rank.spearman_from_sums(sums[0], sums[1], sums[2], n, confidence=settings.confidence)
+    if measure == "kendall":
+        d, tx, ty, txy, x3, x5, y3, y5 = counts
+        if d < 0:  # counted with the distance cross sum
+            d = _distance_statistics(cache, dist_inputs).discordant
+        kc = rank.KendallCounts(n, int(d), int(tx), int(ty), int(txy), float(x3), float(x5),
+                                float(y3), float(y5))
+        return rank.kendall_from_counts(kc, confidence=settings.confidence)
+    if measure in ("dcor", "dcor_bc") and n >= 4:
+        st = _distance_statistics(cache, dist_inputs)
+        # the seed only drives resamples; without them it is not drawn from
+        resamples = settings.permutations_for(measure)
+        seed = pair_seed(settings.seed, a.name, b.name, measure) if resamples else None
+        finish = distance.dcor_from_statistics if measure == "dcor" else distance.dcor_bc_from_statistics
+        return finish(st, permutations=resamples, seed=seed)
+    if measure == "xi":
+        seed = pair_seed(settings.seed, a.name, b.name, measure)
+        a_order, b_order = (view.y_order, view.x_order) if swapped else (view.x_order, view.y_order)
+        order = allpairs.xi_order(av, a_order, lambda: chatterjee.xi_tie_keys(seed, n))
+        r, l = allpairs.rank_counts(bv, b_order)
+        return chatterjee.xi_from_order(order, r, l, permutations=settings.permutations_for(measure), seed=seed)
+    if measure == "pearson" and linear.resolved_test(settings.test_for(measure), settings.permutations) != "permutation":
+        # the registry's call without the (unused) seed, past the screening this pair has passed
+        return linear.pearson_screened(av, bv, confidence=settings.confidence, test=settings.test_for(measure) or None)
+    # anything without a presorted form
+    return _compute_one(measure, av, bv, a.name, b.name, settings, False, False)
+
+
+def fast_pair_rows(prep: "allpairs.PreparedColumns", xvar: Variable, yvar: Variable,
+                    settings: AnalysisSettings) -> list[PairRow] | None:
+    """The rows of a pair of single columns from the presorted columns; None: use compute_pair."""
+    if xvar.is_group or yvar.is_group:
+        return None
+    i, j = prep.slot.get(xvar.columns[0]), prep.slot.get(yvar.columns[0])
+    if i is None or j is None or not (prep.finite[i] and prep.finite[j]):
+        return None
+    measures = settings.measures
+    work = allpairs.pair_work(prep, i, j, config.MIN_ROWS,
+                              spearman="spearman" in measures,
+                              kendall="kendall" in measures,
+                              distance="dcor" in measures or "dcor_bc" in measures)
+    if not work[0]:
+        return None  # degenerate pairs: every measure's own note, from the per-pair path
+    cache: dict = {}
+    rows: list[PairRow] = []
+    for m in measures:
+        for a, b, swapped in _directions(m, xvar, yvar):
+            res = _fast_measure(m, work, swapped, a, b, settings, cache)
+            if res.p_value == res.p_value:  # the registry's floor, as on the per-pair path
+                av, bv = (work[1].y, work[1].x) if swapped else (work[1].x, work[1].y)
+                res = floor_pvalue(res, pvalue_floor(MEASURES[m], av, bv))
+            rows.append(_pair_row(a, b, m, res))
+    return rows
+
+
+def warm_kernels(settings: AnalysisSettings) -> None:
+    """Load every compiled kernel the chosen measures use, on a tiny pair, before forking."""
+    rng = np.random.default_rng(0)
+    tiny = np.column_stack([rng.normal(size=24), np.round(rng.normal(size=24))])
+    tiny[3, 0] = np.nan
+    variables = [Variable("a", (0,)), Variable("b", (1,))]
+    light = AnalysisSettings(measures=settings.measures, confidence=settings.confidence,
+                             permutations=min(settings.permutations, 3), seed=settings.seed)
+    fast_pair_rows(prepare_columns(tiny, variables), variables[0], variables[1], light)
+    with one_blas_thread():  # finds the BLAS library once, before the workers fork
+        pass
+
+
+def prepare_columns(data: np.ndarray, variables: Sequence[Variable],
+                    row_mask: np.ndarray | None = None) -> "allpairs.PreparedColumns":
+    """Sort every single-column variable once for the presorted path (O(n p) memory)."""
+    columns = [v.columns[0] for v in variables if not v.is_group]
+    return allpairs.prepare_columns(data, row_mask, columns=columns)
+
+
+_WORKER_STATE: dict = {}
+
+
+def init_worker(data, variables, settings, row_mask, prepared=None, verdicts=False) -> None:
+    """Worker state for a run; ``prepared`` (the sorted columns) is built here when not given.
+
+    ``verdicts`` True: each tile also gathers what every pair of single columns
+    needs for its verdict label (:func:`pairlens.core.verdict.label_evidence`).
+    """
+    _WORKER_STATE.clear()
+    _WORKER_STATE.update(data=data, variables=variables, settings=settings, row_mask=row_mask,
+                         prepared=prepared, verdicts=verdicts)
+
+
+def release_worker() -> None:
+    """Drop the run's columns so a long-lived worker does not keep the last analysis' data in memory."""
+    _WORKER_STATE.clear()
+
+
+init_worker.release = release_worker  # the executor protocol's hook (app/executors.py)
+
+
+def _worker_prepared() -> "allpairs.PreparedColumns":
+    s = _WORKER_STATE
+    if s.get("prepared") is None:
+        s["prepared"] = prepare_columns(s["data"], s["variables"], s["row_mask"])
+    return s["prepared"]
+
+
+_BLAS_CONTROLLER: list = []
+
+
+@contextlib.contextmanager
+def one_blas_thread():
+    """BLAS on one thread while tiles run.
+
+    The kernels' vector products are short; a threaded BLAS gains nothing on
+    them, and on a busy machine waking its helper threads costs milliseconds
+    per product (measured: a 20,000-row dot product 1000x slower than
+    single-threaded at load 5 on 2 cores), and worker processes would
+    oversubscribe the cores anyway.
+    """
+    if not _BLAS_CONTROLLER:
+        try:
+            from threadpoolctl import ThreadpoolController
+
+            _BLAS_CONTROLLER.append(ThreadpoolController())
+        except Exception:  # noqa: BLE001 - without threadpoolctl the BLAS default stays
+            _BLAS_CONTROLLER.append(None)
+    controller = _BLAS_CONTROLLER[0]
+    if controller is None:
+        yield
+        return
+    with controller.limit(limits=1, user_api="blas"):
+        yield
+
+
+def _label_evidence(data: np.ndarray, prep: "allpairs.PreparedColumns", xvar: Variable, yvar: Variable,
+                    rows: list[PairRow], row_mask: np.ndarray | None):
+    """The q-independent part of the pair's verdict, on the rows its measures used; None for groups."""
+    from .core.verdict import label_evidence
+
+    if xvar.is_group or yvar.is_group:
+        return None
+    i, j = prep.slot.get(xvar.columns[0]), prep.slot.get(yvar.columns[0])
+    if i is not None and j is not None:
+        # the sorted columns' column-major copy, its presence mask folding in the row mask:
+        # the same rows as below without strided reads of the row-major table
+        xv, yv = prep.values[:, i], prep.values[:, j]
+        keep = prep.present[:, i] & prep.present[:, j]
+    else:
+        xv, yv = data[:, xvar.columns[0]], data[:, yvar.columns[0]]
+        keep = ~np.isnan(xv) & ~np.isnan(yv)
+        if row_mask is not None:
+            keep &= row_mask
+    results = {r.measure: TestResult(r.estimate, r.p_value, r.method, r.ci_low, r.ci_high, r.n, r.note)
+               for r in rows if r.x == xvar.name}
+    try:
+        return label_evidence(xv[keep], yv[keep], results, alpha=config.SIGNIFICANCE_LEVEL)
+    except ArithmeticError:  # values near 1e300 overflow: no verdict, as in the pair view
+        return None
+
+
+def run_tile(tile: list[tuple[int, int]]) -> tuple[list[PairRow], list]:
+    """The rows of every pair in the tile, and (when asked) each pair's verdict evidence ``((x, y), ev)``."""
+    s = _WORKER_STATE
+    prep = _worker_prepared()
+    out: list[PairRow] = []
+    evidence: list = []
+    with one_blas_thread():
+        for i, j in tile:
+            xvar, yvar = s["variables"][i], s["variables"][j]
+            try:
+                rows = fast_pair_rows(prep, xvar, yvar, s["settings"])
+            except ArithmeticError:  # the per-pair path below turns it into a note per measure
+                rows = None
+            if rows is None:
+                rows = compute_pair(s["data"], xvar, yvar, s["settings"], s["row_mask"])
+            out.extend(rows)
+            if s.get("verdicts"):
+                ev = _label_evidence(s["data"], prep, xvar, yvar, rows, s["row_mask"])
+                if ev is not None:
+                    evidence.append(((xvar.name, yvar.name), ev))
+    return out, evidence
+
+
+def make_tiles(pairs: list[tuple[int, int]], workers: int) -> list[list[tuple[int, int]]]:
+    # Enough tiles for progress and balance, few enough that per-task overhead stays small.
+    target = max(1, min(len(pairs), max(workers, 1) * 16))
+    size = max(1, math.ceil(len(pairs) / target))
+    return [pairs[k:k + size] for k in range(0, len(pairs), size)]
+
