@@ -520,7 +520,8 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
                  workers: int | None = None, cluster: str | None = None,
                  executor: Executor | None = None,
                  progress: ProgressCallback | None = None,
-                 cancel: Callable[[], bool] | None = None) -> PairTable:
+                 cancel: Callable[[], bool] | None = None, path: str = "auto",
+                 streamed: bool = False) -> PairTable:
     """Compute the pair table for ``settings`` on ``data`` (n, p) with column ``names``.
 
     Parameters
@@ -539,6 +540,15 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
     cancel : callable, optional
         Polled between tiles; when it returns True the run stops with
         :class:`AnalysisCancelled`.
+    path : {"auto", "matrix", "pairs"}
+        ``"matrix"``: Pearson and Spearman of all pairs by matrix products
+        (:mod:`pairlens.matrix_path`), the pairs that need their rows by the
+        per-pair path; ``"pairs"``: every pair by the per-pair path;
+        ``"auto"``: the matrix path for ``config.MATRIX_PATH_MIN_PAIRS`` pairs
+        or more when the settings allow it and no executor or cluster is given.
+    streamed : bool
+        The caller streams the table to a file: a matrix-path run may then give
+        up to ``config.MATRIX_MAX_PAIR_ROWS`` rows instead of ``MAX_PAIR_ROWS``.
     """
     started = time.perf_counter()
     data = np.asarray(data, dtype=np.float64)
@@ -547,6 +557,13 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
     settings.check()
     variables = plan_variables(list(names), settings)
     row_mask = _complete_rows(data, names, settings) if settings.missing == "complete" else None
+    n_pairs = len(variables) * (len(variables) - 1) // 2
+    from . import matrix_path  # the matrix path (issue 19): all its wiring is this block
+    if matrix_path.choose_path(path, settings, variables, n_pairs, local=executor is None and cluster is None):
+        matrix_path.check_matrix_plan(n_pairs, settings, data.shape[0], streamed)
+        return matrix_path.run_matrix(data, variables, settings, row_mask,
+                                      lambda a, b, s: compute_pair(data, a, b, s, row_mask),
+                                      progress=progress, started=started)
     pairs = _pairs(variables)
     # refused before any work: too many pair-table rows, or beyond the work budget (app/budget.py)
     check_plan(WorkEstimate(len(pairs), len(settings.measures), data.shape[0], settings.permutations))
