@@ -561,9 +561,10 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
     from . import matrix_path  # the matrix path (issue 19): all its wiring is this block
     if matrix_path.choose_path(path, settings, variables, n_pairs, local=executor is None and cluster is None):
         matrix_path.check_matrix_plan(n_pairs, settings, data.shape[0], streamed)
-        return matrix_path.run_matrix(data, variables, settings, row_mask,
-                                      lambda a, b, s: compute_pair(data, a, b, s, row_mask),
-                                      progress=progress, started=started)
+        with _one_blas_thread():  # a threaded BLAS loses to one thread on a busy machine (benchmarks/bench_wide.py)
+            return matrix_path.run_matrix(data, variables, settings, row_mask,
+                                          lambda a, b, s: compute_pair(data, a, b, s, row_mask),
+                                          progress=progress, started=started, threads=workers or os.cpu_count() or 1)
     pairs = _pairs(variables)
     # refused before any work: too many pair-table rows, or beyond the work budget (app/budget.py)
     check_plan(WorkEstimate(len(pairs), len(settings.measures), data.shape[0], settings.permutations))

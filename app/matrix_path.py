@@ -122,7 +122,7 @@ class WidePairTable:
 
 
 def run_matrix(data: np.ndarray, variables, settings, row_mask, per_pair: Callable, *,
-               progress=None, started: float = 0.0) -> WidePairTable:
+               progress=None, started: float = 0.0, threads: int = 1) -> WidePairTable:
     """All pairs of ``variables`` by the matrix path; ``per_pair(xvar, yvar, measure_settings)`` gives the
     per-pair path's rows for the pairs the matrix form hands back."""
     import time
@@ -131,7 +131,7 @@ def run_matrix(data: np.ndarray, variables, settings, row_mask, per_pair: Callab
     sub = data[:, cols] if row_mask is None else data[row_mask][:, cols]
     test = linear.resolved_test(settings.test_for("pearson") or None, settings.permutations)
     pairs = pair_matrix(sub, measures=settings.measures, pearson_test=test if test in ("moments", "t") else "moments",
-                        confidence=settings.confidence)
+                        confidence=settings.confidence, threads=threads)
     for m in settings.measures:
         arr = pairs.measures[m]
         single = replace(settings, measures=(m,))

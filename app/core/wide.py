@@ -205,6 +205,13 @@ class _Columns:
             # the split rule's largest single share of the sum of squares (data scaled to max |v| = 1)
             self.share = 1.0 / a2
         self.data = data
+        self._by_column = None
+
+    def by_column(self) -> np.ndarray:
+        """The data transposed and contiguous, one column a row (a strided column costs 2x in the kernels)."""
+        if self._by_column is None:
+            self._by_column = np.ascontiguousarray(self.data.T)
+        return self._by_column
 
 
 def _pearson_exact(unscaled_x, unscaled_y, n, want_floor):
@@ -267,7 +274,7 @@ def _permutation_floor(cols, xi, yj, n, logm, dense, levels, p):
     return floor
 
 
-def _pearson_block(cols, rows_i, cols_j, out, test, confidence, labels_m, labels_n, counts):
+def _pearson_block(cols, rows_i, cols_j, out, test, confidence, labels_m, labels_n, counts, threads=1):
     """Fill ``out`` (the pairs of columns rows_i x cols_j, flattened) for Pearson."""
     n_rows = cols.n
     xi, yj = np.meshgrid(rows_i, cols_j, indexing="ij")
@@ -314,7 +321,7 @@ def _pearson_block(cols, rows_i, cols_j, out, test, confidence, labels_m, labels
     for k in np.unique(n[few]):
         note[few & (n == k)] = labels_n.code(f"fewer than {config.MIN_ROWS} rows with both values present ({k})")
     degenerate = few | cx | cy | unusable
-    ok = ~degenerate & ~out.fallback
+    ok = ~degenerate & ~out.fallback & (xi < yj)   # the block's rectangle holds pairs j <= i too: not computed
     out.n[:] = n
     out.note[:] = note
     out.method[:] = labels_m.code(method_label)
@@ -352,10 +359,25 @@ def _pearson_block(cols, rows_i, cols_j, out, test, confidence, labels_m, labels
             if split.any():
                 # the per-pair kernel, batched: its law is split into n parts (O(n) curves a pair)
                 idx = np.flatnonzero(split)
-                chunk = max(1, 2_000_000 // max(n_rows, 1))
-                for start in range(0, idx.size, chunk):
-                    part = idx[start:start + chunk]
-                    out.p_value[part] = linear.moment_pvalue(cols.data[:, xi[part]].T, cols.data[:, yj[part]].T)
+                chunk = max(1, -(-idx.size // (4 * threads)))
+                parts = [idx[start:start + chunk] for start in range(0, idx.size, chunk)]
+
+                by_column = cols.by_column()
+
+                def run(part):
+                    # one pair at a time: at thousands of rows each pair's n curves fill the caches already
+                    for k in part:
+                        out.p_value[k] = linear.moment_pvalue(by_column[xi[k]], by_column[yj[k]])
+
+                if threads > 1 and len(parts) > 1:
+                    # the curve kernels release the GIL: threads share the cores without copying the data
+                    from concurrent.futures import ThreadPoolExecutor
+
+                    with ThreadPoolExecutor(max_workers=threads) as pool:
+                        list(pool.map(run, parts))
+                else:
+                    for part in parts:
+                        run(part)
                 out.batched[split] = True
     out.p_value[~ok & ~out.fallback] = np.nan
     _floor_block(cols, xi, yj, out, ok & ~out.fallback, counts, "pearson", labels_n)
@@ -413,7 +435,7 @@ def _spearman_block(cols, rows_i, cols_j, out, confidence, labels_m, labels_n, c
     if few.any():
         note[:] = labels_n.code(f"fewer than {config.MIN_ROWS} rows with both values present ({n_rows})")
         out.method[:] = labels_m.code("")
-    ok = complete & ~cx & ~cy & ~few
+    ok = complete & ~cx & ~cy & ~few & (xi < yj)
     out.n[:] = np.where(complete, n, 0)
     out.note[:] = note
     if not ok.any():
@@ -482,7 +504,7 @@ def _prepare_ties(cols: _Columns) -> None:
 # --- public function -----------------------------------------------------------------
 
 def pair_matrix(data: np.ndarray, *, measures=WIDE_MEASURES, pearson_test: str = "moments",
-                confidence: float = 0.95, block_elements: int = 2_000_000) -> WidePairs:
+                confidence: float = 0.95, block_elements: int = 2_000_000, threads: int = 1) -> WidePairs:
     """Pearson and Spearman for every pair of columns, by blocks of matrix products.
 
     Parameters
@@ -499,6 +521,8 @@ def pair_matrix(data: np.ndarray, *, measures=WIDE_MEASURES, pearson_test: str =
         Level of the Fisher z intervals.
     block_elements : int
         Pairs per block of products (bounds the working memory).
+    threads : int
+        Threads for the pairs batched through the per-pair kernel (split law).
 
     Returns
     -------
@@ -587,7 +611,7 @@ def pair_matrix(data: np.ndarray, *, measures=WIDE_MEASURES, pearson_test: str =
             block = MeasureArrays.empty(rows_i.size * cols_j.size)
             lm, ln = labels[m]
             if m == "pearson":
-                _pearson_block(cols, rows_i, cols_j, block, pearson_test, confidence, lm, ln, counts)
+                _pearson_block(cols, rows_i, cols_j, block, pearson_test, confidence, lm, ln, counts, threads)
             else:
                 _spearman_block(cols, rows_i, cols_j, block, confidence, lm, ln, counts)
             dest = result[m]
