@@ -218,3 +218,19 @@ def test_cli_pairs_streams_with_top(tmp_path, capsys):
     assert [r["measure"] for r in rows] == ["pearson"] * 3 + ["spearman"] * 3
     assert main(["pairs", str(src), "--measures", "kendall", "--path", "matrix", "-o", str(out)]) != 0
     assert "matrix path" in capsys.readouterr().err
+
+
+def test_library_analyze_takes_the_matrix_path():
+    import pandas as pd
+
+    import pairlens
+
+    rng = np.random.default_rng(6)
+    df = pd.DataFrame(rng.normal(size=(30, 8)), columns=[f"c{k}" for k in range(8)])
+    df.iloc[::4, 2] = np.nan
+    a = pairlens.analyze(df, measures="pearson,spearman", workers=1, progress=False, path="matrix")
+    b = pairlens.analyze(df, measures="pearson,spearman", workers=1, progress=False, path="pairs")
+    pd.testing.assert_frame_equal(a.pairs, b.pairs, rtol=1e-9, atol=1e-15)
+    # Reference: pandas DataFrame.corr (pairwise-complete Pearson)
+    np.testing.assert_allclose(a.matrix("pearson").to_numpy()[~np.eye(8, dtype=bool)],
+                               df.corr().to_numpy()[~np.eye(8, dtype=bool)], rtol=1e-12, atol=1e-15)
