@@ -15,6 +15,7 @@ the medians, ratios and the time exponent in the number of pairs (slope of log t
 log pairs over the sizes) are printed as a Markdown table. Not a timed test; run by hand:
 
     python benchmarks/bench_wide.py                          # 4 x 1,000 and 4 x 3,000, 3 repeats
+    python benchmarks/bench_wide.py --sizes 4x300,4x1000,4x3000 --repeats 3,3,1
     python benchmarks/bench_wide.py --sizes 4x300,4x1000 --repeats 1   # quick look
 
 Timings on a shared machine vary; compare the ratios measured in the same run.
@@ -88,7 +89,7 @@ def _write_table(path: Path, rows: int, cols: int, seed: int) -> None:
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--sizes", default="4x1000,4x3000", help="ROWSxCOLUMNS,... (default 4x1000,4x3000)")
-    ap.add_argument("--repeats", type=int, default=3)
+    ap.add_argument("--repeats", default="3", help="runs of each side per size: one number, or one per size (3,3,1)")
     ap.add_argument("--seed", type=int, default=19)
     args = ap.parse_args()
     pairlens = [sys.executable, "-m", "pairlens"]
@@ -97,13 +98,16 @@ def main() -> None:
         tmp = Path(tmp)
         script = tmp / "baseline.py"
         script.write_text(BASELINE)
-        for size in args.sizes.split(","):
+        sizes = args.sizes.split(",")
+        repeats = [int(v) for v in args.repeats.split(",")]
+        repeats = repeats * len(sizes) if len(repeats) == 1 else repeats
+        for size, runs in zip(sizes, repeats):
             rows, cols = (int(v) for v in size.lower().split("x"))
             src = tmp / f"wide_{rows}x{cols}.csv"
             _write_table(src, rows, cols, args.seed)
             times = {"baseline": [], "pairlens": []}
             memory = {"baseline": [], "pairlens": []}
-            for _ in range(args.repeats):
+            for _ in range(runs):
                 for name, cmd in (("baseline", [sys.executable, str(script), str(src), str(tmp / "b.csv")]),
                                   ("pairlens", pairlens + ["pairs", str(src), "--measures", "pearson,spearman",
                                                            "-o", str(tmp / "p.csv")])):
@@ -116,10 +120,10 @@ def main() -> None:
                 lines = sum(1 for _ in fh) - 1
             assert lines == 2 * pairs, (lines, pairs)
             results.append((rows, cols, pairs, {k: statistics.median(v) for k, v in times.items()},
-                            {k: max(v) for k, v in memory.items()}, times))
+                            {k: max(v) for k, v in memory.items()}, runs))
     print(f"\n{time.strftime('%Y-%m-%d')}, {platform.machine()} {os.cpu_count()} cores "
           f"({platform.processor() or platform.platform()}), load average at the end "
-          f"{os.getloadavg()[0]:.1f}, medians of {args.repeats} whole-process runs\n")
+          f"{os.getloadavg()[0]:.1f}, medians of whole-process runs (runs per size: {args.repeats})\n")
     print("| table | pairs | baseline wall | pairlens wall | ratio (baseline / pairlens) "
           "| baseline peak MB | pairlens peak MB |")
     print("|---|---|---|---|---|---|---|")

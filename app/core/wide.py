@@ -11,10 +11,10 @@ reported in :attr:`WidePairs.counts`.
 
 Missing values: a column with any missing (or infinite) value is
 "incomplete". Pairs of two complete columns take every path here. For pairs
-touching an incomplete column, Pearson's r, rows used, interval and t p-value
-come from masked products (:func:`pairlens.core.linear.pearson_matrix`'s
-algebra); their default (moment) p-value, and Spearman (ranks among the
-pair's own rows), are marked ``fallback``.
+touching an incomplete column, Pearson's r, rows used, interval, t p-value
+and the power sums of the default (moment) p-value come from masked products
+(:func:`pairlens.core.linear.pearson_matrix`'s algebra); Spearman (ranks
+among the pair's own rows) is marked ``fallback``.
 """
 
 from __future__ import annotations
@@ -205,7 +205,16 @@ class _Columns:
             # the split rule's largest single share of the sum of squares (data scaled to max |v| = 1)
             self.share = 1.0 / a2
         self.data = data
+        self.counts = self.present.sum(axis=0).astype(np.int64)
         self._by_column = None
+        self._orders = None
+
+    def orders(self) -> np.ndarray:
+        """Each column's present rows in ascending value (column-wise), computed on first use."""
+        if self._orders is None:
+            keyed = np.where(self.present, self.scaled, np.inf)
+            self._orders = np.asfortranarray(np.argsort(keyed, axis=0, kind="stable").astype(np.int64))
+        return self._orders
 
     def by_column(self) -> np.ndarray:
         """The data transposed and contiguous, one column a row (a strided column costs 2x in the kernels)."""
@@ -274,6 +283,80 @@ def _permutation_floor(cols, xi, yj, n, logm, dense, levels, p):
     return floor
 
 
+@numba.njit(cache=True, nogil=True)
+def _masked_extremes(values, orders, counts, present, pi, pj):
+    """Largest and smallest value of column pi[k] over the rows where column pj[k] is present.
+
+    Walks the column's ascending order from each end until a row the other column has: O(1)
+    per pair unless most of the extreme rows are missing in the partner.
+    """
+    m = pi.shape[0]
+    lo = np.empty(m)
+    hi = np.empty(m)
+    for k in range(m):
+        i = pi[k]
+        j = pj[k]
+        lo[k] = np.nan
+        hi[k] = np.nan
+        for t in range(counts[i]):
+            row = orders[t, i]
+            if present[row, j]:
+                lo[k] = values[row, i]
+                break
+        for t in range(counts[i] - 1, -1, -1):
+            row = orders[t, i]
+            if present[row, j]:
+                hi[k] = values[row, i]
+                break
+    return lo, hi
+
+
+def _pearson_masked_moments(cols, rows_i, cols_j, xi, yj, sel, n, out, labels_m, threads):
+    """The default (moment) p-value of pairs touching an incomplete column.
+
+    Each side's power sums over the pair's rows are masked products,
+    :math:`(V^{\\circ k})^T M`, turned into central sums about the pair's own
+    mean; the split rule's largest share comes from each side's extreme values on
+    the pair's rows (:func:`_masked_extremes`). Pairs the split rule or n <= 7
+    sends elsewhere run the per-pair kernel on their rows, here.
+    """
+    v = cols.scaled
+    mask = cols.present.astype(float)
+    vi, vj, mi, mj = v[:, rows_i], v[:, cols_j], mask[:, rows_i], mask[:, cols_j]
+    px = [((vi ** k).T @ mj).ravel()[sel] for k in (1, 2, 3, 4)]
+    py = [(mi.T @ (vj ** k)).ravel()[sel] for k in (1, 2, 3, 4)]
+    cross = (vi.T @ vj).ravel()[sel]
+    nn = n[sel].astype(float)
+    mx, a2, a3, a4 = linear._central_sums(*px, nn)
+    my, b2, b3, b4 = linear._central_sums(*py, nn)
+    s = np.abs(cross - nn * mx * my)
+    orders = cols.orders()
+    lo_x, hi_x = _masked_extremes(v, orders, cols.counts, cols.present, xi[sel].astype(np.int64),
+                                  yj[sel].astype(np.int64))
+    lo_y, hi_y = _masked_extremes(v, orders, cols.counts, cols.present, yj[sel].astype(np.int64),
+                                  xi[sel].astype(np.int64))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        share = np.maximum(np.maximum((hi_x - mx) ** 2, (lo_x - mx) ** 2) / a2,
+                           np.maximum((hi_y - my) ** 2, (lo_y - my) ** 2) / b2)
+    n_sel = n[sel]
+    whole = (n_sel > config.PEARSON_SPLIT_MAX_N) & (share <= config.PEARSON_SPLIT_SHARE)
+    idx = np.flatnonzero(sel)
+    if whole.any():
+        e2, e3, e4 = linear.permutation_moments(a2[whole], a3[whole], a4[whole], b2[whole], b3[whole], b4[whole],
+                                                nn[whole])
+        out.p_value[idx[whole]] = np.clip(linear._two_tails(s[whole], e2, e3, e4), 0.0, 1.0)
+    rest = idx[~whole]
+    if rest.size:
+        # split law or exact enumeration: the per-pair kernel on the pair's own rows
+        data = cols.data
+        for k in rest.tolist():
+            both = cols.present[:, xi[k]] & cols.present[:, yj[k]]
+            out.p_value[k] = linear.moment_pvalue(data[both, xi[k]], data[both, yj[k]])
+        out.batched[rest] = True
+        exact = rest[n[rest] <= config.PEARSON_EXACT_MAX_N]
+        out.method[exact] = labels_m.code(linear._METHOD_LABELS["exact"])
+
+
 def _pearson_block(cols, rows_i, cols_j, out, test, confidence, labels_m, labels_n, counts, threads=1):
     """Fill ``out`` (the pairs of columns rows_i x cols_j, flattened) for Pearson."""
     n_rows = cols.n
@@ -336,8 +419,10 @@ def _pearson_block(cols, rows_i, cols_j, out, test, confidence, labels_m, labels
     if test == "t":
         out.p_value[:] = np.where(ok, linear.correlation_t_pvalue(r, n), np.nan)
     else:
-        # the moment p-value needs each side's power sums on the pair's own rows: complete pairs only here
-        out.fallback[ok & ~complete] = True
+        partial = ok & ~complete
+        if partial.any():
+            _pearson_masked_moments(cols, rows_i, cols_j, xi, yj, partial, n, out, labels_m, threads)
+        computed = ok
         ok = ok & complete
         if n_rows <= config.PEARSON_EXACT_MAX_N:
             if ok.any():
@@ -379,6 +464,7 @@ def _pearson_block(cols, rows_i, cols_j, out, test, confidence, labels_m, labels
                     for part in parts:
                         run(part)
                 out.batched[split] = True
+        ok = computed
     out.p_value[~ok & ~out.fallback] = np.nan
     _floor_block(cols, xi, yj, out, ok & ~out.fallback, counts, "pearson", labels_n)
 
