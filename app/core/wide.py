@@ -223,30 +223,33 @@ class _Columns:
         return self._by_column
 
 
-def _pearson_exact(unscaled_x, unscaled_y, n, want_floor):
-    """Exact relabelling p-values (n <= 7) and the enumerated floor (n <= 8) of a block of pairs."""
-    perms = linear._all_relabellings(n) if n <= config.PEARSON_EXACT_MAX_N else None
-    pairings = perms if perms is not None else None
-    if pairings is None:
-        from .testing import all_pairings
+def _pearson_exact(unscaled_x, unscaled_y, n, want_p, want_floor):
+    """Exact relabelling p-values (n <= 7) and the enumerated floor (n <= 8) of a block of pairs,
+    in one pass over the relabellings.
 
-        pairings = all_pairings(n)
+    The floor needs the largest :math:`|S_\\pi|` first: by the rearrangement inequality the
+    largest and smallest :math:`S_\\pi` pair the sorted columns in the same and in opposite
+    order, two products instead of a pass over all n! relabellings.
+    """
+    from .testing import all_pairings
+
+    pairings = linear._all_relabellings(n) if n <= config.PEARSON_EXACT_MAX_N else all_pairings(n)
     observed = np.abs(unscaled_x.T @ unscaled_y)
-    hits = np.zeros(observed.shape, np.int64)
-    top = np.zeros(observed.shape)
+    hits = np.zeros(observed.shape, np.int32) if want_p else None
+    count = np.zeros(observed.shape, np.int32) if want_floor else None
     threshold = observed * (1.0 - 1e-12)
+    if want_floor:
+        sx, sy = np.sort(unscaled_x, axis=0), np.sort(unscaled_y, axis=0)
+        top = np.maximum(np.abs(sx.T @ sy), np.abs(sx.T @ sy[::-1]))
+        limit = top - 1e-9 * np.maximum(1.0, top)
     for perm in pairings:
         s = np.abs(unscaled_x.T @ unscaled_y[perm])
-        hits += s >= threshold
-        np.maximum(top, s, out=top)
-    p = hits / len(pairings) if perms is not None else None
-    floor = None
-    if want_floor:
-        count = np.zeros(observed.shape, np.int64)
-        limit = top - 1e-9 * np.maximum(1.0, top)
-        for perm in pairings:
-            count += np.abs(unscaled_x.T @ unscaled_y[perm]) >= limit
-        floor = count / len(pairings)
+        if want_p:
+            hits += s >= threshold
+        if want_floor:
+            count += s >= limit
+    p = hits / len(pairings) if want_p else None
+    floor = count / len(pairings) if want_floor else None
     return p, floor
 
 
@@ -388,6 +391,7 @@ def _pearson_block(cols, rows_i, cols_j, out, test, confidence, labels_m, labels
         out.fallback[:] = ~complete & fragile
     r = np.clip(r, -1.0, 1.0)
     method_label = linear._METHOD_LABELS["t" if test == "t" else "moments"]
+    floor_grid = None
     # degenerate pairs: the per-pair path's notes
     few = n < config.MIN_ROWS
     cx, cy = cols.constant[xi], cols.constant[yj]
@@ -428,8 +432,9 @@ def _pearson_block(cols, rows_i, cols_j, out, test, confidence, labels_m, labels
             if ok.any():
                 ux = cols.data[:, rows_i] - cols.data[:, rows_i].mean(axis=0)
                 uy = cols.data[:, cols_j] - cols.data[:, cols_j].mean(axis=0)
-                p, _ = _pearson_exact(ux, uy, n_rows, False)
+                p, floor = _pearson_exact(ux, uy, n_rows, True, True)
                 out.p_value[ok] = p.ravel()[ok]
+                floor_grid = floor.ravel()
                 out.method[ok] = labels_m.code(linear._METHOD_LABELS["exact"])
         else:
             share = np.maximum(cols.share[xi], cols.share[yj])
@@ -466,10 +471,10 @@ def _pearson_block(cols, rows_i, cols_j, out, test, confidence, labels_m, labels
                 out.batched[split] = True
         ok = computed
     out.p_value[~ok & ~out.fallback] = np.nan
-    _floor_block(cols, xi, yj, out, ok & ~out.fallback, counts, "pearson", labels_n)
+    _floor_block(cols, xi, yj, out, ok & ~out.fallback, counts, "pearson", labels_n, floor_grid)
 
 
-def _floor_block(cols, xi, yj, out, ok, counts, measure, labels):
+def _floor_block(cols, xi, yj, out, ok, counts, measure, labels, grid=None):
     """The registry's p-value floor (:func:`pairlens.core.registry.pvalue_floor`).
 
     Complete pairs get it here; a pair touching an incomplete column whose
@@ -488,13 +493,20 @@ def _floor_block(cols, xi, yj, out, ok, counts, measure, labels):
     sel = has_p & complete
     if not sel.any() or n_rows > config.PVALUE_FLOOR_MAX_N or n_rows < 2:
         return
-    if n_rows <= config.PVALUE_FLOOR_ENUMERATE_MAX_N:
+    if grid is not None:
+        floors = grid[sel]      # enumerated with the exact p-values of the block
+    elif measure == "spearman" and n_rows <= config.PVALUE_FLOOR_ENUMERATE_MAX_N and not (
+            cols.tied[xi[sel]] | cols.tied[yj[sel]]).any():
+        # untied ranks: the largest |sum r_x r_y| is reached by the sorted pairing and its
+        # reverse only (rearrangement inequality, strict for distinct values): 2 of n! pairings
+        floors = np.full(int(sel.sum()), 2 / math.factorial(n_rows))
+    elif n_rows <= config.PVALUE_FLOOR_ENUMERATE_MAX_N:
         src = cols.data if measure == "pearson" else cols.ranks
         uniq_i = np.unique(xi[sel])
         uniq_j = np.unique(yj[sel])
         ux = src[:, uniq_i] - src[:, uniq_i].mean(axis=0)
         uy = src[:, uniq_j] - src[:, uniq_j].mean(axis=0)
-        _, floor = _pearson_exact(ux, uy, n_rows, True)
+        _, floor = _pearson_exact(ux, uy, n_rows, False, True)
         floors = floor[np.searchsorted(uniq_i, xi[sel]), np.searchsorted(uniq_j, yj[sel])]
     else:
         floors = _permutation_floor(cols, xi[sel], yj[sel], n_rows, cols.logm, cols.dense, cols.levels,
