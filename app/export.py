@@ -222,11 +222,26 @@ def write_pairs_stream(table, out, fmt: str = "csv", *, top: int | None = None,
             # quoted; numbers in their shortest round-trip form, equal in value to the Python writer's)
             import pyarrow.csv as pa_csv
 
+            from collections import deque
+            from concurrent.futures import ThreadPoolExecutor
+
             options = pa_csv.WriteOptions(include_header=False, quoting_style="needed")
-            for start in range(0, idx.size, _CHUNK_ROWS):
+
+            def formatted(start: int) -> str:
                 buf = io.BytesIO()
                 pa_csv.write_csv(long.take_arrow(np.asarray(idx[start:start + _CHUNK_ROWS])), buf, options)
-                out.write(buf.getvalue().decode("utf-8"))
+                return buf.getvalue().decode("utf-8")
+
+            # Arrow formats without the GIL: two chunks at a time, written in order, at most
+            # four formatted chunks held at once
+            with ThreadPoolExecutor(max_workers=2) as pool:
+                pending: deque = deque()
+                for start in range(0, idx.size, _CHUNK_ROWS):
+                    pending.append(pool.submit(formatted, start))
+                    if len(pending) >= 4:
+                        out.write(pending.popleft().result())
+                while pending:
+                    out.write(pending.popleft().result())
             return int(idx.size)
     for start in range(0, idx.size, _CHUNK_ROWS):
         part = idx[start:start + _CHUNK_ROWS]
