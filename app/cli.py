@@ -122,8 +122,17 @@ def build_parser(command: str | None = None) -> argparse.ArgumentParser:
                        "The pair table: one row per pair per measure, as CSV or JSON.")
     if full("pairs"):
         _add_analysis_options(pairs)
-        pairs.add_argument("-o", "--output", default=None, metavar="OUT.csv|OUT.json",
-                           help="write to this file, CSV or JSON by its ending (default: CSV on standard output)")
+        pairs.add_argument("-o", "--output", default=None, metavar="OUT.csv|OUT.json|OUT.jsonl|OUT.parquet",
+                           help="write to this file, by its ending: CSV, a JSON array, JSON Lines or Parquet "
+                                "(default: CSV on standard output); CSV, JSON Lines and Parquet are written in "
+                                "chunks as they go")
+        pairs.add_argument("--top", type=int, default=None, metavar="K",
+                           help="only each measure's K rows of smallest q-value, most significant first")
+        pairs.add_argument("--max-q", type=float, default=None, metavar="Q",
+                           help="only rows with q-value at most Q (q-values are over all pairs either way)")
+        pairs.add_argument("--path", choices=("auto", "matrix", "pairs"), default="auto",
+                           help="matrix: Pearson and Spearman of all pairs by matrix products; pairs: one pair "
+                                "at a time; auto: the matrix path for wide tables when the measures allow it")
 
     inspect = _subparser(sub, "inspect", "everything about one pair",
                          "Every measure, the bivariate Gaussian fit and the verdict for one pair.")
@@ -201,7 +210,8 @@ def _run(args, table):
     bar = _ProgressBar()
     try:
         result = run_analysis(table.data, table.columns, settings, workers=args.workers,
-                              cluster=args.cluster, progress=bar)
+                              cluster=args.cluster, progress=bar, path=getattr(args, "path", "auto"),
+                              streamed=getattr(args, "streamed", False))
     finally:
         bar.finish()
     return settings, result
@@ -218,16 +228,46 @@ def _write_text(path: str | None, text: str) -> None:
 
 
 def cmd_pairs(args) -> int:
-    from .export import pairs_to_csv, pairs_to_json
+    from .export import STREAM_FORMATS, pairs_to_json, select_rows, write_pairs_stream, _LongTable
 
     out = args.output
-    if out is not None and not out.lower().endswith((".csv", ".json")):
-        raise UsageError(f"pairlens pairs: output {out!r} must end in .csv or .json")
+    suffix = Path(out).suffix.lower() if out else ".csv"
+    if suffix not in (*STREAM_FORMATS, ".json"):
+        raise UsageError(f"pairlens pairs: output {out!r} must end in .csv, .json, .jsonl or .parquet")
+    if args.top is not None and args.top < 1:
+        raise UsageError("pairlens pairs: --top must be a positive number of rows, e.g. --top 1000")
+    if args.max_q is not None and not 0.0 <= args.max_q <= 1.0:
+        raise UsageError("pairlens pairs: --max-q must lie between 0 and 1, e.g. --max-q 0.05")
+    if suffix == ".parquet":
+        try:
+            import pyarrow  # noqa: F401
+        except ImportError:
+            raise UsageError("pairlens pairs: writing .parquet needs pyarrow (pip install pyarrow); "
+                             "use .csv or .jsonl") from None
     table = _load(args)
+    args.streamed = suffix in STREAM_FORMATS
     _, result = _run(args, table)
-    records = result.records()
-    text = pairs_to_json(records) + "\n" if out and out.lower().endswith(".json") else pairs_to_csv(records)
-    _write_text(out, text)
+    if suffix == ".json":
+        long = _LongTable(result)
+        chosen = select_rows(long, args.top, args.max_q)
+        records = result.records()
+        _write_text(out, pairs_to_json([records[k] for k in chosen.tolist()]) + "\n")
+        return 0
+    fmt = STREAM_FORMATS[suffix]
+    if out is None:
+        write_pairs_stream(result, sys.stdout, fmt, top=args.top, max_q=args.max_q)
+        return 0
+    target = Path(out)
+    tmp = target.with_name(target.name + ".partial")
+    try:
+        if fmt == "parquet":
+            write_pairs_stream(result, str(tmp), fmt, top=args.top, max_q=args.max_q)
+        else:
+            with open(tmp, "w", encoding="utf-8", newline="") as fh:
+                write_pairs_stream(result, fh, fmt, top=args.top, max_q=args.max_q)
+        os.replace(tmp, target)
+    finally:
+        tmp.unlink(missing_ok=True)
     return 0
 
 

@@ -123,6 +123,14 @@ PVALUE_FLOOR_ENUMERATE_MAX_N = 8
 PEARSON_EXACT_MAX_N = 7
 PEARSON_SPLIT_MAX_N = 60
 PEARSON_SPLIT_SHARE = 0.1
+# The matrix path (app/core/wide.py, issue 19): Pearson and Spearman of all pairs by matrix
+# products. path="auto" takes it from this many pairs on (fewer pairs finish quickly either way),
+# when every chosen measure has a matrix form and no column group is involved.
+MATRIX_PATH_MIN_PAIRS = 5_000
+# Pair-table rows a matrix-path run may give when its output is streamed to a file (the CLI):
+# the table is held as arrays (about 70 bytes a row), not as stored rows, so the limit of
+# MAX_PAIR_ROWS (rows stored and shown by the workspace) does not apply there.
+MATRIX_MAX_PAIR_ROWS = _env_int("PAIRLENS_MATRIX_MAX_PAIR_ROWS", 30_000_000)
 # Resamples of a permutation test chosen with --test MEASURE=permutation when
 # --permutations is not given.
 DEFAULT_TEST_PERMUTATIONS = 9_999

@@ -26,8 +26,8 @@ from .errors import SettingsError
 from .executors import Executor, ProcessExecutor, SerialExecutor, make_executor
 from .pairtable import PairRow, PairTable
 from .plan import AnalysisSettings, Variable, analysis_row_mask, pair_indices, plan_variables
-from .tiles import (compute_pair, init_worker, make_tiles, prepare_columns, release_worker, run_tile,
-                    warm_kernels)
+from .tiles import (compute_pair, init_worker, make_tiles, one_blas_thread, prepare_columns, release_worker,
+                    run_tile, warm_kernels)
 
 # Names kept importable from here for callers written before the split.
 _pairs = pair_indices
@@ -62,7 +62,8 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
                  workers: int | None = None, cluster: str | None = None,
                  executor: Executor | None = None,
                  progress: ProgressCallback | None = None,
-                 cancel: Callable[[], bool] | None = None, verdicts: bool = False) -> PairTable:
+                 cancel: Callable[[], bool] | None = None, verdicts: bool = False, path: str = "auto",
+                 streamed: bool = False) -> PairTable:
     """Compute the pair table for ``settings`` on ``data`` (n, p) with column ``names``.
 
     Parameters
@@ -87,6 +88,17 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
         rows its measures used, and the label is decided here once the
         q-values exist. No time budget; the cost is measured in
         benchmarks/bench_engine.py (``verdicts_add``).
+    path : {"auto", "matrix", "pairs"}
+        ``"matrix"``: Pearson and Spearman of all pairs by matrix products
+        (:mod:`pairlens.matrix_path`), the pairs that need their rows by the
+        per-pair path; ``"pairs"``: every pair by the per-pair path;
+        ``"auto"``: the matrix path for ``config.MATRIX_PATH_MIN_PAIRS`` pairs
+        or more when the settings allow it, no executor or cluster is given and
+        no verdicts are asked for (the verdicts' evidence is gathered in the
+        per-pair tiles).
+    streamed : bool
+        The caller streams the table to a file: a matrix-path run may then give
+        up to ``config.MATRIX_MAX_PAIR_ROWS`` rows instead of ``MAX_PAIR_ROWS``.
     """
     started = time.perf_counter()
     data = np.asarray(data, dtype=np.float64)
@@ -95,6 +107,15 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
     settings.check()
     variables = plan_variables(list(names), settings)
     row_mask = analysis_row_mask(data, names, settings)
+    n_pairs = len(variables) * (len(variables) - 1) // 2
+    from . import matrix_path  # the matrix path: all its wiring is this block
+    if not verdicts and matrix_path.choose_path(path, settings, variables, n_pairs,
+                                                local=executor is None and cluster is None):
+        matrix_path.check_matrix_plan(n_pairs, settings, data.shape[0], streamed)
+        with one_blas_thread():  # a threaded BLAS loses to one thread on a busy machine (benchmarks/bench_wide.py)
+            return matrix_path.run_matrix(data, variables, settings, row_mask,
+                                          lambda a, b, s: compute_pair(data, a, b, s, row_mask),
+                                          progress=progress, started=started, threads=workers or os.cpu_count() or 1)
     pairs = pair_indices(variables)
     # refused before any work: too many pair-table rows, or beyond the work budget (app/budget.py)
     check_plan(WorkEstimate(len(pairs), len(settings.measures), data.shape[0], settings.permutations))

@@ -167,7 +167,7 @@ def demo_path() -> Path:
 def analyze(df: "pd.DataFrame", *, measures=None, columns=None, groups=None, missing=None, adjust=None,
             confidence=None, permutations=None, tests=None, seed=None, workers: int | None = None,
             cluster: str | None = None, progress: bool = True, name: str | None = None,
-            **options: Any) -> "Analysis":
+            path: str = "auto", **options: Any) -> "Analysis":
     """Every measure for every pair of columns of ``df``.
 
     Parameters
@@ -203,6 +203,10 @@ def analyze(df: "pd.DataFrame", *, measures=None, columns=None, groups=None, mis
     name : str, optional
         Name of the data in reports (default: the file name from :func:`read`, else
         ``DataFrame``).
+    path : {"auto", "matrix", "pairs"}
+        ``"matrix"``: Pearson and Spearman of all pairs by matrix products; ``"pairs"``: one
+        pair at a time; ``"auto"`` (default): the matrix path for wide tables when the chosen
+        measures allow it (as ``pairlens pairs --path``). Both give the same numbers.
     **options
         Further analysis options of the command line and the JSON API, under the same names.
 
@@ -244,7 +248,7 @@ def analyze(df: "pd.DataFrame", *, measures=None, columns=None, groups=None, mis
     update, close = _progress_bar(progress)
     try:
         pair_table = run_analysis(table.data, table.columns, settings, workers=workers, cluster=cluster,
-                                  progress=update if progress else None)
+                                  progress=update if progress else None, path=path)
     finally:
         close()
     return Analysis(table, pair_table)

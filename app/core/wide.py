@@ -1,0 +1,728 @@
+"""Pearson and Spearman for every pair of columns of a wide table, by matrix products.
+
+The per-pair kernels (:func:`pairlens.core.linear.pearson`,
+:func:`pairlens.core.rank.spearman`) stay the reference: this module gives the
+same estimates, p-values, intervals and notes for all pairs at once, from a few
+BLAS products per block of columns and elementwise array work, with no Python
+work per pair. The pairs whose default test needs the rows themselves are
+marked ``fallback`` (the caller runs the per-pair kernel on them) or, for
+Pearson's split rule, batched through the per-pair kernel here; the counts are
+reported in :attr:`WidePairs.counts`.
+
+Missing values: a column with any missing (or infinite) value is
+"incomplete". Pairs of two complete columns take every path here. For pairs
+touching an incomplete column, Pearson's r, rows used, interval, t p-value
+and the power sums of the default (moment) p-value come from masked products
+(:func:`pairlens.core.linear.pearson_matrix`'s algebra); Spearman (ranks
+among the pair's own rows) is marked ``fallback``.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from functools import lru_cache
+
+import numba
+import numpy as np
+from scipy import special
+
+from .. import config
+from . import linear, rank
+
+__all__ = ["MeasureArrays", "WidePairs", "WIDE_MEASURES", "pair_matrix"]
+
+# Measures this module computes (the engine takes the matrix path only when every chosen measure is here).
+WIDE_MEASURES = ("pearson", "spearman")
+# Spearman's score products are exact integers in float64 while n^3 < 2^53.
+_SPEARMAN_EXACT_MAX_N = 200_000
+_LOG_FACT_CACHE: dict = {}
+
+
+# --- private helpers ------------------------------------------------------------------
+
+class _Labels:
+    """Strings stored once, pairs holding small integer codes."""
+
+    def __init__(self, first: str = "") -> None:
+        self.items: list[str] = [first]
+        self._index = {first: 0}
+
+    def code(self, text: str) -> int:
+        if text not in self._index:
+            self._index[text] = len(self.items)
+            self.items.append(text)
+        return self._index[text]
+
+
+@numba.njit(cache=True, nogil=True)
+def _joint_log_mult(dense, levels, pi, pj):
+    """sum log(m!) over the groups of equal (x, y) rows of each listed pair (dense integer codes)."""
+    out = np.zeros(pi.shape[0])
+    n = dense.shape[0]
+    for k in range(pi.shape[0]):
+        a = dense[:, pi[k]]
+        b = dense[:, pj[k]]
+        codes = np.empty(n, np.int64)
+        for r in range(n):
+            codes[r] = a[r] * levels + b[r]
+        codes.sort()
+        total = 0.0
+        run = 1
+        for r in range(1, n + 1):
+            if r < n and codes[r] == codes[r - 1]:
+                run += 1
+            else:
+                if run > 1:
+                    total += math.lgamma(run + 1.0)
+                run = 1
+        out[k] = total
+    return out
+
+
+def _fisher_interval(est: np.ndarray, se: np.ndarray, confidence: float) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`pairlens.core.testing.fisher_z_interval` over arrays."""
+    half = float(special.ndtri(0.5 + confidence / 2.0))
+    r = np.clip(est, -1.0, 1.0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        z = np.arctanh(r)
+        low = np.tanh(z - half * se)
+        high = np.tanh(z + half * se)
+    edge = np.abs(r) == 1.0
+    low = np.where(edge, r, low)
+    high = np.where(edge, r, high)
+    whole = np.isinf(se)
+    low = np.where(whole, -1.0, low)
+    high = np.where(whole, 1.0, high)
+    bad = np.isnan(est) | np.isnan(se)
+    return np.where(bad, np.nan, low), np.where(bad, np.nan, high)
+
+
+def _edgeworth_upper(n: int, s: np.ndarray) -> np.ndarray:
+    """:func:`pairlens.core.rank._edgeworth_upper` over an array of s (AS 89, Best & Roberts 1975)."""
+    s = np.asarray(s, dtype=float)
+    c1, c2, c3, c4, c5, c6 = 0.2274, 0.2531, 0.1745, 0.0758, 0.1033, 0.3932
+    c7, c8, c9, c10, c11, c12 = 0.0879, 0.0151, 0.0072, 0.0831, 0.0131, 4.6e-4
+    b = 1.0 / n
+    x = (6.0 * (s - 1.0) * b / (n * n - 1.0) - 1.0) * math.sqrt(n - 1.0)
+    y = x * x
+    u = x * b * (c1 + b * (c2 + c3 * b) + y * (-c4 + b * (c5 + c6 * b)
+                 - y * b * (c7 + c8 * b - y * (c9 - c10 * b + y * b * (c11 - c12 * y)))))
+    p = np.clip(u / np.exp(y / 2.0) + 0.5 * special.erfc(x / math.sqrt(2.0)), 0.0, 1.0)
+    n3 = n * (n * n - 1) / 3.0
+    return np.where(s <= 0, 1.0, np.where(s > n3, 0.0, p))
+
+
+def _spearman_edgeworth(n: int, s: np.ndarray) -> np.ndarray:
+    """:func:`pairlens.core.rank.spearman_edgeworth_pvalue` over an array of integer s."""
+    upper = 6 * s > n * n * n - n
+    tail = np.where(upper, _edgeworth_upper(n, s - 1), 1.0 - _edgeworth_upper(n, s + 2))
+    return np.minimum(1.0, 2.0 * tail)
+
+
+@lru_cache(maxsize=16)
+def _spearman_exact_table(n: int) -> tuple[np.ndarray, np.ndarray]:
+    s_values, _ = rank.spearman_null_counts(n)
+    return s_values, np.array([rank.spearman_exact_pvalue(n, int(s)) for s in s_values])
+
+
+def _log_multiplicity(col: np.ndarray) -> tuple[float, np.ndarray, int]:
+    """sum log(t!) over tie groups, dense codes by row and the number of levels of one column."""
+    values, dense, counts = np.unique(col, return_inverse=True, return_counts=True)
+    return float(special.gammaln(counts[counts > 1] + 1.0).sum()), dense.reshape(-1), values.size
+
+
+def _floor_note(floor: float, n: int) -> str:
+    inverse = 1.0 / floor
+    shown = f"1/{round(inverse)}" if abs(inverse - round(inverse)) < 1e-6 * inverse else f"{floor:.3g}"
+    return f"p-value raised to {shown}, the smallest the permutation law of these {n} rows allows"
+
+
+def _join(a: str, b: str) -> str:
+    return "; ".join(filter(None, [a, b]))
+
+
+@dataclass
+class MeasureArrays:
+    """One measure's results for every pair, as arrays aligned with :attr:`WidePairs.i`."""
+
+    estimate: np.ndarray
+    p_value: np.ndarray
+    ci_low: np.ndarray
+    ci_high: np.ndarray
+    n: np.ndarray
+    method: np.ndarray          # codes into ``methods``
+    note: np.ndarray            # codes into ``notes``
+    fallback: np.ndarray        # True: the per-pair kernel must compute this pair
+    batched: np.ndarray         # True: the p-value came from the per-pair kernel batched here (split law)
+    methods: list[str] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
+
+    @classmethod
+    def empty(cls, size: int) -> "MeasureArrays":
+        nan = np.full(size, np.nan)
+        return cls(nan.copy(), nan.copy(), nan.copy(), nan.copy(), np.zeros(size, np.int64),
+                   np.zeros(size, np.int16), np.zeros(size, np.int32), np.zeros(size, bool), np.zeros(size, bool))
+
+
+@dataclass
+class WidePairs:
+    """Every pair i < j of the columns, and each measure's arrays."""
+
+    i: np.ndarray
+    j: np.ndarray
+    measures: dict
+    counts: dict = field(default_factory=dict)
+
+
+class _Columns:
+    """What the products need of each column, computed once."""
+
+    def __init__(self, data: np.ndarray) -> None:
+        n, p = data.shape
+        self.n = n
+        self.present = np.isfinite(data)
+        self.complete = self.present.all(axis=0)
+        clean = np.where(self.present, data, 0.0)
+        counts = self.present.sum(axis=0)
+        safe = np.maximum(counts, 1)
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+            means = clean.sum(axis=0) / safe
+            centred = np.where(self.present, clean - means, 0.0)
+            centred = np.where(self.present, centred - centred.sum(axis=0) / safe, 0.0)
+            peak = np.abs(centred).max(axis=0, initial=0.0)
+            self.scaled = centred / np.where(peak > 0, peak, 1.0)
+        hi = np.where(self.present, data, -np.inf).max(axis=0, initial=-np.inf)
+        lo = np.where(self.present, data, np.inf).min(axis=0, initial=np.inf)
+        self.constant = ~(hi > lo)
+        self.usable = ~self.constant & (peak > 0) & np.isfinite(peak)
+        a2 = (self.scaled ** 2).sum(axis=0)
+        self.a2 = a2
+        self.a3 = (self.scaled ** 3).sum(axis=0)
+        self.a4 = (self.scaled ** 4).sum(axis=0)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            self.unit = np.where(self.usable, self.scaled / np.sqrt(np.where(a2 > 0, a2, 1.0)), 0.0)
+            # the split rule's largest single share of the sum of squares (data scaled to max |v| = 1)
+            self.share = 1.0 / a2
+        self.data = data
+        self.counts = self.present.sum(axis=0).astype(np.int64)
+        self._by_column = None
+        self._orders = None
+
+    def orders(self) -> np.ndarray:
+        """Each column's present rows in ascending value (column-wise), computed on first use."""
+        if self._orders is None:
+            keyed = np.where(self.present, self.scaled, np.inf)
+            self._orders = np.asfortranarray(np.argsort(keyed, axis=0, kind="stable").astype(np.int64))
+        return self._orders
+
+    def by_column(self) -> np.ndarray:
+        """The data transposed and contiguous, one column a row (a strided column costs 2x in the kernels)."""
+        if self._by_column is None:
+            self._by_column = np.ascontiguousarray(self.data.T)
+        return self._by_column
+
+
+def _pearson_exact(unscaled_x, unscaled_y, n, want_p, want_floor):
+    """Exact relabelling p-values (n <= 7) and the enumerated floor (n <= 8) of a block of pairs,
+    in one pass over the relabellings.
+
+    The floor needs the largest :math:`|S_\\pi|` first: by the rearrangement inequality the
+    largest and smallest :math:`S_\\pi` pair the sorted columns in the same and in opposite
+    order, two products instead of a pass over all n! relabellings.
+    """
+    from .testing import all_pairings
+
+    pairings = linear._all_relabellings(n) if n <= config.PEARSON_EXACT_MAX_N else all_pairings(n)
+    observed = np.abs(unscaled_x.T @ unscaled_y)
+    hits = np.zeros(observed.shape, np.int32) if want_p else None
+    count = np.zeros(observed.shape, np.int32) if want_floor else None
+    threshold = observed * (1.0 - 1e-12)
+    if want_floor:
+        sx, sy = np.sort(unscaled_x, axis=0), np.sort(unscaled_y, axis=0)
+        top = np.maximum(np.abs(sx.T @ sy), np.abs(sx.T @ sy[::-1]))
+        limit = top - 1e-9 * np.maximum(1.0, top)
+    for perm in pairings:
+        s = np.abs(unscaled_x.T @ unscaled_y[perm])
+        if want_p:
+            hits += s >= threshold
+        if want_floor:
+            count += s >= limit
+    p = hits / len(pairings) if want_p else None
+    floor = count / len(pairings) if want_floor else None
+    return p, floor
+
+
+def _apply_floor(arr: MeasureArrays, sel: np.ndarray, floor: np.ndarray, n: np.ndarray, labels: _Labels) -> None:
+    """p raised to the permutation floor where below it, with the per-pair path's note."""
+    p = arr.p_value[sel]
+    low = (p == p) & (p < floor)
+    if not low.any():
+        return
+    idx = np.flatnonzero(sel)[low]
+    arr.p_value[idx] = floor[low]
+    old_notes = arr.note[idx]
+    for f, nn, old in set(zip(floor[low].tolist(), n[low].tolist(), old_notes.tolist())):
+        code = labels.code(_join(labels.items[old], _floor_note(f, nn)))
+        hit = (floor[low] == f) & (n[low] == nn) & (old_notes == old)
+        arr.note[idx[hit]] = code
+
+
+def _permutation_floor(cols, xi, yj, n, logm, dense, levels, p):
+    """K/n! of :func:`pairlens.core.testing.permutation_floor` for pairs of complete columns (8 < n <= 1000).
+
+    Without ties on a side K = 1 (or the other side's multiplicities alone); the
+    joint multiplicities are counted in compiled code, and only for pairs whose
+    p-value lies below the largest floor their margins allow.
+    """
+    lg = special.gammaln(n + 1.0)
+    lx, ly = logm[xi], logm[yj]
+    upper = np.exp(lx + ly - lg)
+    floor = upper.copy()
+    both = (lx > 0) & (ly > 0) & (p == p) & (p < upper)
+    if both.any():
+        joint = _joint_log_mult(dense, int(levels), xi[both].astype(np.int64), yj[both].astype(np.int64))
+        floor[both] = np.exp(lx[both] - joint + ly[both] - lg)
+    return floor
+
+
+@numba.njit(cache=True, nogil=True)
+def _masked_extremes(values, orders, counts, present, pi, pj):
+    """Largest and smallest value of column pi[k] over the rows where column pj[k] is present.
+
+    Walks the column's ascending order from each end until a row the other column has: O(1)
+    per pair unless most of the extreme rows are missing in the partner.
+    """
+    m = pi.shape[0]
+    lo = np.empty(m)
+    hi = np.empty(m)
+    for k in range(m):
+        i = pi[k]
+        j = pj[k]
+        lo[k] = np.nan
+        hi[k] = np.nan
+        for t in range(counts[i]):
+            row = orders[t, i]
+            if present[row, j]:
+                lo[k] = values[row, i]
+                break
+        for t in range(counts[i] - 1, -1, -1):
+            row = orders[t, i]
+            if present[row, j]:
+                hi[k] = values[row, i]
+                break
+    return lo, hi
+
+
+def _pearson_masked_moments(cols, rows_i, cols_j, xi, yj, sel, n, out, labels_m, threads):
+    """The default (moment) p-value of pairs touching an incomplete column.
+
+    Each side's power sums over the pair's rows are masked products,
+    :math:`(V^{\\circ k})^T M`, turned into central sums about the pair's own
+    mean; the split rule's largest share comes from each side's extreme values on
+    the pair's rows (:func:`_masked_extremes`). Pairs the split rule or n <= 7
+    sends elsewhere run the per-pair kernel on their rows, here.
+    """
+    v = cols.scaled
+    mask = cols.present.astype(float)
+    vi, vj, mi, mj = v[:, rows_i], v[:, cols_j], mask[:, rows_i], mask[:, cols_j]
+    px = [((vi ** k).T @ mj).ravel()[sel] for k in (1, 2, 3, 4)]
+    py = [(mi.T @ (vj ** k)).ravel()[sel] for k in (1, 2, 3, 4)]
+    cross = (vi.T @ vj).ravel()[sel]
+    nn = n[sel].astype(float)
+    mx, a2, a3, a4 = linear._central_sums(*px, nn)
+    my, b2, b3, b4 = linear._central_sums(*py, nn)
+    s = np.abs(cross - nn * mx * my)
+    orders = cols.orders()
+    lo_x, hi_x = _masked_extremes(v, orders, cols.counts, cols.present, xi[sel].astype(np.int64),
+                                  yj[sel].astype(np.int64))
+    lo_y, hi_y = _masked_extremes(v, orders, cols.counts, cols.present, yj[sel].astype(np.int64),
+                                  xi[sel].astype(np.int64))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        share = np.maximum(np.maximum((hi_x - mx) ** 2, (lo_x - mx) ** 2) / a2,
+                           np.maximum((hi_y - my) ** 2, (lo_y - my) ** 2) / b2)
+    n_sel = n[sel]
+    whole = (n_sel > config.PEARSON_SPLIT_MAX_N) & (share <= config.PEARSON_SPLIT_SHARE)
+    idx = np.flatnonzero(sel)
+    if whole.any():
+        e2, e3, e4 = linear.permutation_moments(a2[whole], a3[whole], a4[whole], b2[whole], b3[whole], b4[whole],
+                                                nn[whole])
+        out.p_value[idx[whole]] = np.clip(linear._two_tails(s[whole], e2, e3, e4), 0.0, 1.0)
+    rest = idx[~whole]
+    if rest.size:
+        # split law or exact enumeration: the per-pair kernel on the pair's own rows
+        data = cols.data
+        for k in rest.tolist():
+            both = cols.present[:, xi[k]] & cols.present[:, yj[k]]
+            out.p_value[k] = linear.moment_pvalue(data[both, xi[k]], data[both, yj[k]])
+        out.batched[rest] = True
+        exact = rest[n[rest] <= config.PEARSON_EXACT_MAX_N]
+        out.method[exact] = labels_m.code(linear._METHOD_LABELS["exact"])
+
+
+def _pearson_block(cols, rows_i, cols_j, out, test, confidence, labels_m, labels_n, counts, threads=1):
+    """Fill ``out`` (the pairs of columns rows_i x cols_j, flattened) for Pearson."""
+    n_rows = cols.n
+    xi, yj = np.meshgrid(rows_i, cols_j, indexing="ij")
+    xi, yj = xi.ravel(), yj.ravel()
+    pairs = xi.size
+    complete = cols.complete[xi] & cols.complete[yj]
+    if complete.all():
+        n = np.full(pairs, n_rows, np.int64)
+        r = (cols.unit[:, rows_i].T @ cols.unit[:, cols_j]).ravel()
+    else:
+        mask = cols.present.astype(float)
+        z = cols.unit
+        ni = np.rint(mask[:, rows_i].T @ mask[:, cols_j])
+        sums = z[:, rows_i].T @ mask[:, cols_j]
+        sums_t = (mask[:, rows_i].T @ z[:, cols_j])
+        squares = (z[:, rows_i] ** 2).T @ mask[:, cols_j]
+        squares_t = mask[:, rows_i].T @ (z[:, cols_j] ** 2)
+        cross = z[:, rows_i].T @ z[:, cols_j]
+        nf = np.maximum(ni, 1.0)
+        var_i = squares - sums * sums / nf
+        var_j = squares_t - sums_t * sums_t / nf
+        with np.errstate(invalid="ignore", divide="ignore"):
+            r_masked = (cross - sums * sums_t / nf) / np.sqrt(var_i * var_j)
+        fragile = ((var_i <= 1e-8 * squares) | (var_j <= 1e-8 * squares_t)).ravel()
+        r = np.where(complete, (cols.unit[:, rows_i].T @ cols.unit[:, cols_j]).ravel(), r_masked.ravel())
+        n = ni.ravel().astype(np.int64)
+        # nearly constant on the pair's rows, or constant there: the per-pair kernel decides
+        out.fallback[:] = ~complete & fragile
+    r = np.clip(r, -1.0, 1.0)
+    method_label = linear._METHOD_LABELS["t" if test == "t" else "moments"]
+    floor_grid = None
+    # degenerate pairs: the per-pair path's notes
+    few = n < config.MIN_ROWS
+    cx, cy = cols.constant[xi], cols.constant[yj]
+    # an incomplete column can be constant on a pair's rows only: those pairs are fragile (fallback)
+    note = np.zeros(pairs, np.int32)
+    note[cx & ~cy] = labels_n.code("constant column: x")
+    note[cy & ~cx] = labels_n.code("constant column: y")
+    note[cx & cy] = labels_n.code("constant column: x and y")
+    unusable = (~cols.usable[xi] | ~cols.usable[yj]) & ~(cx | cy)
+    out.fallback[unusable & ~few] = True
+    # a side constant over its present values is constant on the pair's rows, but the other side may be
+    # too: the per-pair kernel words the note
+    out.fallback[(cx | cy) & ~complete & ~few] = True
+    for k in np.unique(n[few]):
+        note[few & (n == k)] = labels_n.code(f"fewer than {config.MIN_ROWS} rows with both values present ({k})")
+    degenerate = few | cx | cy | unusable
+    ok = ~degenerate & ~out.fallback & (xi < yj)   # the block's rectangle holds pairs j <= i too: not computed
+    out.n[:] = n
+    out.note[:] = note
+    out.method[:] = labels_m.code(method_label)
+    out.method[few] = labels_m.code("")
+    out.estimate[:] = np.where(ok, r, np.nan)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        se = np.where(n > 3, 1.0 / np.sqrt(np.maximum(n, 4) - 3.0), np.inf)
+    low, high = _fisher_interval(out.estimate, se, confidence)
+    out.ci_low[:], out.ci_high[:] = low, high
+    three = ok & (n == 3)
+    out.note[three] = labels_n.code("interval is the whole range: Fisher z needs more than 3 rows")
+    if test == "t":
+        out.p_value[:] = np.where(ok, linear.correlation_t_pvalue(r, n), np.nan)
+    else:
+        partial = ok & ~complete
+        if partial.any():
+            _pearson_masked_moments(cols, rows_i, cols_j, xi, yj, partial, n, out, labels_m, threads)
+        computed = ok
+        ok = ok & complete
+        if n_rows <= config.PEARSON_EXACT_MAX_N:
+            if ok.any():
+                ux = cols.data[:, rows_i] - cols.data[:, rows_i].mean(axis=0)
+                uy = cols.data[:, cols_j] - cols.data[:, cols_j].mean(axis=0)
+                p, floor = _pearson_exact(ux, uy, n_rows, True, True)
+                out.p_value[ok] = p.ravel()[ok]
+                floor_grid = floor.ravel()
+                out.method[ok] = labels_m.code(linear._METHOD_LABELS["exact"])
+        else:
+            share = np.maximum(cols.share[xi], cols.share[yj])
+            split = ok & ((n_rows <= config.PEARSON_SPLIT_MAX_N) | (share > config.PEARSON_SPLIT_SHARE))
+            whole = ok & ~split
+            if whole.any():
+                a = (cols.a2[xi[whole]], cols.a3[xi[whole]], cols.a4[xi[whole]])
+                b = (cols.a2[yj[whole]], cols.a3[yj[whole]], cols.a4[yj[whole]])
+                s = np.abs(r[whole]) * np.sqrt(a[0] * b[0])
+                e2, e3, e4 = linear.permutation_moments(*a, *b, n_rows)
+                out.p_value[whole] = np.clip(linear._two_tails(s, e2, e3, e4), 0.0, 1.0)
+            if split.any():
+                # the per-pair kernel, batched: its law is split into n parts (O(n) curves a pair)
+                idx = np.flatnonzero(split)
+                chunk = max(1, -(-idx.size // (4 * threads)))
+                parts = [idx[start:start + chunk] for start in range(0, idx.size, chunk)]
+
+                by_column = cols.by_column()
+
+                def run(part):
+                    # one pair at a time: at thousands of rows each pair's n curves fill the caches already
+                    for k in part:
+                        out.p_value[k] = linear.moment_pvalue(by_column[xi[k]], by_column[yj[k]])
+
+                if threads > 1 and len(parts) > 1:
+                    # the curve kernels release the GIL: threads share the cores without copying the data
+                    from concurrent.futures import ThreadPoolExecutor
+
+                    with ThreadPoolExecutor(max_workers=threads) as pool:
+                        list(pool.map(run, parts))
+                else:
+                    for part in parts:
+                        run(part)
+                out.batched[split] = True
+        ok = computed
+    out.p_value[~ok & ~out.fallback] = np.nan
+    _floor_block(cols, xi, yj, out, ok & ~out.fallback, counts, "pearson", labels_n, floor_grid)
+
+
+def _floor_block(cols, xi, yj, out, ok, counts, measure, labels, grid=None):
+    """The registry's p-value floor (:func:`pairlens.core.registry.pvalue_floor`).
+
+    Complete pairs get it here; a pair touching an incomplete column whose
+    p-value lies below the largest floor its columns' ties could give is sent
+    to the per-pair kernel (its ties on its own rows decide).
+    """
+    has_p = ok & (out.p_value == out.p_value)
+    complete = cols.complete[xi] & cols.complete[yj]
+    n_rows = cols.n
+    partial = has_p & ~complete & (out.n <= config.PVALUE_FLOOR_MAX_N)
+    if partial.any():
+        nn = out.n[partial].astype(float)
+        upper = np.exp(cols.logm[xi[partial]] + cols.logm[yj[partial]] - special.gammaln(nn + 1.0))
+        low = out.p_value[partial] < upper
+        out.fallback[np.flatnonzero(partial)[low]] = True
+    sel = has_p & complete
+    if not sel.any() or n_rows > config.PVALUE_FLOOR_MAX_N or n_rows < 2:
+        return
+    if grid is not None:
+        floors = grid[sel]      # enumerated with the exact p-values of the block
+    elif measure == "spearman" and n_rows <= config.PVALUE_FLOOR_ENUMERATE_MAX_N and not (
+            cols.tied[xi[sel]] | cols.tied[yj[sel]]).any():
+        # untied ranks: the largest |sum r_x r_y| is reached by the sorted pairing and its
+        # reverse only (rearrangement inequality, strict for distinct values): 2 of n! pairings
+        floors = np.full(int(sel.sum()), 2 / math.factorial(n_rows))
+    elif n_rows <= config.PVALUE_FLOOR_ENUMERATE_MAX_N:
+        src = cols.data if measure == "pearson" else cols.ranks
+        uniq_i = np.unique(xi[sel])
+        uniq_j = np.unique(yj[sel])
+        ux = src[:, uniq_i] - src[:, uniq_i].mean(axis=0)
+        uy = src[:, uniq_j] - src[:, uniq_j].mean(axis=0)
+        _, floor = _pearson_exact(ux, uy, n_rows, False, True)
+        floors = floor[np.searchsorted(uniq_i, xi[sel]), np.searchsorted(uniq_j, yj[sel])]
+    else:
+        floors = _permutation_floor(cols, xi[sel], yj[sel], n_rows, cols.logm, cols.dense, cols.levels,
+                                    out.p_value[sel])
+    _apply_floor(out, sel, floors, np.full(int(sel.sum()), n_rows), labels)
+
+
+def _spearman_block(cols, rows_i, cols_j, out, confidence, labels_m, labels_n, counts):
+    n_rows = cols.n
+    xi, yj = np.meshgrid(rows_i, cols_j, indexing="ij")
+    xi, yj = xi.ravel(), yj.ravel()
+    pairs = xi.size
+    complete = cols.complete[xi] & cols.complete[yj]
+    out.fallback[:] = ~complete     # ranks among each pair's own rows: the per-pair kernel
+    n = np.full(pairs, n_rows, np.int64)
+    cx, cy = cols.constant[xi], cols.constant[yj]
+    note = np.zeros(pairs, np.int32)
+    note[cx & ~cy] = labels_n.code("constant column: x")
+    note[cy & ~cx] = labels_n.code("constant column: y")
+    note[cx & cy] = labels_n.code("constant column: x and y")
+    t_label = labels_m.code("t approximation, n-2 df")
+    out.method[:] = t_label
+    few = np.zeros(pairs, bool) if n_rows >= config.MIN_ROWS else np.ones(pairs, bool)
+    if few.any():
+        note[:] = labels_n.code(f"fewer than {config.MIN_ROWS} rows with both values present ({n_rows})")
+        out.method[:] = labels_m.code("")
+    ok = complete & ~cx & ~cy & ~few & (xi < yj)
+    out.n[:] = np.where(complete, n, 0)
+    out.note[:] = note
+    if not ok.any():
+        return
+    txy = (cols.scores[:, rows_i].T @ cols.scores[:, cols_j]).ravel()
+    sxx, syy = cols.score_sq[xi] / 4, cols.score_sq[yj] / 4
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rho = np.clip((txy / 4) / np.sqrt(sxx * syy), -1.0, 1.0)
+    rho = np.where(ok, rho, np.nan)
+    out.estimate[:] = rho
+    tied = cols.tied[xi] | cols.tied[yj]
+    p = np.full(pairs, np.nan)
+    use_t = ok & ((n_rows >= config.SPEARMAN_T_MIN_N) | (tied & (n_rows > config.SPEARMAN_TIED_PERMUTATION_MAX_N)))
+    p[use_t] = linear.correlation_t_pvalue(rho[use_t], n[use_t])
+    untied = ok & ~use_t & ~tied
+    if untied.any():
+        s = (n_rows ** 3 - n_rows) // 6 - np.rint(txy[untied] / 2).astype(np.int64)
+        if n_rows <= config.SPEARMAN_EXACT_MAX_N:
+            s_values, table = _spearman_exact_table(n_rows)
+            p[untied] = table[np.searchsorted(s_values, s)]
+            out.method[untied] = labels_m.code("exact")
+        else:
+            p[untied] = _spearman_edgeworth(n_rows, s)
+            out.method[untied] = labels_m.code("Edgeworth series (AS 89)")
+    # tied and small: a permutation test on the pair's scores (exact or seeded), the per-pair kernel
+    rows_needed = ok & ~use_t & tied
+    out.fallback[rows_needed] = True
+    out.p_value[:] = p
+    if n_rows > 3:
+        se = np.sqrt((1.0 + rho * rho / 2.0) / (n_rows - 3))
+    else:
+        se = np.full(pairs, np.inf)
+        out.note[ok] = labels_n.code("interval is the whole range: Fisher z needs more than 3 rows")
+    low, high = _fisher_interval(rho, se, confidence)
+    out.ci_low[:], out.ci_high[:] = low, high
+    _floor_block(cols, xi, yj, out, ok & ~rows_needed, counts, "spearman", labels_n)
+
+
+def _prepare_ranks(cols: _Columns) -> None:
+    """Integer rank scores 2 * midrank - (n + 1) of the complete columns, tie flags, tie multiplicities."""
+    n, p = cols.data.shape
+    scores = np.zeros((n, p))
+    for k in np.flatnonzero(cols.complete):
+        scores[:, k] = 2.0 * rank.midranks(cols.data[:, k]) - (n + 1)
+    cols.scores = scores
+    cols.ranks = scores / 2.0
+    cols.score_sq = (scores * scores).sum(axis=0)
+    cols.tied = cols.score_sq != float((n ** 3 - n) // 3)
+
+
+def _prepare_ties(cols: _Columns) -> None:
+    """Each column's sum log(t!) over tie groups (present values) and dense codes of the complete ones."""
+    n, p = cols.data.shape
+    logm = np.zeros(p)
+    dense = np.zeros((n, p), np.int64)
+    levels = 1
+    for k in range(p):
+        present = cols.present[:, k]
+        logm[k], codes, lv = _log_multiplicity(cols.data[present, k])
+        if cols.complete[k]:
+            dense[:, k] = codes
+            levels = max(levels, lv)
+    cols.logm, cols.dense, cols.levels = logm, np.asfortranarray(dense), levels
+
+
+# --- public function -----------------------------------------------------------------
+
+def pair_matrix(data: np.ndarray, *, measures=WIDE_MEASURES, pearson_test: str = "moments",
+                confidence: float = 0.95, block_elements: int = 2_000_000, threads: int = 1) -> WidePairs:
+    """Pearson and Spearman for every pair of columns, by blocks of matrix products.
+
+    Parameters
+    ----------
+    data : numpy.ndarray
+        (n, p) float array; NaN (or inf) marks a missing value. Each pair uses
+        the rows where both of its columns are present.
+    measures : sequence of {"pearson", "spearman"}
+        Measures to compute.
+    pearson_test : {"moments", "t"}
+        Pearson's p-value: the default permutation-moment law
+        (:func:`pairlens.core.linear.moment_pvalue`) or the t-test with n-2 df.
+    confidence : float
+        Level of the Fisher z intervals.
+    block_elements : int
+        Pairs per block of products (bounds the working memory).
+    threads : int
+        Threads for the pairs batched through the per-pair kernel (split law).
+
+    Returns
+    -------
+    WidePairs
+        ``i < j`` column indices in row-major upper-triangle order and, per
+        measure, :class:`MeasureArrays` equal to the per-pair kernels'
+        results (estimate, p-value with the registry's permutation floor,
+        interval, rows, method and note), except where ``fallback`` is True:
+        those pairs need the per-pair kernel. ``counts`` says how many pairs
+        took each special path.
+
+    Notes
+    -----
+    Pearson: each column is centred (two passes) and scaled to unit length,
+    :math:`U`; then :math:`r = U^T U`. For the default p-value the permutation
+    moments of :math:`S = \\sum x_i y_{\\pi(i)}` come from each column's central
+    power sums :math:`A_2, A_3, A_4` (:func:`pairlens.core.linear.permutation_moments`),
+    :math:`|S| = |r|\\sqrt{A_2 B_2}`, and one Pearson curve per pair; up to 7 rows
+    every relabelling :math:`\\pi` is one more product :math:`X^T Y_\\pi`. Pairs that
+    the split rule sends to the split law (up to 60 rows, or one point holding
+    more than 10 % of a side's sum of squares) are batched through the per-pair
+    kernel. With missing values, :math:`n_{ij} = (M^T M)_{ij}` and the
+    pair-specific means enter as corrections :math:`S_{ij}S_{ji}/n_{ij}`, as in
+    :func:`pairlens.core.linear.pearson_matrix`.
+
+    Spearman: the integer scores :math:`a = 2R - (n+1)` (R the mid-ranks) give
+    exact integer products :math:`T = A^T A` in float64 for :math:`n^3 < 2^{53}`,
+    so :math:`\\rho = T / \\sqrt{T_{xx} T_{yy}}` carries the same bits as the
+    per-pair kernel's exact sums; the p-value follows
+    :func:`pairlens.core.rank.spearman_from_sums` (exact table, Edgeworth
+    series or t), a tied sample below 30 rows going to the per-pair kernel.
+
+    Both: p-values are raised to the smallest value the pair's permutation law
+    allows (:func:`pairlens.core.registry.pvalue_floor`): all relabellings up to
+    8 rows, :math:`K/n!` from the tie multiplicities up to 1,000 rows.
+
+    References
+    ----------
+    Pearson, K. (1895). Proc. R. Soc. Lond. 58:240-242. doi:10.1098/rspl.1895.0041
+
+    Pitman, E.J.G. (1937). Suppl. J. R. Stat. Soc. 4:225-232. doi:10.2307/2983647
+
+    Spearman, C. (1904). Am. J. Psychol. 15:72-101. doi:10.2307/1412159
+
+    Examples
+    --------
+    >>> rng = np.random.default_rng(8)
+    >>> data = rng.normal(size=(40, 5))
+    >>> wp = pair_matrix(data)
+    >>> wp.i.size, bool(wp.measures["pearson"].fallback.any())
+    (10, False)
+    """
+    data = np.asarray(data, dtype=float)
+    if data.ndim != 2:
+        raise ValueError("data must be a 2-D (rows, columns) array")
+    unknown = [m for m in measures if m not in WIDE_MEASURES]
+    if unknown:
+        raise ValueError(f"the matrix path computes {', '.join(WIDE_MEASURES)}; not {', '.join(unknown)}")
+    if pearson_test not in ("moments", "t"):
+        raise ValueError(f"the matrix path's Pearson test is moments or t, not {pearson_test!r}")
+    n_rows, p = data.shape
+    cols = _Columns(data)
+    if "spearman" in measures:
+        _prepare_ranks(cols)
+        if n_rows > _SPEARMAN_EXACT_MAX_N:
+            cols.complete = np.zeros(p, bool)   # integer products would no longer be exact: per pair
+    _prepare_ties(cols)
+    iu, ju = np.triu_indices(p, k=1)
+    total = iu.size
+    result = {m: MeasureArrays.empty(total) for m in measures}
+    labels = {m: (_Labels(), _Labels()) for m in measures}
+    counts: dict = {}
+    start = 0
+    row = 0
+    # blocks of whole rows of the upper triangle: columns row..stop-1 against every later column
+    while row < p - 1:
+        stop = row + 1
+        size = p - 1 - row
+        while stop < p - 1 and size + (p - 1 - stop) <= block_elements:
+            size += p - 1 - stop
+            stop += 1
+        rows_i = np.arange(row, stop)
+        cols_j = np.arange(row + 1, p)
+        keep = (cols_j[None, :] > rows_i[:, None]).ravel()
+        for m in measures:
+            block = MeasureArrays.empty(rows_i.size * cols_j.size)
+            lm, ln = labels[m]
+            if m == "pearson":
+                _pearson_block(cols, rows_i, cols_j, block, pearson_test, confidence, lm, ln, counts, threads)
+            else:
+                _spearman_block(cols, rows_i, cols_j, block, confidence, lm, ln, counts)
+            dest = result[m]
+            sl = slice(start, start + size)
+            for name in ("estimate", "p_value", "ci_low", "ci_high", "n", "method", "note", "fallback", "batched"):
+                getattr(dest, name)[sl] = getattr(block, name)[keep]
+        start += size
+        row = stop
+    for m in measures:
+        result[m].methods, result[m].notes = labels[m][0].items, labels[m][1].items
+        arr = result[m]
+        counts[m] = {"pairs": int(total), "per_pair_kernel": int(arr.fallback.sum()),
+                     "split_law_batched": int(arr.batched.sum()),
+                     "exact_enumeration": int(sum((arr.method == k).sum() for k, label in enumerate(arr.methods)
+                                                  if label.startswith("exact")))}
+    return WidePairs(iu.astype(np.int32), ju.astype(np.int32), result, counts)

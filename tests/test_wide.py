@@ -1,0 +1,254 @@
+"""The matrix path (app/core/wide.py, app/matrix_path.py) against the per-pair kernels and reference libraries.
+
+The per-pair kernels are the oracle of the matrix path (issue 19): estimates to 1e-12
+relative, p-values to 1e-9. Near r = 0 a relative bound cannot hold for any two orders of
+summation (both paths carry an absolute rounding of about 1e-16 on r), so estimates also
+get an absolute slack of 1e-15.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from pairlens import config
+from pairlens.cli import main
+from pairlens.core import wide
+from pairlens.core.registry import MEASURES, PairContext
+from pairlens.engine import AnalysisSettings, run_analysis
+from pairlens.export import pairs_to_csv, write_pairs_stream
+from pairlens.matrix_path import WidePairTable
+
+
+def _table(n: int, seed: int) -> np.ndarray:
+    """Normal, constant, tied, skewed, affine and missing columns."""
+    rng = np.random.default_rng(seed)
+    d = rng.normal(size=(n, 9))
+    d[:, 2] = 1.5                                   # constant
+    d[:, 3] = np.round(d[:, 3])                     # ties
+    d[:, 4] = rng.lognormal(size=n) ** 2            # one dominant point: Pearson's split rule
+    d[:, 5] = 2.0 * d[:, 0] + 1.0                   # |r| = 1
+    d[:, 6] = np.round(2.0 * d[:, 6])               # ties
+    if n >= 6:
+        d[::5, 7] = np.nan                          # missing values
+        d[1, 8] = np.nan
+    return d
+
+
+def _assert_matches_per_pair(data: np.ndarray, test: str) -> dict:
+    wp = wide.pair_matrix(data, pearson_test=test)
+    seen = {}
+    for m, arr in wp.measures.items():
+        ctx = PairContext(test=test if m == "pearson" else "")
+        checked = 0
+        for k, (i, j) in enumerate(zip(wp.i.tolist(), wp.j.tolist())):
+            if arr.fallback[k]:
+                continue
+            # Oracle: the per-pair kernel behind the registry entry (with its p-value floor).
+            ref = MEASURES[m].compute(data[:, i], data[:, j], ctx)
+            where = f"{m} {test} pair ({i}, {j}) n={data.shape[0]}"
+            np.testing.assert_allclose(arr.estimate[k], ref.estimate, rtol=1e-12, atol=1e-15, err_msg=where)
+            np.testing.assert_allclose(arr.p_value[k], ref.p_value, rtol=1e-9, atol=1e-15, err_msg=where)
+            np.testing.assert_allclose([arr.ci_low[k], arr.ci_high[k]], [ref.ci_low, ref.ci_high],
+                                       rtol=1e-10, atol=1e-14, err_msg=where)
+            assert arr.n[k] == ref.n, where
+            if ref.n < config.MIN_ROWS:
+                # the engine's wording (engine._compute_one), which the matrix path gives, adds the count
+                assert arr.notes[arr.note[k]] == f"fewer than 3 rows with both values present ({ref.n})", where
+                assert arr.methods[arr.method[k]] == "", where
+                checked += 1
+                continue
+            assert arr.notes[arr.note[k]] == ref.note, where
+            assert arr.methods[arr.method[k]] == ref.method, where
+            checked += 1
+        seen[m] = checked
+    return seen
+
+
+@pytest.mark.parametrize("n", [3, 4, 9, 40, 160])
+@pytest.mark.parametrize("test", ["moments", "t"])
+def test_matrix_path_equals_per_pair_kernels(n, test):
+    checked = _assert_matches_per_pair(_table(n, seed=n), test)
+    # most pairs are checked, not handed back
+    assert checked["pearson"] >= 20 and checked["spearman"] >= 10
+
+
+@pytest.mark.parametrize("n", [12, 90])
+def test_missing_values_in_every_column_match_per_pair_kernels(n):
+    rng = np.random.default_rng(n)
+    data = np.column_stack([rng.normal(size=(n, 4)), rng.lognormal(size=(n, 3)) ** 2])
+    data[rng.uniform(size=data.shape) < 0.15] = np.nan
+    data[: n - 6, 6] = np.nan            # a pair with only a few rows: exact enumeration on its rows
+    wp = wide.pair_matrix(data)
+    assert not wp.measures["pearson"].fallback.all()
+    _assert_matches_per_pair(data, "moments")
+    _assert_matches_per_pair(data, "t")
+
+
+def test_constant_column_is_nan_with_the_reason():
+    wp = wide.pair_matrix(_table(40, seed=1))
+    arr = wp.measures["pearson"]
+    k = np.flatnonzero((wp.i == 0) & (wp.j == 2))[0]
+    assert np.isnan(arr.estimate[k]) and np.isnan(arr.p_value[k])
+    assert arr.notes[arr.note[k]] == "constant column: y"
+
+
+def test_estimates_and_t_pvalues_match_scipy():
+    rng = np.random.default_rng(11)
+    data = rng.normal(size=(200, 6))
+    data[:, 1] += 0.4 * data[:, 0]
+    data[:, 3] = np.round(data[:, 3] * 2)
+    wp = wide.pair_matrix(data, pearson_test="t")
+    for k, (i, j) in enumerate(zip(wp.i, wp.j)):
+        # Reference: scipy.stats.pearsonr (t-test with n-2 df) and scipy.stats.spearmanr (t approximation)
+        r_ref = stats.pearsonr(data[:, i], data[:, j])
+        np.testing.assert_allclose(wp.measures["pearson"].estimate[k], r_ref.statistic, rtol=1e-12, atol=1e-15)
+        np.testing.assert_allclose(wp.measures["pearson"].p_value[k], r_ref.pvalue, rtol=1e-9)
+        s_ref = stats.spearmanr(data[:, i], data[:, j])
+        np.testing.assert_allclose(wp.measures["spearman"].estimate[k], s_ref.statistic, rtol=1e-12, atol=1e-15)
+        np.testing.assert_allclose(wp.measures["spearman"].p_value[k], s_ref.pvalue, rtol=1e-9)
+
+
+def test_exact_pvalue_of_four_rows_matches_full_enumeration():
+    rng = np.random.default_rng(5)
+    data = rng.normal(size=(4, 5))
+    wp = wide.pair_matrix(data, measures=("pearson",))
+    arr = wp.measures["pearson"]
+    for k, (i, j) in enumerate(zip(wp.i, wp.j)):
+        # Reference: scipy.stats.permutation_test over all 4! pairings, P(|r_pi| >= |r|)
+        ref = stats.permutation_test((data[:, i], data[:, j]), lambda x, y: abs(stats.pearsonr(x, y).statistic),
+                                     permutation_type="pairings", alternative="greater", n_resamples=np.inf,
+                                     vectorized=False)
+        np.testing.assert_allclose(arr.p_value[k], ref.pvalue, rtol=1e-9)
+
+
+def _records_equal(a, b):
+    assert len(a) == len(b)
+    for x, y in zip(a, b):
+        for f in x:
+            if isinstance(y[f], float):
+                np.testing.assert_allclose(x[f], y[f], rtol=1e-9, atol=1e-15, err_msg=f"{f} {x} {y}")
+            else:
+                assert x[f] == y[f], (f, x, y)
+
+
+@pytest.mark.parametrize("missing", ["pairwise", "complete"])
+def test_engine_matrix_path_equals_pairs_path(missing):
+    data = _table(25, seed=3)
+    names = [f"c{k}" for k in range(data.shape[1])]
+    settings = AnalysisSettings(measures=("pearson", "spearman"), missing=missing)
+    a = run_analysis(data, names, settings, workers=1, path="matrix")
+    b = run_analysis(data, names, settings, workers=1, path="pairs")
+    assert isinstance(a, WidePairTable) and not isinstance(b, WidePairTable)
+    _records_equal(a.records(), b.records())
+    np.testing.assert_allclose(a.matrix("spearman"), b.matrix("spearman"), rtol=1e-12, atol=1e-15)
+    assert a.lookup("c1", "c0")["pearson"].q_value == pytest.approx(b.lookup("c0", "c1")["pearson"].q_value)
+
+
+def test_auto_takes_the_matrix_path_for_wide_tables_only(monkeypatch):
+    data = np.random.default_rng(2).normal(size=(10, 12))
+    names = [f"c{k}" for k in range(12)]
+    monkeypatch.setattr(config, "MATRIX_PATH_MIN_PAIRS", 60)
+    wide_settings = AnalysisSettings(measures=("pearson", "spearman"))
+    assert isinstance(run_analysis(data, names, wide_settings, workers=1), WidePairTable)          # 66 pairs
+    assert not isinstance(run_analysis(data[:, :11], names[:11], wide_settings, workers=1), WidePairTable)
+    with_kendall = AnalysisSettings(measures=("pearson", "kendall"))
+    assert not isinstance(run_analysis(data, names, with_kendall, workers=1), WidePairTable)
+
+
+def _wide_result():
+    data = _table(30, seed=7)
+    rng = np.random.default_rng(7)
+    data = np.column_stack([data, rng.normal(size=(30, 20)) + data[:, :1]])
+    names = [f"v{k}" for k in range(data.shape[1])]
+    return run_analysis(data, names, AnalysisSettings(measures=("pearson", "spearman")), workers=1, path="matrix")
+
+
+def test_streamed_csv_qvalues_equal_scipy_on_the_whole_column():
+    result = _wide_result()
+    buf = io.StringIO()
+    write_pairs_stream(result, buf, "csv")
+    rows = list(csv.DictReader(io.StringIO(buf.getvalue())))
+    assert len(rows) == len(result)
+    for m in ("pearson", "spearman"):
+        p = np.array([float(r["p_value"]) if r["p_value"] else np.nan for r in rows if r["measure"] == m])
+        q = np.array([float(r["q_value"]) if r["q_value"] else np.nan for r in rows if r["measure"] == m])
+        ok = ~np.isnan(p)
+        # Reference: scipy.stats.false_discovery_control (Benjamini-Hochberg) over the whole defined column
+        np.testing.assert_allclose(q[ok], stats.false_discovery_control(p[ok], method="bh"), rtol=1e-12)
+        assert np.isnan(q[~ok]).all()
+
+
+def test_stream_of_a_per_pair_table_is_the_csv_export():
+    data = _table(20, seed=9)
+    names = [f"c{k}" for k in range(data.shape[1])]
+    table = run_analysis(data, names, AnalysisSettings(measures=("pearson", "kendall")), workers=1)
+    buf = io.StringIO()
+    write_pairs_stream(table, buf, "csv")
+    assert buf.getvalue() == pairs_to_csv(table.records())
+
+
+def test_top_and_max_q_filters(tmp_path):
+    result = _wide_result()
+    full = io.StringIO()
+    write_pairs_stream(result, full, "csv")
+    rows = list(csv.DictReader(io.StringIO(full.getvalue())))
+    top = io.StringIO()
+    write_pairs_stream(result, top, "jsonl", top=5)
+    lines = [json.loads(line) for line in top.getvalue().splitlines()]
+    for m in ("pearson", "spearman"):
+        mine = [r for r in lines if r["measure"] == m]
+        assert len(mine) == 5
+        qs = sorted(float(r["q_value"]) for r in rows if r["measure"] == m and r["q_value"])
+        assert [r["q_value"] for r in mine] == pytest.approx(qs[:5], rel=1e-15)
+    few = io.StringIO()
+    write_pairs_stream(result, few, "csv", max_q=0.2)
+    kept = list(csv.DictReader(io.StringIO(few.getvalue())))
+    assert len(kept) == sum(1 for r in rows if r["q_value"] and float(r["q_value"]) <= 0.2) > 0
+
+
+def test_parquet_stream_has_the_csv_values(tmp_path):
+    pq = pytest.importorskip("pyarrow.parquet")
+    result = _wide_result()
+    write_pairs_stream(result, str(tmp_path / "t.parquet"), "parquet")
+    table = pq.read_table(tmp_path / "t.parquet").to_pydict()
+    records = result.records()
+    assert table["x"] == [r["x"] for r in records]
+    np.testing.assert_array_equal(np.array(table["p_value"], dtype=float),
+                                  np.array([r["p_value"] for r in records], dtype=float))
+
+
+def test_cli_pairs_streams_with_top(tmp_path, capsys):
+    rng = np.random.default_rng(4)
+    data = rng.normal(size=(12, 15))
+    src = tmp_path / "wide.csv"
+    src.write_text(",".join(f"c{k}" for k in range(15)) + "\n"
+                   + "\n".join(",".join(repr(float(v)) for v in row) for row in data) + "\n")
+    out = tmp_path / "top.csv"
+    assert main(["pairs", str(src), "--measures", "pearson,spearman", "--path", "matrix", "--top", "3",
+                 "-o", str(out)]) == 0
+    rows = list(csv.DictReader(out.open()))
+    assert [r["measure"] for r in rows] == ["pearson"] * 3 + ["spearman"] * 3
+    assert main(["pairs", str(src), "--measures", "kendall", "--path", "matrix", "-o", str(out)]) != 0
+    assert "matrix path" in capsys.readouterr().err
+
+
+def test_library_analyze_takes_the_matrix_path():
+    import pandas as pd
+
+    import pairlens
+
+    rng = np.random.default_rng(6)
+    df = pd.DataFrame(rng.normal(size=(30, 8)), columns=[f"c{k}" for k in range(8)])
+    df.iloc[::4, 2] = np.nan
+    a = pairlens.analyze(df, measures="pearson,spearman", workers=1, progress=False, path="matrix")
+    b = pairlens.analyze(df, measures="pearson,spearman", workers=1, progress=False, path="pairs")
+    pd.testing.assert_frame_equal(a.pairs, b.pairs, rtol=1e-9, atol=1e-15)
+    # Reference: pandas DataFrame.corr (pairwise-complete Pearson)
+    np.testing.assert_allclose(a.matrix("pearson").to_numpy()[~np.eye(8, dtype=bool)],
+                               df.corr().to_numpy()[~np.eye(8, dtype=bool)], rtol=1e-12, atol=1e-15)
