@@ -126,6 +126,14 @@ PEARSON_SPLIT_SHARE = 0.1
 # Resamples of a permutation test chosen with --test MEASURE=permutation when
 # --permutations is not given.
 DEFAULT_TEST_PERMUTATIONS = 9_999
+# Rows in time order (--ordered): block relabellings of the block permutation test, and the rows
+# up to which it evaluates them as n x n matrices (beyond: the measure's own estimate per relabelling).
+SERIAL_PERMUTATIONS = 499
+SERIAL_MATRIX_MAX_N = 1500
+# Columns whose Ljung-Box p-value is below this count as serially dependent; the warning without
+# --ordered appears when at least SERIAL_WARN_SHARE of the columns (and at least 2) are.
+SERIAL_LJUNG_BOX_LEVEL = 0.01
+SERIAL_WARN_SHARE = 0.25
 
 # Server ------------------------------------------------------------------
 DEFAULT_HOST = "127.0.0.1"

@@ -12,7 +12,7 @@ from typing import Callable
 
 import numpy as np
 
-from . import chatterjee, distance, linear, rank
+from . import chatterjee, distance, linear, rank, serial
 from .. import config
 from .results import TestResult
 from .testing import all_pairings, attainable_minimum, floor_pvalue, permutation_floor
@@ -61,6 +61,10 @@ class Measure:
     # The default test's statistic for every pairing of the rows (x, y, pairings of shape
     # (n!, n)), larger meaning more extreme: gives the exact floor of tiny samples' p-values.
     pairing_statistics: Callable[[np.ndarray, np.ndarray, np.ndarray], np.ndarray] | None = None
+    # The test when the rows are in time order (--ordered): (x, y, ctx, result on independent rows)
+    # -> result; None keeps the independent-rows test. See pairlens.core.serial.
+    serial: Callable[[np.ndarray, np.ndarray, PairContext, TestResult], TestResult] | None = None
+    serial_test: str = ""       # its description for the methods page and report
 
 
 def _pearson(x, y, ctx: PairContext) -> TestResult:
@@ -191,6 +195,38 @@ def _floored(compute: Callable[[np.ndarray, np.ndarray, PairContext], TestResult
     return run
 
 
+def _serial_ess(kind: str):
+    """Rows in time order: the effective-sample-size test of :func:`pairlens.core.serial.ess_test`."""
+    def run(x, y, ctx: PairContext, base: TestResult) -> TestResult:
+        return serial.ess_test(x, y, kind, base, confidence=ctx.confidence)
+    return run
+
+
+def _serial_block(name: str):
+    """Rows in time order: :func:`pairlens.core.serial.block_permutation_test` on the entry's statistic.
+
+    Up to ``config.SERIAL_MATRIX_MAX_N`` rows the entry's ``pairing_statistics`` (vectorised over
+    relabellings, n x n cells each); beyond, the measure's own O(n log n) estimate per relabelling.
+    """
+    def by_estimate(x, y, orders):
+        plain = PairContext()
+        return np.array([MEASURES[name].compute(x, y[o], plain).estimate for o in orders])
+
+    def run(x, y, ctx: PairContext, base: TestResult) -> TestResult:
+        n = int(np.shape(x)[0])
+        statistic = MEASURES[name].pairing_statistics if n <= config.SERIAL_MATRIX_MAX_N else by_estimate
+        return serial.block_permutation_test(x, y, statistic, base,
+                                             permutations=ctx.permutations or config.SERIAL_PERMUTATIONS,
+                                             seed=ctx.seed)
+    return run
+
+
+_ESS_TEXT = ("effective rows n* from the autocorrelations of both series (Bartlett 1935; sum to lag n/5, "
+             "Pyper & Peterman 1998), {law}; interval with n* rows")
+_BLOCK_TEXT = ("block permutation: y rotated and cut into blocks of the Politis-White (2004) length, blocks "
+               "shuffled, 499 relabellings")
+
+
 def _complete(x, y):
     x, y = np.asarray(x, dtype=float), np.asarray(y, dtype=float)
     keep = ~(np.isnan(x) if x.ndim == 1 else np.isnan(x).any(axis=1))
@@ -213,6 +249,7 @@ MEASURES: dict[str, Measure] = {
             formula="r = sum((x-mean x)(y-mean y)) / sqrt(sum((x-mean x)^2) sum((y-mean y)^2))",
             reference="Pearson, K. (1895) Proc. R. Soc. Lond. 58:240-242; Fisher, R.A. (1921) Metron 1:3-32",
             compute=_floored(_pearson, "pearson"), pairing_statistics=_pearson_pairings,
+            serial=_serial_ess("pearson"), serial_test=_ESS_TEXT.format(law="t with n*-2 df"),
         ),
         Measure(
             name="spearman", label="Spearman rho", family="rank", symmetric=True, signed=True,
@@ -227,6 +264,7 @@ MEASURES: dict[str, Measure] = {
                       "Applied Statistics 24:377-379, doi:10.2307/2347111; Bonett, D.G. & Wright, T.A. (2000) "
                       "Psychometrika 65:23-28, doi:10.1007/BF02294183",
             compute=_floored(_spearman, "spearman"), pairing_statistics=_spearman_pairings,
+            serial=_serial_ess("spearman"), serial_test=_ESS_TEXT.format(law="on the ranks, t with n*-2 df"),
         ),
         Measure(
             name="kendall", label="Kendall tau-b", family="rank", symmetric=True, signed=True,
@@ -239,6 +277,7 @@ MEASURES: dict[str, Measure] = {
                       "Knight, W.R. (1966) JASA 61:436-439, doi:10.1080/01621459.1966.10480879; "
                       "Fieller, Hartley & Pearson (1957) Biometrika 44:470-481",
             compute=_floored(_kendall, "kendall"), pairing_statistics=_kendall_pairings,
+            serial=_serial_ess("kendall"), serial_test=_ESS_TEXT.format(law="on the ranks, normal with variance x n/n*"),
         ),
         Measure(
             name="dcor", label="Distance correlation", family="distance", symmetric=True, signed=False,
@@ -251,6 +290,7 @@ MEASURES: dict[str, Measure] = {
             reference="Szekely, Rizzo & Bakirov (2007) Ann. Statist. 35:2769-2794, doi:10.1214/009053607000000505; "
                       "Huo & Szekely (2016) Technometrics 58:435-447, doi:10.1080/00401706.2015.1054435",
             compute=_floored(_dcor, "dcor"), pairing_statistics=_dcor_pairings,
+            serial=_serial_block("dcor"), serial_test=_BLOCK_TEXT,
         ),
         Measure(
             name="dcor_bc", label="Bias-corrected dCor²", family="distance", symmetric=True, signed=True,
@@ -262,6 +302,7 @@ MEASURES: dict[str, Measure] = {
             reference="Szekely & Rizzo (2013) J. Multivariate Anal. 117:193-213, doi:10.1016/j.jmva.2013.02.012; "
                       "Szekely & Rizzo (2014) Ann. Statist. 42:2382-2412, doi:10.1214/14-AOS1255",
             compute=_floored(_dcor_bc, "dcor_bc"), pairing_statistics=_dcor_bc_pairings,
+            serial=_serial_block("dcor_bc"), serial_test=_BLOCK_TEXT,
         ),
         Measure(
             name="xi", label="Chatterjee ξ", family="rank", symmetric=False, signed=True,
@@ -273,6 +314,7 @@ MEASURES: dict[str, Measure] = {
             formula="xi_n = 1 - n sum|r_{i+1} - r_i| / (2 sum l_i (n - l_i)), rows sorted by x",
             reference="Chatterjee, S. (2021) JASA 116:2009-2022, doi:10.1080/01621459.2020.1758115",
             compute=_floored(_xi, "xi"), pairing_statistics=_xi_pairings,
+            serial=_serial_block("xi"), serial_test=_BLOCK_TEXT,
         ),
     )
 }
