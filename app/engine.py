@@ -19,6 +19,7 @@ import numpy as np
 
 from . import config
 from .core import allpairs, chatterjee, distance, linear, rank
+from .core import serial as serial_mod
 from .core.registry import MEASURES, PairContext, get_measure, parse_tests, pvalue_floor
 from .core.results import TestResult, undefined
 from .core.testing import adjust_pvalues, floor_pvalue, pair_seed
@@ -48,6 +49,17 @@ def _parse_tests(tests) -> tuple[tuple[str, str], ...]:
         raise SettingsError(str(exc)) from None
 
 
+def _parse_ordered(ordered, difference) -> str | None:
+    """--ordered [COL]: None (not ordered), "" (file order) or a column name; --difference implies it."""
+    if ordered is None or ordered is False:
+        return "" if difference else None
+    if ordered is True:
+        return ""
+    if not isinstance(ordered, str):
+        raise SettingsError("ordered must be true (rows in file order) or the name of the column to sort by")
+    return ordered.strip()
+
+
 class AnalysisCancelled(RuntimeError):
     """Raised by :func:`run_analysis` when the cancel callback asked to stop."""
 
@@ -63,10 +75,13 @@ class AnalysisSettings:
     permutations: int = 0
     seed: int = config.DEFAULT_SEED
     tests: tuple[tuple[str, str], ...] = ()     # (measure, method) chosen with --test MEASURE=METHOD
+    ordered: str | None = None  # rows in time order: None = no, "" = file order, else the column to sort by
+    difference: bool = False    # analyse first differences (in time order; implies ordered)
 
     @classmethod
     def from_options(cls, *, measures=None, columns=None, groups=None, missing=None, adjust=None,
-                     confidence=None, permutations=None, seed=None, tests=None) -> "AnalysisSettings":
+                     confidence=None, permutations=None, seed=None, tests=None, ordered=None,
+                     difference=None) -> "AnalysisSettings":
         """Build validated settings from loosely typed options (CLI strings, JSON values)."""
         if isinstance(measures, str):
             measures = [m for m in measures.split(",") if m.strip()]
@@ -97,6 +112,8 @@ class AnalysisSettings:
             permutations=int(permutations or 0),
             seed=int(config.DEFAULT_SEED if seed is None else seed),
             tests=_parse_tests(tests),
+            ordered=_parse_ordered(ordered, difference),
+            difference=bool(difference),
         )
         settings.check()
         return settings
@@ -149,7 +166,7 @@ class AnalysisSettings:
     def from_dict(cls, d: dict) -> "AnalysisSettings":
         return cls.from_options(**{k: d.get(k) for k in (
             "measures", "columns", "groups", "missing", "adjust", "confidence", "permutations", "seed",
-            "tests")})
+            "tests", "ordered", "difference")})
 
     def cli_arguments(self) -> list[str]:
         """The options that reproduce these settings on the command line."""
@@ -163,6 +180,12 @@ class AnalysisSettings:
                  "--seed", str(self.seed)]
         for measure, method in self.tests:
             args += ["--test", f"{measure}={method}"]
+        if self.difference:
+            args += ["--difference"]
+        if self.ordered:
+            args += ["--ordered", self.ordered]
+        elif self.ordered is not None and not self.difference:
+            args += ["--ordered"]
         return args
 
 
@@ -200,6 +223,7 @@ class PairTable:
     settings: AnalysisSettings
     rows: list[PairRow] = field(default_factory=list)
     seconds: float = 0.0
+    serial: "serial_mod.SerialCheck | None" = None   # per-column serial dependence, rows in analysis order
 
     def records(self) -> list[dict]:
         return [r.record() for r in self.rows]
@@ -422,6 +446,73 @@ def _fast_pair_rows(prep: "allpairs.PreparedColumns", xvar: Variable, yvar: Vari
     return rows
 
 
+def _ordered_rows(data: np.ndarray, xvar: Variable, yvar: Variable, settings: AnalysisSettings,
+                  row_mask: np.ndarray | None, rows: list[PairRow]) -> list[PairRow]:
+    """Rows in time order: each result replaced by its measure's serial test (registry ``serial``)."""
+    xv_all, yv_all = _variable_values(data, xvar), _variable_values(data, yvar)
+    keep = _observed(xv_all) & _observed(yv_all)
+    if row_mask is not None:
+        keep &= row_mask
+    values = {xvar.name: xv_all[keep], yvar.name: yv_all[keep]}
+    out = []
+    for r in rows:
+        measure = MEASURES[r.measure]
+        if measure.serial is None or not r.p_value == r.p_value:
+            out.append(r)
+            continue
+        base = TestResult(r.estimate, r.p_value, r.method, r.ci_low, r.ci_high, r.n, r.note)
+        ctx = PairContext(confidence=settings.confidence, permutations=settings.permutations,
+                          seed=pair_seed(settings.seed, r.x, r.y, r.measure + "/ordered"))
+        out.append(_pair_row(Variable(r.x, ()), Variable(r.y, ()), r.measure,
+                             measure.serial(values[r.x], values[r.y], ctx, base)))
+    return out
+
+
+def _time_order(data: np.ndarray, names: Sequence[str], settings: AnalysisSettings
+                ) -> tuple[np.ndarray, list[str], str]:
+    """The data in time order (sorted by the ordering column, which is then left out; differenced
+    under --difference), the remaining names and a note for the table."""
+    names = list(names)
+    note = ""
+    if settings.ordered:
+        if settings.ordered not in names:
+            raise SettingsError(f"--ordered {settings.ordered!r}: no numeric column of that name; numeric columns "
+                                f"are: {', '.join(names[:20])}{' ...' if len(names) > 20 else ''}")
+        k = names.index(settings.ordered)
+        key = data[:, k]
+        known = ~np.isnan(key)
+        order = np.flatnonzero(known)[np.argsort(key[known], kind="stable")]
+        if np.any(np.diff(key[order]) == 0):
+            note = f"{settings.ordered} has repeated values; rows with equal values keep their file order"
+        if not known.all():
+            note = "; ".join(filter(None, [note, f"{int((~known).sum())} rows without a value of "
+                                                 f"{settings.ordered} left out"]))
+        data = np.delete(data[order], k, axis=1)
+        names = names[:k] + names[k + 1:]
+    if settings.difference:
+        data = np.diff(data, axis=0)
+    return data, names, note
+
+
+def serial_check(data: np.ndarray, names: Sequence[str]) -> "serial_mod.SerialCheck":
+    """Per-column serial dependence of ``data`` in its row order (at most config.SERIAL_CHECK_MAX_ROWS
+    rows, the first ones), and whether enough columns show it to warn."""
+    return serial_mod.serial_check(np.asarray(data, float)[: config.SERIAL_CHECK_MAX_ROWS], list(names),
+                                   level=config.SERIAL_LJUNG_BOX_LEVEL, share=config.SERIAL_WARN_SHARE)
+
+
+def _mark_trending(rows: list[PairRow], check: "serial_mod.SerialCheck") -> None:
+    """A pair with a trending side is never called dependent on levels alone: no p-value, the reason."""
+    trending = set(check.trending)
+    for r in rows:
+        sides = [v for v in (r.x, r.y) if v in trending]
+        if sides and r.p_value == r.p_value:
+            r.p_value = math.nan
+            r.note = "; ".join(filter(None, [r.note, f"{' and '.join(sides)} trend{'s' if len(sides) == 1 else ''} "
+                                                     "(augmented Dickey-Fuller): levels of trending series "
+                                                     "correlate by chance; analyse differences (--difference)"]))
+
+
 def _warm(settings: AnalysisSettings) -> None:
     """Load every compiled kernel the chosen measures use, on a tiny pair, before forking."""
     rng = np.random.default_rng(0)
@@ -500,6 +591,8 @@ def _run_tile(tile: list[tuple[int, int]]) -> list[PairRow]:
                 rows = None
             if rows is None:
                 rows = compute_pair(s["data"], xvar, yvar, s["settings"], s["row_mask"])
+            if s["settings"].ordered is not None:
+                rows = _ordered_rows(s["data"], xvar, yvar, s["settings"], s["row_mask"], rows)
             out.extend(rows)
     return out
 
@@ -545,6 +638,9 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
     if data.ndim != 2 or data.shape[1] != len(names):
         raise SettingsError("data must be a 2-D array with one column per name")
     settings.check()
+    order_note = ""
+    if settings.ordered is not None:
+        data, names, order_note = _time_order(data, names, settings)
     variables = plan_variables(list(names), settings)
     row_mask = _complete_rows(data, names, settings) if settings.missing == "complete" else None
     pairs = _pairs(variables)
@@ -589,8 +685,12 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
     if any(r is None for r in results):
         raise AnalysisCancelled("analysis cancelled")
     rows = [r for tile_rows in results for r in (tile_rows or [])]
+    check = serial_check(data, names)
+    if settings.ordered is not None:
+        _mark_trending(rows, check)
     _fill_q_values(rows, settings.adjust)
     table = PairTable([v.name for v in variables], settings.measures, settings, rows)
+    table.serial = check._replace(order_note=order_note)
     table.seconds = time.perf_counter() - started
     return table
 

@@ -27,7 +27,8 @@ from .results import TestResult, undefined
 from .testing import fisher_z_interval
 
 __all__ = ["AdfResult", "ColumnSerial", "autocorrelation", "ljung_box", "adf", "block_length", "effective_n",
-           "cross_correlation", "column_serial", "ess_test", "block_permutation_test", "ESS_KINDS"]
+           "cross_correlation", "column_serial", "serial_check", "SerialCheck", "ess_test",
+           "block_permutation_test", "ESS_KINDS"]
 
 # MacKinnon (1994) response surface of the ADF statistic's distribution with a constant
 # (one series): the range it covers, the switch point and the polynomial coefficients
@@ -62,6 +63,31 @@ class ColumnSerial(NamedTuple):
     adf_p: float
     trending: bool
     block: int              # Politis-White circular block length
+
+
+class SerialCheck(NamedTuple):
+    names: list[str]
+    columns: list[ColumnSerial]
+    dependent: list[str]     # Ljung-Box p-value below the level
+    trending: list[str]      # unit root not rejected (ADF)
+    warn: bool               # enough dependent columns to say so when rows are not declared ordered
+    order_note: str = ""
+
+    def message(self, ordered: bool) -> str:
+        """One sentence for stderr, pages and the report; "" when there is nothing to say."""
+        parts = []
+        if not ordered and self.warn:
+            parts.append(f"{len(self.dependent)} of {len(self.names)} columns are serially dependent in row order "
+                         f"(Ljung-Box), e.g. {', '.join(self.dependent[:3])}: if the rows are in time order, the "
+                         "default p-values are too small; rerun with --ordered [COL] (and --difference for "
+                         "trending columns)")
+        if ordered and self.trending:
+            parts.append(f"trending columns (augmented Dickey-Fuller): {', '.join(self.trending[:6])}"
+                         f"{' ...' if len(self.trending) > 6 else ''}; their pairs get no p-value on levels, "
+                         "analyse differences with --difference")
+        if self.order_note:
+            parts.append(self.order_note)
+        return "; ".join(parts)
 
 
 # private helpers -------------------------------------------------------------
@@ -527,6 +553,47 @@ def column_serial(x, lags: int | None = None) -> ColumnSerial:
     _, p = ljung_box(x, h)
     test = adf(x)
     return ColumnSerial(n, r1, p, h, test.statistic, test.p_value, test.trending, block_length(x))
+
+
+def serial_check(data: np.ndarray, names: list[str], level: float = 0.01, share: float = 0.25) -> SerialCheck:
+    """:func:`column_serial` of every column of ``data`` (rows in their order) and whether to warn.
+
+    Parameters
+    ----------
+    data : numpy.ndarray
+        (n, p) array, NaN for missing values, rows in the order to check.
+    names : list of str
+        Column names.
+    level : float
+        Ljung-Box p-value below which a column counts as serially dependent.
+    share : float
+        Warn when at least this share of the columns (and at least 2) are.
+
+    Returns
+    -------
+    SerialCheck
+
+    Notes
+    -----
+    With p columns of independent rows, about ``level`` x p columns pass the
+    Ljung-Box threshold by chance; a share of 25 % at level 1 % is far beyond
+    that (common practice: a screening rule, not a test).
+
+    References
+    ----------
+    Ljung, G.M. & Box, G.E.P. (1978). Biometrika 65:297-303. doi:10.1093/biomet/65.2.297
+
+    Examples
+    --------
+    >>> data = np.cumsum(np.random.default_rng(1).normal(size=(200, 3)), axis=0)
+    >>> serial_check(data, ["a", "b", "c"]).warn
+    True
+    """
+    cols = [column_serial(data[:, k]) for k in range(data.shape[1])]
+    dependent = [nm for nm, c in zip(names, cols) if c.ljung_box_p == c.ljung_box_p and c.ljung_box_p < level]
+    trending = [nm for nm, c in zip(names, cols) if c.trending]
+    warn = len(dependent) >= max(2, math.ceil(share * len(names)))
+    return SerialCheck(list(names), cols, dependent, trending, warn)
 
 
 def ess_test(x: np.ndarray, y: np.ndarray, kind: str, base: TestResult, confidence: float = 0.95,
