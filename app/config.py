@@ -134,6 +134,7 @@ SERIAL_MATRIX_MAX_N = 1500
 # --ordered appears when at least SERIAL_WARN_SHARE of the columns (and at least 2) are.
 SERIAL_LJUNG_BOX_LEVEL = 0.01
 SERIAL_WARN_SHARE = 0.25
+SERIAL_XCORR_LAGS = 5              # cross-correlation lags each way in the pair view
 SERIAL_CHECK_MAX_ROWS = 20_000    # the check looks at the first rows only
 
 # Server ------------------------------------------------------------------

@@ -738,6 +738,12 @@ def pair_detail(data: np.ndarray, names: Sequence[str], x: str, y: str,
             raise SettingsError(f"unknown column {col!r}; numeric columns are: {', '.join(list(names)[:20])}")
     if x == y:
         raise SettingsError("x and y must be different columns")
+    ordered = settings.ordered is not None
+    if ordered:
+        if settings.ordered in (x, y):
+            raise SettingsError(f"{settings.ordered!r} gives the time order; choose two other columns")
+        data, names, _ = _time_order(np.asarray(data, float), names, settings)
+        position = {n: i for i, n in enumerate(names)}
     xvar, yvar = Variable(x, (position[x],)), Variable(y, (position[y],))
     xv_all, yv_all = data[:, position[x]], data[:, position[y]]
     keep = ~np.isnan(xv_all) & ~np.isnan(yv_all)
@@ -752,10 +758,20 @@ def pair_detail(data: np.ndarray, names: Sequence[str], x: str, y: str,
         rows = {}
         single = AnalysisSettings(measures=tuple(MEASURES), confidence=settings.confidence,
                                   permutations=settings.permutations, seed=settings.seed)
-        for r in compute_pair(data, xvar, yvar, single, row_mask):
+        computed = compute_pair(data, xvar, yvar, single, row_mask)
+        if ordered:
+            computed = _ordered_rows(data, xvar, yvar, settings, row_mask, computed)
+        for r in computed:
             if r.x == x:
                 r.q_value = r.p_value
                 rows[r.measure] = r
+    check = None
+    if ordered:
+        check = serial_check(np.column_stack([xv_all, yv_all]), [x, y])
+        if table is None:
+            _mark_trending(list(rows.values()), check)
+            for r in rows.values():
+                r.q_value = r.p_value
     measures = {m: _result_json(r) | {"q_value": _num(r.q_value)} for m, r in rows.items()}
     results = {m: TestResult(r.estimate, r.p_value, r.method, r.ci_low, r.ci_high, r.n, r.note)
                for m, r in rows.items()}
@@ -779,9 +795,25 @@ def pair_detail(data: np.ndarray, names: Sequence[str], x: str, y: str,
         "gaussian": _gaussian_json(fit),
         "pattern": pattern_json,
     }
+    if ordered:
+        detail["ordered"] = _ordered_json(xv, yv, check, settings)
+        detail["serial_note"] = check.message(True)
     if include_points:
         detail["points"] = {"x": xv.tolist(), "y": yv.tolist(), "rows": np.flatnonzero(keep).tolist()}
     return detail
+
+
+def _ordered_json(xv: np.ndarray, yv: np.ndarray, check, settings: AnalysisSettings) -> dict:
+    """The pair view's time-series part: how the rows were ordered, each series' serial summary and
+    the cross-correlation at a few lags."""
+    lags, xcorr = serial_mod.cross_correlation(xv, yv, config.SERIAL_XCORR_LAGS)
+    return {
+        "by": settings.ordered or "", "difference": settings.difference,
+        "cross_correlation": {"lags": lags.tolist(), "r": [_num(v) for v in xcorr]},
+        "series": {name: {"lag1": _num(c.lag1), "ljung_box_p": _num(c.ljung_box_p),
+                          "adf_p": _num(c.adf_p), "trending": bool(c.trending)}
+                   for name, c in zip(check.names, check.columns)},
+    }
 
 
 def _gaussian_json(fit) -> dict:
