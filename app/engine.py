@@ -501,6 +501,17 @@ def serial_check(data: np.ndarray, names: Sequence[str]) -> "serial_mod.SerialCh
                                    level=config.SERIAL_LJUNG_BOX_LEVEL, share=config.SERIAL_WARN_SHARE)
 
 
+def serial_note(data: np.ndarray, names: Sequence[str], settings: AnalysisSettings | None = None) -> str:
+    """The serial-dependence check's sentence for the rows as ``settings`` order them (file order when
+    not ordered): the warning without --ordered, the trending columns with it; "" when nothing to say."""
+    settings = settings or AnalysisSettings()
+    data = np.asarray(data, dtype=float)
+    note = ""
+    if settings.ordered is not None:
+        data, names, note = _time_order(data, names, settings)
+    return serial_check(data, names)._replace(order_note=note).message(settings.ordered is not None)
+
+
 def _mark_trending(rows: list[PairRow], check: "serial_mod.SerialCheck") -> None:
     """A pair with a trending side is never called dependent on levels alone: no p-value, the reason."""
     trending = set(check.trending)

@@ -23,7 +23,7 @@ from markupsafe import Markup
 from .. import config
 from ..budget import check_plan, estimate_work
 from ..core.registry import MEASURES
-from ..engine import AnalysisSettings, PairRow, PairTable, SettingsError, pair_detail, plan_variables
+from ..engine import AnalysisSettings, PairRow, PairTable, SettingsError, pair_detail, plan_variables, serial_note
 from ..formatting import finite_or_null
 from ..store import AnalysisRow, DatasetRow, Store, UploadTooLarge
 
@@ -215,6 +215,7 @@ def dataset_summary(table) -> dict:
         "columns": columns,
         "numeric": list(table.columns),
         "notes": list(table.notes),
+        "serial_note": serial_note(table.data, table.columns),
         "preview_header": list(table.preview_header),
         "preview": preview,
         "format": getattr(table, "format", ""),
@@ -550,7 +551,7 @@ class Workspace:
     def start_analysis(self, dataset_id: str, options: dict) -> AnalysisRow:
         dataset = self.dataset(dataset_id)
         allowed = ("measures", "columns", "groups", "missing", "adjust", "confidence", "permutations", "seed",
-                   "tests")
+                   "tests", "ordered", "difference")
         unknown = sorted(set(options) - set(allowed))
         if unknown:
             raise SettingsError(f"unknown option(s) {', '.join(unknown)}; use {', '.join(allowed)}")
@@ -658,6 +659,16 @@ class Workspace:
 
     def pair_table(self, row: AnalysisRow) -> PairTable:
         return self._results(row)["table"]
+
+    def serial_note(self, row: AnalysisRow) -> str:
+        """The serial-dependence sentence of an analysis (warning when not ordered, trending columns when
+        ordered), computed once per analysis from its dataset."""
+        key = ("serial-note", row.id)
+        cached = self._figures.get(key)
+        if cached is None:
+            data = self.table(self.dataset(row.dataset_id))
+            cached = self._figures.put(key, serial_note(data.data, data.columns, self.pair_table(row).settings))
+        return cached
 
     def pair_records(self, row: AnalysisRow) -> list[dict]:
         from ..export import PAIR_FIELDS
@@ -819,6 +830,8 @@ class Workspace:
         if cached is not None:
             return cached, True
         table = self.pair_table(row)
+        if table.settings.ordered is not None:  # points in time order and the series panel: the full detail
+            return self.pair(row, x, y), True
         if x not in table.variables or y not in table.variables:
             missing = x if x not in table.variables else y
             raise NotFound(f"{missing!r} is not a variable of analysis {row.id}")
