@@ -28,7 +28,7 @@ from markupsafe import Markup
 
 from . import __version__, config, formatting
 from .core.registry import MEASURES
-from .engine import PairRow, PairTable, pair_detail
+from .engine import PairRow, PairTable, pair_detail, serial_note
 from .methods import methods_content
 
 __all__ = ["MAX_SCATTER_POINTS", "EXTREME_POINTS", "script_json", "round_floats", "extreme_indices",
@@ -736,6 +736,7 @@ def build_report(table, pair_table: PairTable, *, command: str, generated_at: da
         "figure_json": figure_json,
         "points_json": script_json(point_store),
         "fingerprint": _fingerprint(table, pair_table),
+        "serial_note": serial_note(table.data, table.columns, settings),
         "is_demo": _is_demo(table),
         "settings": settings,
         "measure_labels": [(m, MEASURES[m].label) for m in settings.measures],
