@@ -257,3 +257,16 @@ def test_cli_says_so_on_stderr(tmp_path):
                          "--ordered", "week"]) == 0
     assert "serially dependent" not in err.getvalue() and "walk" in err.getvalue()
     assert p_of(("a", "c")) > plain_p and math.isnan(p_of(("a", "walk")))
+
+
+def test_series_figure_of_an_ordered_pair():
+    from pairlens.web import plots
+
+    data, names = _table()
+    d = pair_detail(data, names, "a", "b", AnalysisSettings.from_options(measures="pearson", ordered="week"),
+                    include_points=True)
+    fig = plots.series_figure(d)
+    assert [t["y"] for t in fig["series"]["data"]] == [d["points"]["x"], d["points"]["y"]]
+    assert fig["xcorr"]["data"][0]["x"] == list(range(-5, 6))
+    plain = pair_detail(data, names, "a", "b", AnalysisSettings.from_options(measures="pearson"), include_points=True)
+    assert plots.series_figure(plain) is None

@@ -619,9 +619,9 @@ def series_figure(detail: dict) -> dict | None:
     by = plot_text(ordered.get("by") or "row order in the file")
     kind = "scattergl" if len(x) > 5000 else "scatter"
     traces = [
-        {"type": kind, "mode": "lines", "x": t.tolist(), "y": _nan_to_none(x), "name": xl,
+        {"type": kind, "mode": "lines", "x": t.tolist(), "y": x.tolist(), "name": xl,
          "line": {"color": "#1f4e60", "width": 1.3}, "hovertemplate": f"t %{{x}}<br>{xl} %{{y:.4g}}<extra></extra>"},
-        {"type": kind, "mode": "lines", "x": t.tolist(), "y": _nan_to_none(y), "name": yl, "yaxis": "y2",
+        {"type": kind, "mode": "lines", "x": t.tolist(), "y": y.tolist(), "name": yl, "yaxis": "y2",
          "line": {"color": _FIT, "width": 1.3}, "hovertemplate": f"t %{{x}}<br>{yl} %{{y:.4g}}<extra></extra>"},
     ]
     layout = {
