@@ -79,8 +79,8 @@ class SerialCheck(NamedTuple):
         if not ordered and self.warn:
             parts.append(f"{len(self.dependent)} of {len(self.names)} columns are serially dependent in row order "
                          f"(Ljung-Box), e.g. {', '.join(self.dependent[:3])}: if the rows are in time order, the "
-                         "default p-values are too small; rerun with --ordered [COL] (and --difference for "
-                         "trending columns)")
+                         "default p-values are too small; declare them ordered (--ordered [COL]; in the dashboard "
+                         "'Rows in time order'), and analyse differences of trending columns (--difference)")
         if ordered and self.trending:
             parts.append(f"trending columns (augmented Dickey-Fuller): {', '.join(self.trending[:6])}"
                          f"{' ...' if len(self.trending) > 6 else ''}; their pairs get no p-value on levels, "

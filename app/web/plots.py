@@ -627,7 +627,8 @@ def series_figure(detail: dict) -> dict | None:
     layout = {
         "font": {"family": _FONT, "color": _INK, "size": 11},
         "margin": {"l": 55, "r": 10, "t": 10, "b": 40},
-        "xaxis": {"title": {"text": f"position in time ({by})"}, "gridcolor": "#e3e7e9", "zeroline": False},
+        "xaxis": {"title": {"text": f"position in time ({by})"}, "gridcolor": "#e3e7e9", "zeroline": False,
+                  "anchor": "y2"},
         "yaxis": {"title": {"text": xl}, "domain": [0.54, 1.0], "gridcolor": "#e3e7e9", "zeroline": False},
         "yaxis2": {"title": {"text": yl}, "domain": [0.0, 0.46], "gridcolor": "#e3e7e9", "zeroline": False},
         "paper_bgcolor": "rgba(0,0,0,0)", "plot_bgcolor": "#fbfcfc", "showlegend": False,
