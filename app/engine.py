@@ -154,6 +154,13 @@ class AnalysisSettings:
         """The method chosen for ``measure`` with --test, or "" (its default rule)."""
         return dict(self.tests).get(measure, "")
 
+    def budget_permutations(self) -> int:
+        """Resamples per pair for the work estimate: --permutations, or under --ordered the block
+        relabellings when a measure uses a block permutation test."""
+        if self.ordered is not None and any(MEASURES[m].serial_resamples for m in self.measures):
+            return self.permutations or config.SERIAL_PERMUTATIONS
+        return self.permutations
+
     def permutations_for(self, measure: str) -> int:
         """Resamples ``measure`` runs with: --permutations, or the default B under --test MEASURE=permutation,
         or none when another method was chosen for it."""
@@ -656,7 +663,7 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
     row_mask = _complete_rows(data, names, settings) if settings.missing == "complete" else None
     pairs = _pairs(variables)
     # refused before any work: too many pair-table rows, or beyond the work budget (app/budget.py)
-    check_plan(WorkEstimate(len(pairs), len(settings.measures), data.shape[0], settings.permutations))
+    check_plan(WorkEstimate(len(pairs), len(settings.measures), data.shape[0], settings.budget_permutations()))
     workers = workers or os.cpu_count() or 1
     owned = executor is None
     if executor is None:

@@ -66,7 +66,7 @@ def main(argv=None) -> int:
           "| power at 0.05 (y = 0.4x + noise) |")
     print("|---|---|---|---|---|---|---|---|---|")
     for measure in a.measures.split(","):
-        block = MEASURES[measure].serial.__qualname__.startswith("_serial_block")
+        block = MEASURES[measure].serial_resamples
         pairs = a.block_pairs if block else a.pairs
         for n in (int(v) for v in a.n.split(",")):
             for phi in (float(v) for v in a.phi.split(",")):

@@ -65,6 +65,7 @@ class Measure:
     # -> result; None keeps the independent-rows test. See pairlens.core.serial.
     serial: Callable[[np.ndarray, np.ndarray, PairContext, TestResult], TestResult] | None = None
     serial_test: str = ""       # its description for the methods page and report
+    serial_resamples: bool = False  # the serial test draws relabellings (counted in the work estimate)
 
 
 def _pearson(x, y, ctx: PairContext) -> TestResult:
@@ -290,7 +291,7 @@ MEASURES: dict[str, Measure] = {
             reference="Szekely, Rizzo & Bakirov (2007) Ann. Statist. 35:2769-2794, doi:10.1214/009053607000000505; "
                       "Huo & Szekely (2016) Technometrics 58:435-447, doi:10.1080/00401706.2015.1054435",
             compute=_floored(_dcor, "dcor"), pairing_statistics=_dcor_pairings,
-            serial=_serial_block("dcor"), serial_test=_BLOCK_TEXT,
+            serial=_serial_block("dcor"), serial_test=_BLOCK_TEXT, serial_resamples=True,
         ),
         Measure(
             name="dcor_bc", label="Bias-corrected dCor²", family="distance", symmetric=True, signed=True,
@@ -302,7 +303,7 @@ MEASURES: dict[str, Measure] = {
             reference="Szekely & Rizzo (2013) J. Multivariate Anal. 117:193-213, doi:10.1016/j.jmva.2013.02.012; "
                       "Szekely & Rizzo (2014) Ann. Statist. 42:2382-2412, doi:10.1214/14-AOS1255",
             compute=_floored(_dcor_bc, "dcor_bc"), pairing_statistics=_dcor_bc_pairings,
-            serial=_serial_block("dcor_bc"), serial_test=_BLOCK_TEXT,
+            serial=_serial_block("dcor_bc"), serial_test=_BLOCK_TEXT, serial_resamples=True,
         ),
         Measure(
             name="xi", label="Chatterjee ξ", family="rank", symmetric=False, signed=True,
@@ -314,7 +315,7 @@ MEASURES: dict[str, Measure] = {
             formula="xi_n = 1 - n sum|r_{i+1} - r_i| / (2 sum l_i (n - l_i)), rows sorted by x",
             reference="Chatterjee, S. (2021) JASA 116:2009-2022, doi:10.1080/01621459.2020.1758115",
             compute=_floored(_xi, "xi"), pairing_statistics=_xi_pairings,
-            serial=_serial_block("xi"), serial_test=_BLOCK_TEXT,
+            serial=_serial_block("xi"), serial_test=_BLOCK_TEXT, serial_resamples=True,
         ),
     )
 }

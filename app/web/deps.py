@@ -561,7 +561,8 @@ class Workspace:
             raise SettingsError(str(exc)) from None
         variables = plan_variables(dataset.summary["numeric"], settings)  # unknown columns fail now, not in the job
         # beyond the work budget or the pair-table limit: refused now, with the estimate (app/budget.py)
-        check_plan(estimate_work(len(variables), len(settings.measures), dataset.n_rows, settings.permutations))
+        check_plan(estimate_work(len(variables), len(settings.measures), dataset.n_rows,
+                                 settings.budget_permutations()))
         self._check_group_rows(dataset, settings)
         return self.jobs.submit(dataset.id, settings.to_dict())
 
