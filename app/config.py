@@ -130,6 +130,7 @@ DEFAULT_TEST_PERMUTATIONS = 9_999
 # up to which it evaluates them as n x n matrices (beyond: the measure's own estimate per relabelling).
 SERIAL_PERMUTATIONS = 499
 SERIAL_MATRIX_MAX_N = 1500
+SERIAL_BLOCK_FACTOR = 2.0          # blocks of twice the Politis-White length (chosen by the README's level table)
 # Columns whose Ljung-Box p-value is below this count as serially dependent; the warning without
 # --ordered appears when at least SERIAL_WARN_SHARE of the columns (and at least 2) are.
 SERIAL_LJUNG_BOX_LEVEL = 0.01
