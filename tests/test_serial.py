@@ -154,10 +154,10 @@ def _interval(count, alpha):
     return stats.binom.ppf(0.005, count, alpha), stats.binom.ppf(0.995, count, alpha)
 
 
-LEVEL_CELLS = [  # (measure, phi, n, pairs): sized to run in about 20 s together
+LEVEL_CELLS = [  # (measure, phi, n, pairs): sized to run in about 20 s together on an idle machine
     ("pearson", 0.5, 100, 600), ("pearson", 0.9, 500, 300),
     ("spearman", 0.5, 100, 600), ("kendall", 0.5, 100, 600),
-    ("dcor", 0.5, 100, 200), ("xi", 0.5, 100, 200),
+    ("dcor", 0.5, 100, 200), ("dcor", 0.9, 100, 200), ("xi", 0.9, 100, 200),
 ]
 
 
