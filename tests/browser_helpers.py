@@ -5,13 +5,11 @@ from __future__ import annotations
 import contextlib
 import os
 import shutil
-import socket
-import subprocess
-import sys
-import time
 from pathlib import Path
 
 import httpx
+
+from live_server import WAIT_SECONDS, LiveServer, free_port, wait_for_analysis  # noqa: F401 - re-exported
 
 ROOT = Path(__file__).resolve().parents[1]
 SCREENSHOTS = ROOT / "tests" / "screenshots"
@@ -21,67 +19,18 @@ CHROMIUM_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networki
                  "--disable-component-update", "--disable-sync", "--no-first-run", "--disable-quic"]
 
 
-def free_port() -> int:
-    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
-
-
-class Server:
-    """``pairlens serve`` on a free loopback port with its own data directory."""
+class Server(LiveServer):
+    """``pairlens serve`` on a free loopback port with its own data directory (the browser tests' server)."""
 
     def __init__(self, data_dir: Path, *, demo: bool = False, max_upload_mb: int | None = None) -> None:
-        self.port = free_port()
-        self.base = f"http://127.0.0.1:{self.port}"
-        self.data_dir = data_dir
-        args = [sys.executable, "-m", "pairlens.cli", "serve", "--port", str(self.port), "--data-dir", str(data_dir)]
-        if demo:
-            args.append("--demo")
+        args: tuple[str, ...] = ("--demo",) if demo else ()
         if max_upload_mb is not None:
-            args += ["--max-upload-mb", str(max_upload_mb)]
-        env = dict(os.environ)
-        env["PYTHONPATH"] = str(ROOT) + (os.pathsep + env["PYTHONPATH"] if env.get("PYTHONPATH") else "")
-        self.log = open(data_dir.parent / f"server-{self.port}.log", "wb")
-        self.proc = subprocess.Popen(args, cwd=str(ROOT), env=env, stdout=self.log, stderr=subprocess.STDOUT)
-        deadline = time.monotonic() + 60
-        while time.monotonic() < deadline:
-            if self.proc.poll() is not None:
-                raise RuntimeError(f"server exited with {self.proc.returncode}: {self.log_text()}")
-            try:
-                if httpx.get(self.base + "/api/datasets", timeout=2).status_code == 200:
-                    return
-            except httpx.HTTPError:
-                pass
-            time.sleep(0.2)
-        self.stop()
-        raise RuntimeError("server did not start in 60 s: " + self.log_text())
+            args += ("--max-upload-mb", str(max_upload_mb))
+        super().__init__(Path(data_dir), args=args)
 
-    def log_text(self) -> str:
-        if not self.log.closed:
-            self.log.flush()
-        return (self.data_dir.parent / f"server-{self.port}.log").read_text(errors="replace")[-4000:]
-
-    def url(self, path: str) -> str:
-        return self.base + path
-
-    def wait_done(self, analysis_id: str, timeout: float = 120.0) -> dict:
-        deadline = time.monotonic() + timeout
-        while time.monotonic() < deadline:
-            status = httpx.get(self.url(f"/api/analyses/{analysis_id}"), timeout=10).json()
-            if status["status"] not in ("queued", "running"):
-                return status
-            time.sleep(0.3)
-        raise TimeoutError(f"analysis {analysis_id} still running after {timeout} s")
-
-    def stop(self) -> None:
-        if self.proc.poll() is None:
-            self.proc.terminate()
-            try:
-                self.proc.wait(15)
-            except subprocess.TimeoutExpired:
-                self.proc.kill()
-                self.proc.wait(5)
-        self.log.close()
+    def wait_done(self, analysis_id: str, timeout: float = WAIT_SECONDS) -> dict:
+        with httpx.Client(base_url=self.base, timeout=30) as client:
+            return wait_for_analysis(client, analysis_id, timeout=timeout, poll=0.3)
 
 
 @contextlib.contextmanager

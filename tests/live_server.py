@@ -14,6 +14,11 @@ from pathlib import Path
 import httpx
 
 ROOT = Path(__file__).resolve().parents[1]
+# Upper bounds for a server to answer and for an analysis to finish. They only matter when
+# something hangs: a test waits on the state, and on a machine whose cores are both busy with
+# other work a small analysis can take minutes, so the bounds are generous.
+START_SECONDS = 240.0
+WAIT_SECONDS = 600.0
 
 
 def free_port() -> int:
@@ -26,7 +31,7 @@ class LiveServer:
     """``python -m pairlens.cli serve`` bound to 127.0.0.1; its own session so the whole group can be killed."""
 
     def __init__(self, data_dir: Path, *, port: int | None = None, args: tuple[str, ...] = (),
-                 start_timeout: float = 60.0) -> None:
+                 start_timeout: float = START_SECONDS) -> None:
         self.port = port or free_port()
         self.base = f"http://127.0.0.1:{self.port}"
         self.data_dir = Path(data_dir)
@@ -94,7 +99,7 @@ def finished(status: dict) -> bool:
     return status["status"] not in ("queued", "running")
 
 
-def wait_for_analysis(client, analysis_id: str, until=finished, *, timeout: float = 90.0,
+def wait_for_analysis(client, analysis_id: str, until=finished, *, timeout: float = WAIT_SECONDS,
                       poll: float = 0.2) -> dict:
     """Poll ``GET /api/analyses/{id}`` (httpx or FastAPI's TestClient) until ``until(status)`` holds."""
     deadline = time.monotonic() + timeout

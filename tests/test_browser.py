@@ -17,7 +17,7 @@ import httpx
 import numpy as np
 import pytest
 
-from browser_helpers import Server, chromium, chromium_available, screenshot
+from browser_helpers import Server, chromium_available, screenshot
 
 pytestmark = [pytest.mark.browser,
               pytest.mark.skipif(not chromium_available() and not os.environ.get("CI"),
@@ -80,12 +80,6 @@ def server(tmp_path_factory):
     srv = Server(data_dir, demo=True)
     yield srv
     srv.stop()
-
-
-@pytest.fixture(scope="module")
-def browser():
-    with chromium() as b:
-        yield b
 
 
 @pytest.fixture()

@@ -45,19 +45,19 @@ def test_counts_intervals_and_shares():
 @pytest.mark.browser
 @pytest.mark.skipif(not os.path.exists("/usr/bin/chromium") and not os.environ.get("CI"),
                     reason="needs /usr/bin/chromium and playwright")
-def test_browser_script_follows_the_same_rule():
+def test_browser_script_follows_the_same_rule(browser):
     from pathlib import Path
-
-    from browser_helpers import chromium
 
     script = (Path(__file__).resolve().parents[1] / "static" / "pairlens.js").read_text(encoding="utf-8")
     values = [c[0] if c[0] is None or not math.isnan(c[0]) else None for c in CASES]
-    with chromium() as browser:
-        page = browser.new_page()
+    page = browser.new_page()
+    try:
         page.set_content("<!doctype html><html><body></body></html>")
         page.add_script_tag(content=script)
         got = page.evaluate("""(vals) => vals.map(v => [window.pairlens.fmt(v), window.pairlens.fmtEst(v),
                                                        window.pairlens.fmtP(v)])""", values)
         counts = page.evaluate("window.pairlens.fmtCount(44850)")
+    finally:
+        page.close()
     assert got == [[fmt(v), fmt_est(v), fmt_p(v)] for v in values]
     assert counts == fmt_count(44850)

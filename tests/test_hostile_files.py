@@ -35,7 +35,7 @@ import numpy as np
 import psutil
 import pytest
 
-from pairlens import config, ingest
+from pairlens import config
 from pairlens.budget import check_work
 from pairlens.errors import SettingsError
 from pairlens.ingest import IngestError, load_bytes, load_file_isolated, load_table

@@ -471,24 +471,50 @@ def _run_cli(args: list[str]) -> subprocess.CompletedProcess:
                           capture_output=True, text=True, timeout=PER_FILE_SECONDS)
 
 
-def test_cli_refuses_every_bad_file_with_one_line(files):
+def _check_refusal(name: str, returncode: int, stderr: str, stdout: str) -> list[str]:
+    problems = []
+    lines = stderr.splitlines()
+    if returncode != 2:
+        problems.append(f"{name}: exit {returncode}")
+    if len(lines) != 1 or not lines[0].strip():
+        problems.append(f"{name}: stderr has {len(lines)} lines: {stderr[:300]!r}")
+    elif name not in lines[0]:
+        problems.append(f"{name}: stderr does not name the file: {lines[0]!r}")
+    if "Traceback" in stderr or "Traceback" in stdout:
+        problems.append(f"{name}: traceback printed")
+    return problems
+
+
+def _refusal_runs(files) -> list[tuple[str, list[str]]]:
     runs = [(name, ["pairs", str(files[name][1])]) for name in sorted(BAD_EXPECTED)]
     runs.append(("blocks.xlsx", ["pairs", str(files["blocks.xlsx"][1]), "--sheet", "Summary"]))
-    # subprocesses start a fresh interpreter each; three at a time keeps the wall time down
-    with concurrent.futures.ThreadPoolExecutor(max_workers=3) as pool:
+    return runs
+
+
+def test_cli_refuses_every_bad_file_with_one_line(files, capsys, monkeypatch):
+    # The command's entry point, in this process, for every bad file (the interpreter start-up of
+    # a subprocess per file adds nothing the next test does not check).
+    from pairlens import cli
+
+    monkeypatch.delenv("PAIRLENS_DEBUG", raising=False)
+    problems = []
+    for name, args in _refusal_runs(files):
+        capsys.readouterr()
+        returncode = cli.main(args)
+        out = capsys.readouterr()
+        problems += _check_refusal(name, returncode, out.err, out.out)
+    assert not problems, problems
+
+
+def test_cli_process_refuses_bad_files_with_one_line(files):
+    # Whole processes, as a user runs them: exit status, stderr and no traceback from the interpreter.
+    runs = [run for run in _refusal_runs(files) if run[0] in ("blocks.xlsx", sorted(BAD_EXPECTED)[0])]
+    with concurrent.futures.ThreadPoolExecutor(max_workers=2) as pool:
         results = list(pool.map(lambda run: (run[0], _run_cli(run[1])), runs))
     problems = []
     for name, done in results:
-        lines = done.stderr.splitlines()
-        if done.returncode != 2:
-            problems.append(f"{name}: exit {done.returncode}")
-        if len(lines) != 1 or not lines[0].strip():
-            problems.append(f"{name}: stderr has {len(lines)} lines: {done.stderr[:300]!r}")
-        elif name not in lines[0]:
-            problems.append(f"{name}: stderr does not name the file: {lines[0]!r}")
-        if "Traceback" in done.stderr or "Traceback" in done.stdout:
-            problems.append(f"{name}: traceback printed")
-    assert not problems, problems
+        problems += _check_refusal(name, done.returncode, done.stderr, done.stdout)
+    assert len(results) == 2 and not problems, problems
 
 
 # --- the plain-numbers reader against the general reader (the oracle) ----------------------

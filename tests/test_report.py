@@ -25,6 +25,7 @@ import numpy as np
 import pytest
 import scipy.stats as ss
 
+from browser_helpers import chromium_available
 from pairlens import __version__
 from pairlens.engine import AnalysisSettings, run_analysis
 from pairlens.ingest import ColumnInfo, Table, load_table
@@ -32,9 +33,6 @@ from pairlens.report import build_report, extreme_indices, round_floats, script_
 
 ROOT = Path(__file__).resolve().parent.parent
 SCREENSHOTS = Path(__file__).resolve().parent / "screenshots"
-CHROMIUM = "/usr/bin/chromium"
-CHROMIUM_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking", "--disable-component-update",
-                 "--disable-sync", "--no-first-run", "--disable-quic"]
 STAMP = datetime(2026, 12, 1, 21, 30, tzinfo=timezone.utc)
 PAYLOADS = [
     "</script><script>window.__pwned=1</script>",
@@ -572,10 +570,6 @@ def test_cli_report_rejects_a_wrong_suffix(tmp_path):
 
 # Browser --------------------------------------------------------------------
 
-def _browser(p):
-    return p.chromium.launch(executable_path=CHROMIUM, args=CHROMIUM_ARGS)
-
-
 def _offline_page(context, requests: list[str], allowed: str):
     page = context.new_page()
 
@@ -590,184 +584,175 @@ def _offline_page(context, requests: list[str], allowed: str):
     return page
 
 
-needs_browser = pytest.mark.skipif(not Path(CHROMIUM).exists() and not os.environ.get("CI"),
+needs_browser = pytest.mark.skipif(not chromium_available() and not os.environ.get("CI"),
                                    reason="Debian chromium not installed (never skipped in CI)")
 
 
 @pytest.mark.browser
 @needs_browser
-def test_report_renders_offline_in_chromium(report):
-    from playwright.sync_api import sync_playwright
-
+def test_report_renders_offline_in_chromium(report, browser):
     figs = _figures(report.html)
     url = report.file.resolve().as_uri()
     requests: list[str] = []
     errors: list[str] = []
     SCREENSHOTS.mkdir(exist_ok=True)
-    with sync_playwright() as p:
-        browser = _browser(p)
-        try:
-            context = browser.new_context(viewport={"width": 1300, "height": 900})
-            page = _offline_page(context, requests, url)
-            page.on("pageerror", lambda e: errors.append(str(e)))
-            page.on("console", lambda m: errors.append(m.text) if m.type == "error" else None)
-            page.goto(url)
-            page.wait_for_function("document.body.getAttribute('data-figures') !== null", timeout=60_000)
-            assert page.get_attribute("body", "data-figures") == str(len(figs))
-            drawn = page.evaluate("""() => Array.from(document.querySelectorAll('[data-figure]')).map(d => ({
-                id: d.getAttribute('data-figure'), svg: d.querySelectorAll('.main-svg').length,
-                traces: (d._fullData || []).length, data: (d.data || []).length}))""")
-            assert len(drawn) == len(figs)
-            for d in drawn:
-                assert d["svg"] >= 1, d
-                assert d["data"] == len(figs[d["id"]]["data"]), d
-                assert d["traces"] >= d["data"], d
-            for m in report.settings.measures:
-                assert page.locator(f'[data-testid="heatmap-{m}"] .main-svg').count() >= 1
-            # sorting by a numeric column: ascending, missing values last
-            header = page.locator("#pairs thead th", has_text="q_value")
-            header.locator("button").click()
-            values = page.evaluate("""() => Array.from(document.querySelectorAll('#pairs tbody tr'))
-                .map(r => r.cells[7].getAttribute('data-v'))""")
-            present = [float(v) for v in values if v]
-            assert present == sorted(present) and all(v for v in values[:len(present)])
-            header.locator("button").click()
-            values = page.evaluate("""() => Array.from(document.querySelectorAll('#pairs tbody tr'))
-                .map(r => r.cells[7].getAttribute('data-v'))""")
-            present = [float(v) for v in values if v]
-            assert present == sorted(present, reverse=True)
-            # rows moved on their own keep their own name cells (the pair's rowspan was split)
-            cells = page.evaluate("""() => Array.from(document.querySelectorAll('#pairs tbody tr'))
-                .map(r => [r.cells.length, r.cells[0].textContent, r.cells[1].textContent, r.cells[2].textContent])""")
-            assert {c[0] for c in cells} == {10}
-            assert sorted(tuple(c[1:]) for c in cells) == sorted(
-                (r["x"], r["y"], r["measure"]) for r in report.pairs.records())
-            # hover text of a heatmap cell carries the pair table's numbers
-            heat = figs["heatmap-pearson"]
-            names = heat["layout"]["meta"]["variables"]
-            row = next(r for r in report.pairs.rows if r.measure == "pearson" and math.isfinite(r.estimate))
-            i, j = names.index(row.y), names.index(row.x)
-            area = page.locator('[data-testid="heatmap-pearson"] .nsewdrag').first
+    try:
+        context = browser.new_context(viewport={"width": 1300, "height": 900})
+        page = _offline_page(context, requests, url)
+        page.on("pageerror", lambda e: errors.append(str(e)))
+        page.on("console", lambda m: errors.append(m.text) if m.type == "error" else None)
+        page.goto(url)
+        page.wait_for_function("document.body.getAttribute('data-figures') !== null", timeout=60_000)
+        assert page.get_attribute("body", "data-figures") == str(len(figs))
+        drawn = page.evaluate("""() => Array.from(document.querySelectorAll('[data-figure]')).map(d => ({
+            id: d.getAttribute('data-figure'), svg: d.querySelectorAll('.main-svg').length,
+            traces: (d._fullData || []).length, data: (d.data || []).length}))""")
+        assert len(drawn) == len(figs)
+        for d in drawn:
+            assert d["svg"] >= 1, d
+            assert d["data"] == len(figs[d["id"]]["data"]), d
+            assert d["traces"] >= d["data"], d
+        for m in report.settings.measures:
+            assert page.locator(f'[data-testid="heatmap-{m}"] .main-svg').count() >= 1
+        # sorting by a numeric column: ascending, missing values last
+        header = page.locator("#pairs thead th", has_text="q_value")
+        header.locator("button").click()
+        values = page.evaluate("""() => Array.from(document.querySelectorAll('#pairs tbody tr'))
+            .map(r => r.cells[7].getAttribute('data-v'))""")
+        present = [float(v) for v in values if v]
+        assert present == sorted(present) and all(v for v in values[:len(present)])
+        header.locator("button").click()
+        values = page.evaluate("""() => Array.from(document.querySelectorAll('#pairs tbody tr'))
+            .map(r => r.cells[7].getAttribute('data-v'))""")
+        present = [float(v) for v in values if v]
+        assert present == sorted(present, reverse=True)
+        # rows moved on their own keep their own name cells (the pair's rowspan was split)
+        cells = page.evaluate("""() => Array.from(document.querySelectorAll('#pairs tbody tr'))
+            .map(r => [r.cells.length, r.cells[0].textContent, r.cells[1].textContent, r.cells[2].textContent])""")
+        assert {c[0] for c in cells} == {10}
+        assert sorted(tuple(c[1:]) for c in cells) == sorted(
+            (r["x"], r["y"], r["measure"]) for r in report.pairs.records())
+        # hover text of a heatmap cell carries the pair table's numbers
+        heat = figs["heatmap-pearson"]
+        names = heat["layout"]["meta"]["variables"]
+        row = next(r for r in report.pairs.rows if r.measure == "pearson" and math.isfinite(r.estimate))
+        i, j = names.index(row.y), names.index(row.x)
+        area = page.locator('[data-testid="heatmap-pearson"] .nsewdrag').first
+        area.scroll_into_view_if_needed()
+        box = area.bounding_box()
+        k = len(names)  # rows run top to bottom (reversed y axis), columns left to right
+        page.mouse.move(box["x"] + (j + 0.5) * box["width"] / k, box["y"] + (i + 0.5) * box["height"] / k)
+        page.wait_for_function("""() => { const h = document.querySelector('[data-testid="heatmap-pearson"] .hoverlayer');
+            return h && h.textContent.trim().length > 0; }""")
+        hover = page.locator('[data-testid="heatmap-pearson"] .hoverlayer').text_content()
+        hover = hover.replace("\u2212", "-")
+        assert f"{row.estimate:.3f}" in hover and f"n {row.n}" in hover, hover
+        assert row.x in hover and row.y in hover
+        # a click on a heatmap cell: the pair's card, or the pair's rows in the table
+        carded = {frozenset(p) for p in page.evaluate(
+            "Array.from(document.querySelectorAll('article.card')).map(c => [c.dataset.x, c.dataset.y])")}
+        variables = report.pairs.variables
+        pairs = [(a, b) for n, a in enumerate(variables) for b in variables[n + 1:]]
+        with_card = next(p for p in pairs if frozenset(p) in carded)
+        without = next((p for p in pairs if frozenset(p) not in carded), None)
+
+        def click_cell(a, b):
             area.scroll_into_view_if_needed()
             box = area.bounding_box()
-            k = len(names)  # rows run top to bottom (reversed y axis), columns left to right
-            page.mouse.move(box["x"] + (j + 0.5) * box["width"] / k, box["y"] + (i + 0.5) * box["height"] / k)
-            page.wait_for_function("""() => { const h = document.querySelector('[data-testid="heatmap-pearson"] .hoverlayer');
-                return h && h.textContent.trim().length > 0; }""")
-            hover = page.locator('[data-testid="heatmap-pearson"] .hoverlayer').text_content()
-            hover = hover.replace("\u2212", "-")
-            assert f"{row.estimate:.3f}" in hover and f"n {row.n}" in hover, hover
-            assert row.x in hover and row.y in hover
-            # a click on a heatmap cell: the pair's card, or the pair's rows in the table
-            carded = {frozenset(p) for p in page.evaluate(
-                "Array.from(document.querySelectorAll('article.card')).map(c => [c.dataset.x, c.dataset.y])")}
-            variables = report.pairs.variables
-            pairs = [(a, b) for n, a in enumerate(variables) for b in variables[n + 1:]]
-            with_card = next(p for p in pairs if frozenset(p) in carded)
-            without = next((p for p in pairs if frozenset(p) not in carded), None)
+            row, col = names.index(b), names.index(a)
+            page.mouse.click(box["x"] + (col + 0.5) * box["width"] / k, box["y"] + (row + 0.5) * box["height"] / k)
 
-            def click_cell(a, b):
-                area.scroll_into_view_if_needed()
-                box = area.bounding_box()
-                row, col = names.index(b), names.index(a)
-                page.mouse.click(box["x"] + (col + 0.5) * box["width"] / k, box["y"] + (row + 0.5) * box["height"] / k)
-
-            card_top = """([a, b]) => Array.from(document.querySelectorAll('article.card'))
-                .find(c => (c.dataset.x === a && c.dataset.y === b) || (c.dataset.x === b && c.dataset.y === a))
-                .getBoundingClientRect().top"""
-            click_cell(*with_card)
-            # the smooth scroll ends with the card at the top of the window; wait for that state
-            page.wait_for_function(f"(pair) => Math.abs(({card_top})(pair)) < 40", arg=list(with_card))
-            top = page.evaluate(card_top, list(with_card))
-            assert abs(top) < 40, top
-            if without is not None:
-                click_cell(*without)
-                page.wait_for_function("() => !document.getElementById('pair-chosen').hidden")
-                shown = page.evaluate("""() => Array.from(document.querySelectorAll('#pairs tbody tr'))
-                    .filter(r => !r.hidden).map(r => [r.cells[0].textContent, r.cells[1].textContent])""")
-                expected = [[r["x"], r["y"]] for r in report.pairs.records()
-                            if frozenset((r["x"], r["y"])) == frozenset(without)]
-                assert sorted(shown) == sorted(expected) and shown
-                page.locator("#pair-chosen button").click()
-            page.fill("#pair-filter", "gust")
+        card_top = """([a, b]) => Array.from(document.querySelectorAll('article.card'))
+            .find(c => (c.dataset.x === a && c.dataset.y === b) || (c.dataset.x === b && c.dataset.y === a))
+            .getBoundingClientRect().top"""
+        click_cell(*with_card)
+        # the smooth scroll ends with the card at the top of the window; wait for that state
+        page.wait_for_function(f"(pair) => Math.abs(({card_top})(pair)) < 40", arg=list(with_card))
+        top = page.evaluate(card_top, list(with_card))
+        assert abs(top) < 40, top
+        if without is not None:
+            click_cell(*without)
+            page.wait_for_function("() => !document.getElementById('pair-chosen').hidden")
             shown = page.evaluate("""() => Array.from(document.querySelectorAll('#pairs tbody tr'))
-                .filter(r => !r.hidden).length""")
-            assert shown == sum(1 for r in report.pairs.records() if "gust" in r["x"] + r["y"])
-            page.fill("#pair-filter", "")
-            page.evaluate("window.scrollTo(0, 0)")
-            page.screenshot(path=str(SCREENSHOTS / "report.png"), full_page=True)
-            page.emulate_media(media="print")
-            assert page.evaluate("getComputedStyle(document.querySelector('.toc')).display") == "none"
-            # figures are redrawn at their printed width
-            page.wait_for_function("""() => { const d = document.querySelector('[data-testid="heatmap-pearson"]');
-                return Math.abs(d.clientWidth - Number(d.querySelector('.main-svg').getAttribute('width'))) <= 2; }""")
-            widths = page.evaluate("""() => { const d = document.querySelector('[data-testid="heatmap-pearson"]');
-                return [d.clientWidth, Number(d.querySelector('.main-svg').getAttribute('width'))]; }""")
-            assert abs(widths[0] - widths[1]) <= 2, widths
-            page.evaluate("window.scrollTo(0, 0)")
-            page.screenshot(path=str(SCREENSHOTS / "report-print.png"), full_page=False)
-        finally:
-            browser.close()
+                .filter(r => !r.hidden).map(r => [r.cells[0].textContent, r.cells[1].textContent])""")
+            expected = [[r["x"], r["y"]] for r in report.pairs.records()
+                        if frozenset((r["x"], r["y"])) == frozenset(without)]
+            assert sorted(shown) == sorted(expected) and shown
+            page.locator("#pair-chosen button").click()
+        page.fill("#pair-filter", "gust")
+        shown = page.evaluate("""() => Array.from(document.querySelectorAll('#pairs tbody tr'))
+            .filter(r => !r.hidden).length""")
+        assert shown == sum(1 for r in report.pairs.records() if "gust" in r["x"] + r["y"])
+        page.fill("#pair-filter", "")
+        page.evaluate("window.scrollTo(0, 0)")
+        page.screenshot(path=str(SCREENSHOTS / "report.png"), full_page=True)
+        page.emulate_media(media="print")
+        assert page.evaluate("getComputedStyle(document.querySelector('.toc')).display") == "none"
+        # figures are redrawn at their printed width
+        page.wait_for_function("""() => { const d = document.querySelector('[data-testid="heatmap-pearson"]');
+            return Math.abs(d.clientWidth - Number(d.querySelector('.main-svg').getAttribute('width'))) <= 2; }""")
+        widths = page.evaluate("""() => { const d = document.querySelector('[data-testid="heatmap-pearson"]');
+            return [d.clientWidth, Number(d.querySelector('.main-svg').getAttribute('width'))]; }""")
+        assert abs(widths[0] - widths[1]) <= 2, widths
+        page.evaluate("window.scrollTo(0, 0)")
+        page.screenshot(path=str(SCREENSHOTS / "report-print.png"), full_page=False)
+    finally:
+        for context in browser.contexts:
+            context.close()
     assert requests == [url], requests
     assert errors == []
 
 
 @pytest.mark.browser
 @needs_browser
-def test_report_table_reads_with_javascript_disabled(report):
-    from playwright.sync_api import sync_playwright
-
+def test_report_table_reads_with_javascript_disabled(report, browser):
     url = report.file.resolve().as_uri()
     requests: list[str] = []
     records = report.pairs.records()
-    with sync_playwright() as p:
-        browser = _browser(p)
-        try:
-            context = browser.new_context(java_script_enabled=False, viewport={"width": 1300, "height": 900})
-            page = _offline_page(context, requests, url)
-            page.goto(url)
-            rows = page.locator("#pairs tbody tr")
-            assert rows.count() == len(records)
-            assert rows.first.is_visible()
-            first = rows.first.locator("td").all_inner_texts()
-            assert first[:3] == [records[0]["x"], records[0]["y"], records[0]["measure"]]
-            assert page.locator("noscript").count() == 1
-            assert page.evaluate("document.body.hasAttribute('data-figures')") is False
-            page.locator("#pair-table").screenshot(path=str(SCREENSHOTS / "report-no-js-table.png"))
-        finally:
-            browser.close()
+    try:
+        context = browser.new_context(java_script_enabled=False, viewport={"width": 1300, "height": 900})
+        page = _offline_page(context, requests, url)
+        page.goto(url)
+        rows = page.locator("#pairs tbody tr")
+        assert rows.count() == len(records)
+        assert rows.first.is_visible()
+        first = rows.first.locator("td").all_inner_texts()
+        assert first[:3] == [records[0]["x"], records[0]["y"], records[0]["measure"]]
+        assert page.locator("noscript").count() == 1
+        assert page.evaluate("document.body.hasAttribute('data-figures')") is False
+        page.locator("#pair-table").screenshot(path=str(SCREENSHOTS / "report-no-js-table.png"))
+    finally:
+        for context in browser.contexts:
+            context.close()
     assert requests == [url]
 
 
 @pytest.mark.browser
 @needs_browser
-def test_payload_names_run_no_script_in_chromium(payload_report):
-    from playwright.sync_api import sync_playwright
-
+def test_payload_names_run_no_script_in_chromium(payload_report, browser):
     table, _, text, path = payload_report
     url = path.resolve().as_uri()
     requests: list[str] = []
     dialogs: list[str] = []
-    with sync_playwright() as p:
-        browser = _browser(p)
-        try:
-            page = _offline_page(browser.new_context(), requests, url)
-            page.on("dialog", lambda d: (dialogs.append(d.message), d.dismiss()))
-            page.goto(url)
-            page.wait_for_function("document.body.getAttribute('data-figures') !== null", timeout=60_000)
-            assert page.evaluate("typeof window.__pwned") == "undefined"
-            assert page.locator("img").count() == 0
-            assert page.locator("b", has_text="bold").count() == 0
-            shown = page.locator("#column-table tbody th").all_inner_texts()
-            for name in PAYLOADS:
-                assert any(name.replace("\u2028", "") in s.replace("\u2028", "").replace("\n", "")
-                           for s in shown), name
-            assert page.title() == "pairlens report · <script>alert(1)</script>.csv"
-            # Plotly draws the names as text too (its small HTML subset is escaped)
-            ticks = page.evaluate("""() => Array.from(document.querySelectorAll(
-                '[data-testid="heatmap-pearson"] .xtick text')).map(t => t.textContent)""")
-            assert PAYLOADS[1] in ticks
-        finally:
-            browser.close()
+    try:
+        page = _offline_page(browser.new_context(), requests, url)
+        page.on("dialog", lambda d: (dialogs.append(d.message), d.dismiss()))
+        page.goto(url)
+        page.wait_for_function("document.body.getAttribute('data-figures') !== null", timeout=60_000)
+        assert page.evaluate("typeof window.__pwned") == "undefined"
+        assert page.locator("img").count() == 0
+        assert page.locator("b", has_text="bold").count() == 0
+        shown = page.locator("#column-table tbody th").all_inner_texts()
+        for name in PAYLOADS:
+            assert any(name.replace("\u2028", "") in s.replace("\u2028", "").replace("\n", "")
+                       for s in shown), name
+        assert page.title() == "pairlens report · <script>alert(1)</script>.csv"
+        # Plotly draws the names as text too (its small HTML subset is escaped)
+        ticks = page.evaluate("""() => Array.from(document.querySelectorAll(
+            '[data-testid="heatmap-pearson"] .xtick text')).map(t => t.textContent)""")
+        assert PAYLOADS[1] in ticks
+    finally:
+        for context in browser.contexts:
+            context.close()
     assert dialogs == []
     assert requests == [url]

@@ -12,7 +12,6 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import stats
 from scipy.special import ndtr
 
 from .. import config
@@ -106,6 +105,8 @@ def _marginal_normality(v: np.ndarray) -> TestResult:
         return undefined(n, "fewer than 3 rows")
     if np.all(v == v[0]):
         return undefined(n, "constant column")
+    from scipy import stats  # scipy.stats costs about a second to import; only a fit needs it
+
     if n <= config.SHAPIRO_MAX_ROWS:
         res = stats.shapiro(v)
         return TestResult(float(res.statistic), float(res.pvalue), "shapiro-wilk", n=n)
@@ -116,6 +117,8 @@ def _marginal_normality(v: np.ndarray) -> TestResult:
 def _ellipse(mean: np.ndarray, cov: np.ndarray, mass: float, points: int) -> np.ndarray:
     # For 2 df the chi-square quantile has the closed form -2 ln(1 - m);
     # scipy's ppf is used to keep the definition visible.
+    from scipy import stats
+
     radius = math.sqrt(stats.chi2.ppf(mass, 2))
     vals, vecs = np.linalg.eigh(cov)
     scale = vecs * np.sqrt(np.clip(vals, 0.0, None))
@@ -440,6 +443,8 @@ def slice_conditional(fit: GaussianFit, x0: float, width: float = 0.0) -> SliceC
         return SliceConditional(x0, width, mean_at, sd_at, mean_at, sd_at, 0.0)
     lo, hi = (x0 - width / 2 - mx) / sx, (x0 + width / 2 - mx) / sx
     mass = float(ndtr(hi) - ndtr(lo))
+    from scipy import stats
+
     m_w, v_w = stats.truncnorm.stats(lo, hi, loc=mx, scale=sx, moments="mv")
     m_w, v_w = float(m_w), float(v_w)
     if not (math.isfinite(m_w) and math.isfinite(v_w)):

@@ -9,7 +9,7 @@ from functools import lru_cache
 
 import numba
 import numpy as np
-from scipy import special, stats
+from scipy import special
 
 from ..config import MIN_ROWS, PEARSON_EXACT_MAX_N, PEARSON_SPLIT_MAX_N, PEARSON_SPLIT_SHARE
 from .results import TestResult, undefined
