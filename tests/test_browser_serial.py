@@ -10,7 +10,7 @@ import os
 import httpx
 import pytest
 
-from browser_helpers import Server, chromium, chromium_available, screenshot
+from browser_helpers import Server, chromium_available, screenshot
 from pairlens import config
 
 pytestmark = [pytest.mark.browser,
@@ -31,16 +31,15 @@ def server(tmp_path_factory):
     srv.stop()
 
 
-@pytest.fixture(scope="module")
-def page():
-    with chromium() as browser:
-        context = browser.new_context(viewport={"width": 1400, "height": 900})
-        pg = context.new_page()
-        errors: list[str] = []
-        pg.on("pageerror", lambda exc: errors.append(str(exc)))
-        pg.errors = errors
-        yield pg
-        context.close()
+@pytest.fixture()
+def page(browser):  # the session's Chromium (tests/conftest.py), a context of our own at 1400 px
+    context = browser.new_context(viewport={"width": 1400, "height": 900})
+    pg = context.new_page()
+    errors: list[str] = []
+    pg.on("pageerror", lambda exc: errors.append(str(exc)))
+    pg.errors = errors
+    yield pg
+    context.close()
 
 
 def _q(server, analysis_id, pair, measure="pearson"):
@@ -62,7 +61,7 @@ def test_weekly_series_warning_ordered_run_and_series_panel(server, page):
     # rows taken as independent (the API, default options): the warning on the analysis page too
     plain = httpx.post(server.url(f"/api/datasets/{dataset_id}/analyses"), json={"measures": ["pearson"]},
                        timeout=30).json()["id"]
-    assert server.wait_done(plain, timeout=600)["status"] == "done"
+    assert server.wait_done(plain)["status"] == "done"
     page.goto(server.url(f"/analyses/{plain}"))
     assert "serially dependent" in page.locator('[data-testid="serial-warning"]').inner_text()
 
@@ -74,7 +73,7 @@ def test_weekly_series_warning_ordered_run_and_series_panel(server, page):
     with page.expect_navigation():
         page.click('[data-testid="run-analysis"]')
     ordered = page.url.rstrip("/").rsplit("/", 1)[-1]
-    assert server.wait_done(ordered, timeout=600)["status"] == "done"
+    assert server.wait_done(ordered)["status"] == "done"
     page.goto(server.url(f"/analyses/{ordered}"))
     page.wait_for_selector('[data-testid="heatmap-pearson"][data-ready="1"]', timeout=120_000)
     text = page.locator('[data-testid="serial-warning"]').inner_text()
