@@ -10,7 +10,7 @@ import os
 import httpx
 import pytest
 
-from browser_helpers import Server, chromium_available, screenshot
+from browser_helpers import WAIT_SECONDS, Server, chromium_available, screenshot
 from pairlens import config
 
 pytestmark = [pytest.mark.browser,
@@ -75,7 +75,7 @@ def test_weekly_series_warning_ordered_run_and_series_panel(server, page):
     ordered = page.url.rstrip("/").rsplit("/", 1)[-1]
     assert server.wait_done(ordered)["status"] == "done"
     page.goto(server.url(f"/analyses/{ordered}"))
-    page.wait_for_selector('[data-testid="heatmap-pearson"][data-ready="1"]', timeout=120_000)
+    page.wait_for_selector('[data-testid="heatmap-pearson"][data-ready="1"]', timeout=WAIT_SECONDS * 1000)
     text = page.locator('[data-testid="serial-warning"]').inner_text()
     assert "trending" in text and "serially dependent" not in text
     assert "rows in time order by week" in page.locator(".headline .meta").first.inner_text()
@@ -86,7 +86,7 @@ def test_weekly_series_warning_ordered_run_and_series_panel(server, page):
     assert _q(server, ordered, PLANTED) < 0.05
 
     page.goto(server.url(f"/analyses/{ordered}/pair?x={PLANTED[0]}&y={PLANTED[1]}"))
-    page.wait_for_selector('[data-testid="pair-series"][data-ready="1"]', timeout=60_000)
+    page.wait_for_selector('[data-testid="pair-series"][data-ready="1"]', timeout=WAIT_SECONDS * 1000)
     assert page.locator('[data-testid="pair-xcorr"] .bars, [data-testid="pair-xcorr"] .trace').count() >= 1
     assert "n*" in page.inner_text(".measures-card")
     screenshot(page, "serial-pair")
