@@ -65,6 +65,12 @@ def _add_analysis_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--test", action="append", default=[], metavar="MEASURE=METHOD",
                    help="the p-value method of one measure (repeatable; default: each measure's default test), "
                         "e.g. pearson=t, pearson=permutation, dcor=permutation")
+    p.add_argument("--ordered", nargs="?", const="", default=None, metavar="COL",
+                   help="the rows are in time order (as in the file, or sorted by the numeric column COL, which "
+                        "is then not analysed): tests allow for serial dependence (default: rows independent)")
+    p.add_argument("--difference", action="store_true",
+                   help="analyse the first differences of every column in time order (for trending columns; "
+                        "implies --ordered)")
     p.add_argument("--workers", type=int, default=None, metavar="N", help="local worker processes (default: all cores)")
     p.add_argument("--cluster", default=None, metavar="ADDRESS",
                    help="Dask scheduler to run on, e.g. tcp://127.0.0.1:8786 (default: this machine)")
@@ -150,6 +156,12 @@ def build_parser(command: str | None = None) -> argparse.ArgumentParser:
                              help="permutation resamples for the tests that use them; 0 keeps the default tests")
         inspect.add_argument("--seed", type=int, default=config.DEFAULT_SEED, metavar="S",
                              help="random seed of the tests that draw random numbers")
+        inspect.add_argument("--ordered", nargs="?", const="", default=None, metavar="COL",
+                             help="the rows are in time order (as in the file, or sorted by the numeric column COL, which "
+                            "is then not analysed): tests allow for serial dependence (default: rows independent)")
+        inspect.add_argument("--difference", action="store_true",
+                       help="analyse the first differences of every column in time order (for trending columns; "
+                            "implies --ordered)")
         inspect.add_argument("--test", action="append", default=[], metavar="MEASURE=METHOD",
                              help="the p-value method of one measure (repeatable; default: each measure's "
                                   "default test), e.g. pearson=t")
@@ -176,7 +188,14 @@ def _settings(args):
     return AnalysisSettings.from_options(
         measures=args.measures, columns=args.columns, groups=args.group, missing=args.missing,
         adjust=args.adjust, confidence=args.confidence, permutations=args.permutations, seed=args.seed,
-        tests=args.test)
+        tests=args.test, ordered=args.ordered, difference=args.difference)
+
+
+def _serial_note(args, check, ordered: bool) -> None:
+    """The serial-dependence check's sentence, said on stderr with the table's notes."""
+    message = check.message(ordered) if check is not None else ""
+    if message:
+        args.table_notes = [*getattr(args, "table_notes", []), message]
 
 
 class _ProgressBar:
@@ -214,6 +233,7 @@ def _run(args, table):
                               streamed=getattr(args, "streamed", False))
     finally:
         bar.finish()
+    _serial_note(args, result.serial, settings.ordered is not None)
     return settings, result
 
 
@@ -278,8 +298,11 @@ def cmd_inspect(args) -> int:
 
     table = _load(args)
     settings = AnalysisSettings.from_options(measures=list(MEASURES), confidence=args.confidence,
-                                             permutations=args.permutations, seed=args.seed, tests=args.test)
+                                             permutations=args.permutations, seed=args.seed, tests=args.test,
+                                             ordered=args.ordered, difference=args.difference)
     detail = pair_detail(table.data, table.columns, args.x, args.y, settings)
+    if detail.get("serial_note"):
+        args.table_notes = [*getattr(args, "table_notes", []), detail["serial_note"]]
     if args.json:
         sys.stdout.write(json.dumps(detail, indent=1, ensure_ascii=False, allow_nan=False) + "\n")
     else:

@@ -134,6 +134,17 @@ MATRIX_MAX_PAIR_ROWS = _env_int("PAIRLENS_MATRIX_MAX_PAIR_ROWS", 30_000_000)
 # Resamples of a permutation test chosen with --test MEASURE=permutation when
 # --permutations is not given.
 DEFAULT_TEST_PERMUTATIONS = 9_999
+# Rows in time order (--ordered): block relabellings of the block permutation test, and the rows
+# up to which it evaluates them as n x n matrices (beyond: the measure's own estimate per relabelling).
+SERIAL_PERMUTATIONS = 499
+SERIAL_MATRIX_MAX_N = 1500
+SERIAL_BLOCK_FACTOR = 2.0          # blocks of twice the Politis-White length (chosen by the README's level table)
+# Columns whose Ljung-Box p-value is below this count as serially dependent; the warning without
+# --ordered appears when at least SERIAL_WARN_SHARE of the columns (and at least 2) are.
+SERIAL_LJUNG_BOX_LEVEL = 0.01
+SERIAL_WARN_SHARE = 0.25
+SERIAL_XCORR_LAGS = 5              # cross-correlation lags each way in the pair view
+SERIAL_CHECK_MAX_ROWS = 20_000    # the check looks at the first rows only
 
 # Server ------------------------------------------------------------------
 DEFAULT_HOST = "127.0.0.1"

@@ -24,6 +24,7 @@ from .core.registry import MEASURES
 from .core.testing import adjust_pvalues
 from .errors import SettingsError
 from .executors import Executor, ProcessExecutor, SerialExecutor, make_executor
+from .ordering import mark_trending, serial_check, serial_note, time_order  # noqa: F401 - serial_note re-exported
 from .pairtable import PairRow, PairTable
 from .plan import AnalysisSettings, Variable, analysis_row_mask, pair_indices, plan_variables
 from .tiles import (compute_pair, init_worker, make_tiles, one_blas_thread, prepare_columns, release_worker,
@@ -105,20 +106,26 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
     if data.ndim != 2 or data.shape[1] != len(names):
         raise SettingsError("data must be a 2-D array with one column per name")
     settings.check()
+    order_note = ""
+    if settings.ordered is not None:
+        data, names, order_note = time_order(data, names, settings)
     variables = plan_variables(list(names), settings)
     row_mask = analysis_row_mask(data, names, settings)
     n_pairs = len(variables) * (len(variables) - 1) // 2
     from . import matrix_path  # the matrix path: all its wiring is this block
-    if not verdicts and matrix_path.choose_path(path, settings, variables, n_pairs,
-                                                local=executor is None and cluster is None):
+    if (not verdicts and settings.ordered is None
+            and matrix_path.choose_path(path, settings, variables, n_pairs,
+                                        local=executor is None and cluster is None)):
         matrix_path.check_matrix_plan(n_pairs, settings, data.shape[0], streamed)
         with one_blas_thread():  # a threaded BLAS loses to one thread on a busy machine (benchmarks/bench_wide.py)
-            return matrix_path.run_matrix(data, variables, settings, row_mask,
+            wide = matrix_path.run_matrix(data, variables, settings, row_mask,
                                           lambda a, b, s: compute_pair(data, a, b, s, row_mask),
                                           progress=progress, started=started, threads=workers or os.cpu_count() or 1)
+        wide.serial = serial_check(data, names)
+        return wide
     pairs = pair_indices(variables)
     # refused before any work: too many pair-table rows, or beyond the work budget (app/budget.py)
-    check_plan(WorkEstimate(len(pairs), len(settings.measures), data.shape[0], settings.permutations))
+    check_plan(WorkEstimate(len(pairs), len(settings.measures), data.shape[0], settings.budget_permutations()))
     workers = workers or os.cpu_count() or 1
     owned = executor is None
     if executor is None:
@@ -158,8 +165,12 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
     if any(r is None for r in results):
         raise AnalysisCancelled("analysis cancelled")
     rows = [r for tile_rows, _ in results for r in tile_rows]
+    check = serial_check(data, names)
+    if settings.ordered is not None:
+        mark_trending(rows, check)
     _fill_q_values(rows, settings.adjust)
     table = PairTable([v.name for v in variables], settings.measures, settings, rows)
+    table.serial = check._replace(order_note=order_note)
     if verdicts:
         table.verdicts = _labels(table, [e for _, tile_evidence in results for e in tile_evidence])
     table.seconds = time.perf_counter() - started

@@ -605,3 +605,48 @@ def map_payload(table, order: Sequence[int] | None = None, diff: tuple[str, str]
         best = good[np.argsort(-vals[good], kind="stable")][:15]
         top = [{"x": names[iu[0][t]], "y": names[iu[1][t]], "difference": float(vals[t])} for t in best]
     return {"variables": [table.variables[i] for i in order], "alpha": alpha, "maps": maps, "top": top}
+
+
+def series_figure(detail: dict) -> dict | None:
+    """Both series of an ordered pair over time (rows in time order, stacked panels), and the
+    cross-correlation at a few lags with the +-2/sqrt(n) band of white noise; None when the
+    analysis did not declare the rows ordered."""
+    ordered = detail.get("ordered")
+    if not ordered:
+        return None
+    x, y = _points(detail)
+    t = np.arange(1, len(x) + 1)
+    xl, yl = plot_text(detail["x"]), plot_text(detail["y"])
+    by = plot_text(ordered.get("by") or "row order in the file")
+    kind = "scattergl" if len(x) > 5000 else "scatter"
+    traces = [
+        {"type": kind, "mode": "lines", "x": t.tolist(), "y": x.tolist(), "name": xl,
+         "line": {"color": "#1f4e60", "width": 1.3}, "hovertemplate": f"t %{{x}}<br>{xl} %{{y:.4g}}<extra></extra>"},
+        {"type": kind, "mode": "lines", "x": t.tolist(), "y": y.tolist(), "name": yl, "yaxis": "y2",
+         "line": {"color": _FIT, "width": 1.3}, "hovertemplate": f"t %{{x}}<br>{yl} %{{y:.4g}}<extra></extra>"},
+    ]
+    layout = {
+        "font": {"family": _FONT, "color": _INK, "size": 11},
+        "margin": {"l": 55, "r": 10, "t": 10, "b": 40},
+        "xaxis": {"title": {"text": f"position in time ({by})"}, "gridcolor": "#e3e7e9", "zeroline": False,
+                  "anchor": "y2"},
+        "yaxis": {"title": {"text": xl}, "domain": [0.54, 1.0], "gridcolor": "#e3e7e9", "zeroline": False},
+        "yaxis2": {"title": {"text": yl}, "domain": [0.0, 0.46], "gridcolor": "#e3e7e9", "zeroline": False},
+        "paper_bgcolor": "rgba(0,0,0,0)", "plot_bgcolor": "#fbfcfc", "showlegend": False,
+    }
+    cc = ordered["cross_correlation"]
+    band = 2.0 / math.sqrt(max(len(x), 1))
+    xcorr = {
+        "data": [{"type": "bar", "x": cc["lags"], "y": cc["r"], "marker": {"color": "#1f4e60"}, "name": "r",
+                  "hovertemplate": f"{xl}(t) with {yl}(t+%{{x}}): r = %{{y:.3f}}<extra></extra>"}],
+        "layout": {
+            "font": {"family": _FONT, "color": _INK, "size": 11},
+            "margin": {"l": 50, "r": 10, "t": 10, "b": 40},
+            "xaxis": {"title": {"text": f"lag k: {xl}(t) with {yl}(t+k)"}, "dtick": 1, "zeroline": False},
+            "yaxis": {"title": {"text": "cross-correlation"}, "range": [-1, 1], "gridcolor": "#e3e7e9"},
+            "shapes": [{"type": "line", "xref": "paper", "x0": 0, "x1": 1, "y0": v, "y1": v,
+                        "line": {"color": "#8a969c", "dash": "dot", "width": 1}} for v in (-band, band)],
+            "paper_bgcolor": "rgba(0,0,0,0)", "plot_bgcolor": "#fbfcfc", "showlegend": False,
+        },
+    }
+    return {"series": {"data": traces, "layout": layout}, "xcorr": xcorr}

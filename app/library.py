@@ -165,7 +165,8 @@ def demo_path() -> Path:
 
 
 def analyze(df: "pd.DataFrame", *, measures=None, columns=None, groups=None, missing=None, adjust=None,
-            confidence=None, permutations=None, tests=None, seed=None, workers: int | None = None,
+            confidence=None, permutations=None, tests=None, seed=None, ordered=None, difference=None,
+            workers: int | None = None,
             cluster: str | None = None, progress: bool = True, name: str | None = None,
             path: str = "auto", **options: Any) -> "Analysis":
     """Every measure for every pair of columns of ``df``.
@@ -194,6 +195,12 @@ def analyze(df: "pd.DataFrame", *, measures=None, columns=None, groups=None, mis
         measure's default test; the names each measure allows are in its registry entry).
     seed : int, optional
         Random seed; results do not depend on ``workers`` or ``cluster``.
+    ordered : bool or str, optional
+        The rows are in time order: ``True`` as in ``df``, or the name of a numeric column to sort by
+        (then not analysed). Tests then allow for serial dependence (``--ordered`` of the command
+        line); ``analysis.serial_note`` says what the serial-dependence check found.
+    difference : bool, optional
+        Analyse first differences in time order (implies ``ordered``).
     workers : int, optional
         Local worker processes (default: all cores); 1 runs in this process.
     cluster : str, optional
@@ -244,7 +251,7 @@ def analyze(df: "pd.DataFrame", *, measures=None, columns=None, groups=None, mis
     table = _table_from_frame(df, name)
     settings = AnalysisSettings.from_options(measures=measures, columns=columns, groups=groups, missing=missing,
                                              adjust=adjust, confidence=confidence, permutations=permutations, tests=tests,
-                                             seed=seed, **options)
+                                             seed=seed, ordered=ordered, difference=difference, **options)
     update, close = _progress_bar(progress)
     try:
         pair_table = run_analysis(table.data, table.columns, settings, workers=workers, cluster=cluster,
@@ -331,6 +338,13 @@ class Analysis:
         self.measures: tuple[str, ...] = tuple(pair_table.measures)
         self.variables: list[str] = list(pair_table.variables)
         self.pairs = pd.DataFrame(pair_table.records(), columns=list(PAIR_FIELDS))
+
+    @property
+    def serial_note(self) -> str:
+        """What the serial-dependence check found ("" when nothing): many serially dependent columns
+        without ``ordered``, trending columns with it."""
+        check = self._pair_table.serial
+        return check.message(self._pair_table.settings.ordered is not None) if check is not None else ""
 
     @property
     def settings(self) -> dict:

@@ -12,7 +12,7 @@ are built only when something asks for them, and which the writers in
 from __future__ import annotations
 
 from dataclasses import replace
-from typing import Callable, Sequence
+from typing import Callable
 
 import numpy as np
 

@@ -9,6 +9,7 @@ a template (autoescaped) or for JSON.
 
 from __future__ import annotations
 
+import re
 from collections import Counter
 from typing import Iterable
 
@@ -300,6 +301,29 @@ def cautions() -> list[dict]:
     ]
 
 
+# The per-pair numbers of the tests for rows in time order (n*, block length), left out when methods are counted.
+_SERIAL_DETAIL = re.compile(r" \(n\* = [^)]*\)|, block \d+ rows?$")
+
+
+def _ordered_entry(settings) -> dict:
+    how = "as in the file" if not settings.ordered else f"sorted by {settings.ordered} (not analysed itself)"
+    paragraphs = [f"The rows were declared in time order, {how}"
+                  + (", and every column replaced by its first differences." if settings.difference else ".")
+                  + " Consecutive rows of a series are not independent, so each measure used its test for "
+                    "serially dependent rows; each pair's method names it with its effective rows n* or block length."]
+    paragraphs += [f"{MEASURES[m].label}: {MEASURES[m].serial_test}." for m in settings.measures if MEASURES[m].serial_test]
+    paragraphs.append("A pair with a trending column (augmented Dickey-Fuller test at 5 %, MacKinnon p-values) "
+                      "gets no p-value: levels of trending series correlate by chance (Yule 1926; Granger & "
+                      "Newbold 1974); analyse differences instead. Levels of these tests: README, 'Rows in time order'.")
+    return {"title": "Rows in time order", "paragraphs": paragraphs,
+            "formula": "1/n* = 1/n + (2/n) sum_{k=1}^{n/5} (n-k)/n rho_x(k) rho_y(k)",
+            "references": ["Bartlett, M.S. (1935) J. R. Stat. Soc. 98:536-543, doi:10.2307/2342284",
+                           "Pyper, B.J. & Peterman, R.M. (1998) Can. J. Fish. Aquat. Sci. 55:2127-2140, doi:10.1139/f98-104",
+                           "Politis, D.N. & White, H. (2004) Econometric Reviews 23:53-70, doi:10.1081/ETC-120028836",
+                           "Dickey, D.A. & Fuller, W.A. (1979) JASA 74:427-431, doi:10.1080/01621459.1979.10482531",
+                           "Granger, C.W.J. & Newbold, P. (1974) J. Econometrics 2:111-120, doi:10.1016/0304-4076(74)90034-7"]}
+
+
 def methods_content(measures: Iterable[str] | None = None, *, settings=None, pair_table=None) -> dict:
     """Everything for a methods section: measures, inference and cautions.
 
@@ -318,13 +342,16 @@ def methods_content(measures: Iterable[str] | None = None, *, settings=None, pai
     if pair_table is not None:
         for row in pair_table.rows:
             if row.p_value == row.p_value:  # NaN p-values were not produced by any method
-                seen.setdefault(row.measure, Counter())[row.method] += 1
+                seen.setdefault(row.measure, Counter())[_SERIAL_DETAIL.sub("", row.method)] += 1
     kwargs = {"measures": measures, "general": settings is None}
     if settings is not None:
         kwargs.update(adjust=settings.adjust, confidence=settings.confidence,
                       permutations=settings.permutations, missing=settings.missing)
+    inference = inference_methods(**kwargs)
+    if settings is not None and getattr(settings, "ordered", None) is not None:
+        inference = [*inference, _ordered_entry(settings)]
     return {
         "measures": measure_methods(measures, seen),
-        "inference": inference_methods(**kwargs),
+        "inference": inference,
         "cautions": cautions(),
     }

@@ -18,10 +18,13 @@ import numpy as np
 
 from . import config
 from .core.registry import MEASURES
+from .core import serial as serial_mod
 from .core.results import TestResult
+from .errors import SettingsError
+from .ordering import mark_trending, serial_check, time_order
 from .pairtable import PairRow, PairTable
 from .plan import AnalysisSettings, PairRows, Variable, analysis_row_mask, pair_rows
-from .tiles import compute_pair
+from .tiles import compute_pair, ordered_rows
 
 __all__ = ["PairDetail", "pair_rows", "full_detail", "quick_detail", "pair_detail", "pair_verdict",
            "verdict_of", "gaussian_json"]
@@ -74,6 +77,8 @@ class PairDetail:
     label: str | None
     reasons: tuple[str, ...]
     complete: bool
+    ordered: dict | None = None     # rows in time order: how, each series' serial summary, cross-correlation
+    serial_note: str = ""
 
     @property
     def x(self) -> str:
@@ -94,6 +99,9 @@ class PairDetail:
             "pattern": ({"label": self.label, "reasons": list(self.reasons)} if self.complete else None),
             "rows_used": self.rows.describe(),
         }
+        if self.ordered is not None:
+            detail["ordered"] = self.ordered
+            detail["serial_note"] = self.serial_note
         if include_points:
             detail["points"] = {"x": self.rows.x.tolist(), "y": self.rows.y.tolist(),
                                 "rows": self.rows.rows.tolist()}
@@ -111,11 +119,23 @@ def _measures_of(data: np.ndarray, names: Sequence[str], rows: PairRows, setting
     out: dict[str, PairRow] = {}
     if row_mask is None:
         row_mask = analysis_row_mask(data, names, settings)
-    for r in compute_pair(data, xvar, yvar, single, row_mask):
+    computed = compute_pair(data, xvar, yvar, single, row_mask)
+    if settings.ordered is not None:
+        computed = ordered_rows(data, xvar, yvar, settings, row_mask, computed)
+    for r in computed:
         if r.x == rows.x_name:
             r.q_value = r.p_value  # a single pair: nothing to adjust over
             out[r.measure] = r
     return out
+
+
+def _analysis_order(data: np.ndarray, names: Sequence[str], settings: AnalysisSettings,
+                    row_mask: np.ndarray | None) -> tuple[np.ndarray, Sequence[str], np.ndarray | None]:
+    """The rows as the analysis saw them: in time order (and differenced) under --ordered."""
+    if settings.ordered is None:
+        return data, names, row_mask
+    data, names, _ = time_order(np.asarray(data, float), names, settings)
+    return data, names, None
 
 
 def verdict_of(rows: PairRows, measures: dict[str, PairRow], fit=None) -> tuple[str, tuple[str, ...]]:
@@ -144,11 +164,39 @@ def full_detail(data: np.ndarray, names: Sequence[str], x: str, y: str,
     from .core.gaussian import fit_gaussian
 
     settings = settings or AnalysisSettings(measures=tuple(MEASURES))
+    ordered = settings.ordered is not None
+    if ordered:
+        if settings.ordered in (x, y):
+            raise SettingsError(f"{settings.ordered!r} gives the time order; choose two other columns")
+        # a mask given for the file's row order is chosen again in time order
+        data, names, row_mask = _analysis_order(data, names, settings, row_mask)
     rows = pair_rows(data, names, x, y, settings, row_mask)
     measures = _measures_of(data, names, rows, settings, table, row_mask)
+    timeline, note = None, ""
+    if ordered:
+        position = {n: i for i, n in enumerate(names)}
+        check = serial_check(np.column_stack([data[:, position[x]], data[:, position[y]]]), [x, y])
+        if table is None:
+            mark_trending(list(measures.values()), check)
+            for r in measures.values():
+                r.q_value = r.p_value
+        timeline, note = _ordered_json(rows.x, rows.y, check, settings), check.message(True)
     fit = fit_gaussian(rows.x, rows.y)
     label, reasons = verdict_of(rows, measures, fit)
-    return PairDetail(rows, measures, fit, label, reasons, True)
+    return PairDetail(rows, measures, fit, label, reasons, True, timeline, note)
+
+
+def _ordered_json(xv: np.ndarray, yv: np.ndarray, check, settings: AnalysisSettings) -> dict:
+    """The pair view's time-series part: how the rows were ordered, each series' serial summary and
+    the cross-correlation at a few lags."""
+    lags, xcorr = serial_mod.cross_correlation(xv, yv, config.SERIAL_XCORR_LAGS)
+    return {
+        "by": settings.ordered or "", "difference": settings.difference,
+        "cross_correlation": {"lags": lags.tolist(), "r": [_num(v) for v in xcorr]},
+        "series": {name: {"lag1": _num(c.lag1), "ljung_box_p": _num(c.ljung_box_p),
+                          "adf_p": _num(c.adf_p), "trending": bool(c.trending)}
+                   for name, c in zip(check.names, check.columns)},
+    }
 
 
 def quick_detail(data: np.ndarray, names: Sequence[str], x: str, y: str, table: PairTable,
@@ -161,6 +209,7 @@ def quick_detail(data: np.ndarray, names: Sequence[str], x: str, y: str, table: 
     """
     from .core.gaussian import fit_gaussian
 
+    data, names, row_mask = _analysis_order(data, names, table.settings, row_mask)
     rows = pair_rows(data, names, x, y, table.settings, row_mask)
     fit = fit_gaussian(rows.x, rows.y, tests=False)
     return PairDetail(rows, dict(table.lookup(x, y)), fit, None, (), False)
@@ -169,6 +218,7 @@ def quick_detail(data: np.ndarray, names: Sequence[str], x: str, y: str, table: 
 def pair_verdict(data: np.ndarray, names: Sequence[str], x: str, y: str, table: PairTable,
                  row_mask: np.ndarray | None = None) -> str:
     """The verdict label of one pair of an analysis, from the rows its measures used."""
+    data, names, row_mask = _analysis_order(data, names, table.settings, row_mask)
     rows = pair_rows(data, names, x, y, table.settings, row_mask)
     return verdict_of(rows, dict(table.lookup(x, y)))[0]
 

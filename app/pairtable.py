@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -41,6 +40,8 @@ class PairTable:
     seconds: float = 0.0
     # (x, y) in variable order -> verdict label, for pairs of single columns (run_analysis(verdicts=True))
     verdicts: dict[tuple[str, str], str] = field(default_factory=dict)
+    # per-column serial dependence (pairlens.core.serial.SerialCheck), rows in analysis order
+    serial: object = None
 
     def records(self) -> list[dict]:
         return [r.record() for r in self.rows]

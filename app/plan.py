@@ -30,6 +30,16 @@ def _parse_tests(tests) -> tuple[tuple[str, str], ...]:
         raise SettingsError(str(exc)) from None
 
 
+def _parse_ordered(ordered, difference) -> str | None:
+    """--ordered [COL]: None (not ordered), "" (file order) or a column name; --difference implies it."""
+    if ordered is None or ordered is False:
+        return "" if difference else None
+    if ordered is True:
+        return ""
+    if not isinstance(ordered, str):
+        raise SettingsError("ordered must be true (rows in file order) or the name of the column to sort by")
+    return ordered.strip()
+
 
 @dataclass(frozen=True)
 class AnalysisSettings:
@@ -42,10 +52,13 @@ class AnalysisSettings:
     permutations: int = 0
     seed: int = config.DEFAULT_SEED
     tests: tuple[tuple[str, str], ...] = ()     # (measure, method) chosen with --test MEASURE=METHOD
+    ordered: str | None = None  # rows in time order: None = no, "" = file order, else the column to sort by
+    difference: bool = False    # analyse first differences (in time order; implies ordered)
 
     @classmethod
     def from_options(cls, *, measures=None, columns=None, groups=None, missing=None, adjust=None,
-                     confidence=None, permutations=None, seed=None, tests=None) -> "AnalysisSettings":
+                     confidence=None, permutations=None, seed=None, tests=None, ordered=None,
+                     difference=None) -> "AnalysisSettings":
         """Build validated settings from loosely typed options (CLI strings, JSON values)."""
         if isinstance(measures, str):
             measures = [m for m in measures.split(",") if m.strip()]
@@ -76,6 +89,8 @@ class AnalysisSettings:
             permutations=int(permutations or 0),
             seed=int(config.DEFAULT_SEED if seed is None else seed),
             tests=_parse_tests(tests),
+            ordered=_parse_ordered(ordered, difference),
+            difference=bool(difference),
         )
         settings.check()
         return settings
@@ -116,6 +131,13 @@ class AnalysisSettings:
         """The method chosen for ``measure`` with --test, or "" (its default rule)."""
         return dict(self.tests).get(measure, "")
 
+    def budget_permutations(self) -> int:
+        """Resamples per pair for the work estimate: --permutations, or under --ordered the block
+        relabellings when a measure uses a block permutation test."""
+        if self.ordered is not None and any(MEASURES[m].serial_resamples for m in self.measures):
+            return self.permutations or config.SERIAL_PERMUTATIONS
+        return self.permutations
+
     def permutations_for(self, measure: str) -> int:
         """Resamples ``measure`` runs with: --permutations, or the default B under --test MEASURE=permutation,
         or none when another method was chosen for it."""
@@ -128,7 +150,7 @@ class AnalysisSettings:
     def from_dict(cls, d: dict) -> "AnalysisSettings":
         return cls.from_options(**{k: d.get(k) for k in (
             "measures", "columns", "groups", "missing", "adjust", "confidence", "permutations", "seed",
-            "tests")})
+            "tests", "ordered", "difference")})
 
     def cli_arguments(self) -> list[str]:
         """The options that reproduce these settings on the command line."""
@@ -142,6 +164,12 @@ class AnalysisSettings:
                  "--seed", str(self.seed)]
         for measure, method in self.tests:
             args += ["--test", f"{measure}={method}"]
+        if self.difference:
+            args += ["--difference"]
+        if self.ordered:
+            args += ["--ordered", self.ordered]
+        elif self.ordered is not None and not self.difference:
+            args += ["--ordered"]
         return args
 
     def reproduce_command(self, data: str, output: str = "report.html") -> str:

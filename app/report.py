@@ -12,7 +12,6 @@ from __future__ import annotations
 import base64
 import hashlib
 import html
-import json
 import math
 import os
 from concurrent.futures import ThreadPoolExecutor
@@ -30,6 +29,7 @@ from . import __version__, config, formatting
 from . import figures as plots
 from .core.registry import MEASURES
 from .formatting import embed_json
+from .ordering import serial_note
 from .methods import methods_content
 from .pairs import full_detail
 from .pairtable import PairRow, PairTable
@@ -709,6 +709,7 @@ def build_report(table, pair_table: PairTable, *, command: str, generated_at: da
         "figure_json": figure_json,
         "points_json": embed_json(point_store),
         "fingerprint": _fingerprint(table, pair_table),
+        "serial_note": serial_note(table.data, table.columns, settings),
         "is_demo": _is_demo(table),
         "settings": settings,
         "measure_labels": [(m, MEASURES[m].label) for m in settings.measures],

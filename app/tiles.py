@@ -24,7 +24,7 @@ from .pairtable import PairRow
 from .plan import AnalysisSettings, Variable, observed, variable_values
 
 __all__ = ["compute_pair", "fast_pair_rows", "prepare_columns", "init_worker", "release_worker", "run_tile",
-           "make_tiles", "warm_kernels", "one_blas_thread"]
+           "make_tiles", "warm_kernels", "one_blas_thread", "ordered_rows"]
 
 
 # Per-pair work (runs in worker processes) ---------------------------------
@@ -264,6 +264,28 @@ def _label_evidence(data: np.ndarray, prep: "allpairs.PreparedColumns", xvar: Va
         return None
 
 
+def ordered_rows(data: np.ndarray, xvar: Variable, yvar: Variable, settings: AnalysisSettings,
+                 row_mask: np.ndarray | None, rows: list[PairRow]) -> list[PairRow]:
+    """Rows in time order: each result replaced by its measure's serial test (registry ``serial``)."""
+    xv_all, yv_all = variable_values(data, xvar), variable_values(data, yvar)
+    keep = observed(xv_all) & observed(yv_all)
+    if row_mask is not None:
+        keep &= row_mask
+    values = {xvar.name: xv_all[keep], yvar.name: yv_all[keep]}
+    out = []
+    for r in rows:
+        measure = MEASURES[r.measure]
+        if measure.serial is None or not r.p_value == r.p_value:
+            out.append(r)
+            continue
+        base = TestResult(r.estimate, r.p_value, r.method, r.ci_low, r.ci_high, r.n, r.note)
+        ctx = PairContext(confidence=settings.confidence, permutations=settings.permutations,
+                          seed=pair_seed(settings.seed, r.x, r.y, r.measure + "/ordered"))
+        out.append(_pair_row(Variable(r.x, ()), Variable(r.y, ()), r.measure,
+                             measure.serial(values[r.x], values[r.y], ctx, base)))
+    return out
+
+
 def run_tile(tile: list[tuple[int, int]]) -> tuple[list[PairRow], list]:
     """The rows of every pair in the tile, and (when asked) each pair's verdict evidence ``((x, y), ev)``."""
     s = _WORKER_STATE
@@ -279,6 +301,8 @@ def run_tile(tile: list[tuple[int, int]]) -> tuple[list[PairRow], list]:
                 rows = None
             if rows is None:
                 rows = compute_pair(s["data"], xvar, yvar, s["settings"], s["row_mask"])
+            if s["settings"].ordered is not None:
+                rows = ordered_rows(s["data"], xvar, yvar, s["settings"], s["row_mask"], rows)
             out.extend(rows)
             if s.get("verdicts"):
                 ev = _label_evidence(s["data"], prep, xvar, yvar, rows, s["row_mask"])

@@ -152,6 +152,13 @@
       scatter.dataset.ready = "1";
     });
     Plotly.newPlot($("pair-ranks"), figs.ranks.data, figs.ranks.layout, PLOT_CONFIG);
+    if (figs.series && $("pair-series")) {
+      var series = $("pair-series");
+      Plotly.newPlot(series, figs.series.data, figs.series.layout, PLOT_CONFIG).then(function () {
+        series.dataset.ready = "1";
+      });
+      Plotly.newPlot($("pair-xcorr"), figs.xcorr.data, figs.xcorr.layout, PLOT_CONFIG);
+    }
     var toggle = $("toggle-points");
     if (toggle) toggle.addEventListener("click", function () {
       var on = toggle.getAttribute("aria-pressed") !== "true";

@@ -13,7 +13,7 @@ from typing import Callable
 
 import numpy as np
 
-from . import chatterjee, distance, linear, rank
+from . import chatterjee, distance, linear, rank, serial
 from .. import config
 from .results import TestResult
 from .testing import all_pairings, attainable_minimum, floor_pvalue, permutation_floor
@@ -69,6 +69,11 @@ class Measure:
     short_label: str = ""
     # The measure's value under a bivariate normal with correlation rho; None when unknown.
     implied: Callable[[float], float] | None = None
+    # The test when the rows are in time order (--ordered): (x, y, ctx, result on independent rows)
+    # -> result; None keeps the independent-rows test. See pairlens.core.serial.
+    serial: Callable[[np.ndarray, np.ndarray, PairContext, TestResult], TestResult] | None = None
+    serial_test: str = ""       # its description for the methods page and report
+    serial_resamples: bool = False  # the serial test draws relabellings (counted in the work estimate)
 
 
 def _pearson(x, y, ctx: PairContext) -> TestResult:
@@ -133,6 +138,11 @@ def _u_centred(d: np.ndarray) -> np.ndarray:
 
 def _cross(a: np.ndarray, b: np.ndarray, pairings: np.ndarray) -> np.ndarray:
     # centring commutes with relabelling the rows, so each pairing only permutes b
+    if b.shape[0] > 16:
+        # long rows (the block permutation test of --ordered): one relabelled copy at a time, rows then
+        # columns, is many times faster than a fancy-indexed (m, n, n) gather and needs n^2 memory only;
+        # einsum, not a BLAS dot, whose helper threads cost milliseconds per call on a busy machine
+        return np.array([np.einsum("ij,ij->", a, b.take(p, axis=0).take(p, axis=1)) for p in pairings])
     return np.einsum("ij,mij->m", a, b[pairings[:, :, None], pairings[:, None, :]])
 
 
@@ -199,6 +209,38 @@ def _floored(compute: Callable[[np.ndarray, np.ndarray, PairContext], TestResult
     return run
 
 
+def _serial_ess(kind: str):
+    """Rows in time order: the effective-sample-size test of :func:`pairlens.core.serial.ess_test`."""
+    def run(x, y, ctx: PairContext, base: TestResult) -> TestResult:
+        return serial.ess_test(x, y, kind, base, confidence=ctx.confidence)
+    return run
+
+
+def _serial_block(name: str):
+    """Rows in time order: :func:`pairlens.core.serial.block_permutation_test` on the entry's statistic.
+
+    Up to ``config.SERIAL_MATRIX_MAX_N`` rows the entry's ``pairing_statistics`` (vectorised over
+    relabellings, n x n cells each); beyond, the measure's own O(n log n) estimate per relabelling.
+    """
+    def by_estimate(x, y, orders):
+        plain = PairContext()
+        return np.array([MEASURES[name].compute(x, y[o], plain).estimate for o in orders])
+
+    def run(x, y, ctx: PairContext, base: TestResult) -> TestResult:
+        n = int(np.shape(x)[0])
+        statistic = MEASURES[name].pairing_statistics if n <= config.SERIAL_MATRIX_MAX_N else by_estimate
+        return serial.block_permutation_test(x, y, statistic, base,
+                                             permutations=ctx.permutations or config.SERIAL_PERMUTATIONS,
+                                             seed=ctx.seed, block_factor=config.SERIAL_BLOCK_FACTOR)
+    return run
+
+
+_ESS_TEXT = ("effective rows n* from the autocorrelations of both series (Bartlett 1935; sum to lag n/5, "
+             "Pyper & Peterman 1998), {law}; interval with n* rows")
+_BLOCK_TEXT = ("block permutation: y rotated and cut into blocks of twice the Politis-White (2004) length, "
+               "blocks shuffled, 499 relabellings")
+
+
 def _complete(x, y):
     x, y = np.asarray(x, dtype=float), np.asarray(y, dtype=float)
     keep = ~(np.isnan(x) if x.ndim == 1 else np.isnan(x).any(axis=1))
@@ -222,6 +264,7 @@ MEASURES: dict[str, Measure] = {
             reference="Pearson, K. (1895) Proc. R. Soc. Lond. 58:240-242; Fisher, R.A. (1921) Metron 1:3-32",
             compute=_floored(_pearson, "pearson"), pairing_statistics=_pearson_pairings,
             role="trend", short_label="Pearson r", implied=lambda rho: rho,
+            serial=_serial_ess("pearson"), serial_test=_ESS_TEXT.format(law="t with n*-2 df"),
         ),
         Measure(
             name="spearman", label="Spearman rho", family="rank", symmetric=True, signed=True,
@@ -237,6 +280,7 @@ MEASURES: dict[str, Measure] = {
                       "Psychometrika 65:23-28, doi:10.1007/BF02294183",
             compute=_floored(_spearman, "spearman"), pairing_statistics=_spearman_pairings,
             role="rank", short_label="Spearman rho", implied=lambda rho: 6.0 / math.pi * math.asin(rho / 2.0),
+            serial=_serial_ess("spearman"), serial_test=_ESS_TEXT.format(law="on the ranks, t with n*-2 df"),
         ),
         Measure(
             name="kendall", label="Kendall tau-b", family="rank", symmetric=True, signed=True,
@@ -250,6 +294,7 @@ MEASURES: dict[str, Measure] = {
                       "Fieller, Hartley & Pearson (1957) Biometrika 44:470-481",
             compute=_floored(_kendall, "kendall"), pairing_statistics=_kendall_pairings,
             role="rank", short_label="Kendall tau", implied=lambda rho: 2.0 / math.pi * math.asin(rho),
+            serial=_serial_ess("kendall"), serial_test=_ESS_TEXT.format(law="on the ranks, normal with variance x n/n*"),
         ),
         Measure(
             name="dcor", label="Distance correlation", family="distance", symmetric=True, signed=False,
@@ -263,6 +308,7 @@ MEASURES: dict[str, Measure] = {
                       "Huo & Szekely (2016) Technometrics 58:435-447, doi:10.1080/00401706.2015.1054435",
             compute=_floored(_dcor, "dcor"), pairing_statistics=_dcor_pairings,
             role="dependence", short_label="dCor", implied=lambda rho: float(distance.gaussian_dcor(rho)),
+            serial=_serial_block("dcor"), serial_test=_BLOCK_TEXT, serial_resamples=True,
         ),
         Measure(
             name="dcor_bc", label="Bias-corrected dCor²", family="distance", symmetric=True, signed=True,
@@ -275,6 +321,7 @@ MEASURES: dict[str, Measure] = {
                       "Szekely & Rizzo (2014) Ann. Statist. 42:2382-2412, doi:10.1214/14-AOS1255",
             compute=_floored(_dcor_bc, "dcor_bc"), pairing_statistics=_dcor_bc_pairings,
             role="dependence", short_label="bias-corrected dCor²", implied=lambda rho: float(distance.gaussian_dcor(rho)) ** 2,
+            serial=_serial_block("dcor_bc"), serial_test=_BLOCK_TEXT, serial_resamples=True,
         ),
         Measure(
             name="xi", label="Chatterjee ξ", family="rank", symmetric=False, signed=True,
@@ -287,6 +334,7 @@ MEASURES: dict[str, Measure] = {
             reference="Chatterjee, S. (2021) JASA 116:2009-2022, doi:10.1080/01621459.2020.1758115",
             compute=_floored(_xi, "xi"), pairing_statistics=_xi_pairings,
             role="dependence", short_label="ξ(x → y)", implied=chatterjee.gaussian_xi,
+            serial=_serial_block("xi"), serial_test=_BLOCK_TEXT, serial_resamples=True,
         ),
     )
 }

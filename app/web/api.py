@@ -104,6 +104,12 @@ def strict_options(options: dict) -> dict:
         value = options.get(field)
         if value is not None and not (isinstance(value, int) and not isinstance(value, bool)):
             raise SettingsError(f"{field}: must be a whole number, got {_shown(value)}")
+    value = options.get("ordered")
+    if value is not None and not isinstance(value, (bool, str)):
+        raise SettingsError(f"ordered: must be true (rows in file order) or a column name, got {_shown(value)}")
+    value = options.get("difference")
+    if value is not None and not isinstance(value, bool):
+        raise SettingsError(f"difference: must be true or false, got {_shown(value)}")
     return options
 
 

@@ -27,9 +27,9 @@ from ..errors import SettingsError
 from ..formatting import embed_json, finite
 from ..pairs import full_detail, quick_detail
 from ..pairtable import PairRow, PairTable
-from ..payloads import (MAPS_FORMAT, default_difference, heatmap_payload, pair_key, pair_rows_payload,
-                        precompute_pages)
+from ..payloads import (MAPS_FORMAT, default_difference, heatmap_payload, pair_key, pair_rows_payload)
 from ..plan import AnalysisSettings, plan_variables
+from ..ordering import serial_note
 from ..store import AnalysisRow, DatasetRow, Store, UploadTooLarge
 
 __all__ = ["Workspace", "NotFound", "Conflict", "get_workspace", "embed_json", "UploadTooLarge",
@@ -197,6 +197,7 @@ def dataset_summary(table) -> dict:
         "columns": columns,
         "numeric": list(table.columns),
         "notes": list(table.notes),
+        "serial_note": serial_note(table.data, table.columns),
         "preview_header": list(table.preview_header),
         "preview": preview,
         "format": getattr(table, "format", ""),
@@ -397,7 +398,7 @@ class Workspace:
     def start_analysis(self, dataset_id: str, options: dict) -> AnalysisRow:
         dataset = self.dataset(dataset_id)
         allowed = ("measures", "columns", "groups", "missing", "adjust", "confidence", "permutations", "seed",
-                   "tests")
+                   "tests", "ordered", "difference")
         unknown = sorted(set(options) - set(allowed))
         if unknown:
             raise SettingsError(f"unknown option(s) {', '.join(unknown)}; use {', '.join(allowed)}")
@@ -407,7 +408,8 @@ class Workspace:
             raise SettingsError(str(exc)) from None
         variables = plan_variables(dataset.summary["numeric"], settings)  # unknown columns fail now, not in the job
         # beyond the work budget or the pair-table limit: refused now, with the estimate (app/budget.py)
-        check_plan(estimate_work(len(variables), len(settings.measures), dataset.n_rows, settings.permutations))
+        check_plan(estimate_work(len(variables), len(settings.measures), dataset.n_rows,
+                                 settings.budget_permutations()))
         self._check_group_rows(dataset, settings)
         return self.jobs.submit(dataset.id, settings.to_dict())
 
@@ -505,6 +507,16 @@ class Workspace:
 
     def pair_table(self, row: AnalysisRow) -> PairTable:
         return self._results(row)["table"]
+
+    def serial_note(self, row: AnalysisRow) -> str:
+        """The serial-dependence sentence of an analysis (warning when not ordered, trending columns when
+        ordered), computed once per analysis from its dataset."""
+        key = ("serial-note", row.id)
+        cached = self._figures.get(key)
+        if cached is None:
+            data = self.table(self.dataset(row.dataset_id))
+            cached = self._figures.put(key, serial_note(data.data, data.columns, self.pair_table(row).settings))
+        return cached
 
     def pair_records(self, row: AnalysisRow) -> list[dict]:
         from ..export import PAIR_FIELDS
@@ -667,6 +679,8 @@ class Workspace:
         if cached is not None:
             return cached, True
         table = self.pair_table(row)
+        if table.settings.ordered is not None:  # points in time order and the series panel: the full detail
+            return self.pair(row, x, y), True
         if x not in table.variables or y not in table.variables:
             missing = x if x not in table.variables else y
             raise NotFound(f"{missing!r} is not a variable of analysis {row.id}")

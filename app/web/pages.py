@@ -79,7 +79,7 @@ def _dataset_page(request: Request, ws: Workspace, dataset_id: str, error: str =
         "analyses": ws.store.list_analyses(dataset.id),
         "chosen_measures": chosen_measures,
         "chosen_columns": form.get("columns"),
-        "form": form,
+        "form": form, "ordered_file": ORDERED_FILE,
     }, status)
 
 
@@ -90,6 +90,15 @@ def dataset_page(dataset_id: str, request: Request, ws: Workspace = Depends(get_
 
 def _groups_from_text(text: str) -> list[str]:
     return [line.strip() for line in (text or "").splitlines() if line.strip()]
+
+
+def _ordered_from_form(value: str):
+    if not value:
+        return None
+    return True if value == ORDERED_FILE else value
+
+
+ORDERED_FILE = "(file order)"
 
 
 @router.post("/datasets/{dataset_id}/analyses")
@@ -108,11 +117,15 @@ async def start_analysis_form(dataset_id: str, request: Request, ws: Workspace =
         "permutations": str(form.get("permutations") or 0),
         "seed": str(form.get("seed") or config.DEFAULT_SEED),
         "tests": [t for t in str(form.get("tests") or "").replace(",", " ").split() if t],
+        # empty: rows independent; ORDERED_FILE: time order as in the file; else the column to sort by
+        "ordered": _ordered_from_form(str(form.get("ordered") or "")),
+        "difference": form.get("difference") == "yes",
     }
     echo = {"measures": options["measures"], "columns": columns, "groups": str(form.get("groups", "")),
             "missing": options["missing"], "adjust": options["adjust"], "confidence": options["confidence"],
             "permutations": options["permutations"], "seed": options["seed"],
-            "tests": str(form.get("tests") or "")}
+            "tests": str(form.get("tests") or ""), "ordered": str(form.get("ordered") or ""),
+            "difference": form.get("difference") == "yes"}
     if not options["measures"]:
         return _dataset_page(request, ws, dataset_id, "Choose at least one measure.", 422, echo)
     if options["columns"] is not None and len(options["columns"]) == 0 and not options["groups"]:
@@ -158,6 +171,7 @@ def analysis_page(analysis_id: str, request: Request, order: str = "input", diff
         "pair_columns": columns, "pair_columns_json": embed_json(columns),
         "top_pairs": figures["top"], "verdicts": verdicts, "n_pairs": k * (k - 1) // 2,
         "n_variables": len(table.variables), "significant": significant, "tested": tested,
+        "serial_note": ws.serial_note(row),
     })
     return _render(request, "analysis.html", context)
 
@@ -209,6 +223,7 @@ def pair_page(analysis_id: str, request: Request, x: str, y: str, ws: Workspace 
     detail, complete = ws.pair_view(row, x, y)
     scatter = plots.pair_figure(detail)
     ranks = plots.rank_figure(detail)
+    series = plots.series_figure(detail)
     g = detail["gaussian"]
     slice_data = {
         "x": detail["points"]["x"], "y": detail["points"]["y"],
@@ -220,7 +235,7 @@ def pair_page(analysis_id: str, request: Request, x: str, y: str, ws: Workspace 
                                           (g.get("normality") or {}).get("p_value"), config.SIGNIFICANCE_LEVEL)
     return _render(request, "pair.html", {
         "analysis": row, "dataset": dataset, "table": table, "detail": detail, "complete": complete,
-        "figures": embed_json({"scatter": scatter, "ranks": ranks}), "slice": embed_json(slice_data),
+        "figures": embed_json({"scatter": scatter, "ranks": ranks, **(series or {})}), "slice": embed_json(slice_data),
         "dense": scatter["layout"]["meta"]["dense"],
         "normal_marginals_not_joint": misleads,
         "weak_rho": g.get("rho") is not None and abs(g["rho"]) < 0.2,

@@ -1,0 +1,272 @@
+"""Rows in time order: pairlens.core.serial against statsmodels and closed forms, the level of the
+--ordered tests by simulation, and the --ordered / --difference contract through engine and CLI."""
+
+from __future__ import annotations
+
+import math
+import warnings
+
+import numpy as np
+import pytest
+from scipy import signal, stats
+
+from pairlens.core import serial
+from pairlens.core.registry import MEASURES, PairContext
+from pairlens.core.results import TestResult
+from pairlens.engine import AnalysisSettings, pair_detail, run_analysis
+from pairlens.errors import SettingsError
+
+SEED = 20261202
+
+
+def _ar1(rng, phi, shape, n):
+    """Stationary AR(1) series along the last axis, all at once."""
+    e = rng.normal(size=tuple(shape) + (n,))
+    e[..., 0] /= math.sqrt(1.0 - phi * phi)
+    return signal.lfilter([1.0], [1.0, -phi], e, axis=-1)
+
+
+def _series():
+    rng = np.random.default_rng(SEED)
+    return {
+        "ar05": _ar1(rng, 0.5, (), 400),
+        "ar09": _ar1(rng, 0.9, (), 250),
+        "walk": np.cumsum(rng.normal(size=300)),
+        "noise": rng.normal(size=150),
+        "trend": 0.05 * np.arange(200) + rng.normal(size=200),
+    }
+
+
+# Reference checks --------------------------------------------------------------
+
+@pytest.mark.parametrize("name", list(_series()))
+def test_autocorrelation_matches_statsmodels_acf(name):
+    from statsmodels.tsa.stattools import acf
+
+    x = _series()[name]
+    # source: statsmodels.tsa.stattools.acf (divisor n, demeaned)
+    np.testing.assert_allclose(serial.autocorrelation(x, 12), acf(x, nlags=12, fft=False), rtol=0, atol=1e-12)
+
+
+@pytest.mark.parametrize("name", list(_series()))
+@pytest.mark.parametrize("lags", [1, 5, 10])
+def test_ljung_box_matches_statsmodels(name, lags):
+    from statsmodels.stats.diagnostic import acorr_ljungbox
+
+    x = _series()[name]
+    q, p = serial.ljung_box(x, lags)
+    ref = acorr_ljungbox(x, lags=[lags])
+    # source: statsmodels.stats.diagnostic.acorr_ljungbox (Ljung & Box 1978)
+    assert q == pytest.approx(float(ref["lb_stat"].iloc[0]), rel=1e-10)
+    assert p == pytest.approx(float(ref["lb_pvalue"].iloc[0]), rel=1e-8, abs=1e-300)
+
+
+@pytest.mark.parametrize("name", list(_series()))
+def test_adf_matches_statsmodels_adfuller(name):
+    from statsmodels.tsa.stattools import adfuller
+
+    x = _series()[name]
+    ours = serial.adf(x)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", FutureWarning)
+        stat, p, lags, nobs, crit, _ = adfuller(x, regression="c", autolag="AIC")
+        fixed = adfuller(x, maxlag=3, regression="c", autolag=None)
+    # source: statsmodels.tsa.stattools.adfuller (AIC lag choice, MacKinnon 1994 p-value, 2010 critical values)
+    assert ours.lags == lags and ours.nobs == nobs
+    assert ours.statistic == pytest.approx(stat, rel=1e-9)
+    assert ours.p_value == pytest.approx(p, rel=1e-9, abs=1e-300)
+    assert ours.critical_5 == pytest.approx(crit["5%"], rel=1e-12)
+    assert serial.adf(x, max_lag=3, autolag=False).statistic == pytest.approx(fixed[0], rel=1e-9)
+    assert ours.trending == (stat > crit["5%"])
+
+
+def test_adf_names_the_trending_series():
+    s = _series()
+    # a random walk and a linear trend keep their unit root / trend at 5 % (Dickey & Fuller 1979)
+    assert serial.adf(s["walk"]).trending and serial.adf(s["trend"]).trending
+    assert not serial.adf(s["ar05"]).trending and not serial.adf(s["noise"]).trending
+    assert serial.adf(np.arange(50.0)).trending  # a straight line: singular regression, trending by construction
+
+
+def test_effective_n_matches_the_ar1_closed_form():
+    # Two AR(1) series with coefficients a, b: sum over all lags of rho_x(k) rho_y(k) gives
+    # n* = n (1 - ab) / (1 + ab) for large n (Bartlett 1935; closed form from memory).
+    n, a, b = 100_000, 0.6, 0.8
+    k = np.arange(200)
+    assert serial.effective_n(a ** k, b ** k, n) == pytest.approx(n * (1 - a * b) / (1 + a * b), rel=2e-3)
+    # the worked value of the docstring by hand: 1/n* = (1/100)(1 + 2 sum_{k<=20} (100-k)/100 0.25^k)
+    hand = 100 / (1 + 2 * sum((100 - j) / 100 * 0.25 ** j for j in range(1, 21)))
+    assert serial.effective_n(0.5 ** np.arange(21), 0.5 ** np.arange(21), 100) == pytest.approx(hand, rel=1e-12)
+    assert serial.effective_n(np.r_[1.0, -0.5 * np.ones(5)], np.r_[1.0, 0.5 * np.ones(5)], 100) == 100  # capped
+
+
+def test_block_length_approaches_the_politis_white_value_for_ar1():
+    # With the true AR(1) autocovariances R(k) = phi^|k| / (1 - phi^2): G = 2 sum k R(k),
+    # g = sum R(k), b = (2 G^2 / ((4/3) g^2))^(1/3) n^(1/3) (Politis & White 2004 with the
+    # correction of Patton, Politis & White 2009; the AR(1) sums are geometric series).
+    phi, n = 0.7, 40_000
+    g = (1 + phi) / (1 - phi) / (1 - phi * phi)
+    big_g = 2 * phi / (1 - phi) ** 2 / (1 - phi * phi)
+    expected = (2 * big_g ** 2 / (4 / 3 * g ** 2)) ** (1 / 3) * n ** (1 / 3)
+    x = _ar1(np.random.default_rng(SEED), phi, (), n)
+    assert serial.block_length(x) == pytest.approx(expected, rel=0.25)
+    assert serial.block_length(np.random.default_rng(1).normal(size=500)) <= 2
+
+
+def test_cross_correlation_at_lag_zero_is_pearson_and_finds_a_delay():
+    rng = np.random.default_rng(SEED)
+    x = rng.normal(size=300)
+    y = np.r_[rng.normal(size=2), x[:-2]] + 0.3 * rng.normal(size=300)
+    lags, r = serial.cross_correlation(x, y, 4)
+    # source: scipy.stats.pearsonr at lag 0 (same divisor cancels)
+    assert r[lags == 0][0] == pytest.approx(stats.pearsonr(x, y).statistic, rel=1e-12)
+    assert lags[np.argmax(r)] == 2
+
+
+def test_ess_interval_is_wider_and_reduces_to_fisher_without_autocorrelation():
+    rng = np.random.default_rng(SEED)
+    x, y = _ar1(rng, 0.8, (2,), 300)
+    base = MEASURES["pearson"].compute(x, y, PairContext())
+    res = MEASURES["pearson"].serial(x, y, PairContext(), base)
+    assert res.estimate == base.estimate
+    assert res.ci_high - res.ci_low > base.ci_high - base.ci_low
+    assert res.method.startswith("t, n*-2 df")
+    # lag 0 only: n* = n, so the t-test of scipy.stats.pearsonr (source: scipy)
+    same = serial.ess_test(x, y, "pearson", base, max_lag=0)
+    assert same.p_value == pytest.approx(stats.pearsonr(x, y).pvalue, rel=1e-9)
+
+
+def test_degenerate_input_gives_nan_with_a_reason():
+    short = serial.ess_test(np.arange(6.0), np.arange(6.0)[::-1], "pearson", TestResult(-1.0, 0.0, "t", n=6))
+    assert math.isnan(short.p_value) and "fewer than 10 rows" in short.note
+    assert math.isnan(serial.adf(np.ones(40)).statistic)
+    assert np.isnan(serial.autocorrelation(np.ones(20), 3)).all()
+    stiff = np.cumsum(np.cumsum(np.random.default_rng(2).normal(size=(2, 60)), axis=1), axis=1)
+    r = float(np.corrcoef(*stiff)[0, 1])
+    res = serial.ess_test(stiff[0], stiff[1], "pearson", TestResult(r, 0.0, "t", n=60))
+    assert math.isnan(res.p_value) or res.p_value > 0.0
+
+
+# Level of the --ordered tests ---------------------------------------------------
+
+def _interval(count, alpha):
+    # central 99% binomial interval of the rejections of a test that holds its level (scipy.stats.binom)
+    return stats.binom.ppf(0.005, count, alpha), stats.binom.ppf(0.995, count, alpha)
+
+
+LEVEL_CELLS = [  # (measure, phi, n, pairs): sized to run in about 20 s together on an idle machine
+    ("pearson", 0.5, 100, 600), ("pearson", 0.9, 500, 300),
+    ("spearman", 0.5, 100, 600), ("kendall", 0.5, 100, 600),
+    ("dcor", 0.5, 100, 200), ("dcor", 0.9, 100, 200), ("xi", 0.9, 100, 200),
+]
+
+
+@pytest.mark.parametrize("measure,phi,n,pairs", LEVEL_CELLS)
+def test_ordered_tests_hold_their_level_on_ar1_pairs(measure, phi, n, pairs):
+    rng = np.random.default_rng([SEED, int(phi * 10), n])
+    x, y = _ar1(rng, phi, (2, pairs), n)
+    m = MEASURES[measure]
+    seeds = np.random.SeedSequence(SEED).spawn(pairs)
+    p = np.array([m.serial(x[k], y[k], PairContext(permutations=99, seed=seeds[k]),
+                           m.compute(x[k], y[k], PairContext())).p_value for k in range(pairs)])
+    for alpha in (0.05, 0.01):
+        lo, hi = _interval(pairs, alpha)
+        assert lo <= np.count_nonzero(p <= alpha) <= hi, (measure, phi, n, alpha, np.mean(p <= alpha))
+
+
+def test_the_default_tests_do_not_hold_their_level_on_the_same_pairs():
+    # the reason for --ordered: the independent-rows test on AR(1) pairs with phi = 0.9 (Granger & Newbold 1974)
+    rng = np.random.default_rng(SEED)
+    x, y = _ar1(rng, 0.9, (2, 200), 300)
+    p = np.array([MEASURES["pearson"].compute(x[k], y[k], PairContext()).p_value for k in range(200)])
+    assert np.count_nonzero(p <= 0.05) > _interval(200, 0.05)[1]
+
+
+# The contract through the engine and the CLI ----------------------------------
+
+def _table():
+    rng = np.random.default_rng(SEED)
+    data = _ar1(rng, 0.9, (4,), 240).T
+    data[:, 1] = 0.8 * data[:, 0] + 0.6 * _ar1(rng, 0.9, (), 240)
+    data[:, 3] = np.cumsum(rng.normal(size=240))
+    week = np.arange(240.0)[::-1]                    # the file lists the weeks backwards
+    return np.column_stack([week, data[::-1]]), ["week", "a", "b", "c", "walk"]
+
+
+def test_ordered_changes_the_methods_and_blocks_trending_pairs():
+    data, names = _table()
+    plain = run_analysis(data, names, AnalysisSettings.from_options(), workers=1)
+    assert plain.serial.warn and "--ordered" in plain.serial.message(False)
+    ordered = run_analysis(data, names, AnalysisSettings.from_options(ordered="week"), workers=1)
+    assert "week" not in ordered.variables
+    rows = ordered.lookup("a", "b")
+    assert rows["pearson"].method.startswith("t, n*-2 df") and rows["dcor"].method.startswith("block permutation")
+    assert rows["pearson"].q_value < 0.05          # truly related
+    for r in ordered.rows:
+        if "walk" in (r.x, r.y):
+            assert math.isnan(r.p_value) and "--difference" in r.note
+    # sorting by week reverses the file: the same pair in file order, read backwards, gives the same test
+    again = run_analysis(data[::-1, 1:], names[1:], AnalysisSettings.from_options(ordered=True), workers=1)
+    assert again.lookup("a", "b")["pearson"].p_value == pytest.approx(rows["pearson"].p_value, rel=1e-12)
+    diffed = run_analysis(data, names, AnalysisSettings.from_options(ordered="week", difference=True), workers=1)
+    assert not math.isnan(diffed.lookup("a", "walk")["pearson"].p_value)
+    assert diffed.rows[0].n == 239
+
+
+def test_ordered_settings_round_trip_and_refuse_unknown_columns():
+    s = AnalysisSettings.from_options(ordered="week", difference=True)
+    assert AnalysisSettings.from_dict(s.to_dict()) == s
+    assert s.cli_arguments()[-3:] == ["--difference", "--ordered", "week"]
+    data, names = _table()
+    with pytest.raises(SettingsError, match="no numeric column"):
+        run_analysis(data, names, AnalysisSettings.from_options(ordered="day"), workers=1)
+
+
+def test_pair_detail_of_an_ordered_pair_has_the_time_series_part():
+    data, names = _table()
+    d = pair_detail(data, names, "a", "b", AnalysisSettings.from_options(measures=list(MEASURES), ordered="week"),
+                    include_points=True)
+    assert d["ordered"]["by"] == "week" and len(d["ordered"]["cross_correlation"]["lags"]) == 11
+    assert d["points"]["x"][0] == pytest.approx(data[-1, 1])  # time order: the file's last row comes first
+    assert d["measures"]["pearson"]["method"].startswith("t, n*-2 df")
+
+
+def test_cli_says_so_on_stderr(tmp_path):
+    from pairlens import cli
+
+    data, names = _table()
+    path = tmp_path / "weekly.csv"
+    path.write_text(",".join(names) + "\n" + "\n".join(",".join(repr(float(v)) for v in row) for row in data) + "\n")
+    out = tmp_path / "p.csv"
+    import contextlib
+    import io
+
+    err = io.StringIO()
+    with contextlib.redirect_stderr(err):
+        assert cli.main(["pairs", str(path), "-o", str(out), "--workers", "1", "--measures", "pearson"]) == 0
+    assert "serially dependent" in err.getvalue() and "--ordered" in err.getvalue()
+    import csv
+
+    def p_of(pair):
+        return {(r["x"], r["y"]): float(r["p_value"] or "nan") for r in csv.DictReader(out.open())}[pair]
+
+    plain_p = p_of(("a", "c"))
+    err = io.StringIO()
+    with contextlib.redirect_stderr(err):
+        assert cli.main(["pairs", str(path), "-o", str(out), "--workers", "1", "--measures", "pearson",
+                         "--ordered", "week"]) == 0
+    assert "serially dependent" not in err.getvalue() and "walk" in err.getvalue()
+    assert p_of(("a", "c")) > plain_p and math.isnan(p_of(("a", "walk")))
+
+
+def test_series_figure_of_an_ordered_pair():
+    from pairlens.web import plots
+
+    data, names = _table()
+    d = pair_detail(data, names, "a", "b", AnalysisSettings.from_options(measures="pearson", ordered="week"),
+                    include_points=True)
+    fig = plots.series_figure(d)
+    assert [t["y"] for t in fig["series"]["data"]] == [d["points"]["x"], d["points"]["y"]]
+    assert fig["xcorr"]["data"][0]["x"] == list(range(-5, 6))
+    plain = pair_detail(data, names, "a", "b", AnalysisSettings.from_options(measures="pearson"), include_points=True)
+    assert plots.series_figure(plain) is None
