@@ -13,7 +13,8 @@ from scipy import signal, stats
 from pairlens.core import serial
 from pairlens.core.registry import MEASURES, PairContext
 from pairlens.core.results import TestResult
-from pairlens.engine import AnalysisSettings, pair_detail, run_analysis
+from pairlens.engine import AnalysisSettings, run_analysis
+from pairlens.pairs import pair_detail
 from pairlens.errors import SettingsError
 
 SEED = 20261202
@@ -260,7 +261,7 @@ def test_cli_says_so_on_stderr(tmp_path):
 
 
 def test_series_figure_of_an_ordered_pair():
-    from pairlens.web import plots
+    from pairlens import figures as plots
 
     data, names = _table()
     d = pair_detail(data, names, "a", "b", AnalysisSettings.from_options(measures="pearson", ordered="week"),
