@@ -33,6 +33,21 @@ class Server(LiveServer):
             return wait_for_analysis(client, analysis_id, timeout=timeout, poll=0.3)
 
 
+def goto_settled(page, url: str) -> None:
+    """``page.goto(url)``; a page that navigates by itself at that moment (an analysis page reloads
+    when its run ends) interrupts it, and then the page's own navigation is waited for instead."""
+    from playwright.sync_api import Error
+
+    try:
+        page.goto(url)
+    except Error as exc:
+        if "interrupted by another navigation" not in str(exc):
+            raise
+        page.wait_for_load_state("load")
+        if page.url != url:
+            page.goto(url)
+
+
 @contextlib.contextmanager
 def chromium():
     from playwright.sync_api import sync_playwright

@@ -19,6 +19,8 @@ ROOT = Path(__file__).resolve().parents[1]
 # other work a small analysis can take minutes, so the bounds are generous.
 START_SECONDS = 240.0
 WAIT_SECONDS = 600.0
+# One HTTP answer: a hang guard too (two uploads once took over 30 s on a fresh clone's run).
+READ_SECONDS = 120.0
 
 
 def free_port() -> int:

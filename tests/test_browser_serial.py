@@ -10,7 +10,7 @@ import os
 import httpx
 import pytest
 
-from browser_helpers import WAIT_SECONDS, Server, chromium_available, screenshot
+from browser_helpers import WAIT_SECONDS, Server, chromium_available, goto_settled, screenshot
 from pairlens import config
 
 pytestmark = [pytest.mark.browser,
@@ -62,7 +62,7 @@ def test_weekly_series_warning_ordered_run_and_series_panel(server, page):
     plain = httpx.post(server.url(f"/api/datasets/{dataset_id}/analyses"), json={"measures": ["pearson"]},
                        timeout=30).json()["id"]
     assert server.wait_done(plain)["status"] == "done"
-    page.goto(server.url(f"/analyses/{plain}"))
+    goto_settled(page, server.url(f"/analyses/{plain}"))
     assert "serially dependent" in page.locator('[data-testid="serial-warning"]').inner_text()
 
     # the form: rows in time order, sorted by week
@@ -74,7 +74,7 @@ def test_weekly_series_warning_ordered_run_and_series_panel(server, page):
         page.click('[data-testid="run-analysis"]')
     ordered = page.url.rstrip("/").rsplit("/", 1)[-1]
     assert server.wait_done(ordered)["status"] == "done"
-    page.goto(server.url(f"/analyses/{ordered}"))
+    goto_settled(page, server.url(f"/analyses/{ordered}"))
     page.wait_for_selector('[data-testid="heatmap-pearson"][data-ready="1"]', timeout=WAIT_SECONDS * 1000)
     text = page.locator('[data-testid="serial-warning"]').inner_text()
     assert "trending" in text and "serially dependent" not in text

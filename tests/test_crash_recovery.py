@@ -22,7 +22,7 @@ import httpx
 import numpy as np
 import pytest
 
-from live_server import LiveServer, wait_for_analysis
+from live_server import READ_SECONDS, LiveServer, wait_for_analysis
 
 
 def _csv(n: int, k: int, seed: int) -> bytes:
@@ -89,7 +89,7 @@ def test_kill_9_during_a_long_analysis(tmp_path):
     db_path = data_dir / "pairlens.sqlite3"
     srv = LiveServer(data_dir)
     try:
-        with httpx.Client(base_url=srv.base, timeout=30) as c:
+        with httpx.Client(base_url=srv.base, timeout=READ_SECONDS) as c:
             # A finished analysis whose results must survive untouched.
             small = _csv(200, 4, seed=1)
             ds_small = c.post("/api/datasets", files={"file": ("small.csv", small, "text/csv")}).json()
@@ -130,7 +130,7 @@ def test_kill_9_during_a_long_analysis(tmp_path):
 
     srv2 = LiveServer(data_dir)
     try:
-        with httpx.Client(base_url=srv2.base, timeout=30) as c:
+        with httpx.Client(base_url=srv2.base, timeout=READ_SECONDS) as c:
             status = c.get(f"/api/analyses/{long_id}").json()
             assert status["status"] == "interrupted", status
             assert "run it again" in status["error"]
@@ -176,7 +176,7 @@ def test_orphaned_analysis_child_stops_by_itself(tmp_path):
     data_dir = tmp_path / "workspace"
     srv = LiveServer(data_dir)
     try:
-        with httpx.Client(base_url=srv.base, timeout=30) as c:
+        with httpx.Client(base_url=srv.base, timeout=READ_SECONDS) as c:
             aid = _start_long_analysis(c, seed=4)
             _wait(c, aid, lambda s: s["status"] == "running" and s["phase"] == "pairs")
         con = sqlite3.connect(f"file:{data_dir / 'pairlens.sqlite3'}?mode=ro", uri=True)
@@ -264,7 +264,7 @@ def test_graceful_stop_marks_running_analyses_interrupted(tmp_path):
     data_dir = tmp_path / "workspace"
     srv = LiveServer(data_dir)
     try:
-        with httpx.Client(base_url=srv.base, timeout=30) as c:
+        with httpx.Client(base_url=srv.base, timeout=READ_SECONDS) as c:
             aid = _start_long_analysis(c, seed=5)
             _wait(c, aid, lambda s: s["status"] == "running")
         owners = list((data_dir / "owners").glob("*.lock"))
@@ -294,7 +294,7 @@ def test_kills_at_random_moments_never_corrupt_or_leave_running(tmp_path):
     n_rows = 10 * 4  # 5 columns: 10 pairs, 4 measures
     srv = LiveServer(data_dir)
     try:
-        with httpx.Client(base_url=srv.base, timeout=30) as c:
+        with httpx.Client(base_url=srv.base, timeout=READ_SECONDS) as c:
             ds = c.post("/api/datasets", files={"file": ("k.csv", content, "text/csv")}).json()
             t0 = time.monotonic()
             first = c.post(f"/api/datasets/{ds['id']}/analyses", json=settings).json()["id"]
@@ -309,7 +309,7 @@ def test_kills_at_random_moments_never_corrupt_or_leave_running(tmp_path):
     for cycle in range(4):
         srv = LiveServer(data_dir)
         try:
-            with httpx.Client(base_url=srv.base, timeout=30) as c:
+            with httpx.Client(base_url=srv.base, timeout=READ_SECONDS) as c:
                 aid = c.post(f"/api/datasets/{ds['id']}/analyses", json=settings).json()["id"]
                 time.sleep(rng.uniform(0.0, 1.3 * duration))
         finally:
@@ -318,7 +318,7 @@ def test_kills_at_random_moments_never_corrupt_or_leave_running(tmp_path):
         outcomes.append(aid)
     srv = LiveServer(data_dir)
     try:
-        with httpx.Client(base_url=srv.base, timeout=30) as c:
+        with httpx.Client(base_url=srv.base, timeout=READ_SECONDS) as c:
             seen = {}
             for aid in [first, *outcomes]:
                 s = c.get(f"/api/analyses/{aid}").json()

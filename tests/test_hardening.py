@@ -27,7 +27,7 @@ import numpy as np
 import pytest
 from fastapi.testclient import TestClient
 
-from live_server import LiveServer, free_port, wait_for_analysis
+from live_server import READ_SECONDS, LiveServer, free_port, wait_for_analysis
 
 HOSTILE = ["<script>window.__pwned=1</script>", "<img src=x onerror=window.__pwned=1>",
            "</script><script>window.__pwned=2</script>", "\"'><svg onload=window.__pwned=3>",
@@ -62,7 +62,7 @@ def server(tmp_path_factory):
 
 @pytest.fixture(scope="module")
 def client(server):
-    with httpx.Client(base_url=server.base, timeout=30) as c:
+    with httpx.Client(base_url=server.base, timeout=READ_SECONDS) as c:
         yield c
 
 
@@ -359,7 +359,7 @@ def test_required_token_over_a_real_socket(tmp_path):
         link = srv.access_link()
         assert link and link.startswith(f"http://127.0.0.1:{srv.port}/?token=")
         token = link.split("token=", 1)[1]
-        with httpx.Client(base_url=srv.base, timeout=30) as c:
+        with httpx.Client(base_url=srv.base, timeout=READ_SECONDS) as c:
             assert c.get("/api/datasets").status_code == 401
             assert c.get("/").status_code == 401
             assert c.get("/api/datasets", headers={"authorization": "Bearer " + token[:-1]}).status_code == 401
