@@ -7,7 +7,6 @@ import importlib.util
 import math
 import warnings
 
-import numpy as np
 import pandas as pd
 import pytest
 
