@@ -381,6 +381,12 @@ def main(argv: list[str] | None = None) -> int:
     try:
         # Only the subcommand being run gets its full parser (see build_parser).
         command = next((a for a in argv if a in COMMANDS), "")
+        if os.environ.get(config.PLUGINS_ENV):  # measures of the user's own, before any measure name is read
+            from .plugins import PluginError, load_plugins
+            try:
+                load_plugins()
+            except PluginError as exc:
+                raise UsageError(f"pairlens: {exc}") from None
         args = build_parser(command).parse_args(argv)
         status = COMMANDS[args.command](args)
         for note in getattr(args, "table_notes", []):

@@ -34,6 +34,10 @@ SIGNIFICANCE_LEVEL = 0.05         # q-value below which a pair counts as signifi
 CLASS_CODE_MAX_LEVELS = 5
 CLASS_CODE_MIN_ROWS = 50
 
+# Comma-separated Python modules imported by the CLI, the server and its analysis children
+# before they read measure names; each registers measures of its own (pairlens.plugins).
+PLUGINS_ENV = "PAIRLENS_PLUGINS"
+
 # Limits ------------------------------------------------------------------
 MAX_UPLOAD_MB = 200
 # Bodies of requests other than uploads (JSON settings, forms) are small; a larger

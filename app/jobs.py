@@ -488,6 +488,10 @@ def main(argv: list[str] | None = None) -> int:
     except (OSError, AttributeError):
         pass
     _watch_parent(args.data_dir, args.analysis_id, os.getppid(), config.PARENT_POLL_SECONDS)
+    if os.environ.get(config.PLUGINS_ENV):
+        # the server that started this child offered the plugins' measures: the same modules here
+        from .plugins import load_plugins
+        load_plugins()
     try:
         status = run_job(args.data_dir, args.analysis_id, workers=args.workers, cluster=args.cluster)
     except (sqlite3.OperationalError, OSError) as exc:

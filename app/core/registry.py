@@ -8,7 +8,8 @@ reference tests.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+import re
+from dataclasses import dataclass, replace as replace_fields
 from typing import Callable
 
 import numpy as np
@@ -18,7 +19,8 @@ from .. import config
 from .results import TestResult
 from .testing import all_pairings, attainable_minimum, floor_pvalue, permutation_floor
 
-__all__ = ["PairContext", "Measure", "MEASURES", "get_measure", "measure_names", "parse_tests", "pvalue_floor"]
+__all__ = ["PairContext", "Measure", "MEASURES", "get_measure", "measure_names", "parse_tests", "pvalue_floor",
+           "register", "unregister"]
 
 
 @dataclass(frozen=True)
@@ -338,6 +340,103 @@ MEASURES: dict[str, Measure] = {
         ),
     )
 }
+
+
+_BUILT_IN = frozenset(MEASURES)
+_NAME = re.compile(r"[a-z][a-z0-9_]{0,31}")
+
+
+def register(measure: Measure, *, replace: bool = False) -> Measure:
+    """Add a measure to the registry; every face (CLI, API, pages, report) then offers it.
+
+    Parameters
+    ----------
+    measure : Measure
+        The entry: at least its name, labels, properties and ``compute``
+        (``(x, y, PairContext) -> TestResult``). Properties left at their
+        defaults (``role=""``, ``implied=None``, ``serial=None``) mean the
+        verdict does not read it, no Gaussian-implied value is shown and
+        ``--ordered`` keeps its independent-rows test.
+    replace : bool, default False
+        Allow replacing an entry of the same name.
+
+    Returns
+    -------
+    Measure
+        The registered entry, with its p-values floored at the attainable
+        permutation minimum when ``pairing_statistics`` is given.
+
+    Raises
+    ------
+    ValueError
+        A name that is not 1-32 lower-case letters, digits or underscores
+        starting with a letter, a name already taken, an empty ``tests``, or
+        bounds with ``lower >= upper``.
+
+    Notes
+    -----
+    Measures from other modules reach the server's analysis children and
+    ``pairlens`` commands through the ``PAIRLENS_PLUGINS`` environment
+    variable (see :mod:`pairlens.plugins`).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from pairlens.core.results import TestResult
+    >>> def _sign_agreement(x, y, ctx):
+    ...     s = np.sign(x - np.median(x)) * np.sign(y - np.median(y))
+    ...     return TestResult(float(s.mean()), float("nan"), "no test")
+    >>> entry = register(Measure(
+    ...     name="sign_demo", label="Sign agreement", family="rank", symmetric=True, signed=True,
+    ...     lower=-1.0, upper=1.0, multivariate=False, reflection="flips sign", default_test="none",
+    ...     tests=("none",), interval="", formula="mean of sign products", reference="-",
+    ...     compute=_sign_agreement))
+    >>> "sign_demo" in measure_names()
+    True
+    >>> unregister("sign_demo")
+    """
+    if not isinstance(measure, Measure):
+        raise TypeError("register() takes a pairlens.core.registry.Measure")
+    if not _NAME.fullmatch(measure.name):
+        raise ValueError(f"measure name {measure.name!r} must be 1-32 lower-case letters, digits or "
+                         "underscores, starting with a letter")
+    if measure.name in MEASURES and not replace:
+        raise ValueError(f"a measure named {measure.name!r} is already registered")
+    if not measure.tests:
+        raise ValueError(f"measure {measure.name!r} needs at least one test method in `tests`")
+    if not measure.lower < measure.upper:
+        raise ValueError(f"measure {measure.name!r}: lower bound {measure.lower} is not below upper {measure.upper}")
+    measure = replace_fields(measure, compute=_guarded(measure.compute, measure.name))
+    if measure.pairing_statistics is not None:
+        measure = replace_fields(measure, compute=_floored(measure.compute, measure.name))
+    MEASURES[measure.name] = measure
+    return measure
+
+
+def _guarded(compute, name: str):
+    """A registered kernel's result with its row count filled in, and its failures as a note.
+
+    A fault in a measure from outside the project gives NaN with the reason for
+    that measure and pair instead of stopping the analysis.
+    """
+    def run(x, y, ctx: PairContext) -> TestResult:
+        try:
+            res = compute(x, y, ctx)
+        except Exception as exc:  # noqa: BLE001 - any fault of an outside kernel, reported per pair
+            return TestResult(math.nan, math.nan, "", math.nan, math.nan, len(x),
+                              f"{name} failed on this pair: {type(exc).__name__}: {exc}")
+        if not isinstance(res, TestResult):
+            return TestResult(math.nan, math.nan, "", math.nan, math.nan, len(x),
+                              f"{name} returned {type(res).__name__}, not a TestResult")
+        return res if res.n else replace_fields(res, n=len(x))
+    return run
+
+
+def unregister(name: str) -> None:
+    """Remove a measure added with :func:`register` (the built-in ones stay)."""
+    if name in _BUILT_IN:
+        raise ValueError(f"{name!r} is a built-in measure and cannot be removed")
+    MEASURES.pop(name, None)
 
 
 def measure_names() -> tuple[str, ...]:
