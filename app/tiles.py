@@ -16,7 +16,7 @@ from typing import Sequence
 import numpy as np
 
 from . import config
-from .core import allpairs, chatterjee, distance, linear, rank
+from .core import allpairs
 from .core.registry import MEASURES, PairContext, get_measure, pvalue_floor
 from .core.results import TestResult, undefined
 from .core.testing import floor_pvalue, pair_seed
@@ -86,52 +86,18 @@ def compute_pair(data: np.ndarray, xvar: Variable, yvar: Variable, settings: Ana
     return rows
 
 
-def _distance_statistics(cache: dict, dist_inputs: tuple) -> "distance.DistanceStatistics":
-    """The pair's distance statistics, computed once for dCor, its bias-corrected form and Kendall."""
-    st = cache.get("distance")
-    if st is None:
-        st = cache["distance"] = distance.centred_statistics_presorted(*dist_inputs)
-    return st
-
-
-def _fast_measure(measure: str, work: tuple, swapped: bool, a: Variable, b: Variable,
-                  settings: AnalysisSettings, cache: dict) -> TestResult:
-    """One measure of a regular pair (>= 3 rows, no constant side) from the presorted orders.
-
-    Every branch finishes with the function the per-pair measure itself ends
-    with, on the same numbers, so the result is the per-pair result.
-    """
-    _, view, sums, counts, dist_inputs = work
-    n = view.n
-    av, bv = (view.y, view.x) if swapped else (view.x, view.y)
-    if measure == "spearman" and not rank.spearman_needs_rows(sums[1], sums[2], n):
-        # a small tied pair (SPEARMAN_TIED_PERMUTATION_MAX_N) takes the per-pair path: its permutation test needs the rows
-        return rank.spearman_from_sums(sums[0], sums[1], sums[2], n, confidence=settings.confidence)
-    if measure == "kendall":
-        d, tx, ty, txy, x3, x5, y3, y5 = counts
-        if d < 0:  # counted with the distance cross sum
-            d = _distance_statistics(cache, dist_inputs).discordant
-        kc = rank.KendallCounts(n, int(d), int(tx), int(ty), int(txy), float(x3), float(x5),
-                                float(y3), float(y5))
-        return rank.kendall_from_counts(kc, confidence=settings.confidence)
-    if measure in ("dcor", "dcor_bc") and n >= 4:
-        st = _distance_statistics(cache, dist_inputs)
-        # the seed only drives resamples; without them it is not drawn from
-        resamples = settings.permutations_for(measure)
-        seed = pair_seed(settings.seed, a.name, b.name, measure) if resamples else None
-        finish = distance.dcor_from_statistics if measure == "dcor" else distance.dcor_bc_from_statistics
-        return finish(st, permutations=resamples, seed=seed)
-    if measure == "xi":
-        seed = pair_seed(settings.seed, a.name, b.name, measure)
-        a_order, b_order = (view.y_order, view.x_order) if swapped else (view.x_order, view.y_order)
-        order = allpairs.xi_order(av, a_order, lambda: chatterjee.xi_tie_keys(seed, n))
-        r, l = allpairs.rank_counts(bv, b_order)
-        return chatterjee.xi_from_order(order, r, l, permutations=settings.permutations_for(measure), seed=seed)
-    if measure == "pearson" and linear.resolved_test(settings.test_for(measure), settings.permutations) != "permutation":
-        # the registry's call without the (unused) seed, past the screening this pair has passed
-        return linear.pearson_screened(av, bv, confidence=settings.confidence, test=settings.test_for(measure) or None)
-    # anything without a presorted form
-    return _compute_one(measure, av, bv, a.name, b.name, settings, False, False)
+def _presorted_measure(measure: str, pair: "allpairs.PresortedPair", a: Variable, b: Variable,
+                       settings: AnalysisSettings) -> TestResult:
+    """One measure of a regular pair (>= 3 rows, no constant side) by its entry's presorted hook,
+    else by its own function on the pair's rows."""
+    entry = MEASURES[measure]
+    if entry.presorted is not None:
+        ctx = PairContext(confidence=settings.confidence, permutations=settings.permutations,
+                          seed=pair_seed(settings.seed, a.name, b.name, measure), test=settings.test_for(measure))
+        res = entry.presorted(pair, ctx)
+        if res is not None:
+            return res
+    return _compute_one(measure, pair.x, pair.y, a.name, b.name, settings, False, False)
 
 
 def fast_pair_rows(prep: "allpairs.PreparedColumns", xvar: Variable, yvar: Variable,
@@ -143,20 +109,20 @@ def fast_pair_rows(prep: "allpairs.PreparedColumns", xvar: Variable, yvar: Varia
     if i is None or j is None or not (prep.finite[i] and prep.finite[j]):
         return None
     measures = settings.measures
-    work = allpairs.pair_work(prep, i, j, config.MIN_ROWS,
-                              spearman="spearman" in measures,
-                              kendall="kendall" in measures,
-                              distance="dcor" in measures or "dcor_bc" in measures)
-    if not work[0]:
+    needs = frozenset().union(*(MEASURES[m].presorted_needs for m in measures))
+    regular, view, sums, counts, dist_inputs = allpairs.pair_work(
+        prep, i, j, config.MIN_ROWS, spearman="rank_sums" in needs, kendall="kendall_counts" in needs,
+        distance="distance" in needs)
+    if not regular:
         return None  # degenerate pairs: every measure's own note, from the per-pair path
-    cache: dict = {}
+    pair = allpairs.PresortedPair(view, False, sums, counts, dist_inputs)
     rows: list[PairRow] = []
     for m in measures:
         for a, b, swapped in _directions(m, xvar, yvar):
-            res = _fast_measure(m, work, swapped, a, b, settings, cache)
+            seen = pair.direction(swapped)
+            res = _presorted_measure(m, seen, a, b, settings)
             if res.p_value == res.p_value:  # the registry's floor, as on the per-pair path
-                av, bv = (work[1].y, work[1].x) if swapped else (work[1].x, work[1].y)
-                res = floor_pvalue(res, pvalue_floor(MEASURES[m], av, bv))
+                res = floor_pvalue(res, pvalue_floor(MEASURES[m], seen.x, seen.y))
             rows.append(_pair_row(a, b, m, res))
     return rows
 

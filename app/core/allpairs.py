@@ -15,7 +15,7 @@ Memory: the prepared columns hold O(n p) numbers; each pair needs O(n) more.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numba
 import numpy as np
@@ -24,7 +24,7 @@ from .rank import exact_score_sums
 
 __all__ = ["PreparedColumns", "prepare_columns", "PairView", "pair_view", "spearman_sums",
            "kendall_order", "kendall_counts_view", "distance_orders", "xi_order", "rank_counts", "median_sorted",
-           "pair_work", "warm_kernels"]
+           "pair_work", "PresortedPair", "warm_kernels"]
 
 
 # --- compiled kernels ---------------------------------------------------------------
@@ -550,6 +550,60 @@ def pair_work(prep: PreparedColumns, i: int, j: int, min_rows: int, *, spearman:
         return False, view, None, None, None
     return (True, view, _rank_sums_as_floats(*sums) if spearman else None, counts if kendall else None,
             (xc, yc, order, y_order) if distance else None)
+
+
+@dataclass
+class PresortedPair:
+    """One regular pair's presorted parts, as a registry entry's ``presorted`` hook reads them.
+
+    ``x`` and ``y`` are the direction being measured (swapped for the reverse
+    direction of an asymmetric measure); the parts computed by
+    :func:`pair_work` are shared by every measure of the pair, and the
+    distance statistics are computed at most once.
+    """
+
+    view: PairView
+    swapped: bool
+    rank_sums: tuple | None
+    kendall_counts: tuple | None
+    distance_inputs: tuple | None
+    shared: dict = field(default_factory=dict)   # parts computed once per pair, whichever direction
+
+    @property
+    def n(self) -> int:
+        return self.view.n
+
+    @property
+    def x(self) -> np.ndarray:
+        return self.view.y if self.swapped else self.view.x
+
+    @property
+    def y(self) -> np.ndarray:
+        return self.view.x if self.swapped else self.view.y
+
+    @property
+    def x_order(self) -> np.ndarray:
+        return self.view.y_order if self.swapped else self.view.x_order
+
+    @property
+    def y_order(self) -> np.ndarray:
+        return self.view.x_order if self.swapped else self.view.y_order
+
+    def distance_statistics(self):
+        """The pair's centred distance statistics (dCor, its bias-corrected form, Kendall's discordances)."""
+        st = self.shared.get("distance")
+        if st is None:
+            from .distance import centred_statistics_presorted
+
+            st = self.shared["distance"] = centred_statistics_presorted(*self.distance_inputs)
+        return st
+
+    def direction(self, swapped: bool) -> "PresortedPair":
+        """The same parts seen from the other direction when ``swapped`` differs."""
+        if swapped == self.swapped:
+            return self
+        return PresortedPair(self.view, swapped, self.rank_sums, self.kendall_counts, self.distance_inputs,
+                             self.shared)
 
 
 def warm_kernels() -> None:

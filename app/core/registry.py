@@ -14,7 +14,7 @@ from typing import Callable
 
 import numpy as np
 
-from . import chatterjee, distance, linear, rank, serial
+from . import allpairs, chatterjee, distance, linear, rank, serial
 from .. import config
 from .results import TestResult
 from .testing import all_pairings, attainable_minimum, floor_pvalue, permutation_floor
@@ -76,6 +76,11 @@ class Measure:
     serial: Callable[[np.ndarray, np.ndarray, PairContext, TestResult], TestResult] | None = None
     serial_test: str = ""       # its description for the methods page and report
     serial_resamples: bool = False  # the serial test draws relabellings (counted in the work estimate)
+    # The engine's fast path: the measure from a pair's presorted columns, (pair, ctx) -> result, or
+    # None when this pair needs ``compute`` on its rows. ``presorted_needs`` names the parts of
+    # allpairs.pair_work it reads: "rank_sums", "kendall_counts", "distance".
+    presorted: Callable[["allpairs.PresortedPair", PairContext], TestResult | None] | None = None
+    presorted_needs: frozenset[str] = frozenset()
 
 
 def _pearson(x, y, ctx: PairContext) -> TestResult:
@@ -101,6 +106,47 @@ def _dcor_bc(x, y, ctx: PairContext) -> TestResult:
 
 def _xi(x, y, ctx: PairContext) -> TestResult:
     return chatterjee.xi(x, y, permutations=_resamples(ctx, "normal"), seed=ctx.seed)
+
+
+# -- presorted forms (the engine's fast path): each ends with the function its measure's own
+# compute ends with, on the same numbers, so the result is the per-pair result.
+
+def _pearson_presorted(pair: "allpairs.PresortedPair", ctx: PairContext) -> TestResult | None:
+    if linear.resolved_test(ctx.test, ctx.permutations) == "permutation":
+        return None  # resamples: the per-pair path draws them
+    return linear.pearson_screened(pair.x, pair.y, confidence=ctx.confidence, test=ctx.test or None)
+
+
+def _spearman_presorted(pair: "allpairs.PresortedPair", ctx: PairContext) -> TestResult | None:
+    sums = pair.rank_sums
+    if rank.spearman_needs_rows(sums[1], sums[2], pair.n):
+        return None  # a small tied pair: its permutation test needs the rows
+    return rank.spearman_from_sums(sums[0], sums[1], sums[2], pair.n, confidence=ctx.confidence)
+
+
+def _kendall_presorted(pair: "allpairs.PresortedPair", ctx: PairContext) -> TestResult | None:
+    d, tx, ty, txy, x3, x5, y3, y5 = pair.kendall_counts
+    if d < 0:  # counted with the distance cross sum
+        d = pair.distance_statistics().discordant
+    counts = rank.KendallCounts(pair.n, int(d), int(tx), int(ty), int(txy), float(x3), float(x5),
+                                float(y3), float(y5))
+    return rank.kendall_from_counts(counts, confidence=ctx.confidence)
+
+
+def _distance_presorted(finish):
+    def run(pair: "allpairs.PresortedPair", ctx: PairContext) -> TestResult | None:
+        if pair.n < 4:
+            return None
+        resamples = _resamples(ctx, "gamma")
+        # the seed only drives resamples; without them it is not drawn from
+        return finish(pair.distance_statistics(), permutations=resamples, seed=ctx.seed if resamples else None)
+    return run
+
+
+def _xi_presorted(pair: "allpairs.PresortedPair", ctx: PairContext) -> TestResult | None:
+    order = allpairs.xi_order(pair.x, pair.x_order, lambda: chatterjee.xi_tie_keys(ctx.seed, pair.n))
+    r, l = allpairs.rank_counts(pair.y, pair.y_order)
+    return chatterjee.xi_from_order(order, r, l, permutations=_resamples(ctx, "normal"), seed=ctx.seed)
 
 
 def _centred(v: np.ndarray) -> np.ndarray:
@@ -267,6 +313,7 @@ MEASURES: dict[str, Measure] = {
             compute=_floored(_pearson, "pearson"), pairing_statistics=_pearson_pairings,
             role="trend", short_label="Pearson r", implied=lambda rho: rho,
             serial=_serial_ess("pearson"), serial_test=_ESS_TEXT.format(law="t with n*-2 df"),
+            presorted=_pearson_presorted,
         ),
         Measure(
             name="spearman", label="Spearman rho", family="rank", symmetric=True, signed=True,
@@ -283,6 +330,7 @@ MEASURES: dict[str, Measure] = {
             compute=_floored(_spearman, "spearman"), pairing_statistics=_spearman_pairings,
             role="rank", short_label="Spearman rho", implied=lambda rho: 6.0 / math.pi * math.asin(rho / 2.0),
             serial=_serial_ess("spearman"), serial_test=_ESS_TEXT.format(law="on the ranks, t with n*-2 df"),
+            presorted=_spearman_presorted, presorted_needs=frozenset({"rank_sums"}),
         ),
         Measure(
             name="kendall", label="Kendall tau-b", family="rank", symmetric=True, signed=True,
@@ -297,6 +345,7 @@ MEASURES: dict[str, Measure] = {
             compute=_floored(_kendall, "kendall"), pairing_statistics=_kendall_pairings,
             role="rank", short_label="Kendall tau", implied=lambda rho: 2.0 / math.pi * math.asin(rho),
             serial=_serial_ess("kendall"), serial_test=_ESS_TEXT.format(law="on the ranks, normal with variance x n/n*"),
+            presorted=_kendall_presorted, presorted_needs=frozenset({"kendall_counts"}),
         ),
         Measure(
             name="dcor", label="Distance correlation", family="distance", symmetric=True, signed=False,
@@ -311,6 +360,7 @@ MEASURES: dict[str, Measure] = {
             compute=_floored(_dcor, "dcor"), pairing_statistics=_dcor_pairings,
             role="dependence", short_label="dCor", implied=lambda rho: float(distance.gaussian_dcor(rho)),
             serial=_serial_block("dcor"), serial_test=_BLOCK_TEXT, serial_resamples=True,
+            presorted=_distance_presorted(distance.dcor_from_statistics), presorted_needs=frozenset({"distance"}),
         ),
         Measure(
             name="dcor_bc", label="Bias-corrected dCor²", family="distance", symmetric=True, signed=True,
@@ -324,6 +374,7 @@ MEASURES: dict[str, Measure] = {
             compute=_floored(_dcor_bc, "dcor_bc"), pairing_statistics=_dcor_bc_pairings,
             role="dependence", short_label="bias-corrected dCor²", implied=lambda rho: float(distance.gaussian_dcor(rho)) ** 2,
             serial=_serial_block("dcor_bc"), serial_test=_BLOCK_TEXT, serial_resamples=True,
+            presorted=_distance_presorted(distance.dcor_bc_from_statistics), presorted_needs=frozenset({"distance"}),
         ),
         Measure(
             name="xi", label="Chatterjee ξ", family="rank", symmetric=False, signed=True,
@@ -337,6 +388,7 @@ MEASURES: dict[str, Measure] = {
             compute=_floored(_xi, "xi"), pairing_statistics=_xi_pairings,
             role="dependence", short_label="ξ(x → y)", implied=chatterjee.gaussian_xi,
             serial=_serial_block("xi"), serial_test=_BLOCK_TEXT, serial_resamples=True,
+            presorted=_xi_presorted,
         ),
     )
 }
