@@ -22,9 +22,31 @@ if _WORKER:
 from browser_helpers import chromium  # noqa: E402
 
 
+# Playwright's own default (30 s per click, wait or navigation) is a hang guard that a page
+# on a machine with both cores busy can exceed (a click once took longer at load 20); waits
+# are on state, so a larger guard costs nothing when the page is quick.
+HANG_GUARD_MS = 180_000
+
+
+class _PatientBrowser:
+    """The browser, whose new contexts wait up to HANG_GUARD_MS unless a call says otherwise."""
+
+    def __init__(self, browser) -> None:
+        self._browser = browser
+
+    def new_context(self, **options):
+        context = self._browser.new_context(**options)
+        context.set_default_timeout(HANG_GUARD_MS)
+        context.set_default_navigation_timeout(HANG_GUARD_MS)
+        return context
+
+    def __getattr__(self, name):
+        return getattr(self._browser, name)
+
+
 @pytest.fixture(scope="session")
 def browser():
     """One Debian Chromium per worker process; each test opens its own context (its own cookies,
     viewport and storage) and closes it."""
     with chromium() as b:
-        yield b
+        yield _PatientBrowser(b)
