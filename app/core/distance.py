@@ -27,7 +27,7 @@ from scipy import special as _special
 from .. import config
 from .results import TestResult, undefined
 
-__all__ = ["dcor", "dcor_bc", "gaussian_dcor", "distance_statistics", "DistanceStatistics",
+__all__ = ["dcor", "dcor_estimate", "dcor_bc", "gaussian_dcor", "distance_statistics", "DistanceStatistics",
            "METHODS", "centred_statistics_presorted", "dcor_from_statistics", "dcor_bc_from_statistics"]
 
 METHODS: tuple[str, ...] = ("auto", "fast", "blocked", "naive")
@@ -1397,6 +1397,38 @@ def dcor(x: np.ndarray, y: np.ndarray, *, method: str = "auto", permutations: in
         return undefined(n, reason)
     return dcor_from_statistics(distance_statistics(xa, ya, method=method), permutations=permutations,
                                 seed=seed)
+
+
+def dcor_estimate(x: np.ndarray, y: np.ndarray) -> float:
+    """Distance correlation alone, the same bits as ``dcor(x, y).estimate``, without its test.
+
+    For callers that read only the estimate (the verdict).
+
+    Parameters
+    ----------
+    x, y : numpy.ndarray
+        Paired samples as in :func:`dcor`.
+
+    Returns
+    -------
+    float
+        NaN where :func:`dcor` is undefined.
+
+    Examples
+    --------
+    >>> rng = np.random.default_rng(3)
+    >>> x = rng.normal(size=30)
+    >>> dcor_estimate(x, x ** 2) == dcor(x, x ** 2).estimate
+    True
+    """
+    xa, ya = _prepare(x, y)
+    if _degenerate(xa, ya, config.MIN_ROWS):
+        return math.nan
+    st = distance_statistics(xa, ya)
+    denom = math.sqrt(st.dvar2_x * st.dvar2_y)
+    if not denom > 0.0:
+        return math.nan
+    return min(math.sqrt(max(st.dcov2, 0.0) / denom), 1.0)
 
 
 def dcor_bc(x: np.ndarray, y: np.ndarray, *, method: str = "auto", permutations: int = 0,

@@ -19,6 +19,7 @@ from .testing import fisher_z_interval
 __all__ = [
     "midranks",
     "spearman",
+    "spearman_estimate",
     "spearman_matrix",
     "kendall",
     "KendallCounts",
@@ -702,6 +703,36 @@ def spearman(x: np.ndarray, y: np.ndarray, *, confidence: float = 0.95, seed=Non
     txy, txx, tyy = _join_sums(*exact_score_sums(ax, ay))
     return spearman_from_sums(txy / 4, txx / 4, tyy / 4, n, confidence=confidence,
                               x_scores=ax, y_scores=ay, seed=seed)
+
+
+def spearman_estimate(x: np.ndarray, y: np.ndarray) -> float:
+    """Spearman rho alone, the same bits as ``spearman(x, y).estimate``, without its test.
+
+    For callers that read only the estimate (the verdict): the test of a small
+    tied sample draws thousands of permutations.
+
+    Parameters
+    ----------
+    x, y : numpy.ndarray
+        1-D arrays of equal length; rows with NaN on either side are dropped.
+
+    Returns
+    -------
+    float
+        NaN where :func:`spearman` is undefined (fewer than 3 rows, a constant column).
+
+    Examples
+    --------
+    >>> x = np.array([1.0, 2.0, 2.0, 3.0, 5.0]); y = np.array([2.0, 1.0, 4.0, 4.0, 9.0])
+    >>> spearman_estimate(x, y) == spearman(x, y).estimate
+    True
+    """
+    x, y, degenerate = screen_pair(x, y, "")
+    if degenerate is not None:
+        return float(degenerate.estimate)
+    txy, txx, tyy = _join_sums(*exact_score_sums(_scores(x), _scores(y)))
+    rho = float((txy / 4) / math.sqrt((txx / 4) * (tyy / 4)))
+    return min(1.0, max(-1.0, rho))
 
 
 def spearman_from_sums(sum_xy: float, sum_xx: float, sum_yy: float, n: int, *,

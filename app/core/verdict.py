@@ -310,10 +310,10 @@ def _gather_data(ev: _Evidence, x, y, results, fit, *, with_fit: bool, q_known: 
         ev.est["pearson"] = _r_from_sums(dx, dy)
         ev.computed_here.append("pearson")
     if "spearman" not in ev.est and "kendall" not in ev.est:
-        ev.est["spearman"] = float(rank.spearman(xa, ya).estimate)
+        ev.est["spearman"] = rank.spearman_estimate(xa, ya)
         ev.computed_here.append("spearman")
     if "dcor" not in ev.est:
-        ev.est["dcor"] = float(distance.dcor(xa, ya).estimate)
+        ev.est["dcor"] = distance.dcor_estimate(xa, ya)
         ev.computed_here.append("dcor")
     ev.rank_equiv, ev.rank_source = _rank_equivalent(ev)
     r = ev.r
