@@ -246,6 +246,22 @@ def run_job(data_dir: str, analysis_id: str, *, workers: int | None = None, clus
         store.close()
 
 
+STANDBY = "-"
+
+
+def _prepare() -> None:
+    """What a standby process loads before it is given an analysis: the modules and compiled kernels."""
+    from . import engine, export, ingest, payloads  # noqa: F401 - imported for their start-up cost
+    from .core.registry import MEASURES
+    from .plan import AnalysisSettings
+    from .tiles import warm_kernels
+
+    try:
+        warm_kernels(AnalysisSettings.from_options(measures=",".join(MEASURES)))
+    except Exception:  # noqa: BLE001 - the analysis compiles what it needs itself
+        traceback.print_exc()
+
+
 def is_disk_full_exit(returncode: int | None) -> bool:
     return returncode == _DISK_FULL_EXIT
 
@@ -293,11 +309,14 @@ class JobManager:
         Worker processes each analysis may use (default: cores / max_concurrent).
     cluster : str, optional
         Dask scheduler address passed to the engine.
+    standby : bool
+        Keep one child process started ahead (imports done, kernels loaded) while no
+        analysis runs, and give it the next analysis.
     """
 
     def __init__(self, store: Store, *, max_concurrent: int = config.MAX_CONCURRENT_ANALYSES,
                  workers: int | None = None, cluster: str | None = None, poll_interval: float = 0.2,
-                 on_done: Callable[[str], None] | None = None) -> None:
+                 on_done: Callable[[str], None] | None = None, standby: bool = config.STANDBY_CHILD) -> None:
         self.store = store
         self.max_concurrent = max(1, int(max_concurrent))
         self.workers = workers or max(1, (os.cpu_count() or 1) // self.max_concurrent)
@@ -313,6 +332,10 @@ class JobManager:
         self._lock = threading.Lock()
         self._thread: threading.Thread | None = None
         self._last_sweep = time.monotonic()
+        # A child started ahead with the engine loaded, waiting for an analysis id on stdin:
+        # an analysis then starts without the interpreter's and the libraries' start-up.
+        self.standby = standby
+        self._spare: subprocess.Popen | None = None
 
     # Life cycle ---------------------------------------------------------------
 
@@ -331,6 +354,7 @@ class JobManager:
         self._wake.set()
         if self._thread is not None:
             self._thread.join(timeout)
+        self._stop_spare()
         with self._lock:
             procs = dict(self._procs)
             self._procs.clear()
@@ -396,6 +420,43 @@ class JobManager:
 
     # Dispatcher ---------------------------------------------------------------
 
+    def _start_spare(self) -> None:
+        try:
+            self._spare = subprocess.Popen(
+                _child_command(str(self.store.data_dir), STANDBY, self.workers, self.cluster),
+                env=_child_env(), stdin=subprocess.PIPE, stdout=subprocess.DEVNULL, process_group=0)
+        except OSError:
+            traceback.print_exc()
+            self._spare = None
+
+    def _take_spare(self, analysis_id: str) -> subprocess.Popen | None:
+        """The standby child, now running ``analysis_id``; None when there is none alive."""
+        spare, self._spare = self._spare, None
+        if spare is None or spare.poll() is not None:
+            return None
+        try:
+            spare.stdin.write(f"{analysis_id}\n".encode())  # type: ignore[union-attr]
+            spare.stdin.close()  # type: ignore[union-attr]
+        except OSError:
+            _kill_group(spare.pid)
+            _reap(spare, 2.0)
+            return None
+        return spare
+
+    def _stop_spare(self) -> None:
+        spare, self._spare = self._spare, None
+        if spare is None:
+            return
+        try:
+            spare.stdin.close()  # type: ignore[union-attr] - end of input: it exits without work
+        except OSError:
+            pass
+        try:
+            spare.wait(2.0)
+        except subprocess.TimeoutExpired:
+            _kill_group(spare.pid)
+            _reap(spare, 2.0)
+
     def _notify_done(self, analysis_id: str) -> None:
         try:
             self.on_done(analysis_id)  # type: ignore[misc]
@@ -459,6 +520,8 @@ class JobManager:
             active = set(self._procs)
         if free <= 0:
             return
+        if self._spare is not None and self._spare.poll() is not None:
+            self._spare = None  # it ended on its own (e.g. killed); a new one follows when idle
         queued = [r for r in self.store.list_analyses(status=("queued",), limit=1000)
                   if r.owner_token == self.token or r.owner_pid == os.getpid()]
         queued.sort(key=lambda r: r.created)
@@ -468,18 +531,26 @@ class JobManager:
             if row.id in active:
                 continue
             # its own process group, so the pool workers it forks are stopped with it
-            proc = subprocess.Popen(_child_command(str(self.store.data_dir), row.id, self.workers, self.cluster),
-                                    env=_child_env(), stdin=subprocess.DEVNULL, process_group=0)
+            proc = self._take_spare(row.id)
+            if proc is None:
+                proc = subprocess.Popen(_child_command(str(self.store.data_dir), row.id, self.workers,
+                                                       self.cluster),
+                                        env=_child_env(), stdin=subprocess.DEVNULL, process_group=0)
             with self._lock:
                 self._procs[row.id] = proc
             free -= 1
+        with self._lock:
+            idle = not self._procs
+        # started only while nothing runs, so it never takes a core from an analysis
+        if self.standby and idle and self._spare is None and not self._stop.is_set():
+            self._start_spare()
 
 
 def main(argv: list[str] | None = None) -> int:
     """Child-process entry point: ``python -m pairlens.jobs DATA_DIR ANALYSIS_ID``."""
     parser = argparse.ArgumentParser(prog="python -m pairlens.jobs", description="run one queued pairlens analysis")
     parser.add_argument("data_dir")
-    parser.add_argument("analysis_id")
+    parser.add_argument("analysis_id", help="the analysis to run; '-' waits for its id on stdin (standby)")
     parser.add_argument("--workers", type=int, default=None)
     parser.add_argument("--cluster", default=None)
     args = parser.parse_args(argv)
@@ -487,6 +558,12 @@ def main(argv: list[str] | None = None) -> int:
         os.nice(5)  # keep the web server responsive on small machines
     except (OSError, AttributeError):
         pass
+    if args.analysis_id == STANDBY:
+        _prepare()
+        line = sys.stdin.readline().strip()  # "" when the server closed the pipe or died: nothing to run
+        if not line:
+            return 0
+        args.analysis_id = line
     _watch_parent(args.data_dir, args.analysis_id, os.getppid(), config.PARENT_POLL_SECONDS)
     try:
         status = run_job(args.data_dir, args.analysis_id, workers=args.workers, cluster=args.cluster)
