@@ -397,6 +397,31 @@
     if (s) s.addEventListener("change", function () { form.submit(); });
   });
 
+  /* A pair's points arrive as base64 typed arrays (no float printing or parsing) and are kept
+     for the page's life, so a pair clicked again draws at once. */
+  var previews = {}, previewKeys = [], PREVIEW_KEEP = 40;
+  function unpack(b64, Type) {
+    var bin = window.atob(b64), bytes = new Uint8Array(bin.length);
+    for (var t = 0; t < bin.length; t++) bytes[t] = bin.charCodeAt(t);
+    return new Type(bytes.buffer);
+  }
+  function previewOf(x, y) {
+    var key = x + "\u0000" + y;
+    if (previews[key]) return Promise.resolve(previews[key]);
+    return fetch(api("/pair-preview", { x: x, y: y, points: "packed" }), { cache: "no-store" })
+      .then(function (r) { if (!r.ok) throw new Error("HTTP " + r.status); return r.json(); })
+      .then(function (d) {
+        var pts = d.points;
+        if (pts && pts.encoding === "base64-le") {
+          d.points = { x: unpack(pts.x, Float32Array), y: unpack(pts.y, Float32Array), rows: unpack(pts.rows, Int32Array) };
+        }
+        previews[key] = d;
+        previewKeys.push(key);
+        if (previewKeys.length > PREVIEW_KEEP) delete previews[previewKeys.shift()];
+        return d;
+      });
+  }
+
   /* The pinned pair: numbers at once, then the scatter, then the verdict ----------------- */
   var panel = { seq: 0 };
   function pin(i, j) {
@@ -421,8 +446,7 @@
     open.href = P.pairUrl(p.x, p.y);
     open.hidden = false;
     $("panel-verdict").textContent = "Verdict: being worked out…";
-    fetch(api("/pair-preview", { x: p.x, y: p.y }), { cache: "no-store" })
-      .then(function (r) { if (!r.ok) throw new Error("HTTP " + r.status); return r.json(); })
+    previewOf(p.x, p.y)
       .then(function (d) {
         if (seq !== panel.seq) return;
         drawScatter(d);
@@ -431,7 +455,10 @@
         if (d.complete && d.pattern) showVerdict(d.pattern);
         else return fetch(api("/pair", { x: p.x, y: p.y }), { cache: "no-store" })
           .then(function (r) { if (!r.ok) throw new Error("HTTP " + r.status); return r.json(); })
-          .then(function (full) { if (seq === panel.seq) showVerdict(full.pattern); });
+          .then(function (full) {
+            d.pattern = full.pattern; d.complete = true;  // the kept preview answers a second click whole
+            if (seq === panel.seq) showVerdict(full.pattern);
+          });
       })
       .catch(function (e) {
         if (seq !== panel.seq) return;
