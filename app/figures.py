@@ -731,9 +731,11 @@ def _matrix_svg(names: list[str], z: np.ndarray, stops: list, zmin: float, zmax:
     k = len(names)
     levels = 48
     lut = _scale_lut(stops, levels)
-    font = float(max(6, min(12, 360 / max(k, 1))))
-    side = float(max(360, min(1100, 22 * k)))       # the plot's square, in viewBox units
+    # the square grows with the columns, and the labels with the cells: at 18-40 columns a map
+    # half a 1400 px page wide shows them at 10-12 px
+    side = float(max(360, min(900, 16 * k)))        # the plot's square, in viewBox units
     cell = side / max(k, 1)
+    font = float(max(6, min(13, 0.85 * cell)))
     gap = 1.0 if k <= 40 else 0.0
     label = max((_text_width(n, font) for n in names), default=0.0) + 6
     label = min(label, 260.0)
