@@ -25,6 +25,7 @@ import math
 import argparse
 import os
 import secrets
+import select
 import signal
 import sqlite3
 import subprocess
@@ -247,12 +248,12 @@ def run_job(data_dir: str, analysis_id: str, *, workers: int | None = None, clus
 
 
 STANDBY = "-"
+READY = "ready"
 
 
 def _prepare() -> None:
     """What a standby process loads before it is given an analysis: the modules and compiled kernels."""
     from . import engine, export, ingest, payloads  # noqa: F401 - imported for their start-up cost
-    from .core.registry import MEASURES
     from .budget import estimate_work  # noqa: F401
     from .plan import AnalysisSettings, plan_variables  # noqa: F401
     from .tiles import warm_kernels
@@ -260,7 +261,7 @@ def _prepare() -> None:
     try:
         # the first read of a table pays for the parser's lazy set-up (1.8 s measured under load)
         ingest.load_bytes(b"a,b,c,d\n1,x,2024-01-01,0.5\n2,y,2024-01-02,\n3,z,2024-01-03,1.5\n", "warm.csv")
-        warm_kernels(AnalysisSettings.from_options(measures=",".join(MEASURES)))
+        warm_kernels(AnalysisSettings.from_options())  # the default measures; others compile when asked
     except Exception:  # noqa: BLE001 - the analysis compiles what it needs itself
         traceback.print_exc()
 
@@ -339,6 +340,7 @@ class JobManager:
         # an analysis then starts without the interpreter's and the libraries' start-up.
         self.standby = standby
         self._spare: subprocess.Popen | None = None
+        self._spare_ready = False
 
     # Life cycle ---------------------------------------------------------------
 
@@ -427,19 +429,38 @@ class JobManager:
         try:
             self._spare = subprocess.Popen(
                 _child_command(str(self.store.data_dir), STANDBY, self.workers, self.cluster),
-                env=_child_env(), stdin=subprocess.PIPE, stdout=subprocess.DEVNULL, process_group=0)
+                env=_child_env(), stdin=subprocess.PIPE, stdout=subprocess.PIPE, process_group=0)
+            self._spare_ready = False
         except OSError:
             traceback.print_exc()
             self._spare = None
 
-    def _take_spare(self, analysis_id: str) -> subprocess.Popen | None:
-        """The standby child, now running ``analysis_id``; None when there is none alive."""
-        spare, self._spare = self._spare, None
+    def _spare_is_ready(self) -> bool:
+        """True once the standby child has printed its ready line (read without blocking)."""
+        spare = self._spare
         if spare is None or spare.poll() is not None:
+            return False
+        if not self._spare_ready and select.select([spare.stdout], [], [], 0)[0]:
+            self._spare_ready = spare.stdout.readline().decode(errors="replace").strip() == READY  # type: ignore[union-attr]
+        return self._spare_ready
+
+    def _take_spare(self, analysis_id: str) -> subprocess.Popen | None:
+        """The standby child, now running ``analysis_id``; None when there is none ready.
+
+        A child still loading (a cold kernel cache can take a minute) is stopped rather
+        than waited for: a fresh child loads only what this analysis needs.
+        """
+        ready = self._spare_is_ready()
+        if not ready:
+            self._stop_spare()
+            return None
+        spare, self._spare = self._spare, None
+        if spare is None:
             return None
         try:
             spare.stdin.write(f"{analysis_id}\n".encode())  # type: ignore[union-attr]
             spare.stdin.close()  # type: ignore[union-attr]
+            spare.stdout.close()  # type: ignore[union-attr]
         except OSError:
             _kill_group(spare.pid)
             _reap(spare, 2.0)
@@ -451,14 +472,19 @@ class JobManager:
         if spare is None:
             return
         try:
-            spare.stdin.close()  # type: ignore[union-attr] - end of input: it exits without work
+            spare.stdin.close()  # type: ignore[union-attr] - end of input: a ready child exits without work
         except OSError:
             pass
-        try:
-            spare.wait(2.0)
-        except subprocess.TimeoutExpired:
+        if self._spare_ready:
+            try:
+                spare.wait(2.0)
+            except subprocess.TimeoutExpired:
+                pass
+        if spare.poll() is None:  # still loading: it would only read its end of input later
             _kill_group(spare.pid)
             _reap(spare, 2.0)
+        if spare.stdout is not None:
+            spare.stdout.close()
 
     def _notify_done(self, analysis_id: str) -> None:
         try:
@@ -563,6 +589,11 @@ def main(argv: list[str] | None = None) -> int:
         pass
     if args.analysis_id == STANDBY:
         _prepare()
+        print(READY, flush=True)  # the server hands over an analysis only after this line
+        # nobody reads the pipe from now on: later output must not fill it and block
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        os.close(devnull)
         line = sys.stdin.readline().strip()  # "" when the server closed the pipe or died: nothing to run
         if not line:
             return 0
