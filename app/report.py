@@ -255,15 +255,17 @@ def _rankings(pt: PairTable, top_k: int) -> list[Ranking]:
 def map_hover(pt: PairTable, measure: str, order: list[int]) -> dict:
     """The numbers a heatmap cell shows on hover, already written by the one formatter.
 
-    Cells run row by row over the full k x k grid in plotted order (the diagonal is
-    empty); rows hold x and columns y, as in :func:`pairlens.figures.heatmap_svg`.
+    Cells run row by row in plotted order: the upper triangle (i < j) of a symmetric
+    measure, else every cell off the diagonal (None on it); rows hold x and columns y,
+    as in :func:`pairlens.figures.heatmap_svg`.
     """
     idx = np.asarray(order, dtype=int)
     fields = {f: pt.matrix(measure, f)[np.ix_(idx, idx)] for f in ("estimate", "p_value", "q_value", "n")}
     k = len(idx)
+    symmetric = MEASURES[measure].symmetric
     cells = []
     for i in range(k):
-        for j in range(k):
+        for j in range(i + 1 if symmetric else 0, k):
             if i == j:
                 cells.append(None)
                 continue
@@ -284,9 +286,8 @@ def difference_hover(pt: PairTable, a: str, b: str, order: list[int]) -> dict:
         mb = np.fmax(mb, mb.T)
     ma, mb = ma[np.ix_(idx, idx)], mb[np.ix_(idx, idx)]
     k = len(idx)
-    cells = [None if i == j else [fmt_estimate(ma[i, j]), fmt_estimate(mb[i, j]),
-                                  fmt_estimate(ma[i, j] - abs(mb[i, j]))]
-             for i in range(k) for j in range(k)]
+    cells = [[fmt_estimate(ma[i, j]), fmt_estimate(mb[i, j]), fmt_estimate(ma[i, j] - abs(mb[i, j]))]
+             for i in range(k) for j in range(i + 1, k)]  # the upper triangle, as map_hover
     return {"label": f"{MEASURES[a].label} − |{MEASURES[b].label}|", "difference": True,
             "labels": [MEASURES[a].label, MEASURES[b].label], "symmetric": True, "cells": cells}
 

@@ -32,7 +32,10 @@
   function tipLines(id, c) {
     var map = hover.maps[id];
     var names = hover.variables;
-    var cell = map && map.cells[c.i * c.k + c.j];
+    if (!map) { return null; }
+    // symmetric maps keep the upper triangle only (i < j), row by row
+    var a = Math.min(c.i, c.j), b = Math.max(c.i, c.j);
+    var cell = map.symmetric ? map.cells[a * c.k - a * (a + 1) / 2 + (b - a - 1)] : map.cells[c.i * c.k + c.j];
     if (!cell) { return null; }
     var rowName = names[c.i], colName = names[c.j];
     if (map.difference) {
