@@ -313,14 +313,14 @@ class JobManager:
         Worker processes each analysis may use (default: cores / max_concurrent).
     cluster : str, optional
         Dask scheduler address passed to the engine.
-    standby : bool
-        Keep one child process started ahead (imports done, kernels loaded) while no
+    standby : bool, optional
+        Default ``config.STANDBY_CHILD``. Keep one child process started ahead (imports done, kernels loaded) while no
         analysis runs, and give it the next analysis.
     """
 
     def __init__(self, store: Store, *, max_concurrent: int = config.MAX_CONCURRENT_ANALYSES,
                  workers: int | None = None, cluster: str | None = None, poll_interval: float = 0.2,
-                 on_done: Callable[[str], None] | None = None, standby: bool = config.STANDBY_CHILD) -> None:
+                 on_done: Callable[[str], None] | None = None, standby: bool | None = None) -> None:
         self.store = store
         self.max_concurrent = max(1, int(max_concurrent))
         self.workers = workers or max(1, (os.cpu_count() or 1) // self.max_concurrent)
@@ -338,7 +338,7 @@ class JobManager:
         self._last_sweep = time.monotonic()
         # A child started ahead with the engine loaded, waiting for an analysis id on stdin:
         # an analysis then starts without the interpreter's and the libraries' start-up.
-        self.standby = standby
+        self.standby = config.STANDBY_CHILD if standby is None else standby
         self._spare: subprocess.Popen | None = None
         self._spare_ready = False
 
