@@ -112,12 +112,18 @@
 
   /* Small multiples -------------------------------------------------------------------- */
   var thumbs = Array.prototype.slice.call(document.querySelectorAll(".thumb"));
-  function drawThumbs() {
-    thumbs.forEach(function (fig) {
+  // Every width is read before any canvas is resized: a read after a write forces the browser
+  // to lay the page out again, once per small map (hundreds of ms on a busy machine).
+  function thumbWidths() {
+    return thumbs.map(function (fig) { return Math.max(60, Math.floor(fig.clientWidth - 10)); });
+  }
+  function drawThumbs(widths) {
+    widths = widths || thumbWidths();
+    thumbs.forEach(function (fig, t) {
       var m = maps[fig.dataset.map];
       if (!m) return;
       var canvas = fig.querySelector("canvas");
-      var w = Math.max(60, Math.floor(fig.clientWidth - 10));
+      var w = widths[t];
       var ctx = sizeCanvas(canvas, w, w);
       ctx.drawImage(image(m), 0, 0, k, k, 0, 0, w, w);
       fig.dataset.ready = "1";
@@ -579,8 +585,9 @@
     variables: vars, state: state, pin: pin, setView: setView, show: function (key) { state.map = key; drawFocus(); }
   };
 
+  var firstWidths = thumbWidths();  // with the large map's geometry: one layout for both
   drawFocus();
-  window.requestAnimationFrame(drawThumbs);  // the large map first; the small ones one frame later
+  drawThumbs(firstWidths);  // a few ms: waiting a frame for them cost more on a busy machine than drawing them
   var resizeTimer = null;
   window.addEventListener("resize", function () {
     window.clearTimeout(resizeTimer);
