@@ -444,18 +444,20 @@ class JobManager:
             self._spare_ready = spare.stdout.readline().decode(errors="replace").strip() == READY  # type: ignore[union-attr]
         return self._spare_ready
 
-    def _take_spare(self, analysis_id: str) -> subprocess.Popen | None:
-        """The standby child, now running ``analysis_id``; None when there is none ready.
+    def _take_spare(self, analysis_id: str, measures) -> subprocess.Popen | None:
+        """The standby child, now running ``analysis_id``; None when there is none to take.
 
-        A child still loading (a cold kernel cache can take a minute) is stopped rather
-        than waited for: a fresh child loads only what this analysis needs.
+        A child still loading is given the analysis when it loads exactly what the
+        analysis needs (the default measures' kernels): it started before any fresh
+        child could. For other measures it is stopped, since a fresh child loads only
+        what they need (a cold kernel cache can take a minute under load).
         """
         ready = self._spare_is_ready()
-        if not ready:
+        if not ready and tuple(measures or ()) != tuple(config.DEFAULT_MEASURES):
             self._stop_spare()
             return None
         spare, self._spare = self._spare, None
-        if spare is None:
+        if spare is None or spare.poll() is not None:
             return None
         try:
             spare.stdin.write(f"{analysis_id}\n".encode())  # type: ignore[union-attr]
@@ -560,7 +562,7 @@ class JobManager:
             if row.id in active:
                 continue
             # its own process group, so the pool workers it forks are stopped with it
-            proc = self._take_spare(row.id)
+            proc = self._take_spare(row.id, (row.settings or {}).get("measures"))
             if proc is None:
                 proc = subprocess.Popen(_child_command(str(self.store.data_dir), row.id, self.workers,
                                                        self.cluster),
@@ -589,7 +591,10 @@ def main(argv: list[str] | None = None) -> int:
         pass
     if args.analysis_id == STANDBY:
         _prepare()
-        print(READY, flush=True)  # the server hands over an analysis only after this line
+        try:
+            print(READY, flush=True)  # the server may hand over an analysis before it reads this line
+        except OSError:  # it has closed the pipe: it gave us an analysis without waiting
+            pass
         # nobody reads the pipe from now on: later output must not fill it and block
         devnull = os.open(os.devnull, os.O_WRONLY)
         os.dup2(devnull, sys.stdout.fileno())
