@@ -11,7 +11,6 @@ from __future__ import annotations
 
 import base64
 import hashlib
-import html
 import math
 import os
 from concurrent.futures import ThreadPoolExecutor
