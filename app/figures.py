@@ -39,6 +39,9 @@ __all__ = [
     "difference_figure",
     "pair_figure",
     "rank_figure",
+    "heatmap_svg",
+    "difference_svg",
+    "pair_svg",
 ]
 
 
@@ -650,3 +653,348 @@ def series_figure(detail: dict) -> dict | None:
         },
     }
     return {"series": {"data": traces, "layout": layout}, "xcorr": xcorr}
+
+
+# Static SVG -------------------------------------------------------------------
+# The saved report draws its figures as SVG written here: no plotting library in
+# the file (Plotly alone is 3.5 MB), the figures show with scripts off, and a
+# browser opens the page at once. The same colour scales and fitted lines as
+# the Plotly figures above; hover and click come from the report's own script.
+
+_SVG_NS = 'xmlns="http://www.w3.org/2000/svg"'
+
+
+def _esc(text) -> str:
+    return html.escape(str(text), quote=True)
+
+
+def _parse_rgb(colour: str) -> tuple[float, float, float]:
+    c = str(colour).strip()
+    if c.startswith("#"):
+        return tuple(int(c[i:i + 2], 16) for i in (1, 3, 5))  # type: ignore[return-value]
+    parts = c[c.index("(") + 1:c.index(")")].split(",")
+    return tuple(float(p) for p in parts[:3])  # type: ignore[return-value]
+
+
+def _scale_lut(stops: list, levels: int) -> list[str]:
+    """``levels`` hex colours evenly spaced along a colour scale's stops (linear in RGB between stops)."""
+    pos = np.array([float(s[0]) for s in stops])
+    rgb = np.array([_parse_rgb(s[1]) for s in stops])
+    t = np.linspace(0.0, 1.0, levels)
+    out = np.column_stack([np.interp(t, pos, rgb[:, c]) for c in range(3)])
+    return ["#%02x%02x%02x" % tuple(int(round(v)) for v in row) for row in out]
+
+
+def _text_width(text: str, size: float) -> float:
+    # about 0.58 em per character for the sans-serif faces of _FONT (common practice)
+    return 0.58 * size * len(str(text))
+
+
+def _nice_ticks(lo: float, hi: float, count: int = 6) -> list[float]:
+    if not (math.isfinite(lo) and math.isfinite(hi)) or hi <= lo:
+        return [lo] if math.isfinite(lo) else []
+    raw = (hi - lo) / max(count, 1)
+    step = 10 ** math.floor(math.log10(raw))
+    for m in (1, 2, 5, 10):
+        if raw <= step * m:
+            step *= m
+            break
+    first = math.ceil(lo / step) * step
+    ticks = []
+    v = first
+    while v <= hi + step * 1e-9:
+        ticks.append(0.0 if abs(v) < step * 1e-9 else v)
+        v += step
+    return ticks
+
+
+def _tick_text(v: float) -> str:
+    a = abs(v)
+    if a != 0 and (a >= 1e5 or a < 1e-3):
+        return f"{v:.1e}"
+    return f"{v:.6g}"
+
+
+def _n(v: float) -> str:
+    """A coordinate with one decimal (a tenth of a pixel is below what a screen shows)."""
+    text = f"{v:.1f}"
+    return text[:-2] if text.endswith(".0") else text
+
+
+def _matrix_svg(names: list[str], z: np.ndarray, stops: list, zmin: float, zmax: float, title: str,
+                dots: np.ndarray | None, testid: str) -> str:
+    """One heatmap: row i, column j is ``z[i, j]``; a dot where ``dots`` is True.
+
+    Cells are drawn as one path per colour level (48 levels), so a map costs a few
+    bytes per cell; the exact numbers are in the hover text and the pair table.
+    """
+    k = len(names)
+    levels = 48
+    lut = _scale_lut(stops, levels)
+    # the square grows with the columns, and the labels with the cells: at 18-40 columns a map
+    # half a 1400 px page wide shows them at 10-12 px
+    side = float(max(360, min(900, 16 * k)))        # the plot's square, in viewBox units
+    cell = side / max(k, 1)
+    font = float(max(6, min(13, 0.85 * cell)))
+    gap = 1.0 if k <= 40 else 0.0
+    label = max((_text_width(n, font) for n in names), default=0.0) + 6
+    label = min(label, 260.0)
+    left, top, bar = label, 30.0, 70.0
+    bottom = label
+    width, height = left + side + bar, top + side + bottom
+    paths: dict[int, list[str]] = {}
+    zz = np.asarray(z, dtype=float)
+    span = (zmax - zmin) or 1.0
+    for i in range(k):
+        for j in range(k):
+            v = zz[i, j]
+            if i == j or not math.isfinite(v):
+                continue
+            level = int(round((min(max(v, zmin), zmax) - zmin) / span * (levels - 1)))
+            paths.setdefault(level, []).append(
+                f"M{_n(left + j * cell)} {_n(top + i * cell)}h{_n(cell - gap)}v{_n(cell - gap)}h-{_n(cell - gap)}z")
+    parts = [f'<svg {_SVG_NS} class="svg-fig svg-map" viewBox="0 0 {_n(width)} {_n(height)}" '
+             f'data-testid="{_esc(testid)}" data-map-left="{_n(left)}" data-map-top="{_n(top)}" '
+             f'data-map-side="{_n(side)}" data-map-k="{k}" role="img" aria-label="{_esc(title)}" '
+             f'font-family="{_esc(_FONT)}" fill="{_INK}">',
+             f'<text x="{_n(left)}" y="18" font-size="14">{_esc(title)}</text>',
+             f'<rect x="{_n(left)}" y="{_n(top)}" width="{_n(side)}" height="{_n(side)}" fill="#eef1f2"/>']
+    # the diagonal: a variable against itself
+    diag = "".join(f"M{_n(left + i * cell)} {_n(top + i * cell)}h{_n(cell - gap)}v{_n(cell - gap)}h-{_n(cell - gap)}z"
+                   for i in range(k))
+    parts.append(f'<path fill="#e9e6df" d="{diag}"/>')
+    for level in sorted(paths):
+        parts.append(f'<path fill="{lut[level]}" d="{"".join(paths[level])}"/>')
+    if dots is not None and dots.any():
+        r = max(1.0, min(3.5, cell * 0.16))
+        d = "".join(f"M{_n(left + (j + 0.5) * cell - gap / 2)} {_n(top + (i + 0.5) * cell - gap / 2)}h0"
+                    for i, j in zip(*np.nonzero(dots)))
+        parts.append(f'<path class="sig-dots" stroke="rgba(20,20,20,0.8)" stroke-width="{_n(2 * r + 1.2)}" '
+                     f'stroke-linecap="round" d="{d}"/>')
+        parts.append(f'<path stroke="#ffffff" stroke-width="{_n(2 * r)}" stroke-linecap="round" d="{d}"/>')
+    # labels: rows on the left, columns under the map (turned upright)
+    rows = []
+    for i, n in enumerate(names):
+        y = top + (i + 0.5) * cell + font * 0.35
+        rows.append(f'<text x="{_n(left - 4)}" y="{_n(y)}">{_esc(n)}</text>')
+    parts.append(f'<g class="row-labels" font-size="{_n(font)}" text-anchor="end">{"".join(rows)}</g>')
+    cols = []
+    for j, n in enumerate(names):
+        x = left + (j + 0.5) * cell + font * 0.35
+        y = top + side + 4
+        cols.append(f'<text transform="translate({_n(x)} {_n(y)}) rotate(-90)">{_esc(n)}</text>')
+    parts.append(f'<g class="col-labels" font-size="{_n(font)}" text-anchor="end">{"".join(cols)}</g>')
+    # colour bar
+    bx, bh = left + side + 16, side * 0.8
+    by = top + (side - bh) / 2
+    steps = 24
+    for s in range(steps):
+        level = int(round((steps - 1 - s) / (steps - 1) * (levels - 1)))
+        parts.append(f'<rect x="{_n(bx)}" y="{_n(by + s * bh / steps)}" width="10" height="{_n(bh / steps + 0.5)}" '
+                     f'fill="{lut[level]}"/>')
+    for v in _nice_ticks(zmin, zmax, 4):
+        y = by + (zmax - v) / span * bh
+        parts.append(f'<text x="{_n(bx + 14)}" y="{_n(y + 3.5)}" font-size="10">{_esc(_tick_text(v))}</text>')
+    parts.append("</svg>")
+    return "".join(parts)
+
+
+def _order_names(table, order: Sequence[int] | None) -> tuple[list[int], list[str]]:
+    k = len(table.variables)
+    order = list(range(k)) if order is None else [int(i) for i in order]
+    return order, [table.variables[i] for i in order]
+
+
+def heatmap_svg(table, measure: str, *, order: Sequence[int] | None = None,
+                alpha: float = config.SIGNIFICANCE_LEVEL) -> str:
+    """The heatmap of one measure as a static SVG element (see :func:`heatmap_figure` for the content).
+
+    Parameters
+    ----------
+    table : pairlens.pairtable.PairTable
+    measure : str
+        A measure in ``table.measures``.
+    order : sequence of int, optional
+        Order of the variables (indices into ``table.variables``).
+    alpha : float
+        Cells whose q-value is below ``alpha`` get a dot.
+
+    Returns
+    -------
+    str
+        ``<svg>`` markup with every name escaped; rows hold x and columns y (the
+        x → y direction for an asymmetric measure). ``data-map-*`` attributes give
+        the grid's place in the viewBox, for the report script's hover and click.
+    """
+    order, names = _order_names(table, order)
+    idx = np.asarray(order, dtype=int)
+    z = table.matrix(measure)[np.ix_(idx, idx)]
+    q = table.matrix(measure, "q_value")[np.ix_(idx, idx)]
+    scale, zmin, zmax = colour_range(measure)
+    stops = _scale_stops(measure) if isinstance(scale, str) else scale
+    with np.errstate(invalid="ignore"):
+        dots = np.isfinite(q) & (q < alpha)
+    np.fill_diagonal(dots, False)
+    return _matrix_svg(names, z, stops, zmin, zmax, MEASURES[measure].label, dots, f"heatmap-{measure}")
+
+
+def difference_svg(table, measure_a: str, measure_b: str, *, order: Sequence[int] | None = None) -> str:
+    """The map of ``measure_a − |measure_b|`` (as :func:`difference_figure`) as a static SVG element."""
+    fig = difference_figure(table, measure_a, measure_b, order=order, top=0, hover="template")
+    heat = fig["data"][0]
+    z = np.array([[np.nan if v is None else v for v in row] for row in heat["z"]], dtype=float)
+    la, lb = MEASURES[measure_a].label, MEASURES[measure_b].label
+    return _matrix_svg(fig["layout"]["meta"]["variables"], z, SIGNED_SCALE, heat["zmin"], heat["zmax"],
+                       f"{la} − |{lb}|", None, f"difference-{measure_a}-{measure_b}")
+
+
+def _clean_xy(trace: dict) -> tuple[np.ndarray, np.ndarray]:
+    x = np.array([np.nan if v is None else v for v in trace.get("x") or []], dtype=float)
+    y = np.array([np.nan if v is None else v for v in trace.get("y") or []], dtype=float)
+    return x, y
+
+
+def pair_svg(fig: dict, *, width: float = 560.0, height: float = 470.0, testid: str = "report-scatter") -> str:
+    """A :func:`pair_figure` dict as a static SVG: points, Gaussian ellipses, band and mean, marginals.
+
+    Parameters
+    ----------
+    fig : dict
+        Output of :func:`pair_figure` (trace 0 the points; the density layer is not drawn).
+    width, height : float
+        Size of the viewBox; the element scales to its container.
+
+    Returns
+    -------
+    str
+        ``<svg>`` markup. Lines are cut at the plot's edges in Python (a clip path
+        would need a ``url()`` reference in the page). ``data-x-range`` and
+        ``data-y-range`` give the axis ranges, ``data-points`` the drawn count.
+    """
+    data = fig.get("data") or []
+    meta = (fig.get("layout") or {}).get("meta") or {}
+    px, py = _clean_xy(data[0]) if data else (np.array([]), np.array([]))
+    ok = np.isfinite(px) & np.isfinite(py)
+    px, py = px[ok], py[ok]
+    lines = [t for t in data[1:] if t.get("type") == "scatter" and t.get("mode") == "lines"]
+    xs = [px] + [_clean_xy(t)[0] for t in lines if t.get("legendgroup") == "ellipses"]
+    ys = [py] + [_clean_xy(t)[1] for t in lines if t.get("legendgroup") == "ellipses"]
+    allx, ally = np.concatenate(xs), np.concatenate(ys)
+    allx, ally = allx[np.isfinite(allx)], ally[np.isfinite(ally)]
+
+    def rng(v):
+        if v.size == 0:
+            return 0.0, 1.0
+        lo, hi = float(v.min()), float(v.max())
+        pad = 0.05 * (hi - lo) if hi > lo else max(abs(lo) * 0.05, 0.5)
+        return lo - pad, hi + pad
+
+    (xlo, xhi), (ylo, yhi) = rng(allx), rng(ally)
+    left, right, top, bottom = 64.0, 12.0, 12.0, 86.0
+    marg = 0.17 * min(width, height)                 # marginal histograms above and to the right
+    pw, ph = width - left - right - marg - 6, height - top - bottom - marg - 6
+    ox, oy = left, top + marg + 6
+
+    def X(v):
+        return ox + (v - xlo) / (xhi - xlo) * pw
+
+    def Y(v):
+        return oy + ph - (v - ylo) / (yhi - ylo) * ph
+
+    parts = [f'<svg {_SVG_NS} class="svg-fig svg-pair" viewBox="0 0 {_n(width)} {_n(height)}" '
+             f'data-testid="{_esc(testid)}" data-points="{int(px.size)}" '
+             f'data-x-range="{xlo!r} {xhi!r}" data-y-range="{ylo!r} {yhi!r}" '
+             f'data-plot="{_n(ox)} {_n(oy)} {_n(pw)} {_n(ph)}" role="img" '
+             f'aria-label="{_esc("Scatter of " + str(meta.get("y", "")) + " against " + str(meta.get("x", "")))}" '
+             f'font-family="{_esc(_FONT)}" fill="{_INK}" font-size="11">',
+             f'<rect x="{_n(ox)}" y="{_n(oy)}" width="{_n(pw)}" height="{_n(ph)}" fill="#fbfcfc" stroke="#d5dadd"/>']
+    grid, ticks = [], []
+    for v in _nice_ticks(xlo, xhi, 6):
+        x = X(v)
+        grid.append(f"M{_n(x)} {_n(oy)}v{_n(ph)}")
+        ticks.append(f'<text x="{_n(x)}" y="{_n(oy + ph + 14)}" text-anchor="middle">{_esc(_tick_text(v))}</text>')
+    for v in _nice_ticks(ylo, yhi, 6):
+        y = Y(v)
+        grid.append(f"M{_n(ox)} {_n(y)}h{_n(pw)}")
+        ticks.append(f'<text x="{_n(ox - 5)}" y="{_n(y + 3.5)}" text-anchor="end">{_esc(_tick_text(v))}</text>')
+    parts.append(f'<path stroke="#e3e7e9" d="{"".join(grid)}"/>')
+    parts.append("".join(ticks))
+    xl, yl = str(meta.get("x", "x")), str(meta.get("y", "y"))
+    parts.append(f'<text x="{_n(ox + pw / 2)}" y="{_n(oy + ph + 32)}" text-anchor="middle" font-size="12">'
+                 f'{_esc(xl)}</text>')
+    parts.append(f'<text transform="translate({_n(16)} {_n(oy + ph / 2)}) rotate(-90)" text-anchor="middle" '
+                 f'font-size="12">{_esc(yl)}</text>')
+    legend = []
+    for t in lines:
+        tx, ty = _clean_xy(t)
+        keep = np.isfinite(tx) & np.isfinite(ty)
+        tx, ty = tx[keep], ty[keep]
+        if tx.size < 2:
+            continue
+        if t.get("fill") == "toself":  # the band: clamp to the plot so it ends at its edges
+            pts = " ".join(f"{_n(X(min(max(a, xlo), xhi)))},{_n(Y(min(max(b, ylo), yhi)))}" for a, b in zip(tx, ty))
+            parts.append(f'<polygon points="{pts}" fill="{_BAND}" stroke="none"/>')
+            legend.append(("band", t.get("name", "")))
+            continue
+        inside = (tx >= xlo) & (tx <= xhi) & (ty >= ylo) & (ty <= yhi)
+        if t.get("legendgroup") != "ellipses":
+            tx, ty = tx[inside], ty[inside]   # the straight mean line: its part inside the plot
+        if tx.size < 2:
+            continue
+        line = t.get("line") or {}
+        dash = ' stroke-dasharray="2 3"' if line.get("dash") == "dot" else ""
+        d = "M" + "L".join(f"{_n(X(a))} {_n(Y(b))}" for a, b in zip(tx, ty))
+        parts.append(f'<path d="{d}" fill="none" stroke="{line.get("color", _FIT)}" '
+                     f'stroke-width="{line.get("width", 1.5)}"{dash}/>')
+        if t.get("legendgroup") != "ellipses" or not any(k == "ellipse" for k, _ in legend):
+            legend.append(("ellipse" if t.get("legendgroup") == "ellipses" else "mean", t.get("name", "")))
+    # points: one path of zero-length segments with round caps, a few bytes each
+    size = 4.0 if px.size > 2000 else 5.0
+    d = "".join(f"M{_n(X(a))} {_n(Y(b))}h0" for a, b in zip(px, py))
+    parts.append(f'<path class="points" d="{d}" stroke="#1f4e60" stroke-opacity="0.55" '
+                 f'stroke-width="{_n(size)}" stroke-linecap="round"/>')
+    # marginal histograms
+    bins = int(min(60, max(10, math.sqrt(max(px.size, 1)))))
+    for values, lo, hi, horizontal in ((px, xlo, xhi, False), (py, ylo, yhi, True)):
+        if values.size == 0:
+            continue
+        counts, edges = np.histogram(values, bins=bins, range=(lo, hi))
+        top_count = max(int(counts.max()), 1)
+        bars = []
+        for c, a, b in zip(counts, edges[:-1], edges[1:]):
+            if c == 0:
+                continue
+            length = c / top_count * (marg - 4)
+            if horizontal:
+                y0, y1 = Y(b), Y(a)
+                bars.append(f"M{_n(ox + pw + 6)} {_n(y0)}h{_n(length)}v{_n(max(y1 - y0 - 0.6, 0.4))}"
+                            f"h-{_n(length)}z")
+            else:
+                x0, x1 = X(a), X(b)
+                bars.append(f"M{_n(x0)} {_n(oy - 6)}v-{_n(length)}h{_n(max(x1 - x0 - 0.6, 0.4))}"
+                            f"v{_n(length)}z")
+        parts.append(f'<path fill="rgba(31, 78, 96, 0.6)" d="{"".join(bars)}"/>')
+    # legend under the x-axis title
+    ly = oy + ph + 52
+    lx = ox
+    entries = [("points", str(data[0].get("name", "rows")) if data else "rows")] + legend
+    ellipse_names = ", ".join(t["name"].split()[1] for t in lines if t.get("legendgroup") == "ellipses")
+    for kind, name in entries:
+        if kind == "ellipse":
+            name = f"Gaussian ellipses ({ellipse_names})"
+        text = html.unescape(str(name))  # the figure's names are escaped for Plotly; _esc escapes again
+        wide = 16 + 1.1 * _text_width(text, 10) + 12
+        if lx > ox and lx + wide > width - 4:  # the next line when the entry would run off the figure
+            lx, ly = ox, ly + 14
+        if kind == "points":
+            mark = f'<circle cx="{_n(lx + 5)}" cy="{_n(ly - 4)}" r="3" fill="#1f4e60" fill-opacity="0.55"/>'
+        elif kind == "band":
+            mark = f'<rect x="{_n(lx)}" y="{_n(ly - 9)}" width="12" height="10" fill="{_BAND}"/>'
+        else:
+            dash = ' stroke-dasharray="2 3"' if kind == "ellipse" else ""
+            mark = (f'<path d="M{_n(lx)} {_n(ly - 4)}h12" stroke="{_FIT}" '
+                    f'stroke-width="{1.2 if kind == "ellipse" else 2}"{dash}/>')
+        parts.append(mark + f'<text x="{_n(lx + 16)}" y="{_n(ly)}" font-size="10">{_esc(text)}</text>')
+        lx += wide
+    parts.append("</svg>")
+    return "".join(parts)

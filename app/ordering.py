@@ -50,8 +50,14 @@ def time_order(data: np.ndarray, names: Sequence[str], settings: AnalysisSetting
 def serial_check(data: np.ndarray, names: Sequence[str]) -> "serial_mod.SerialCheck":
     """Per-column serial dependence of ``data`` in its row order (at most config.SERIAL_CHECK_MAX_ROWS
     rows, the first ones), and whether enough columns show it to warn."""
-    return serial_mod.serial_check(np.asarray(data, float)[: config.SERIAL_CHECK_MAX_ROWS], list(names),
-                                   level=config.SERIAL_LJUNG_BOX_LEVEL, share=config.SERIAL_WARN_SHARE)
+    from .tiles import one_blas_thread
+
+    # The unit-root regressions are a few hundred small QR factorisations: a threaded BLAS makes
+    # each about 100x slower on a busy 2-core machine (measured: 243 ms against 2.3 ms for
+    # 940 x 25 at load 8), which was 10-35 s of the demo's analysis and of its first page view.
+    with one_blas_thread():
+        return serial_mod.serial_check(np.asarray(data, float)[: config.SERIAL_CHECK_MAX_ROWS], list(names),
+                                       level=config.SERIAL_LJUNG_BOX_LEVEL, share=config.SERIAL_WARN_SHARE)
 
 
 def serial_note(data: np.ndarray, names: Sequence[str], settings: AnalysisSettings | None = None) -> str:

@@ -10,6 +10,8 @@ JSON edge.
 
 from __future__ import annotations
 
+import base64
+
 import math
 from dataclasses import dataclass
 from typing import Sequence
@@ -102,10 +104,26 @@ class PairDetail:
         if self.ordered is not None:
             detail["ordered"] = self.ordered
             detail["serial_note"] = self.serial_note
-        if include_points:
+        if include_points == "packed":
+            detail["points"] = pack_points(self.rows.x, self.rows.y, self.rows.rows)
+        elif include_points:
             detail["points"] = {"x": self.rows.x.tolist(), "y": self.rows.y.tolist(),
                                 "rows": self.rows.rows.tolist()}
         return detail
+
+
+def pack_points(x, y, rows) -> dict:
+    """A pair's points as base64 of little-endian float32 (x, y) and int32 (rows).
+
+    About a sixth of the JSON text of the same numbers, and no float printing or
+    parsing on either side: 10,000 points cost ~0.2 s as JSON under load. Float32
+    keeps 7 significant digits, more than a scatter's pixels resolve.
+    """
+    def b64(values, dtype: str) -> str:
+        return base64.b64encode(np.ascontiguousarray(values, dtype=dtype).tobytes()).decode("ascii")
+
+    return {"encoding": "base64-le", "n": int(len(x)), "x": b64(x, "<f4"), "y": b64(y, "<f4"),
+            "rows": b64(rows, "<i4")}
 
 
 def _measures_of(data: np.ndarray, names: Sequence[str], rows: PairRows, settings: AnalysisSettings,

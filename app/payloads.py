@@ -111,7 +111,9 @@ def precompute_pages(table: PairTable, verdicts: dict) -> dict:
     diff = default_difference(table.measures)
     heat = heatmap_payload(table, list(range(len(table.variables))), diff)
     rows = pair_rows_payload(table, verdicts.get("labels", {}))
-    return {"heatmaps": {"diff": list(diff) if diff else None, "order": heat["order"], "top": heat["top"],
+    serial = getattr(table, "serial", None)
+    return {"serial_note": serial.message(table.settings.ordered is not None) if serial is not None else None,
+            "heatmaps": {"diff": list(diff) if diff else None, "order": heat["order"], "top": heat["top"],
                          "embedded": str(heat["embedded"]), "format": MAPS_FORMAT},
             "pairrows": {"columns": rows["columns"], "n_rows": rows["n_rows"], "embedded": str(rows["embedded"])}}
 

@@ -1,8 +1,8 @@
 """One self-contained HTML report of an analysis.
 
-The file holds everything it shows: the Plotly bundle from the installed
-``plotly`` package (inlined once), our stylesheet and sort script, and every
-figure as escaped JSON. It makes no network request; a Content-Security-Policy
+The file holds everything it shows: our stylesheet and script, every figure as
+static SVG (written by :mod:`pairlens.figures`; no plotting library in the file,
+so it stays small and opens at once) and the maps' hover numbers as escaped JSON. It makes no network request; a Content-Security-Policy
 in the page forbids any, and only the page's own scripts (by hash) may run.
 The pair table is rendered on the server, so it reads with scripts disabled.
 """
@@ -11,14 +11,12 @@ from __future__ import annotations
 
 import base64
 import hashlib
-import html
 import math
 import os
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from functools import lru_cache
-from pathlib import Path
 from typing import Iterable
 
 import numpy as np
@@ -36,16 +34,16 @@ from .pairtable import PairRow, PairTable
 from .plan import analysis_row_mask
 
 __all__ = ["MAX_SCATTER_POINTS", "EXTREME_POINTS", "round_floats", "extreme_indices",
-           "shared_rows", "PointStore", "simplify_polyline", "rank_pairs", "disagreement_contrasts",
-           "compact_heatmap", "compact_difference", "binned_marginals", "build_report"]
+           "shared_rows", "simplify_polyline", "rank_pairs", "disagreement_contrasts",
+           "map_hover", "difference_hover", "build_report"]
 
 # A scatter of more points than this adds file size without showing more.
 MAX_SCATTER_POINTS = 2000
 # A random sample can drop the very rows that drive a pair, so the farthest
 # points from the centre are always kept.
 EXTREME_POINTS = 50
-# Values stored for all scatters together (each column's sampled values are
-# stored once and shared by its scatters); with many columns each gets fewer rows.
+# Points drawn over all scatters together (each scatter draws the same sampled
+# rows); with many columns in the cards each gets fewer rows.
 POINT_VALUES_BUDGET = 24000
 MIN_SCATTER_POINTS = 300
 ELLIPSE_POINTS = 61
@@ -138,31 +136,6 @@ def shared_rows(n_rows: int, limit: int, seed: int) -> np.ndarray:
         return np.arange(n_rows)
     rng = np.random.default_rng([int(seed) & 0xFFFFFFFF, 0x5CA77E4])
     return np.sort(rng.choice(n_rows, size=limit, replace=False))
-
-
-class PointStore:
-    """The sampled values of each column, stored once for all scatters of a report.
-
-    A scatter's trace then holds ``{"$column": key, "$extra": [...]}`` in place
-    of its x and y arrays (and ``{"$rows": true, ...}`` for its row numbers);
-    the report script joins them before drawing. Missing values are ``null``,
-    which Plotly leaves out of a scatter.
-    """
-
-    def __init__(self, data: np.ndarray, columns: list[str], rows: np.ndarray):
-        self.data = data
-        self.position = {c: i for i, c in enumerate(columns)}
-        self.rows = rows
-        self.values: dict[str, list] = {}
-
-    def column(self, name: str) -> str:
-        key = f"c{self.position[name]}"
-        if key not in self.values:
-            self.values[key] = round_floats(self.data[self.rows, self.position[name]].tolist())
-        return key
-
-    def to_json(self) -> dict:
-        return {"rows": self.rows.tolist(), "values": self.values}
 
 
 def simplify_polyline(xs: list, ys: list, rel_tol: float = 1e-9) -> tuple[list, list]:
@@ -276,110 +249,46 @@ def _rankings(pt: PairTable, top_k: int) -> list[Ranking]:
     return out
 
 
-# Figures built on the shared builders, made smaller for a file ----------------
+# Hover data of the maps -------------------------------------------------------
 
-def _rounded_matrix(stack: np.ndarray, digits: int) -> list:
-    return [[[_round_number(float(v), digits) for v in cell] for cell in row] for row in stack]
+def map_hover(pt: PairTable, measure: str, order: list[int]) -> dict:
+    """The numbers a heatmap cell shows on hover, already written by the one formatter.
 
-
-def _label_every_variable(fig: dict, k: int) -> dict:
-    """Ticks for every variable: Plotly would drop every other label once they crowd."""
-    layout = fig.get("layout") or {}
-    size = int(max(6, min(11, 320 / max(k, 1))))
-    for axis in ("xaxis", "yaxis"):
-        if axis in layout:
-            layout[axis] = {**layout[axis], "tickmode": "linear", "dtick": 1,
-                            "tickfont": {**layout[axis].get("tickfont", {}), "size": size}}
-    return fig
-
-
-def compact_heatmap(fig: dict, pt: PairTable, measure: str) -> dict:
-    """Replace the per-cell hover text by numbers and a template (about a third of the size).
-
-    The builder writes one HTML string per cell; the report sends p, q and n as
-    ``customdata`` and lets Plotly format them on hover.
+    Cells run row by row in plotted order: the upper triangle (i < j) of a symmetric
+    measure, else every cell off the diagonal (None on it); rows hold x and columns y,
+    as in :func:`pairlens.figures.heatmap_svg`.
     """
-    heat = fig["data"][0] if fig.get("data") else {}
-    names = (fig.get("layout") or {}).get("meta", {}).get("variables")
-    if heat.get("type") != "heatmap" or not names:
-        return fig
-    pos = {v: i for i, v in enumerate(pt.variables)}
-    idx = np.asarray([pos[n] for n in names], dtype=int)
-    # intervals are left to the pair table: three numbers per cell keep 30 x 30 maps small
-    fields = ("p_value", "q_value", "n")
-    stack = np.stack([pt.matrix(measure, f)[np.ix_(idx, idx)] for f in fields], axis=-1)
+    idx = np.asarray(order, dtype=int)
+    fields = {f: pt.matrix(measure, f)[np.ix_(idx, idx)] for f in ("estimate", "p_value", "q_value", "n")}
+    k = len(idx)
+    symmetric = MEASURES[measure].symmetric
+    cells = []
+    for i in range(k):
+        for j in range(i + 1 if symmetric else 0, k):
+            if i == j:
+                cells.append(None)
+                continue
+            n = fields["n"][i, j]
+            cells.append([fmt_estimate(fields["estimate"][i, j]), fmt_p(fields["p_value"][i, j]),
+                          fmt_p(fields["q_value"][i, j]), int(n) if math.isfinite(n) else "–"])
     meas = MEASURES[measure]
-    head = "<b>%{x}</b> × <b>%{y}</b>" if meas.symmetric else "<b>%{y}</b> → <b>%{x}</b>"
-    body = f"{plot_label(meas.label)} %{{z:.3f}}"
-    body += "<br>p %{customdata[0]:.2g}  q %{customdata[1]:.2g}  n %{customdata[2]}"
-    heat = {k: v for k, v in heat.items() if k != "text"}
-    heat["customdata"] = _rounded_matrix(stack, HOVER_DIGITS)
-    heat["hovertemplate"] = head + "<br>" + body + "<extra></extra>"
-    rest = list(fig["data"][1:])
-    if rest and rest[0].get("type") == "scatter" and rest[0].get("hoverinfo") == "skip":
-        # The builder marks q < alpha with a scatter that names both variables per
-        # marked cell; a dot as cell text (colour contrasting with the cell) costs
-        # a few bytes per cell instead.
-        alpha = float(fig["layout"].get("meta", {}).get("alpha", config.SIGNIFICANCE_LEVEL))
-        q = pt.matrix(measure, "q_value")[np.ix_(idx, idx)]
-        heat["text"] = [["●" if math.isfinite(v) and v < alpha else "" for v in row] for row in q]
-        heat["texttemplate"] = "%{text}"
-        heat["textfont"] = {"size": int(max(6, min(12, 300 / max(len(names), 1))))}
-        rest = rest[1:]
-    return _label_every_variable({**fig, "data": [heat, *rest]}, len(names))
+    return {"label": meas.label, "symmetric": meas.symmetric, "cells": cells}
 
 
-def compact_difference(fig: dict, pt: PairTable, a: str, b: str) -> dict:
-    """As :func:`compact_heatmap` for the difference view: both estimates as ``customdata``."""
-    heat = fig["data"][0] if fig.get("data") else {}
-    names = (fig.get("layout") or {}).get("meta", {}).get("variables")
-    if heat.get("type") != "heatmap" or not names:
-        return fig
-    pos = {v: i for i, v in enumerate(pt.variables)}
-    idx = np.asarray([pos[n] for n in names], dtype=int)
-    stack = np.stack([pt.matrix(a)[np.ix_(idx, idx)], pt.matrix(b)[np.ix_(idx, idx)]], axis=-1)
-    heat = {k: v for k, v in heat.items() if k != "text"}
-    heat["customdata"] = _rounded_matrix(stack, HOVER_DIGITS)
-    heat["hovertemplate"] = ("<b>%{x}</b> × <b>%{y}</b><br>" + plot_label(MEASURES[a].label)
-                             + " %{customdata[0]:.3f}  " + plot_label(MEASURES[b].label)
-                             + " %{customdata[1]:.3f}<br>difference %{z:.3f}<extra></extra>")
-    return _label_every_variable({**fig, "data": [heat, *fig["data"][1:]]}, len(names))
-
-
-def plot_label(text: str) -> str:
-    """Text for Plotly, which reads a small HTML subset; also keeps ``%{`` out of hover templates."""
-    return html.escape(str(text), quote=False).replace("%{", "%&#123;")
-
-
-def binned_marginals(fig: dict, x: np.ndarray, y: np.ndarray) -> dict:
-    """Histogram traces of all points as pre-binned bars.
-
-    The builder's histograms carry every value again; bars of counts from the
-    full data are smaller and do not depend on the scatter's subsample.
-    """
-    out = []
-    for trace in fig.get("data", []):
-        if trace.get("type") != "histogram":
-            out.append(trace)
-            continue
-        horizontal = "y" in trace and "x" not in trace
-        values = y if horizontal else x
-        values = values[np.isfinite(values)]
-        bins = int(trace.get("nbinsy" if horizontal else "nbinsx") or 30)
-        if values.size == 0:
-            continue
-        counts, edges = np.histogram(values, bins=bins)
-        centres = (edges[:-1] + edges[1:]) / 2
-        widths = np.diff(edges)
-        bar = {"type": "bar", "name": trace.get("name", ""), "marker": trace.get("marker", {}),
-               "showlegend": False, "width": widths.tolist()}
-        if horizontal:
-            bar.update(orientation="h", y=centres.tolist(), x=counts.tolist(), xaxis=trace.get("xaxis", "x"),
-                       hoverinfo="x")
-        else:
-            bar.update(x=centres.tolist(), y=counts.tolist(), yaxis=trace.get("yaxis", "y"), hoverinfo="y")
-        out.append(bar)
-    return {**fig, "data": out}
+def difference_hover(pt: PairTable, a: str, b: str, order: list[int]) -> dict:
+    """Hover numbers of the difference map: both estimates and their difference per cell."""
+    idx = np.asarray(order, dtype=int)
+    ma, mb = pt.matrix(a), pt.matrix(b)
+    if not MEASURES[a].symmetric:
+        ma = np.fmax(ma, ma.T)
+    if not MEASURES[b].symmetric:
+        mb = np.fmax(mb, mb.T)
+    ma, mb = ma[np.ix_(idx, idx)], mb[np.ix_(idx, idx)]
+    k = len(idx)
+    cells = [[fmt_estimate(ma[i, j]), fmt_estimate(mb[i, j]), fmt_estimate(ma[i, j] - abs(mb[i, j]))]
+             for i in range(k) for j in range(i + 1, k)]  # the upper triangle, as map_hover
+    return {"label": f"{MEASURES[a].label} − |{MEASURES[b].label}|", "difference": True,
+            "labels": [MEASURES[a].label, MEASURES[b].label], "symmetric": True, "cells": cells}
 
 
 # Pair cards -----------------------------------------------------------------
@@ -393,6 +302,7 @@ class PairCard:
     rows: list[dict]                    # measure rows for the card's table
     detail: dict | None = None          # pair_detail output without the points
     figure_id: str = ""
+    svg: str = ""                       # the scatter as static SVG markup
     points_note: str = ""
     note: str = ""
     gaussian: dict | None = None        # display-ready summary of the Gaussian fit
@@ -448,25 +358,8 @@ def _gaussian_summary(detail: dict) -> dict:
     }
 
 
-def _slim_pair_figure(fig: dict) -> dict:
-    """Fewer vertices for the fit's lines: straight runs collapse, ellipses keep 61 points."""
-    out = []
-    for trace in fig.get("data", []):
-        if trace.get("mode") == "lines" and isinstance(trace.get("x"), list) and isinstance(trace.get("y"), list):
-            xs, ys = trace["x"], trace["y"]
-            if trace.get("legendgroup") == "ellipses" and len(xs) > ELLIPSE_POINTS:
-                step = max(1, (len(xs) - 1) // (ELLIPSE_POINTS - 1))
-                xs, ys = xs[:-1:step] + xs[-1:], ys[:-1:step] + ys[-1:]
-                trace = {**trace, "x": xs, "y": ys, "line": {**trace.get("line", {}), "shape": "spline"}}
-            else:
-                xs, ys = simplify_polyline(xs, ys)
-                trace = {**trace, "x": xs, "y": ys}
-        out.append(trace)
-    return {**fig, "data": out}
-
-
-def _pair_cards(table, pt: PairTable, rankings: list[Ranking], figures: dict,
-                workers: int = 1) -> tuple[list[PairCard], int, dict]:
+def _pair_cards(table, pt: PairTable, rankings: list[Ranking],
+                workers: int = 1) -> tuple[list[PairCard], int]:
     order = {v: i for i, v in enumerate(pt.variables)}
     columns = set(table.columns)
     cards: dict[tuple[str, str], PairCard] = {}
@@ -484,7 +377,7 @@ def _pair_cards(table, pt: PairTable, rankings: list[Ranking], figures: dict,
     drawable = [(x, y) for (x, y) in cards if x in columns and y in columns]
     n_columns = len({c for pair in drawable for c in pair})
     limit = max(MIN_SCATTER_POINTS, min(MAX_SCATTER_POINTS, POINT_VALUES_BUDGET // max(n_columns, 1)))
-    store = PointStore(table.data, table.columns, shared_rows(table.data.shape[0], limit, pt.settings.seed))
+    sample = shared_rows(table.data.shape[0], limit, pt.settings.seed)
     row_mask = analysis_row_mask(table.data, table.columns, pt.settings)
 
     def detail_of(pair):
@@ -503,42 +396,25 @@ def _pair_cards(table, pt: PairTable, rankings: list[Ranking], figures: dict,
         detail = typed.to_json()
         prow, px, py = typed.rows.rows, typed.rows.x, typed.rows.y  # the rows the measures and the fit use
         total = len(px)
-        in_sample = np.isin(prow, store.rows)
+        in_sample = np.isin(prow, sample)
         far = extreme_indices(px, py)
-        extra = far[~in_sample[far]]
-        shown_pos = np.union1d(np.flatnonzero(in_sample), extra)
+        shown_pos = np.union1d(np.flatnonzero(in_sample), far)
         shown = {"x": px[shown_pos].tolist(), "y": py[shown_pos].tolist(), "rows": prow[shown_pos].tolist()}
         if len(shown_pos) < total:
             card.points_note = (f"Showing {len(shown_pos)} of {total} points: the rows of a random sample of "
-                                f"{len(store.rows)} shared by every scatter in this report (seed "
+                                f"{len(sample)} shared by every scatter in this report (seed "
                                 f"{pt.settings.seed}), plus the {len(far)} points of this pair farthest from "
                                 f"its centre.")
         else:
             card.points_note = f"All {total} points are drawn."
         card.points_note += " " + typed.rows.describe()
         card.figure_id = f"fig-{card.anchor}"
-        fig = binned_marginals(plots.pair_figure({**detail, "points": shown}), px, py)
-        fig = _slim_pair_figure(fig)
-        trace = fig["data"][0] if fig.get("data") else {}
-        # The shared column values draw every sampled row where both values are present; under
-        # missing = complete the pair uses fewer rows, so its points are stored as they are.
-        shareable = pt.settings.missing != "complete"
-        if shareable and len(trace.get("x") or []) == len(shown_pos):
-            # the points trace: shared column values plus this pair's extra far points
-            fig["data"][0] = {**trace,
-                              "x": {"$column": store.column(x), "$extra": round_floats(px[extra].tolist())},
-                              "y": {"$column": store.column(y), "$extra": round_floats(py[extra].tolist())},
-                              "customdata": {"$rows": True, "$extra": prow[extra].tolist()}}
-            if len(shown_pos) < total:
-                fig["data"][0]["name"] = f"rows ({len(shown_pos)} of {total} shown)"
-        layout = fig.setdefault("layout", {})
-        # room for the legend under the x-axis title in a fixed-height report figure
-        layout["legend"] = {**layout.get("legend", {}), "orientation": "h", "x": 0, "y": -0.2,
-                            "yanchor": "top", "font": {"size": 10}}
-        layout["margin"] = {**layout.get("margin", {}), "b": 110}
-        figures[card.figure_id] = fig
+        fig = plots.pair_figure({**detail, "points": shown}, density_threshold=total + 1)
+        if len(shown_pos) < total:
+            fig["data"][0]["name"] = f"rows ({len(shown_pos)} of {total} shown)"
+        card.svg = Markup(plots.pair_svg(fig))
         card.detail = detail
-    return list(cards.values()), len(store.rows), store.to_json()
+    return list(cards.values()), len(sample)
 
 
 # Fingerprint and table -----------------------------------------------------
@@ -601,14 +477,6 @@ def _summary(pt: PairTable) -> list[dict]:
 
 # Assets ---------------------------------------------------------------------
 
-@lru_cache(maxsize=1)
-def _plotly_js() -> str:
-    import plotly
-
-    path = Path(plotly.__file__).resolve().parent / "package_data" / "plotly.min.js"
-    return _inline_safe(path.read_text(encoding="utf-8"), "script", path.name)
-
-
 def _asset(name: str) -> str:
     path = config.STATIC_DIR / name
     return _inline_safe(path.read_text(encoding="utf-8"), "style" if name.endswith(".css") else "script", name)
@@ -658,42 +526,41 @@ def build_report(table, pair_table: PairTable, *, command: str, generated_at: da
     if generated_at.tzinfo is None:
         generated_at = generated_at.replace(tzinfo=timezone.utc)
     settings = pair_table.settings
-    figures: dict[str, dict] = {}
 
     order_measure = "dcor" if "dcor" in pair_table.measures else pair_table.measures[0]
     order = plots.cluster_order(pair_table, order_measure)
+    # what the report script needs for hover and click on a map; the maps themselves are SVG
+    hover: dict = {"variables": [pair_table.variables[i] for i in order], "maps": {}}
     heatmaps = []
     for m in pair_table.measures:
         fid = f"heatmap-{m}"
-        figures[fid] = compact_heatmap(plots.heatmap_figure(pair_table, m, order=order), pair_table, m)
         meas = MEASURES[m]
+        hover["maps"][fid] = map_hover(pair_table, m, order)
         heatmaps.append({"id": fid, "measure": m, "label": meas.label, "symmetric": meas.symmetric,
-                         "range": f"[{meas.lower:g}, {meas.upper:g}]"})
+                         "range": f"[{meas.lower:g}, {meas.upper:g}]",
+                         "svg": Markup(plots.heatmap_svg(pair_table, m, order=order))})
     contrasts = []
     for a, b, kind, explanation in disagreement_contrasts(pair_table.measures):
         if kind != "signed":
             continue
         fid = f"difference-{a}-{b}"
-        figures[fid] = compact_difference(plots.difference_figure(pair_table, a, b, order=order, top=0),
-                                          pair_table, a, b)
+        hover["maps"][fid] = difference_hover(pair_table, a, b, order)
         contrasts.append({"id": fid, "label": f"{MEASURES[a].label} − |{MEASURES[b].label}|",
-                          "explanation": explanation})
+                          "explanation": explanation,
+                          "svg": Markup(plots.difference_svg(pair_table, a, b, order=order))})
 
     rankings = _rankings(pair_table, top_k)
     if workers is None:
         workers = min(4, os.cpu_count() or 1)
-    cards, scatter_limit, point_store = _pair_cards(table, pair_table, rankings, figures, workers)
+    cards, scatter_limit = _pair_cards(table, pair_table, rankings, workers)
     cards_by_anchor = {c.anchor: c for c in cards}
     for c in cards:
         if c.detail is not None:
             c.gaussian = _gaussian_summary(c.detail)
 
-    figures = {k: round_floats(v) for k, v in figures.items()}
     sort_js = _asset("report.js")
-    plotly_js = _plotly_js()
-    figure_json = embed_json(figures)
     csp = ("default-src 'none'; "
-           f"script-src {_csp_hash(plotly_js)} {_csp_hash(sort_js)}; "
+           f"script-src {_csp_hash(sort_js)}; "
            "style-src 'unsafe-inline'; img-src data: blob:; font-src data:; connect-src 'none'; "
            "form-action 'none'; base-uri 'none'")
     stamp = generated_at.astimezone(timezone.utc)
@@ -704,10 +571,8 @@ def build_report(table, pair_table: PairTable, *, command: str, generated_at: da
         "generated_text": stamp.strftime("%Y-%m-%d %H:%M UTC"),
         "csp": csp,
         "css": Markup(_asset("report.css")),
-        "plotly_js": Markup(plotly_js),
         "sort_js": Markup(sort_js),
-        "figure_json": figure_json,
-        "points_json": embed_json(point_store),
+        "hover_json": embed_json(hover),
         "fingerprint": _fingerprint(table, pair_table),
         "serial_note": serial_note(table.data, table.columns, settings),
         "is_demo": _is_demo(table),

@@ -112,12 +112,18 @@
 
   /* Small multiples -------------------------------------------------------------------- */
   var thumbs = Array.prototype.slice.call(document.querySelectorAll(".thumb"));
-  function drawThumbs() {
-    thumbs.forEach(function (fig) {
+  // Every width is read before any canvas is resized: a read after a write forces the browser
+  // to lay the page out again, once per small map (hundreds of ms on a busy machine).
+  function thumbWidths() {
+    return thumbs.map(function (fig) { return Math.max(60, Math.floor(fig.clientWidth - 10)); });
+  }
+  function drawThumbs(widths) {
+    widths = widths || thumbWidths();
+    thumbs.forEach(function (fig, t) {
       var m = maps[fig.dataset.map];
       if (!m) return;
       var canvas = fig.querySelector("canvas");
-      var w = Math.max(60, Math.floor(fig.clientWidth - 10));
+      var w = widths[t];
       var ctx = sizeCanvas(canvas, w, w);
       ctx.drawImage(image(m), 0, 0, k, k, 0, 0, w, w);
       fig.dataset.ready = "1";
@@ -397,6 +403,31 @@
     if (s) s.addEventListener("change", function () { form.submit(); });
   });
 
+  /* A pair's points arrive as base64 typed arrays (no float printing or parsing) and are kept
+     for the page's life, so a pair clicked again draws at once. */
+  var previews = {}, previewKeys = [], PREVIEW_KEEP = 40;
+  function unpack(b64, Type) {
+    var bin = window.atob(b64), bytes = new Uint8Array(bin.length);
+    for (var t = 0; t < bin.length; t++) bytes[t] = bin.charCodeAt(t);
+    return new Type(bytes.buffer);
+  }
+  function previewOf(x, y) {
+    var key = x + "\u0000" + y;
+    if (previews[key]) return Promise.resolve(previews[key]);
+    return fetch(api("/pair-preview", { x: x, y: y, points: "packed" }), { cache: "no-store" })
+      .then(function (r) { if (!r.ok) throw new Error("HTTP " + r.status); return r.json(); })
+      .then(function (d) {
+        var pts = d.points;
+        if (pts && pts.encoding === "base64-le") {
+          d.points = { x: unpack(pts.x, Float32Array), y: unpack(pts.y, Float32Array), rows: unpack(pts.rows, Int32Array) };
+        }
+        previews[key] = d;
+        previewKeys.push(key);
+        if (previewKeys.length > PREVIEW_KEEP) delete previews[previewKeys.shift()];
+        return d;
+      });
+  }
+
   /* The pinned pair: numbers at once, then the scatter, then the verdict ----------------- */
   var panel = { seq: 0 };
   function pin(i, j) {
@@ -421,8 +452,7 @@
     open.href = P.pairUrl(p.x, p.y);
     open.hidden = false;
     $("panel-verdict").textContent = "Verdict: being worked out…";
-    fetch(api("/pair-preview", { x: p.x, y: p.y }), { cache: "no-store" })
-      .then(function (r) { if (!r.ok) throw new Error("HTTP " + r.status); return r.json(); })
+    previewOf(p.x, p.y)
       .then(function (d) {
         if (seq !== panel.seq) return;
         drawScatter(d);
@@ -431,7 +461,10 @@
         if (d.complete && d.pattern) showVerdict(d.pattern);
         else return fetch(api("/pair", { x: p.x, y: p.y }), { cache: "no-store" })
           .then(function (r) { if (!r.ok) throw new Error("HTTP " + r.status); return r.json(); })
-          .then(function (full) { if (seq === panel.seq) showVerdict(full.pattern); });
+          .then(function (full) {
+            d.pattern = full.pattern; d.complete = true;  // the kept preview answers a second click whole
+            if (seq === panel.seq) showVerdict(full.pattern);
+          });
       })
       .catch(function (e) {
         if (seq !== panel.seq) return;
@@ -552,8 +585,9 @@
     variables: vars, state: state, pin: pin, setView: setView, show: function (key) { state.map = key; drawFocus(); }
   };
 
+  var firstWidths = thumbWidths();  // with the large map's geometry: one layout for both
   drawFocus();
-  window.requestAnimationFrame(drawThumbs);  // the large map first; the small ones one frame later
+  drawThumbs(firstWidths);  // a few ms: waiting a frame for them cost more on a busy machine than drawing them
   var resizeTimer = null;
   window.addEventListener("resize", function () {
     window.clearTimeout(resizeTimer);

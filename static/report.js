@@ -1,4 +1,4 @@
-/* pairlens report: draw the figures and make the pair table sortable.
+/* pairlens report: hover and click on the maps, a sortable and filterable pair table.
    Runs with no network; everything it needs is in the page. */
 (function () {
   "use strict";
@@ -9,51 +9,78 @@
     try { return JSON.parse(holder.textContent); } catch (err) { return {}; }
   }
 
-  // A scatter stores {"$column": key, "$extra": [...]} for x and y and
-  // {"$rows": true, "$extra": [...]} for its row numbers: each column's sampled
-  // values are in the page once, shared by every scatter that uses it.
-  function resolvePoints(fig, store) {
-    (fig.data || []).forEach(function (trace) {
-      ["x", "y", "customdata"].forEach(function (key) {
-        var ref = trace[key];
-        if (!ref || typeof ref !== "object" || Array.isArray(ref)) { return; }
-        var base = null;
-        if (ref["$rows"]) { base = store.rows; }
-        else if (ref["$column"] !== undefined) { base = (store.values || {})[ref["$column"]]; }
-        if (!base) { return; }
-        trace[key] = base.concat(ref["$extra"] || []);
-      });
-    });
-    return fig;
+  // The figures are static SVG in the page; the script adds the maps' hover text and
+  // click. A cell is found from the pointer's place in the map's grid, whose place in
+  // the SVG's viewBox the data-map-* attributes give.
+  var hover = null;
+
+  function cellOf(svg, event) {
+    var box = svg.getBoundingClientRect();
+    var view = svg.viewBox.baseVal;
+    if (!view || !box.width || !box.height) { return null; }
+    var left = parseFloat(svg.getAttribute("data-map-left"));
+    var top = parseFloat(svg.getAttribute("data-map-top"));
+    var side = parseFloat(svg.getAttribute("data-map-side"));
+    var k = parseInt(svg.getAttribute("data-map-k"), 10);
+    var vx = (event.clientX - box.left) * view.width / box.width;
+    var vy = (event.clientY - box.top) * view.height / box.height;
+    var j = Math.floor((vx - left) / side * k), i = Math.floor((vy - top) / side * k);
+    if (i < 0 || j < 0 || i >= k || j >= k || i === j) { return null; }
+    return { i: i, j: j, k: k };
   }
 
-  function drawFigures() {
-    var done = [];
-    var figures = readJson("pl-figures");
-    var store = readJson("pl-points");
-    var divs = document.querySelectorAll("[data-figure]");
-    if (!window.Plotly) {
-      document.body.setAttribute("data-figures", "unavailable");
-      return;
+  function tipLines(id, c) {
+    var map = hover.maps[id];
+    var names = hover.variables;
+    if (!map) { return null; }
+    // symmetric maps keep the upper triangle only (i < j), row by row
+    var a = Math.min(c.i, c.j), b = Math.max(c.i, c.j);
+    var cell = map.symmetric ? map.cells[a * c.k - a * (a + 1) / 2 + (b - a - 1)] : map.cells[c.i * c.k + c.j];
+    if (!cell) { return null; }
+    var rowName = names[c.i], colName = names[c.j];
+    if (map.difference) {
+      return [colName + " \u00d7 " + rowName,
+              map.labels[0] + " " + cell[0] + " · " + map.labels[1] + " " + cell[1],
+              "difference " + cell[2]];
     }
-    Array.prototype.forEach.call(divs, function (div) {
-      var fig = figures[div.getAttribute("data-figure")];
-      if (!fig) { return; }
-      var config = { displaylogo: false, responsive: true, scrollZoom: false,
-                     modeBarButtonsToRemove: ["sendDataToCloud", "lasso2d", "select2d"] };
-      fig = resolvePoints(fig, store);
-      done.push(Plotly.newPlot(div, fig.data || [], fig.layout || {}, config).then(function () {
-        div.classList.add("drawn");
-        if (div.classList.contains("plot-heat") && div.on) {
-          div.on("plotly_click", function (event) { onHeatmapClick(div, event); });
-        }
-      }));
+    var head = map.symmetric ? colName + " \u00d7 " + rowName : rowName + " \u2192 " + colName;
+    return [head, map.label + " " + cell[0], "p " + cell[1] + " · q " + cell[2] + " · n " + cell[3]];
+  }
+
+  function wireMaps() {
+    hover = readJson("pl-hover");
+    var tip = document.getElementById("map-tip");
+    var holders = document.querySelectorAll("[data-map]");
+    if (!hover.maps || !tip) { return 0; }
+    Array.prototype.forEach.call(holders, function (holder) {
+      var id = holder.getAttribute("data-map");
+      var svg = holder.querySelector("svg");
+      if (!svg) { return; }
+      svg.addEventListener("mousemove", function (event) {
+        var c = cellOf(svg, event);
+        var lines = c && tipLines(id, c);
+        if (!lines) { tip.hidden = true; svg.style.cursor = ""; return; }
+        tip.textContent = "";
+        lines.forEach(function (line, n) {
+          var row = document.createElement(n === 0 ? "strong" : "span");
+          row.textContent = line;
+          tip.appendChild(row);
+        });
+        tip.hidden = false;
+        tip.style.left = Math.max(4, Math.min(event.clientX + 14, window.innerWidth - tip.offsetWidth - 8)) + "px";
+        tip.style.top = (event.clientY + 14) + "px";
+        svg.style.cursor = "pointer";
+      });
+      svg.addEventListener("mouseleave", function () { tip.hidden = true; });
+      svg.addEventListener("click", function (event) {
+        var c = cellOf(svg, event);
+        if (!c) { return; }
+        tip.hidden = true;
+        onCellClick(hover.variables[c.j], hover.variables[c.i]);
+      });
+      holder.classList.add("drawn");
     });
-    Promise.all(done).then(function () {
-      document.body.setAttribute("data-figures", String(done.length));
-    }, function () {
-      document.body.setAttribute("data-figures", "failed");
-    });
+    return holders.length;
   }
 
   // Sorting --------------------------------------------------------------
@@ -182,11 +209,7 @@
   }
 
   // A click on a heatmap cell: the pair's card when it has one, else its rows.
-  function onHeatmapClick(div, event) {
-    var point = event && event.points && event.points[0];
-    var names = div.layout && div.layout.meta && div.layout.meta.variables;
-    if (!point || !names || !Array.isArray(point.pointNumber)) { return; }
-    var y = names[point.pointNumber[0]], x = names[point.pointNumber[1]];
+  function onCellClick(x, y) {
     if (x === undefined || y === undefined || x === y) { return; }
     var card = findCard(x, y);
     if (card) {
@@ -201,32 +224,12 @@
     if (section) { section.scrollIntoView({ behavior: "smooth", block: "start" }); }
   }
 
-  // Figures are laid out for the screen; paper is narrower or wider, so redraw
-  // them at their printed size and back again afterwards.
-  function resizeFigures() {
-    if (!window.Plotly) { return; }
-    Array.prototype.forEach.call(document.querySelectorAll(".plot.drawn"), function (div) {
-      Plotly.Plots.resize(div);
-    });
-  }
-
-  function watchPrint() {
-    window.addEventListener("beforeprint", resizeFigures);
-    window.addEventListener("afterprint", resizeFigures);
-    if (window.matchMedia) {
-      var query = window.matchMedia("print");
-      var onChange = function () { resizeFigures(); };
-      if (query.addEventListener) { query.addEventListener("change", onChange); }
-      else if (query.addListener) { query.addListener(onChange); }
-    }
-  }
-
   function start() {
     document.documentElement.classList.add("js");
     var table = document.getElementById("pairs");
     if (table) { splitSpans(table); makeSortable(table); makeFilter(table); }
-    drawFigures();
-    watchPrint();
+    wireMaps();
+    document.body.setAttribute("data-figures", String(document.querySelectorAll("svg.svg-fig").length));
   }
 
   if (document.readyState === "loading") {

@@ -551,3 +551,15 @@ def test_pair_preview_has_the_points_and_the_analysis_numbers(env):
             assert d["measures"][r["measure"]]["q_value"] == r["q_value"]
     # numpy.cov (ddof=1) is the reference for the fitted covariance.
     np.testing.assert_allclose(d["gaussian"]["cov"], np.cov(data[keep, 0], data[keep, 4]), rtol=1e-5)
+    # The packed answer (base64 of little-endian float32 / int32, decoded with the standard library's
+    # base64 and numpy.frombuffer) holds the same points, rows and numbers.
+    import base64
+
+    packed = c.get(f"/api/analyses/{aid}/pair-preview", params={"x": x, "y": y, "points": "packed"}).json()
+    pts = packed["points"]
+    assert pts["encoding"] == "base64-le" and pts["n"] == 140
+    for key, dtype in (("x", "<f4"), ("y", "<f4"), ("rows", "<i4")):
+        got = np.frombuffer(base64.b64decode(pts[key]), dtype=dtype)
+        np.testing.assert_allclose(got, d["points"][key], rtol=1e-6)
+    assert {k: v for k, v in packed.items() if k != "points"} == {k: v for k, v in d.items() if k != "points"}
+    assert c.get(f"/api/analyses/{aid}/pair-preview", params={"x": x, "y": y, "points": "xml"}).status_code == 422

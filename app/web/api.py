@@ -140,13 +140,15 @@ def get_pair(analysis_id: str, x: str = Query(...), y: str = Query(...), ws: Wor
 
 @router.get("/analyses/{analysis_id}/pair-preview")
 def get_pair_preview(analysis_id: str, x: str = Query(...), y: str = Query(...),
+                     points: str = Query("json", pattern="^(json|packed)$"),
                      ws: Workspace = Depends(get_workspace)):
     """The quick part of a pair (points, the analysis's numbers, Gaussian moments) for the map's side panel.
 
     ``complete`` is False when the verdict and the normality test still have to
-    come from ``/pair``.
+    come from ``/pair``. ``points=packed`` sends the points as base64 arrays
+    (:func:`pairlens.pairs.pack_points`).
     """
-    detail, complete = ws.pair_view(ws.analysis(analysis_id), x, y)
+    detail, complete = ws.pair_view(ws.analysis(analysis_id), x, y, packed=points == "packed")
     return _json({k: v for k, v in detail.items() if k != "seconds"} | {"complete": complete})
 
 

@@ -25,7 +25,7 @@ from ..budget import check_plan, estimate_work
 from ..core.registry import MEASURES
 from ..errors import SettingsError
 from ..formatting import embed_json, finite
-from ..pairs import full_detail, quick_detail
+from ..pairs import full_detail, pack_points, quick_detail
 from ..pairtable import PairRow, PairTable
 from ..payloads import (MAPS_FORMAT, default_difference, heatmap_payload, pair_key, pair_rows_payload)
 from ..plan import AnalysisSettings, plan_variables
@@ -514,6 +514,10 @@ class Workspace:
         key = ("serial-note", row.id)
         cached = self._figures.get(key)
         if cached is None:
+            # the job stores the sentence of the check it ran with the analysis (payloads.precompute_pages)
+            stored = (self._results(row).get("pages") or {}).get("serial_note")
+            if stored is not None:
+                return self._figures.put(key, stored)
             data = self.table(self.dataset(row.dataset_id))
             cached = self._figures.put(key, serial_note(data.data, data.columns, self.pair_table(row).settings))
         return cached
@@ -665,7 +669,7 @@ class Workspace:
             self._figures.pop(("pairrows", row.id))
         return self._details.put(key, detail)
 
-    def pair_view(self, row: AnalysisRow, x: str, y: str) -> tuple[dict, bool]:
+    def pair_view(self, row: AnalysisRow, x: str, y: str, packed: bool = False) -> tuple[dict, bool]:
         """What the pair page needs at once: ``(detail, complete)``.
 
         The full :meth:`pair` when it is cached; otherwise a quick detail with
@@ -673,10 +677,14 @@ class Workspace:
         the Henze-Zirkler test and the verdict (``complete`` False), which the
         page then fetches from the API. The Henze-Zirkler statistic needs all
         pairwise distances of up to ``config.HZ_MAX_ROWS`` rows (about 0.5 s
-        at 5000 rows) and the verdict reuses it.
+        at 5000 rows) and the verdict reuses it. ``packed``: the points as
+        :func:`pairlens.pairs.pack_points` (base64 arrays) instead of JSON lists.
         """
         cached = self._details.get((row.id, x, y))
         if cached is not None:
+            if packed and isinstance((cached.get("points") or {}).get("x"), list):
+                pts = cached["points"]
+                return cached | {"points": pack_points(pts["x"], pts["y"], pts["rows"])}, True
             return cached, True
         table = self.pair_table(row)
         if table.settings.ordered is not None:  # points in time order and the series panel: the full detail
@@ -689,7 +697,8 @@ class Workspace:
         data = self.table(self.dataset(row.dataset_id))
         if x not in data.columns or y not in data.columns:
             raise SettingsError("the pair view shows single columns; groups appear in the table only")
-        detail = quick_detail(data.data, data.columns, x, y, table).to_json(include_points=True)
+        detail = quick_detail(data.data, data.columns, x, y, table).to_json(
+            include_points="packed" if packed else True)
         return detail, False
 
     def report_html(self, row: AnalysisRow) -> str:
