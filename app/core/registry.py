@@ -13,12 +13,12 @@ from typing import Callable
 
 import numpy as np
 
-from . import chatterjee, distance, linear, rank, serial
+from . import categorical, chatterjee, distance, linear, rank, serial
 from .. import config
 from .results import TestResult
 from .testing import all_pairings, attainable_minimum, floor_pvalue, permutation_floor
 
-__all__ = ["PairContext", "Measure", "MEASURES", "get_measure", "measure_names", "parse_tests", "pvalue_floor"]
+__all__ = ["PairContext", "Measure", "MEASURES", "KINDS", "pair_kind", "measures_for", "get_measure", "measure_names", "parse_tests", "pvalue_floor"]
 
 
 @dataclass(frozen=True)
@@ -29,6 +29,18 @@ class PairContext:
     permutations: int = 0
     seed: np.random.SeedSequence | None = None
     test: str = ""          # a method from the measure's ``tests``; "" = its default rule
+    kinds: tuple[str, str] = ("numeric", "numeric")   # column kinds of x and y (pairlens.kinds)
+
+
+KINDS: tuple[str, ...] = ("numeric", "categorical")
+_NUMERIC_PAIR = ("numeric x numeric",)
+_ANY_PAIR = ("numeric x numeric", "categorical x numeric", "categorical x categorical")
+
+
+def pair_kind(kx: str, ky: str) -> str:
+    """The kind of a pair, independent of order: "numeric x numeric", "categorical x numeric", ..."""
+    a, b = sorted((kx, ky))
+    return f"{a} x {b}"
 
 
 def _resamples(ctx: PairContext, default_test: str) -> int:
@@ -74,6 +86,11 @@ class Measure:
     serial: Callable[[np.ndarray, np.ndarray, PairContext, TestResult], TestResult] | None = None
     serial_test: str = ""       # its description for the methods page and report
     serial_resamples: bool = False  # the serial test draws relabellings (counted in the work estimate)
+    # The kinds of pairs the measure applies to (pair_kind); the engine runs it on those only.
+    kinds: tuple[str, ...] = _NUMERIC_PAIR
+
+    def applies_to(self, kx: str, ky: str) -> bool:
+        return pair_kind(kx, ky) in self.kinds
 
 
 def _pearson(x, y, ctx: PairContext) -> TestResult:
@@ -95,6 +112,31 @@ def _dcor(x, y, ctx: PairContext) -> TestResult:
 
 def _dcor_bc(x, y, ctx: PairContext) -> TestResult:
     return distance.dcor_bc(x, y, permutations=_resamples(ctx, "gamma"), seed=ctx.seed)
+
+
+def _embedded(compute):
+    """Categorical sides as points under the discrete metric (:func:`categorical.discrete_embedding`)."""
+    def run(x, y, ctx: PairContext) -> TestResult:
+        if "categorical" in ctx.kinds:
+            x, y = _complete(x, y)
+            x = categorical.discrete_embedding(x) if ctx.kinds[0] == "categorical" else x
+            y = categorical.discrete_embedding(y) if ctx.kinds[1] == "categorical" else y
+        return compute(x, y, ctx)
+    run.__name__ = compute.__name__
+    run.__doc__ = compute.__doc__
+    return run
+
+
+def _cramer_v(x, y, ctx: PairContext) -> TestResult:
+    return categorical.cramers_v(x, y, permutations=ctx.permutations, seed=ctx.seed, test=ctx.test)
+
+
+def _eta(x, y, ctx: PairContext) -> TestResult:
+    return categorical.eta(x, y, ctx.kinds)
+
+
+def _kruskal(x, y, ctx: PairContext) -> TestResult:
+    return categorical.kruskal_eta(x, y, ctx.kinds, permutations=ctx.permutations, seed=ctx.seed)
 
 
 def _xi(x, y, ctx: PairContext) -> TestResult:
@@ -306,7 +348,7 @@ MEASURES: dict[str, Measure] = {
             formula="R_n = dCov_n(x, y) / sqrt(dVar_n(x) dVar_n(y)), double-centred distance matrices",
             reference="Szekely, Rizzo & Bakirov (2007) Ann. Statist. 35:2769-2794, doi:10.1214/009053607000000505; "
                       "Huo & Szekely (2016) Technometrics 58:435-447, doi:10.1080/00401706.2015.1054435",
-            compute=_floored(_dcor, "dcor"), pairing_statistics=_dcor_pairings,
+            compute=_embedded(_floored(_dcor, "dcor")), pairing_statistics=_dcor_pairings, kinds=_ANY_PAIR,
             role="dependence", short_label="dCor", implied=lambda rho: float(distance.gaussian_dcor(rho)),
             serial=_serial_block("dcor"), serial_test=_BLOCK_TEXT, serial_resamples=True,
         ),
@@ -319,7 +361,7 @@ MEASURES: dict[str, Measure] = {
             formula="R*_n = <A~, B~> / sqrt(<A~, A~> <B~, B~>), U-centred distance matrices",
             reference="Szekely & Rizzo (2013) J. Multivariate Anal. 117:193-213, doi:10.1016/j.jmva.2013.02.012; "
                       "Szekely & Rizzo (2014) Ann. Statist. 42:2382-2412, doi:10.1214/14-AOS1255",
-            compute=_floored(_dcor_bc, "dcor_bc"), pairing_statistics=_dcor_bc_pairings,
+            compute=_embedded(_floored(_dcor_bc, "dcor_bc")), pairing_statistics=_dcor_bc_pairings, kinds=_ANY_PAIR,
             role="dependence", short_label="bias-corrected dCor²", implied=lambda rho: float(distance.gaussian_dcor(rho)) ** 2,
             serial=_serial_block("dcor_bc"), serial_test=_BLOCK_TEXT, serial_resamples=True,
         ),
@@ -336,8 +378,59 @@ MEASURES: dict[str, Measure] = {
             role="dependence", short_label="ξ(x → y)", implied=chatterjee.gaussian_xi,
             serial=_serial_block("xi"), serial_test=_BLOCK_TEXT, serial_resamples=True,
         ),
+        Measure(
+            name="cramer_v", label="Cramér's V (bias-corrected)", family="categorical", symmetric=True,
+            signed=False, lower=0.0, upper=1.0, multivariate=False, reflection="unchanged",
+            default_test="Pearson chi-square test on (r-1)(k-1) df; when Cochran's rule fails (an expected "
+                         "count below 1 or more than 20% below 5) a permutation test of the chi-square "
+                         "statistic with 1,999 relabellings",
+            tests=("auto", "chi2", "permutation"),
+            interval="",
+            formula="V~ = sqrt(phi~^2 / min(r~-1, k~-1)), phi~^2 = max(0, chi^2/n - (r-1)(k-1)/(n-1)), "
+                    "r~ = r - (r-1)^2/(n-1), k~ = k - (k-1)^2/(n-1)",
+            reference="Cramér, H. (1946) Mathematical Methods of Statistics; Cochran, W.G. (1954) Biometrics "
+                      "10:417-451, doi:10.2307/3001616; Bergsma, W. (2013) J. Korean Stat. Soc. 42:323-328, "
+                      "doi:10.1016/j.jkss.2012.10.002",
+            compute=_floored(_cramer_v, "cramer_v"), role="dependence", short_label="Cramér's V",
+            kinds=("categorical x categorical",),
+        ),
+        Measure(
+            name="eta", label="Correlation ratio η", family="categorical", symmetric=True,
+            signed=False, lower=0.0, upper=1.0, multivariate=False, reflection="unchanged",
+            default_test="one-way ANOVA F test on (k-1, n-k) df; omega² (Hays 1963), the bias-corrected "
+                         "effect size, beside it",
+            tests=("anova",),
+            interval="",
+            formula="eta^2 = SS_between / SS_total; F = (SS_between/(k-1)) / (SS_within/(n-k)); "
+                    "omega^2 = (SS_between - (k-1) MS_within) / (SS_total + MS_within)",
+            reference="Pearson, K. (1903) Proc. R. Soc. Lond. 71:288-313, doi:10.1098/rspl.1902.0099; "
+                      "Fisher, R.A. (1925) Statistical Methods for Research Workers; Hays, W.L. (1963) "
+                      "Statistics for Psychologists; Okada, K. (2013) Behaviormetrika 40:129-147, "
+                      "doi:10.2333/bhmk.40.129",
+            compute=_floored(_eta, "eta"), role="trend", short_label="η",
+            kinds=("categorical x numeric",),
+        ),
+        Measure(
+            name="kruskal", label="Kruskal-Wallis η (ranks)", family="categorical", symmetric=True,
+            signed=False, lower=0.0, upper=1.0, multivariate=False, reflection="unchanged",
+            default_test="Kruskal-Wallis H (tie-corrected) against chi-square with k-1 df; a permutation test "
+                         "with 1,999 relabellings when a level has fewer than 5 rows",
+            tests=("auto",),
+            interval="",
+            formula="eta_R = sqrt(H/(n-1)), H = (n-1) SS_between(R)/SS_total(R) on mid-ranks R; "
+                    "eta_R^2 is the epsilon^2 of Kruskal-Wallis",
+            reference="Kruskal, W.H. & Wallis, W.A. (1952) JASA 47:583-621, doi:10.1080/01621459.1952.10483441; "
+                      "Tomczak, M. & Tomczak, E. (2014) Trends Sport Sci. 21:19-25",
+            compute=_floored(_kruskal, "kruskal"), role="rank", short_label="rank η",
+            kinds=("categorical x numeric",),
+        ),
     )
 }
+
+
+def measures_for(measures, kx: str, ky: str) -> tuple[str, ...]:
+    """The measures of ``measures`` that apply to a pair of kinds ``kx`` and ``ky``, in their order."""
+    return tuple(m for m in measures if MEASURES[m].applies_to(kx, ky))
 
 
 def measure_names() -> tuple[str, ...]:
