@@ -51,9 +51,15 @@ def _remember(table: "Table") -> None:
 
 
 def _frame(table: "Table") -> "pd.DataFrame":
+    import numpy as np
     import pandas as pd
 
     df = pd.DataFrame(table.data, columns=list(table.columns), copy=False)
+    for name in table.columns:
+        labels = table.levels(name)
+        if labels:  # a categorical text column: its level names, not the codes (analyze() reads them back)
+            df[name] = pd.Categorical.from_codes(
+                np.nan_to_num(df[name].to_numpy(), nan=-1).astype(int), categories=list(labels))
     df.attrs[_ATTRS_KEY] = {"name": table.name, "sha256": table.sha256,
                             "left_out": [list(item) for item in table.excluded], "notes": list(table.notes)}
     return df
@@ -252,6 +258,9 @@ def analyze(df: "pd.DataFrame", *, measures=None, columns=None, groups=None, mis
     settings = AnalysisSettings.from_options(measures=measures, columns=columns, groups=groups, missing=missing,
                                              adjust=adjust, confidence=confidence, permutations=permutations, tests=tests,
                                              seed=seed, ordered=ordered, difference=difference, **options)
+    from .kinds import settle
+
+    settings = settle(table, settings)  # column kinds: detected, or categorical=/numeric= (as --categorical)
     update, close = _progress_bar(progress)
     try:
         pair_table = run_analysis(table.data, table.columns, settings, workers=workers, cluster=cluster,
@@ -397,8 +406,11 @@ class Analysis:
         """
         from .pairs import pair_detail
 
+        from .kinds import levels_of
+
         detail = pair_detail(self._table.data, self._table.columns, x, y, self._pair_table.settings,
-                             table=self._pair_table, include_points=True)
+                             table=self._pair_table, include_points=True,
+                             levels=levels_of(self._table, self._pair_table.settings))
         return PairView(detail)
 
     def to_json(self) -> str:

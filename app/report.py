@@ -489,7 +489,10 @@ def _pair_cards(table, pt: PairTable, rankings: list[Ranking], figures: dict,
 
     def detail_of(pair):
         # the pair-detail service: the rows, measures, fit and verdict the pair view shows
-        return full_detail(table.data, table.columns, pair[0], pair[1], pt.settings, pt, row_mask)
+        from .kinds import levels_of
+
+        return full_detail(table.data, table.columns, pair[0], pair[1], pt.settings, pt, row_mask,
+                           levels=levels_of(table, pt.settings))
 
     # The Gaussian fit's normality test is O(n^2) and NumPy releases the GIL in it,
     # so a few threads shorten the wait; results keep the card order.
