@@ -65,6 +65,22 @@ def _frame(table: "Table") -> "pd.DataFrame":
     return df
 
 
+def _codes_frame(df: "pd.DataFrame") -> "pd.DataFrame":
+    """``df`` with each categorical (pandas) column as its float level codes, NaN for missing: as read() made it."""
+    import numpy as np
+    import pandas as pd
+
+    out = df.copy(deep=False)
+    for name in df.columns:
+        if isinstance(df[name].dtype, pd.CategoricalDtype):
+            codes = df[name].cat.codes.to_numpy().astype(np.float64)
+            codes[codes < 0] = np.nan
+            out[name] = codes
+        elif not pd.api.types.is_numeric_dtype(df[name].dtype):
+            out[name] = np.nan  # text: never equal to a read() table's numbers, so the file reader decides
+    return out
+
+
 def _table_from_frame(df: "pd.DataFrame", name: str | None) -> "Table":
     """The :class:`~pairlens.ingest.Table` behind ``df``: the one read() made when unchanged, else a new one."""
     import numpy as np
@@ -78,7 +94,7 @@ def _table_from_frame(df: "pd.DataFrame", name: str | None) -> "Table":
     meta = df.attrs.get(_ATTRS_KEY) or {}
     known = _READ_TABLES.get(meta.get("sha256", ""))
     if known is not None and [str(c) for c in df.columns] == list(known.columns):
-        values = df.to_numpy(dtype=np.float64, na_value=np.nan)
+        values = _codes_frame(df).to_numpy(dtype=np.float64, na_value=np.nan)
         if values.shape == known.data.shape and np.array_equal(values, known.data, equal_nan=True):
             return known
     # Anything else goes through the file reader (as Parquet, which keeps the dtypes), so a

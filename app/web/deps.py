@@ -181,7 +181,10 @@ def _spark(values: np.ndarray, bins: int = SPARK_BINS) -> list[int]:
 
 def dataset_summary(table) -> dict:
     """What the dataset page shows, computed once at upload and stored with the dataset."""
+    from ..kinds import detect
+
     position = {n: i for i, n in enumerate(table.columns)}
+    kinds = detect(table)  # each used column's detected kind and why (issue 18)
     columns = []
     for c in table.info:
         entry = {
@@ -191,6 +194,10 @@ def dataset_summary(table) -> dict:
             "min": finite(c.minimum), "median": finite(c.median), "max": finite(c.maximum),
             "spark": _spark(table.data[:, position[c.name]]) if c.name in position else [],
         }
+        if c.name in kinds:
+            entry["detected"] = kinds[c.name].kind
+            entry["kind_reason"] = kinds[c.name].reason
+            entry["levels"] = list(c.levels[:8])
         columns.append(entry)
     preview = [[str(cell)[:_PREVIEW_CELL_CHARS] for cell in row] for row in table.preview[:10]]
     return {
