@@ -204,7 +204,7 @@ def run_job(data_dir: str, analysis_id: str, *, workers: int | None = None, clus
             from .budget import estimate_work
             from .plan import plan_variables
 
-            estimate = estimate_work(len(plan_variables(table.columns, settings)), len(settings.measures),
+            estimate = estimate_work(len(plan_variables(table.columns, settings)), len(settings.run_measures),
                                      table.n_rows, settings.permutations)
             note_progress(analysis_id, 0.0, estimate.seconds / max(1, workers or 1), phase="pairs")
             # every pair's verdict label is computed in the tiles, with the pair table

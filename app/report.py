@@ -715,7 +715,7 @@ def build_report(table, pair_table: PairTable, *, command: str, generated_at: da
         "serial_note": serial_note(table.data, table.columns, settings),
         "is_demo": _is_demo(table),
         "settings": settings,
-        "measure_labels": [(m, MEASURES[m].label) for m in settings.measures],
+        "measure_labels": [(m, MEASURES[m].label) for m in settings.run_measures],
         "command": command,
         "seconds": pair_table.seconds,
         "summary": _summary(pair_table),

@@ -114,13 +114,19 @@ def _dcor_bc(x, y, ctx: PairContext) -> TestResult:
     return distance.dcor_bc(x, y, permutations=_resamples(ctx, "gamma"), seed=ctx.seed)
 
 
+def _discrete(codes: np.ndarray) -> np.ndarray:
+    # two levels as one 0/1 column: the same discrete metric, and the fast univariate distance path
+    e = categorical.discrete_embedding(codes)
+    return e[:, 0] if e.shape[1] == 2 else e
+
+
 def _embedded(compute):
     """Categorical sides as points under the discrete metric (:func:`categorical.discrete_embedding`)."""
     def run(x, y, ctx: PairContext) -> TestResult:
         if "categorical" in ctx.kinds:
             x, y = _complete(x, y)
-            x = categorical.discrete_embedding(x) if ctx.kinds[0] == "categorical" else x
-            y = categorical.discrete_embedding(y) if ctx.kinds[1] == "categorical" else y
+            x = _discrete(x) if ctx.kinds[0] == "categorical" else x
+            y = _discrete(y) if ctx.kinds[1] == "categorical" else y
         return compute(x, y, ctx)
     run.__name__ = compute.__name__
     run.__doc__ = compute.__doc__

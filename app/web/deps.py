@@ -512,7 +512,7 @@ class Workspace:
         rows = [PairRow(r["x"], r["y"], r["measure"], *(math.nan if r[f] is None else r[f] for f in
                                                           ("estimate", "ci_low", "ci_high", "p_value", "q_value")),
                         int(r["n"]), r["note"], r.get("method", "")) for r in res["records"]]
-        res["table"] = PairTable(res["variables"], settings.measures, settings, rows, res["seconds"])
+        res["table"] = PairTable(res["variables"], settings.run_measures, settings, rows, res["seconds"])
         return self._pair_tables.put(row.id, res)
 
     def pair_table(self, row: AnalysisRow) -> PairTable:
