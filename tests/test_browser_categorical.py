@@ -24,8 +24,9 @@ def _columns():
     site = rng.choice(["north", "south", "east"], N)
     soil = np.where(rng.random(N) < 0.7, np.where(site == "north", "clay", "sand"), rng.choice(["clay", "sand", "loam"], N))
     shift = {"north": 0.0, "south": 1.0, "east": 2.0}
-    growth = np.array([shift[s] for s in site]) + rng.normal(size=N)
-    height = rng.normal(size=N)
+    # rounded as the file writes them (6 decimals), so the references see the same numbers
+    growth = np.round(np.array([shift[s] for s in site]) + rng.normal(size=N), 6)
+    height = np.round(rng.normal(size=N), 6)
     return {"site": site, "soil": soil, "growth": growth, "height": height}
 
 
