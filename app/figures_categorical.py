@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["group_figure", "residual_colour", "RESIDUAL_SATURATION"]
+__all__ = ["group_figure", "contingency_figure", "residual_colour", "RESIDUAL_SATURATION"]
 
 RESIDUAL_SATURATION = 4.0   # |adjusted residual| at full colour; 2 is about the two-sided 5 % point
 _NEG = (43, 92, 138)
@@ -52,3 +52,19 @@ def group_figure(detail: dict) -> dict:
                        "xaxis": {"title": {"text": c["group"]}, "type": "category"},
                        "yaxis": {"title": {"text": c["value"]}, "zeroline": False},
                        "legend": {"orientation": "h", "y": 1.08}, "plot_bgcolor": "white"}}
+
+
+def contingency_figure(detail: dict) -> dict:
+    """The contingency table as a heatmap of adjusted residuals with the counts written in the cells."""
+    c = detail["categorical"]
+    z = [[(v if v is not None else None) for v in row] for row in c["residuals"]]
+    text = [[f"{n}<br>({r:+.1f})" if r is not None else f"{n}" for n, r in zip(cn, rr)]
+            for cn, rr in zip(c["counts"], c["residuals"])]
+    scale = [[0.0, "rgb(43,92,138)"], [0.5, "rgb(255,255,255)"], [1.0, "rgb(180,71,43)"]]
+    return {"data": [{"type": "heatmap", "z": z, "x": c["y_levels"], "y": c["x_levels"], "text": text,
+                      "texttemplate": "%{text}", "colorscale": scale, "zmin": -RESIDUAL_SATURATION,
+                      "zmax": RESIDUAL_SATURATION, "colorbar": {"title": {"text": "adjusted<br>residual"}},
+                      "hovertemplate": "%{y} and %{x}: %{text}<extra></extra>"}],
+            "layout": {"margin": {"l": 90, "r": 10, "t": 10, "b": 60}, "height": 360,
+                       "xaxis": {"title": {"text": detail["y"]}, "type": "category"},
+                       "yaxis": {"title": {"text": detail["x"]}, "type": "category", "autorange": "reversed"}}}

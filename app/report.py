@@ -504,6 +504,16 @@ def _pair_cards(table, pt: PairTable, rankings: list[Ranking], figures: dict,
             continue
         typed = details[(x, y)]
         detail = typed.to_json()
+        if detail.get("categorical"):  # a categorical side: boxes with means, or the shaded contingency table
+            from . import figures_categorical as fc
+
+            card.figure_id = f"fig-{card.anchor}"
+            shown = {"x": typed.rows.x.tolist(), "y": typed.rows.y.tolist()}
+            figures[card.figure_id] = (fc.group_figure({**detail, "points": shown})
+                                       if detail["categorical"]["view"] == "groups" else fc.contingency_figure(detail))
+            card.points_note = f"All {typed.rows.n} rows. " + typed.rows.describe()
+            card.detail = detail
+            continue
         prow, px, py = typed.rows.rows, typed.rows.x, typed.rows.y  # the rows the measures and the fit use
         total = len(px)
         in_sample = np.isin(prow, store.rows)
