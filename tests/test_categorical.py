@@ -185,6 +185,17 @@ def test_dcor_on_categorical_sides_matches_the_dcor_package():
         dcor_ref.u_distance_correlation_sqr(onehot_g, v), rel=1e-9)
 
 
+def test_dcor_of_a_two_level_column_matches_the_dcor_package():
+    # two levels take the univariate path (one 0/1 column: the same discrete metric)
+    rng = np.random.default_rng(16)
+    g = rng.integers(0, 2, 150).astype(float) * 3.0 + 1.0     # codes 1 and 4: only equality matters
+    v = g + rng.normal(size=150)
+    onehot = (g[:, None] == np.unique(g)[None, :]).astype(float)
+    # Reference: dcor.distance_correlation on the indicator vectors
+    assert MEASURES["dcor"].compute(g, v, _ctx(CAT_NUM)).estimate == pytest.approx(
+        dcor_ref.distance_correlation(onehot, v), rel=1e-9)
+
+
 # --- the registry's kinds --------------------------------------------------------------------
 
 def test_registry_kinds_pick_the_measures_of_each_pair():
