@@ -75,4 +75,4 @@ def check_work(n_rows: int, numeric: list[str], options: dict) -> WorkEstimate |
         variables = plan_variables(list(numeric), settings)
     except Exception:  # noqa: BLE001 - the workspace turns bad options into their own message
         return None
-    return check_plan(estimate_work(len(variables), len(settings.measures), n_rows, settings.permutations))
+    return check_plan(estimate_work(len(variables), len(settings.run_measures), n_rows, settings.permutations))

@@ -71,9 +71,20 @@ def _add_analysis_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--difference", action="store_true",
                    help="analyse the first differences of every column in time order (for trending columns; "
                         "implies --ordered)")
+    _add_kind_options(p)
     p.add_argument("--workers", type=int, default=None, metavar="N", help="local worker processes (default: all cores)")
     p.add_argument("--cluster", default=None, metavar="ADDRESS",
                    help="Dask scheduler to run on, e.g. tcp://127.0.0.1:8786 (default: this machine)")
+
+
+def _add_kind_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--categorical", metavar="LIST", default=None,
+                   help="comma-separated columns to analyse as categorical (levels), e.g. numeric codes "
+                        "(default: text columns with at most %d levels and whole-number class codes)"
+                        % config.CATEGORICAL_MAX_LEVELS)
+    p.add_argument("--numeric", metavar="LIST", default=None,
+                   help="comma-separated columns detected as class codes to analyse as numbers instead "
+                        "(default: none)")
 
 
 def _measure_names() -> list[str]:
@@ -165,6 +176,7 @@ def build_parser(command: str | None = None) -> argparse.ArgumentParser:
         inspect.add_argument("--test", action="append", default=[], metavar="MEASURE=METHOD",
                              help="the p-value method of one measure (repeatable; default: each measure's "
                                   "default test), e.g. pearson=t")
+        _add_kind_options(inspect)
 
     report = _subparser(sub, "report", "a self-contained HTML report",
                         "One HTML file with the maps, the pair table and the methods; it opens offline.")
@@ -182,13 +194,16 @@ def _load(args):
     return table
 
 
-def _settings(args):
+def _settings(args, table=None):
+    from .kinds import settle
     from .plan import AnalysisSettings
 
-    return AnalysisSettings.from_options(
+    settings = AnalysisSettings.from_options(
         measures=args.measures, columns=args.columns, groups=args.group, missing=args.missing,
         adjust=args.adjust, confidence=args.confidence, permutations=args.permutations, seed=args.seed,
-        tests=args.test, ordered=args.ordered, difference=args.difference)
+        tests=args.test, ordered=args.ordered, difference=args.difference,
+        categorical=args.categorical, numeric=args.numeric)
+    return settle(table, settings) if table is not None else settings
 
 
 def _serial_note(args, check, ordered: bool) -> None:
@@ -225,7 +240,7 @@ class _ProgressBar:
 def _run(args, table):
     from .engine import run_analysis
 
-    settings = _settings(args)
+    settings = _settings(args, table)
     bar = _ProgressBar()
     try:
         result = run_analysis(table.data, table.columns, settings, workers=args.workers,
@@ -297,10 +312,14 @@ def cmd_inspect(args) -> int:
     from .core.registry import MEASURES
 
     table = _load(args)
+    from .kinds import levels_of, settle
+
     settings = AnalysisSettings.from_options(measures=list(MEASURES), confidence=args.confidence,
                                              permutations=args.permutations, seed=args.seed, tests=args.test,
-                                             ordered=args.ordered, difference=args.difference)
-    detail = pair_detail(table.data, table.columns, args.x, args.y, settings)
+                                             ordered=args.ordered, difference=args.difference,
+                                             categorical=args.categorical, numeric=args.numeric)
+    settings = settle(table, settings)
+    detail = pair_detail(table.data, table.columns, args.x, args.y, settings, levels=levels_of(table, settings))
     if detail.get("serial_note"):
         args.table_notes = [*getattr(args, "table_notes", []), detail["serial_note"]]
     if args.json:
@@ -326,6 +345,41 @@ def format_detail(d: dict) -> str:
         interval = "" if m["ci_low"] is None else f"[{_fmt(m['ci_low'])}, {_fmt(m['ci_high'])}]"
         extra = m.get("note") or m.get("method") or ""
         lines.append(f"{name:<10} {_fmt(m['estimate']):>10} {interval:>22} {_fmt(m['p_value']):>10}  {extra}")
+    if d.get("categorical"):
+        lines += _format_categorical(d)
+    else:
+        lines += _format_gaussian(d)
+    p = d["pattern"]
+    lines += ["", f"Verdict: {p['label']}"]
+    lines += [f"  - {r}" for r in p["reasons"]]
+    lines += ["", "Association is not causation; check outliers and missing data before relying on this.", ""]
+    return "\n".join(lines)
+
+
+def _format_categorical(d: dict) -> list[str]:
+    """Kinds, and the group table (numeric x categorical) or the contingency table (both categorical)."""
+    c = d["categorical"]
+    lines = ["", f"Kinds: {d['x']} {d['kinds'][0]}, {d['y']} {d['kinds'][1]}"]
+    if c["view"] == "groups":
+        lines.append(f"{c['value']} by {c['group']}: eta = {_fmt(c['eta'], 3)}, omega² = {_fmt(c['omega2'], 3)}, "
+                     f"F({c['df'][0]}, {c['df'][1]}) = {_fmt(c['f'])}")
+        lines.append(f"  {'level':<16} {'n':>6} {'mean':>10} {'sd':>10} {'median':>10}")
+        for g in c["groups"]:
+            lines.append(f"  {g['level'][:16]:<16} {g['n']:>6} {_fmt(g['mean']):>10} {_fmt(g['sd']):>10} "
+                         f"{_fmt(g['median']):>10}")
+        return lines
+    lines.append(f"Counts (adjusted standardised residuals; |r| > 2 departs from independence), rows {d['x']}, "
+                 f"columns {d['y']}")
+    width = max(8, *(len(v[:14]) + 2 for v in c["y_levels"]))
+    lines.append("  " + " " * 16 + "".join(f"{v[:14]:>{width + 8}}" for v in c["y_levels"]))
+    for level, counts, res in zip(c["x_levels"], c["counts"], c["residuals"]):
+        cells = "".join(f"{n:>{width}} ({_fmt(r, 2):>5})" for n, r in zip(counts, res))
+        lines.append(f"  {level[:16]:<16}{cells}")
+    return lines
+
+
+def _format_gaussian(d: dict) -> list[str]:
+    lines: list[str] = []
     g = d["gaussian"]
     lines += ["", "Bivariate Gaussian fit"]
     lines.append(f"  mean = ({_fmt(g['mean'][0])}, {_fmt(g['mean'][1])}), rho = {_fmt(g['rho'])}")
@@ -338,11 +392,7 @@ def format_detail(d: dict) -> str:
         lines.append("    (mutual information in nats, -1/2 ln(1 - rho^2); not estimated from the data)")
     nm = g["normality"]
     lines.append(f"  joint normality (Henze-Zirkler): statistic {_fmt(nm['statistic'])}, p = {_fmt(nm['p_value'])}")
-    p = d["pattern"]
-    lines += ["", f"Verdict: {p['label']}"]
-    lines += [f"  - {r}" for r in p["reasons"]]
-    lines += ["", "Association is not causation; check outliers and missing data before relying on this.", ""]
-    return "\n".join(lines)
+    return lines
 
 
 def cmd_report(args) -> int:

@@ -38,6 +38,26 @@ CLASS_CODE_MIN_ROWS = 50
 # before they read measure names; each registers measures of its own (pairlens.plugins).
 PLUGINS_ENV = "PAIRLENS_PLUGINS"
 
+# Categorical columns (issue 18) ------------------------------------------
+# Column kinds: a text column with at most CATEGORICAL_MAX_LEVELS distinct values (and at most
+# half as many values as filled cells) is kept as a categorical column; a numeric column that
+# looks like a class code (the rule above) is analysed as categorical unless --numeric names it.
+# More levels than this make a column too fragmented for a contingency table or a one-way
+# comparison at the row counts pairlens is built for; the user is told how to raise the limit
+# (PAIRLENS_CATEGORICAL_MAX_LEVELS) or to merge levels. Our own choice.
+CATEGORICAL_MAX_LEVELS = _env_int("PAIRLENS_CATEGORICAL_MAX_LEVELS", 20)
+# --categorical may name any numeric column with at most this many distinct values.
+CATEGORICAL_OVERRIDE_MAX_LEVELS = _env_int("PAIRLENS_CATEGORICAL_MAX_LEVELS", 20)
+# Measures added to a run for the pairs with a categorical side when --measures lists none of
+# them (the numeric measures never run on a categorical column).
+DEFAULT_CATEGORICAL_MEASURES: tuple[str, ...] = ("cramer_v", "eta", "kruskal")
+# The chi-square test of a contingency table uses the chi-square law unless Cochran's (1954)
+# rule fails (an expected count below 1, or more than 20 % of them below 5); then a permutation
+# test with this many relabellings.
+CHI2_MIN_EXPECTED = 5.0
+CHI2_SMALL_SHARE = 0.2
+CATEGORICAL_PERMUTATIONS = 1_999
+
 # Limits ------------------------------------------------------------------
 MAX_UPLOAD_MB = 200
 # Bodies of requests other than uploads (JSON settings, forms) are small; a larger

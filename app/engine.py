@@ -125,7 +125,7 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
         return wide
     pairs = pair_indices(variables)
     # refused before any work: too many pair-table rows, or beyond the work budget (app/budget.py)
-    check_plan(WorkEstimate(len(pairs), len(settings.measures), data.shape[0], settings.budget_permutations()))
+    check_plan(WorkEstimate(len(pairs), len(settings.run_measures), data.shape[0], settings.budget_permutations()))
     workers = workers or os.cpu_count() or 1
     owned = executor is None
     if executor is None:
@@ -169,7 +169,7 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
     if settings.ordered is not None:
         mark_trending(rows, check)
     _fill_q_values(rows, settings.adjust)
-    table = PairTable([v.name for v in variables], settings.measures, settings, rows)
+    table = PairTable([v.name for v in variables], settings.run_measures, settings, rows)
     table.serial = check._replace(order_note=order_note)
     if verdicts:
         table.verdicts = _labels(table, [e for _, tile_evidence in results for e in tile_evidence])

@@ -32,8 +32,10 @@ Rules a user can rely on (also stated in the README):
   row of names is skipped as a title (with a note).  Formula cells give the value Excel
   cached when it saved the file; a workbook written by a program that caches nothing has
   those cells missing.
-* Categorical or text (both left out): at most 50 distinct values and at most half as many
-  distinct values as filled cells is "categorical", anything else "text".  Cells that all
+* Categorical or text: at most 50 distinct values and at most half as many distinct values as
+  filled cells is "categorical", anything else "text" (left out). A categorical column with at
+  most ``config.CATEGORICAL_MAX_LEVELS`` levels is kept: ``Table.data`` holds its level codes
+  0..k-1 (levels sorted as text, ``ColumnInfo.levels``); with more it is left out with the fix.  Cells that all
   look like dates or times (ISO 8601, 31.05.2024, 5/31/24, 31 May 2024, 12:30) make a
   datetime column, also left out.
 """
@@ -84,6 +86,7 @@ class ColumnInfo:
     median: float = float("nan")
     maximum: float = float("nan")
     non_numeric: int = 0  # cells of a numeric column that were not numbers (now missing)
+    levels: tuple[str, ...] = ()  # a categorical column's levels; its cells in Table.data are their codes 0..k-1
 
 
 @dataclass
@@ -103,6 +106,13 @@ class Table:
     decimal: str = "."            # text formats: "," when a decimal comma was detected
     sheet: str = ""               # xlsx: the sheet read
     sheets: list[str] = field(default_factory=list)  # xlsx: every sheet in the workbook
+
+    def levels(self, name: str) -> tuple[str, ...]:
+        """The level names of a categorical text column (its codes index them), () otherwise."""
+        for c in self.info:
+            if c.name == name:
+                return c.levels
+        return ()
 
     @property
     def excluded(self) -> list[tuple[str, str]]:
@@ -857,6 +867,21 @@ class _Typed:
     distinct: int = 0
     non_numeric: int = 0
     examples: tuple[str, ...] = ()
+    levels: tuple[str, ...] = ()
+
+
+def _level_codes(present, missing: np.ndarray, n: int) -> tuple[np.ndarray, tuple[str, ...]]:
+    """Codes 0..k-1 of the present cells (levels sorted as text), NaN where missing."""
+    levels, inverse = np.unique(present.to_numpy(dtype=str), return_inverse=True)
+    codes = np.full(n, np.nan)
+    codes[~missing] = inverse.ravel()
+    return codes, tuple(str(v) for v in levels)
+
+
+def _categorical(reason: str, present, missing: np.ndarray, distinct: int) -> "_Typed":
+    codes, levels = _level_codes(present, missing, missing.size)
+    return _Typed("categorical", values=codes, reason=reason, missing=int(missing.sum()), distinct=distinct,
+                  levels=levels)
 
 
 def _check_parquet_size(base: str, rows: int, width: int) -> None:
@@ -964,8 +989,7 @@ def _classify_strings(series, decimal_comma: bool) -> _Typed:
         return _numeric(full, non_numeric=n_present - n_parsed, examples=examples)
     distinct = int(present.nunique())
     if present.str.lower().isin(_BOOL_TOKENS).all():
-        return _Typed("categorical", reason=f"true/false column ({_plural(distinct, 'distinct value')})",
-                      missing=n_missing, distinct=distinct)
+        return _categorical(f"true/false column ({_plural(distinct, 'distinct value')})", present, missing, distinct)
     n_dates = int(present.str.fullmatch(_DATETIME_RE).sum())
     if n_dates >= config.NUMERIC_MIN_SHARE * n_present:
         return _Typed("datetime", reason="datetime column", missing=n_missing, distinct=distinct)
@@ -975,8 +999,7 @@ def _classify_strings(series, decimal_comma: bool) -> _Typed:
                                      f"(at least {config.NUMERIC_MIN_SHARE:.0%} needed)",
                       missing=n_missing, distinct=distinct)
     if distinct <= _CATEGORICAL_MAX_DISTINCT and distinct <= n_present / 2:
-        return _Typed("categorical", reason=f"categorical column ({_plural(distinct, 'distinct value')})",
-                      missing=n_missing, distinct=distinct)
+        return _categorical(f"categorical column ({_plural(distinct, 'distinct value')})", present, missing, distinct)
     return _Typed("text", reason=f"text column ({_plural(distinct, 'distinct value')})",
                   missing=n_missing, distinct=distinct)
 
@@ -1013,8 +1036,9 @@ def _type_column(series, decimal_comma: bool) -> _Typed:
     dtype = series.dtype
     if ptypes.is_bool_dtype(dtype):
         distinct = int(series.nunique())
-        return _Typed("categorical", reason=f"true/false column ({_plural(distinct, 'distinct value')})",
-                      missing=int(series.isna().sum()), distinct=distinct)
+        missing = series.isna().to_numpy(dtype=bool)
+        return _categorical(f"true/false column ({_plural(distinct, 'distinct value')})",
+                            series[~missing].astype(str), missing, distinct)
     if ptypes.is_numeric_dtype(dtype) and not ptypes.is_complex_dtype(dtype):
         return _numeric(series.to_numpy(dtype=np.float64, na_value=np.nan))
     if ptypes.is_datetime64_any_dtype(dtype) or isinstance(dtype, pd.PeriodDtype):
@@ -1097,6 +1121,22 @@ def _build_table(base: str, sha: str, originals: list[str], columns: list, previ
     used_values: list[np.ndarray] = []
     for name, original, t, c in zip(names, originals, typed, columns):
         original_text = original if isinstance(original, str) else _cell_text(original)
+        if t.kind == "categorical" and t.values is not None:
+            # kept as level codes (issue 18); beyond the level limit a column stays out with the fix
+            if t.distinct > config.CATEGORICAL_MAX_LEVELS:
+                reason = (f"{t.reason}: more than {config.CATEGORICAL_MAX_LEVELS} levels, too many to compare "
+                          "(merge levels, or raise PAIRLENS_CATEGORICAL_MAX_LEVELS)")
+                info.append(ColumnInfo(name, original_text, t.kind, False, reason, t.missing, 0, t.distinct))
+                continue
+            if t.distinct < 2:
+                info.append(ColumnInfo(name, original_text, t.kind, False, f"{t.reason}: a single level",
+                                       t.missing, 0, t.distinct))
+                continue
+            info.append(ColumnInfo(name, original_text, t.kind, True, "", t.missing, 0, t.distinct,
+                                   levels=t.levels))
+            used_names.append(name)
+            used_values.append(t.values)
+            continue
         if t.kind != "numeric":
             info.append(ColumnInfo(name, original_text, t.kind, False, t.reason, t.missing, 0, t.distinct))
             continue
@@ -1129,7 +1169,7 @@ def _build_table(base: str, sha: str, originals: list[str], columns: list, previ
             notes.append(f"column {name!r} is constant (every value {low:g}); its measures will be undefined")
         elif class_code_levels(finite):
             notes.append(f"column {name!r} looks like a class code ({distinct} distinct whole numbers); "
-                         f"treated as a number")
+                         f"analysed as categorical (--numeric {name} keeps it a number)")
         info.append(ColumnInfo(name, original_text, "numeric", True, "", n_missing, n_inf, distinct,
                                low, mid, high, non_numeric=t.non_numeric))
         used_names.append(name)

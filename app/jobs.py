@@ -198,12 +198,14 @@ def run_job(data_dir: str, analysis_id: str, *, workers: int | None = None, clus
                 raise SettingsError("the dataset of this analysis is gone")
             note_progress(analysis_id, 0.0, None, phase="reading data")
             table = load_bytes(store.read_blob(dataset.sha256), dataset.name)
-            settings = AnalysisSettings.from_dict(row.settings)
+            from .kinds import settle
+
+            settings = settle(table, AnalysisSettings.from_dict(row.settings))  # column kinds (issue 18)
             # time left from the up-front estimate until the first tile reports a measured one
             from .budget import estimate_work
             from .plan import plan_variables
 
-            estimate = estimate_work(len(plan_variables(table.columns, settings)), len(settings.measures),
+            estimate = estimate_work(len(plan_variables(table.columns, settings)), len(settings.run_measures),
                                      table.n_rows, settings.permutations)
             note_progress(analysis_id, 0.0, estimate.seconds / max(1, workers or 1), phase="pairs")
             # every pair's verdict label is computed in the tiles, with the pair table

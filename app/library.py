@@ -51,12 +51,34 @@ def _remember(table: "Table") -> None:
 
 
 def _frame(table: "Table") -> "pd.DataFrame":
+    import numpy as np
     import pandas as pd
 
     df = pd.DataFrame(table.data, columns=list(table.columns), copy=False)
+    for name in table.columns:
+        labels = table.levels(name)
+        if labels:  # a categorical text column: its level names, not the codes (analyze() reads them back)
+            df[name] = pd.Categorical.from_codes(
+                np.nan_to_num(df[name].to_numpy(), nan=-1).astype(int), categories=list(labels))
     df.attrs[_ATTRS_KEY] = {"name": table.name, "sha256": table.sha256,
                             "left_out": [list(item) for item in table.excluded], "notes": list(table.notes)}
     return df
+
+
+def _codes_frame(df: "pd.DataFrame") -> "pd.DataFrame":
+    """``df`` with each categorical (pandas) column as its float level codes, NaN for missing: as read() made it."""
+    import numpy as np
+    import pandas as pd
+
+    out = df.copy(deep=False)
+    for name in df.columns:
+        if isinstance(df[name].dtype, pd.CategoricalDtype):
+            codes = df[name].cat.codes.to_numpy().astype(np.float64)
+            codes[codes < 0] = np.nan
+            out[name] = codes
+        elif not pd.api.types.is_numeric_dtype(df[name].dtype):
+            out[name] = np.nan  # text: never equal to a read() table's numbers, so the file reader decides
+    return out
 
 
 def _table_from_frame(df: "pd.DataFrame", name: str | None) -> "Table":
@@ -72,7 +94,7 @@ def _table_from_frame(df: "pd.DataFrame", name: str | None) -> "Table":
     meta = df.attrs.get(_ATTRS_KEY) or {}
     known = _READ_TABLES.get(meta.get("sha256", ""))
     if known is not None and [str(c) for c in df.columns] == list(known.columns):
-        values = df.to_numpy(dtype=np.float64, na_value=np.nan)
+        values = _codes_frame(df).to_numpy(dtype=np.float64, na_value=np.nan)
         if values.shape == known.data.shape and np.array_equal(values, known.data, equal_nan=True):
             return known
     # Anything else goes through the file reader (as Parquet, which keeps the dtypes), so a
@@ -252,6 +274,9 @@ def analyze(df: "pd.DataFrame", *, measures=None, columns=None, groups=None, mis
     settings = AnalysisSettings.from_options(measures=measures, columns=columns, groups=groups, missing=missing,
                                              adjust=adjust, confidence=confidence, permutations=permutations, tests=tests,
                                              seed=seed, ordered=ordered, difference=difference, **options)
+    from .kinds import settle
+
+    settings = settle(table, settings)  # column kinds: detected, or categorical=/numeric= (as --categorical)
     update, close = _progress_bar(progress)
     try:
         pair_table = run_analysis(table.data, table.columns, settings, workers=workers, cluster=cluster,
@@ -397,8 +422,11 @@ class Analysis:
         """
         from .pairs import pair_detail
 
+        from .kinds import levels_of
+
         detail = pair_detail(self._table.data, self._table.columns, x, y, self._pair_table.settings,
-                             table=self._pair_table, include_points=True)
+                             table=self._pair_table, include_points=True,
+                             levels=levels_of(self._table, self._pair_table.settings))
         return PairView(detail)
 
     def to_json(self) -> str:

@@ -33,6 +33,8 @@ def matrix_applies(settings, variables) -> str:
         return f"the matrix path computes {' and '.join(WIDE_MEASURES)} only"
     if any(v.is_group for v in variables):
         return "the matrix path does not take column groups"
+    if any(v.kind != "numeric" for v in variables):
+        return "the matrix path takes numeric columns only"
     if "pearson" in settings.measures:
         chosen = linear.resolved_test(settings.test_for("pearson") or None, settings.permutations)
         if chosen not in ("moments", "t"):

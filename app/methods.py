@@ -277,7 +277,58 @@ def _verdict_labels() -> list[str]:
         from .core.verdict import LABELS
     except ImportError:  # pragma: no cover - the verdict module is part of the package
         return []
-    return list(LABELS)
+    from .core.verdict_categorical import CATEGORICAL_LABELS
+
+    return list(dict.fromkeys([*LABELS, *CATEGORICAL_LABELS]))
+
+
+def _categorical_entry() -> dict:
+    """Column kinds and the measures of pairs with a categorical side (issue 18)."""
+    return {
+        "title": "Categorical columns",
+        "paragraphs": [
+            f"A text or true/false column with at most {config.CATEGORICAL_MAX_LEVELS} levels (and at most half as "
+            "many levels as filled cells) is categorical; so is a column of whole-number codes with at most "
+            f"{config.CLASS_CODE_MAX_LEVELS} values (two values at any size, more from {config.CLASS_CODE_MIN_ROWS} "
+            "rows). --categorical COL,... makes a numeric column with few values categorical, --numeric COL,... keeps "
+            "a code a number; a text column cannot become a number. A column with more levels is left out with the "
+            "fix (merge levels, or raise PAIRLENS_CATEGORICAL_MAX_LEVELS).",
+            "Each pair takes the measures that apply to its kinds (the registry says which): two numeric columns "
+            "the numeric measures; a numeric and a categorical column eta with the one-way ANOVA F test, the "
+            "Kruskal-Wallis test with the eta of the mid-ranks, and distance correlation; two categorical columns "
+            "Cramér's V with Bergsma's bias correction and the chi-square test, and distance correlation. "
+            "Pearson, Spearman, Kendall and xi never run on a categorical column: its codes have no order or "
+            "spacing.",
+            "Distance correlation needs a distance between rows. A categorical column's levels are embedded as "
+            "the unit vectors of their own axes divided by sqrt(2), so two rows of the same level are at distance "
+            "0 and two of different levels at distance sqrt(1/2 + 1/2) = 1: the discrete metric. It invents no "
+            "order or spacing, treats every level alike, and energy statistics apply to any metric space of "
+            "negative type, which the discrete metric is (Lyons 2013); the same gamma approximation and "
+            "permutation tests then hold as for numbers.",
+            "Chi-square test: the chi-square law with (r-1)(k-1) degrees of freedom unless Cochran's (1954) rule "
+            "fails (an expected count below 1, or more than 20% of them below 5); then 1,999 random relabellings "
+            "of one column (p = (1 + count at least as large) / (B + 1)). Kruskal-Wallis: chi-square with k-1 "
+            "degrees of freedom unless a level has fewer than 5 rows, then 1,999 relabellings. The ANOVA F test "
+            "uses the F law; omega-squared (Hays 1963), the bias-corrected share of variance explained, is given "
+            "beside eta.",
+            "Verdicts of these pairs: 'groups differ' (a location test, F or Kruskal-Wallis, has q below the "
+            "level), 'groups differ in spread or shape' (only distance correlation does), 'levels associated' "
+            "(two categorical columns, any test), else 'no evidence of dependence'. The pair view draws boxes "
+            "with every row and each level's mean, or the contingency table shaded by adjusted standardised "
+            "residuals (Haberman 1973).",
+        ],
+        "formula": "V~ = sqrt(max(0, chi^2/n - (r-1)(k-1)/(n-1)) / min(r~-1, k~-1)), r~ = r - (r-1)^2/(n-1); "
+                   "eta^2 = SS_between / SS_total; omega^2 = (SS_between - (k-1) MS_within) / (SS_total + MS_within); "
+                   "H = (n-1) SS_between(ranks) / SS_total(ranks); discrete metric d(a, b) = 1[a != b]",
+        "references": [
+            "Bergsma, W. (2013) J. Korean Stat. Soc. 42:323-328, doi:10.1016/j.jkss.2012.10.002",
+            "Cochran, W.G. (1954) Biometrics 10:417-451, doi:10.2307/3001616",
+            "Kruskal, W.H. & Wallis, W.A. (1952) JASA 47:583-621, doi:10.1080/01621459.1952.10483441",
+            "Lyons, R. (2013) Ann. Probab. 41:3284-3305, doi:10.1214/12-AOP803",
+            "Haberman, S.J. (1973) Biometrics 29:205-220, doi:10.2307/2529686",
+            "Hays, W.L. (1963) Statistics for Psychologists",
+        ],
+    }
 
 
 def cautions() -> list[dict]:
@@ -337,7 +388,7 @@ def methods_content(measures: Iterable[str] | None = None, *, settings=None, pai
         When given, the p-value methods actually used are counted per measure.
     """
     if measures is None and settings is not None:
-        measures = settings.measures
+        measures = getattr(settings, "run_measures", settings.measures)
     seen: dict[str, Counter] = {}
     if pair_table is not None:
         for row in pair_table.rows:
@@ -350,6 +401,8 @@ def methods_content(measures: Iterable[str] | None = None, *, settings=None, pai
     inference = inference_methods(**kwargs)
     if settings is not None and getattr(settings, "ordered", None) is not None:
         inference = [*inference, _ordered_entry(settings)]
+    if settings is None or getattr(settings, "categorical", ()):
+        inference = [*inference, _categorical_entry()]
     return {
         "measures": measure_methods(measures, seen),
         "inference": inference,

@@ -81,6 +81,8 @@ class PairDetail:
     complete: bool
     ordered: dict | None = None     # rows in time order: how, each series' serial summary, cross-correlation
     serial_note: str = ""
+    kinds: tuple[str, str] = ("numeric", "numeric")
+    categorical: dict | None = None  # a pair with a categorical side: group summary or contingency table
 
     @property
     def x(self) -> str:
@@ -101,6 +103,9 @@ class PairDetail:
             "pattern": ({"label": self.label, "reasons": list(self.reasons)} if self.complete else None),
             "rows_used": self.rows.describe(),
         }
+        detail["kinds"] = list(self.kinds)
+        if self.categorical is not None:
+            detail["categorical"] = self.categorical
         if self.ordered is not None:
             detail["ordered"] = self.ordered
             detail["serial_note"] = self.serial_note
@@ -131,9 +136,11 @@ def _measures_of(data: np.ndarray, names: Sequence[str], rows: PairRows, setting
     if table is not None:
         return dict(table.lookup(rows.x_name, rows.y_name))
     position = {n: i for i, n in enumerate(names)}
-    xvar, yvar = Variable(rows.x_name, (position[rows.x_name],)), Variable(rows.y_name, (position[rows.y_name],))
+    xvar, yvar = (Variable(rows.x_name, (position[rows.x_name],), kind=_kind(settings, rows.x_name)),
+                  Variable(rows.y_name, (position[rows.y_name],), kind=_kind(settings, rows.y_name)))
     single = AnalysisSettings(measures=tuple(MEASURES), confidence=settings.confidence,
-                              permutations=settings.permutations, seed=settings.seed)
+                              permutations=settings.permutations, seed=settings.seed,
+                              categorical=settings.categorical)
     out: dict[str, PairRow] = {}
     if row_mask is None:
         row_mask = analysis_row_mask(data, names, settings)
@@ -156,7 +163,33 @@ def _analysis_order(data: np.ndarray, names: Sequence[str], settings: AnalysisSe
     return data, names, None
 
 
-def verdict_of(rows: PairRows, measures: dict[str, PairRow], fit=None) -> tuple[str, tuple[str, ...]]:
+def _kind(settings: AnalysisSettings, name: str) -> str:
+    return "categorical" if name in settings.categorical else "numeric"
+
+
+def _categorical_part(rows: PairRows, kinds: tuple[str, str], levels: dict | None) -> dict:
+    """The pair view's group summary (numeric x categorical) or contingency table (both categorical)."""
+    from .core.verdict_categorical import contingency_summary, group_summary
+
+    levels = levels or {}
+    if kinds == ("categorical", "categorical"):
+        return {"view": "contingency", **contingency_summary(rows.x, rows.y, list(levels.get(rows.x_name, ())),
+                                                             list(levels.get(rows.y_name, ())))}
+    if kinds[0] == "categorical":
+        values, codes, group_name, value_name = rows.y, rows.x, rows.x_name, rows.y_name
+    else:
+        values, codes, group_name, value_name = rows.x, rows.y, rows.y_name, rows.x_name
+    from .core.categorical import correlation_ratio
+
+    cr = correlation_ratio(values, codes)
+    return {"view": "groups", "group": group_name, "value": value_name,
+            "groups": group_summary(values, codes, list(levels.get(group_name, ()))),
+            "eta": _num(cr.eta), "omega2": _num(cr.omega2), "f": _num(cr.f),
+            "df": [cr.df_between, cr.df_within]}
+
+
+def verdict_of(rows: PairRows, measures: dict[str, PairRow], fit=None,
+               kinds: tuple[str, str] = ("numeric", "numeric")) -> tuple[str, tuple[str, ...]]:
     """The verdict label and reasons of a pair from its rows and its rows of the pair table."""
     # Loaded here, not at import: the pair table does not need scipy.stats.
     from .core.verdict import classify_pair
@@ -164,6 +197,9 @@ def verdict_of(rows: PairRows, measures: dict[str, PairRow], fit=None) -> tuple[
     results = {m: TestResult(r.estimate, r.p_value, r.method, r.ci_low, r.ci_high, r.n, r.note)
                for m, r in measures.items()}
     q_values = {m: float(r.q_value) for m, r in measures.items()}
+    if "categorical" in kinds:
+        from .core.verdict_categorical import categorical_verdict
+        return categorical_verdict(kinds, results, q_values, alpha=config.SIGNIFICANCE_LEVEL)
     try:
         pattern = classify_pair(rows.x, rows.y, results, q_values, alpha=config.SIGNIFICANCE_LEVEL, fit=fit)
     except ArithmeticError:  # values near 1e300 overflow a measure's sums: no verdict, the view still shows
@@ -173,7 +209,7 @@ def verdict_of(rows: PairRows, measures: dict[str, PairRow], fit=None) -> tuple[
 
 def full_detail(data: np.ndarray, names: Sequence[str], x: str, y: str,
                 settings: AnalysisSettings | None = None, table: PairTable | None = None,
-                row_mask: np.ndarray | None = None) -> PairDetail:
+                row_mask: np.ndarray | None = None, levels: dict | None = None) -> PairDetail:
     """Everything about one pair: measures, Gaussian fit with its normality tests, verdict.
 
     When ``table`` is given its rows (and q-values) are used; otherwise the
@@ -199,9 +235,11 @@ def full_detail(data: np.ndarray, names: Sequence[str], x: str, y: str,
             for r in measures.values():
                 r.q_value = r.p_value
         timeline, note = _ordered_json(rows.x, rows.y, check, settings), check.message(True)
-    fit = fit_gaussian(rows.x, rows.y)
-    label, reasons = verdict_of(rows, measures, fit)
-    return PairDetail(rows, measures, fit, label, reasons, True, timeline, note)
+    kinds = (_kind(settings, x), _kind(settings, y))
+    fit = fit_gaussian(rows.x, rows.y, tests="categorical" not in kinds)
+    label, reasons = verdict_of(rows, measures, fit, kinds)
+    part = _categorical_part(rows, kinds, levels) if "categorical" in kinds else None
+    return PairDetail(rows, measures, fit, label, reasons, True, timeline, note, kinds, part)
 
 
 def _ordered_json(xv: np.ndarray, yv: np.ndarray, check, settings: AnalysisSettings) -> dict:
@@ -230,7 +268,8 @@ def quick_detail(data: np.ndarray, names: Sequence[str], x: str, y: str, table: 
     data, names, row_mask = _analysis_order(data, names, table.settings, row_mask)
     rows = pair_rows(data, names, x, y, table.settings, row_mask)
     fit = fit_gaussian(rows.x, rows.y, tests=False)
-    return PairDetail(rows, dict(table.lookup(x, y)), fit, None, (), False)
+    kinds = (_kind(table.settings, x), _kind(table.settings, y))
+    return PairDetail(rows, dict(table.lookup(x, y)), fit, None, (), False, kinds=kinds)
 
 
 def pair_verdict(data: np.ndarray, names: Sequence[str], x: str, y: str, table: PairTable,
@@ -238,11 +277,12 @@ def pair_verdict(data: np.ndarray, names: Sequence[str], x: str, y: str, table: 
     """The verdict label of one pair of an analysis, from the rows its measures used."""
     data, names, row_mask = _analysis_order(data, names, table.settings, row_mask)
     rows = pair_rows(data, names, x, y, table.settings, row_mask)
-    return verdict_of(rows, dict(table.lookup(x, y)))[0]
+    kinds = (_kind(table.settings, x), _kind(table.settings, y))
+    return verdict_of(rows, dict(table.lookup(x, y)), kinds=kinds)[0]
 
 
 def pair_detail(data: np.ndarray, names: Sequence[str], x: str, y: str,
                 settings: AnalysisSettings | None = None,
-                table: PairTable | None = None, include_points: bool = False) -> dict:
+                table: PairTable | None = None, include_points: bool = False, levels: dict | None = None) -> dict:
     """:func:`full_detail` as JSON (the ``inspect --json`` shape)."""
-    return full_detail(data, names, x, y, settings, table).to_json(include_points)
+    return full_detail(data, names, x, y, settings, table, levels=levels).to_json(include_points)

@@ -30,6 +30,17 @@ def _parse_tests(tests) -> tuple[tuple[str, str], ...]:
         raise SettingsError(str(exc)) from None
 
 
+def _name_list(value, option: str) -> tuple[str, ...]:
+    """Column names from "a,b", a list, or None; each once, in the order given."""
+    if not value:
+        return ()
+    if isinstance(value, str):
+        value = value.split(",")
+    if not isinstance(value, (list, tuple)) or not all(isinstance(v, str) for v in value):
+        raise SettingsError(f"{option} must be a list of column names, e.g. [\"variety\", \"site\"]")
+    return tuple(dict.fromkeys(v.strip() for v in value if v.strip()))
+
+
 def _parse_ordered(ordered, difference) -> str | None:
     """--ordered [COL]: None (not ordered), "" (file order) or a column name; --difference implies it."""
     if ordered is None or ordered is False:
@@ -54,11 +65,24 @@ class AnalysisSettings:
     tests: tuple[tuple[str, str], ...] = ()     # (measure, method) chosen with --test MEASURE=METHOD
     ordered: str | None = None  # rows in time order: None = no, "" = file order, else the column to sort by
     difference: bool = False    # analyse first differences (in time order; implies ordered)
+    # Column kinds (pairlens.kinds): the categorical columns of the run and the columns kept
+    # numeric on request. Before pairlens.kinds.settle they hold the user's overrides; after it
+    # ``categorical`` is every categorical column of the run (detected or asked for).
+    categorical: tuple[str, ...] = ()
+    numeric: tuple[str, ...] = ()
+
+    @property
+    def run_measures(self) -> tuple[str, ...]:
+        """The measures of the run: ``measures``, plus config.DEFAULT_CATEGORICAL_MEASURES that are not
+        listed when the run has categorical columns (each pair then takes those that apply to its kinds)."""
+        if not self.categorical:
+            return self.measures
+        return self.measures + tuple(m for m in config.DEFAULT_CATEGORICAL_MEASURES if m not in self.measures)
 
     @classmethod
     def from_options(cls, *, measures=None, columns=None, groups=None, missing=None, adjust=None,
                      confidence=None, permutations=None, seed=None, tests=None, ordered=None,
-                     difference=None) -> "AnalysisSettings":
+                     difference=None, categorical=None, numeric=None) -> "AnalysisSettings":
         """Build validated settings from loosely typed options (CLI strings, JSON values)."""
         if isinstance(measures, str):
             measures = [m for m in measures.split(",") if m.strip()]
@@ -91,6 +115,8 @@ class AnalysisSettings:
             tests=_parse_tests(tests),
             ordered=_parse_ordered(ordered, difference),
             difference=bool(difference),
+            categorical=_name_list(categorical, "categorical"),
+            numeric=_name_list(numeric, "numeric"),
         )
         settings.check()
         return settings
@@ -113,6 +139,10 @@ class AnalysisSettings:
             raise SettingsError(f"permutations must be between 0 and {config.MAX_PERMUTATIONS}; got {self.permutations}")
         if not (0 <= self.seed < 2**63):
             raise SettingsError(f"seed must be a non-negative integer; got {self.seed}")
+        both = sorted(set(self.categorical) & set(self.numeric))
+        if both:
+            raise SettingsError(f"column(s) {', '.join(map(repr, both))} named both categorical and numeric; "
+                                "keep each in one list")
         for name, members in self.groups:
             if not name:
                 raise SettingsError("a group needs a name: NAME=COL,COL")
@@ -125,6 +155,8 @@ class AnalysisSettings:
         d["columns"] = list(self.columns) if self.columns is not None else None
         d["groups"] = {name: list(members) for name, members in self.groups}
         d["tests"] = dict(self.tests)
+        d["categorical"] = list(self.categorical)
+        d["numeric"] = list(self.numeric)
         return d
 
     def test_for(self, measure: str) -> str:
@@ -150,7 +182,7 @@ class AnalysisSettings:
     def from_dict(cls, d: dict) -> "AnalysisSettings":
         return cls.from_options(**{k: d.get(k) for k in (
             "measures", "columns", "groups", "missing", "adjust", "confidence", "permutations", "seed",
-            "tests", "ordered", "difference")})
+            "tests", "ordered", "difference", "categorical", "numeric")})
 
     def cli_arguments(self) -> list[str]:
         """The options that reproduce these settings on the command line."""
@@ -164,6 +196,10 @@ class AnalysisSettings:
                  "--seed", str(self.seed)]
         for measure, method in self.tests:
             args += ["--test", f"{measure}={method}"]
+        if self.categorical:
+            args += ["--categorical", ",".join(self.categorical)]
+        if self.numeric:
+            args += ["--numeric", ",".join(self.numeric)]
         if self.difference:
             args += ["--difference"]
         if self.ordered:
@@ -189,6 +225,7 @@ class Variable:
     name: str
     columns: tuple[int, ...]
     is_group: bool = False
+    kind: str = "numeric"       # "numeric" or "categorical" (pairlens.kinds)
 
 
 
@@ -214,6 +251,10 @@ def plan_variables(names: Sequence[str], settings: AnalysisSettings) -> list[Var
             raise SettingsError(f"group {gname!r}: unknown column(s) {', '.join(map(repr, bad))}")
         if len(set(members)) != len(members):
             raise SettingsError(f"group {gname!r} lists a column twice")
+        cat = [m for m in members if m in settings.categorical]
+        if cat:
+            raise SettingsError(f"group {gname!r}: column(s) {', '.join(map(repr, cat))} are categorical; "
+                                "groups take numeric columns only")
         for m in members:
             if m in group_of:
                 raise SettingsError(f"column {m!r} is in both group {group_of[m]!r} and {gname!r}")
@@ -229,7 +270,8 @@ def plan_variables(names: Sequence[str], settings: AnalysisSettings) -> list[Var
                 cols = members_of[g]
                 variables.append(Variable(g, cols, is_group=True))
         elif name in selected:
-            variables.append(Variable(name, (position[name],)))
+            kind = "categorical" if name in settings.categorical else "numeric"
+            variables.append(Variable(name, (position[name],), kind=kind))
     if len(variables) < 2:
         raise SettingsError("an analysis needs at least 2 variables (columns or groups); "
                             f"got {len(variables)}")

@@ -382,7 +382,10 @@ def _pair_cards(table, pt: PairTable, rankings: list[Ranking],
 
     def detail_of(pair):
         # the pair-detail service: the rows, measures, fit and verdict the pair view shows
-        return full_detail(table.data, table.columns, pair[0], pair[1], pt.settings, pt, row_mask)
+        from .kinds import levels_of
+
+        return full_detail(table.data, table.columns, pair[0], pair[1], pt.settings, pt, row_mask,
+                           levels=levels_of(table, pt.settings))
 
     # The Gaussian fit's normality test is O(n^2) and NumPy releases the GIL in it,
     # so a few threads shorten the wait; results keep the card order.
@@ -394,6 +397,16 @@ def _pair_cards(table, pt: PairTable, rankings: list[Ranking],
             continue
         typed = details[(x, y)]
         detail = typed.to_json()
+        if detail.get("categorical"):  # a categorical side: boxes with means, or the shaded contingency table
+            from . import figures_categorical as fc
+
+            card.figure_id = f"fig-{card.anchor}"
+            shown = {"x": typed.rows.x.tolist(), "y": typed.rows.y.tolist()}
+            figures[card.figure_id] = (fc.group_figure({**detail, "points": shown})
+                                       if detail["categorical"]["view"] == "groups" else fc.contingency_figure(detail))
+            card.points_note = f"All {typed.rows.n} rows. " + typed.rows.describe()
+            card.detail = detail
+            continue
         prow, px, py = typed.rows.rows, typed.rows.x, typed.rows.y  # the rows the measures and the fit use
         total = len(px)
         in_sample = np.isin(prow, sample)
@@ -577,7 +590,7 @@ def build_report(table, pair_table: PairTable, *, command: str, generated_at: da
         "serial_note": serial_note(table.data, table.columns, settings),
         "is_demo": _is_demo(table),
         "settings": settings,
-        "measure_labels": [(m, MEASURES[m].label) for m in settings.measures],
+        "measure_labels": [(m, MEASURES[m].label) for m in settings.run_measures],
         "command": command,
         "seconds": pair_table.seconds,
         "summary": _summary(pair_table),

@@ -17,7 +17,7 @@ import numpy as np
 
 from . import config
 from .core import allpairs
-from .core.registry import MEASURES, PairContext, get_measure, pvalue_floor
+from .core.registry import MEASURES, PairContext, get_measure, measures_for, pvalue_floor
 from .core.results import TestResult, undefined
 from .core.testing import floor_pvalue, pair_seed
 from .pairtable import PairRow
@@ -30,7 +30,8 @@ __all__ = ["compute_pair", "fast_pair_rows", "prepare_columns", "init_worker", "
 # Per-pair work (runs in worker processes) ---------------------------------
 
 def _compute_one(measure_name: str, xv: np.ndarray, yv: np.ndarray, x_name: str, y_name: str,
-                 settings: AnalysisSettings, x_group: bool, y_group: bool) -> TestResult:
+                 settings: AnalysisSettings, x_group: bool, y_group: bool,
+                 kinds: tuple[str, str] = ("numeric", "numeric")) -> TestResult:
     measure = get_measure(measure_name)
     n = len(xv)
     if (x_group or y_group) and not measure.multivariate:
@@ -39,7 +40,7 @@ def _compute_one(measure_name: str, xv: np.ndarray, yv: np.ndarray, x_name: str,
         return undefined(n, f"fewer than {config.MIN_ROWS} rows with both values present ({n})")
     ctx = PairContext(confidence=settings.confidence, permutations=settings.permutations,
                       seed=pair_seed(settings.seed, x_name, y_name, measure_name),
-                      test=settings.test_for(measure_name))
+                      test=settings.test_for(measure_name), kinds=kinds)
     try:
         return measure.compute(xv, yv, ctx)
     except ArithmeticError:  # e.g. squares of values near 1e300 overflow: this pair and measure only
@@ -78,11 +79,12 @@ def compute_pair(data: np.ndarray, xvar: Variable, yvar: Variable, settings: Ana
         keep &= row_mask
     xv, yv = xv_all[keep], yv_all[keep]
     rows: list[PairRow] = []
-    for m in settings.measures:
+    # each pair takes the measures that apply to its kinds (registry ``kinds``)
+    for m in measures_for(settings.run_measures, xvar.kind, yvar.kind):
         for a, b, swapped in _directions(m, xvar, yvar):
             av, bv = (yv, xv) if swapped else (xv, yv)
             rows.append(_pair_row(a, b, m, _compute_one(m, av, bv, a.name, b.name, settings,
-                                                        a.is_group, b.is_group)))
+                                                        a.is_group, b.is_group, (a.kind, b.kind))))
     return rows
 
 
@@ -103,8 +105,8 @@ def _presorted_measure(measure: str, pair: "allpairs.PresortedPair", a: Variable
 def fast_pair_rows(prep: "allpairs.PreparedColumns", xvar: Variable, yvar: Variable,
                     settings: AnalysisSettings) -> list[PairRow] | None:
     """The rows of a pair of single columns from the presorted columns; None: use compute_pair."""
-    if xvar.is_group or yvar.is_group:
-        return None
+    if xvar.is_group or yvar.is_group or xvar.kind != "numeric" or yvar.kind != "numeric":
+        return None  # groups and categorical sides take the per-pair path
     i, j = prep.slot.get(xvar.columns[0]), prep.slot.get(yvar.columns[0])
     if i is None or j is None or not (prep.finite[i] and prep.finite[j]):
         return None
@@ -211,6 +213,11 @@ def _label_evidence(data: np.ndarray, prep: "allpairs.PreparedColumns", xvar: Va
 
     if xvar.is_group or yvar.is_group:
         return None
+    if xvar.kind != "numeric" or yvar.kind != "numeric":
+        from .core.verdict_categorical import CategoricalEvidence
+        return CategoricalEvidence((xvar.kind, yvar.kind), {
+            r.measure: TestResult(r.estimate, r.p_value, r.method, r.ci_low, r.ci_high, r.n, r.note)
+            for r in rows if r.x == xvar.name})
     i, j = prep.slot.get(xvar.columns[0]), prep.slot.get(yvar.columns[0])
     if i is not None and j is not None:
         # the sorted columns' column-major copy, its presence mask folding in the row mask:

@@ -57,6 +57,12 @@ NUMERIC_FORMAT: dict[str, int] = {
     "gust_noise_kmh": 1,
 }
 TEXT_COLUMNS = ("block_id", "row_orientation")
+# Appended after every other column (issue 18), drawn from its own generator so that every
+# earlier column stays bit-identical.
+TRAILING_TEXT_COLUMNS = ("grape_variety",)
+VARIETY_SEED = 161803
+VARIETIES = ("Chardonnay", "Pinot noir", "Syrah")
+VARIETY_STRENGTH = 1.6   # logit change per standard deviation of ripeness (sugar up, acidity down)
 
 # One independent stream per purpose, so changing one column never shifts another.
 _STREAMS = (
@@ -168,7 +174,29 @@ def generate(seed: int = SEED) -> dict[str, np.ndarray]:
         "trap_count_noise": rng["traps"].poisson(6.0, n).astype(float),
         "gust_noise_kmh": rng["gusts"].gamma(3.0, 4.0, n),
     }
+    columns["grape_variety"] = _variety(sugar, acidity)
     return columns
+
+
+def _variety(sugar: np.ndarray, acidity: np.ndarray) -> np.ndarray:
+    """The grape variety of each row's sampled vines (blocks are invented mixed plantings).
+
+    Drawn from its own generator (``VARIETY_SEED``) given the ripeness of the row: the later a
+    variety ripens (Chardonnay < Pinot noir < Syrah here, invented), the higher the sugar and the
+    lower the acidity of its rows. Drawing the label given the measurements, not the other way
+    round, leaves every existing column untouched; the joint law is what an analyst would see if
+    the variety drove sugar and acidity. Variety is thereby also tied to canopy temperature
+    (through sugar) and, through the four fault rows, barely to yeast nitrogen.
+    """
+    rng = np.random.default_rng(VARIETY_SEED)
+    # ranks, not raw values: the sugar plateau and the acidity fault rows should not dominate
+    def z(v):
+        r = np.argsort(np.argsort(v, kind="stable"), kind="stable")
+        return (r - r.mean()) / r.std()
+    ripeness = (z(sugar) - z(acidity)) / np.sqrt(2.0)
+    logits = VARIETY_STRENGTH * np.outer(ripeness, np.array([-1.0, 0.0, 1.0]))
+    gumbel = -np.log(-np.log(rng.uniform(size=logits.shape)))   # Gumbel-max draws the softmax choice
+    return np.array(VARIETIES)[np.argmax(logits + gumbel, axis=1)]
 
 
 def _format_cell(value: float, decimals: int) -> str:
@@ -179,12 +207,13 @@ def _format_cell(value: float, decimals: int) -> str:
 
 
 def to_csv_text(columns: dict[str, np.ndarray]) -> str:
-    names = list(TEXT_COLUMNS) + list(NUMERIC_FORMAT)
+    names = list(TEXT_COLUMNS) + list(NUMERIC_FORMAT) + list(TRAILING_TEXT_COLUMNS)
     lines = [",".join(names)]
     n = len(columns["block_id"])
     for i in range(n):
         cells = [str(columns[name][i]) for name in TEXT_COLUMNS]
         cells += [_format_cell(columns[name][i], NUMERIC_FORMAT[name]) for name in NUMERIC_FORMAT]
+        cells += [str(columns[name][i]) for name in TRAILING_TEXT_COLUMNS]
         lines.append(",".join(cells))
     return "\n".join(lines) + "\n"
 

@@ -144,7 +144,15 @@
   }
 
   /* Pair view ------------------------------------------------------------------------ */
+  function initPairGroups() {  // numeric x categorical pair view: boxes, strips and group means
+    var fig = readJSON("pair-group-figure");
+    var box = $("pair-groups");
+    if (!fig || !box || !window.Plotly) return;
+    Plotly.newPlot(box, fig.data, fig.layout, PLOT_CONFIG).then(function () { box.dataset.ready = "1"; });
+  }
+
   function initPair() {
+    initPairGroups();
     var figs = readJSON("pair-figures");
     if (!figs || !window.Plotly) return;
     var scatter = $("pair-scatter");

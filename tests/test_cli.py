@@ -37,7 +37,11 @@ def test_pairs_csv_on_stdout_follows_contract(small_csv):
     reader = csv.DictReader(io.StringIO(out.stdout))
     assert reader.fieldnames == CONTRACT_FIELDS
     rows = list(reader)
-    assert len(rows) == 3 * 2
+    # three numeric pairs x 2 measures; the text column "label" (3 levels) is categorical (issue 18):
+    # its three pairs get the categorical measures eta and kruskal, added to the run, never pearson
+    assert len([r for r in rows if r["measure"] in ("pearson", "spearman")]) == 3 * 2
+    assert sorted(r["measure"] for r in rows if "label" in (r["x"], r["y"])) == sorted(["eta", "kruskal"] * 3)
+    rows = [r for r in rows if "label" not in (r["x"], r["y"])]
     # formula-leading names are neutralised for spreadsheets (OWASP CSV injection guidance)
     assert {r["y"] for r in rows if r["x"] == "alpha"} == {"'=HYPERLINK(1)", "gamma"}
     data = np.genfromtxt(small_csv, delimiter=",", skip_header=1, usecols=(0, 2))
@@ -49,7 +53,8 @@ def test_pairs_csv_on_stdout_follows_contract(small_csv):
 
 def test_pairs_json_file_output(small_csv, tmp_path):
     target = tmp_path / "out.json"
-    out = _run("pairs", str(small_csv), "-o", str(target), "--measures", "kendall", "--adjust", "holm")
+    out = _run("pairs", str(small_csv), "-o", str(target), "--measures", "kendall", "--adjust", "holm",
+               "--columns", "alpha,=HYPERLINK(1),gamma")   # the numeric columns (label is categorical)
     assert out.returncode == 0, out.stderr
     records = json.loads(target.read_text())
     assert [list(r) for r in records] == [CONTRACT_FIELDS] * 3
@@ -75,7 +80,7 @@ def test_inspect_json_contract(small_csv):
     ["pairs", "{csv}", "--confidence", "abc"],
     ["pairs", "{csv}", "-o", "out.xlsx"],
     ["inspect", "{csv}", "--x", "alpha", "--y", "alpha"],
-    ["inspect", "{csv}", "--x", "alpha", "--y", "label"],
+    ["inspect", "{csv}", "--x", "alpha", "--y", "label", "--numeric", "label"],   # text cannot be numeric
     ["pairs"],
 ])
 def test_bad_invocations_exit_2_with_one_line(small_csv, args):

@@ -215,17 +215,23 @@ def test_infinities_count_as_missing(files):
 
 def test_mixed_text_columns_and_the_95_percent_rule(files):
     table = load(files, "mixed_text.csv")
-    assert table.columns == ["score", "sugar"]
+    # categorical columns within the level limit are kept as level codes (issue 18)
+    assert table.columns == ["variety", "score", "irrigated", "sugar"]
     score = info(table, "score")  # 39 of 40 cells are numbers: 97.5 % >= 95 %
     assert (score.kind, score.used, score.missing, score.non_numeric) == ("numeric", True, 1, 1)
-    assert np.isnan(table.data[7, 0])
+    assert np.isnan(table.data[7, 1])
     assert any("'score'" in n and "1 non-numeric cell" in n and "n/a?" in n for n in table.notes)
     mostly = info(table, "mostly_text")  # 28 of 40: too few
     assert (mostly.kind, mostly.used) == ("text", False) and "28 of 40" in mostly.reason
-    assert info(table, "variety").reason == "categorical column (3 distinct values)"
+    variety = info(table, "variety")
+    assert (variety.kind, variety.used, variety.distinct) == ("categorical", True, 3)
+    codes = table.data[:, 0]
+    # level codes index the sorted level names (issue 18)
+    assert set(np.unique(codes[~np.isnan(codes)])) <= {0.0, 1.0, 2.0} and len(variety.levels) == 3
+    assert list(variety.levels) == sorted(variety.levels)
     assert info(table, "block").reason == "text column (40 distinct values)"
     irrigated = info(table, "irrigated")  # booleans are categories, not 0/1 numbers
-    assert (irrigated.kind, irrigated.used) == ("categorical", False) and "true/false" in irrigated.reason
+    assert (irrigated.kind, irrigated.used) == ("categorical", True) and len(irrigated.levels) == 2
     # summary statistics of the used columns, checked against the statistics module
     sugar = [15 + i * 0.1 for i in range(40)]
     s = info(table, "sugar")

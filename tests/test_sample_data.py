@@ -106,7 +106,10 @@ def test_generator_rewrites_the_committed_csv_byte_for_byte(tmp_path):
 # Layout (specification: sample_data/README.md) -------------------------------------------
 
 def test_layout_matches_the_readme(table, numeric):
-    assert table.shape == (960, 20)
+    assert table.shape == (960, 21)
+    # the categorical column appended by issue 18 (sample_data/README.md)
+    assert set(table["grape_variety"]) == {"Chardonnay", "Pinot noir", "Syrah"}
+    assert list(table.columns)[-1] == "grape_variety"
     assert all(re.fullmatch(r"B\d\d", b) for b in table["block_id"])
     assert table["block_id"].nunique() == 40
     assert (table.groupby("block_id")["week"].apply(sorted)

@@ -14,13 +14,13 @@ from typing import Callable
 
 import numpy as np
 
-from . import allpairs, chatterjee, distance, linear, rank, serial
+from . import allpairs, categorical, chatterjee, distance, linear, rank, serial
 from .. import config
 from .results import TestResult
 from .testing import all_pairings, attainable_minimum, floor_pvalue, permutation_floor
 
-__all__ = ["PairContext", "Measure", "MEASURES", "get_measure", "measure_names", "parse_tests", "pvalue_floor",
-           "register", "unregister"]
+__all__ = ["PairContext", "Measure", "MEASURES", "KINDS", "pair_kind", "measures_for", "get_measure",
+           "measure_names", "parse_tests", "pvalue_floor", "register", "unregister"]
 
 
 @dataclass(frozen=True)
@@ -31,6 +31,18 @@ class PairContext:
     permutations: int = 0
     seed: np.random.SeedSequence | None = None
     test: str = ""          # a method from the measure's ``tests``; "" = its default rule
+    kinds: tuple[str, str] = ("numeric", "numeric")   # column kinds of x and y (pairlens.kinds)
+
+
+KINDS: tuple[str, ...] = ("numeric", "categorical")
+_NUMERIC_PAIR = ("numeric x numeric",)
+_ANY_PAIR = ("numeric x numeric", "categorical x numeric", "categorical x categorical")
+
+
+def pair_kind(kx: str, ky: str) -> str:
+    """The kind of a pair, independent of order: "numeric x numeric", "categorical x numeric", ..."""
+    a, b = sorted((kx, ky))
+    return f"{a} x {b}"
 
 
 def _resamples(ctx: PairContext, default_test: str) -> int:
@@ -81,6 +93,11 @@ class Measure:
     # allpairs.pair_work it reads: "rank_sums", "kendall_counts", "distance".
     presorted: Callable[["allpairs.PresortedPair", PairContext], TestResult | None] | None = None
     presorted_needs: frozenset[str] = frozenset()
+    # The kinds of pairs the measure applies to (pair_kind); the engine runs it on those only.
+    kinds: tuple[str, ...] = _NUMERIC_PAIR
+
+    def applies_to(self, kx: str, ky: str) -> bool:
+        return pair_kind(kx, ky) in self.kinds
 
 
 def _pearson(x, y, ctx: PairContext) -> TestResult:
@@ -102,6 +119,37 @@ def _dcor(x, y, ctx: PairContext) -> TestResult:
 
 def _dcor_bc(x, y, ctx: PairContext) -> TestResult:
     return distance.dcor_bc(x, y, permutations=_resamples(ctx, "gamma"), seed=ctx.seed)
+
+
+def _discrete(codes: np.ndarray) -> np.ndarray:
+    # two levels as one 0/1 column: the same discrete metric, and the fast univariate distance path
+    e = categorical.discrete_embedding(codes)
+    return e[:, 0] if e.shape[1] == 2 else e
+
+
+def _embedded(compute):
+    """Categorical sides as points under the discrete metric (:func:`categorical.discrete_embedding`)."""
+    def run(x, y, ctx: PairContext) -> TestResult:
+        if "categorical" in ctx.kinds:
+            x, y = _complete(x, y)
+            x = _discrete(x) if ctx.kinds[0] == "categorical" else x
+            y = _discrete(y) if ctx.kinds[1] == "categorical" else y
+        return compute(x, y, ctx)
+    run.__name__ = compute.__name__
+    run.__doc__ = compute.__doc__
+    return run
+
+
+def _cramer_v(x, y, ctx: PairContext) -> TestResult:
+    return categorical.cramers_v(x, y, permutations=ctx.permutations, seed=ctx.seed, test=ctx.test)
+
+
+def _eta(x, y, ctx: PairContext) -> TestResult:
+    return categorical.eta(x, y, ctx.kinds)
+
+
+def _kruskal(x, y, ctx: PairContext) -> TestResult:
+    return categorical.kruskal_eta(x, y, ctx.kinds, permutations=ctx.permutations, seed=ctx.seed)
 
 
 def _xi(x, y, ctx: PairContext) -> TestResult:
@@ -357,7 +405,7 @@ MEASURES: dict[str, Measure] = {
             formula="R_n = dCov_n(x, y) / sqrt(dVar_n(x) dVar_n(y)), double-centred distance matrices",
             reference="Szekely, Rizzo & Bakirov (2007) Ann. Statist. 35:2769-2794, doi:10.1214/009053607000000505; "
                       "Huo & Szekely (2016) Technometrics 58:435-447, doi:10.1080/00401706.2015.1054435",
-            compute=_floored(_dcor, "dcor"), pairing_statistics=_dcor_pairings,
+            compute=_embedded(_floored(_dcor, "dcor")), pairing_statistics=_dcor_pairings, kinds=_ANY_PAIR,
             role="dependence", short_label="dCor", implied=lambda rho: float(distance.gaussian_dcor(rho)),
             serial=_serial_block("dcor"), serial_test=_BLOCK_TEXT, serial_resamples=True,
             presorted=_distance_presorted(distance.dcor_from_statistics), presorted_needs=frozenset({"distance"}),
@@ -371,7 +419,7 @@ MEASURES: dict[str, Measure] = {
             formula="R*_n = <A~, B~> / sqrt(<A~, A~> <B~, B~>), U-centred distance matrices",
             reference="Szekely & Rizzo (2013) J. Multivariate Anal. 117:193-213, doi:10.1016/j.jmva.2013.02.012; "
                       "Szekely & Rizzo (2014) Ann. Statist. 42:2382-2412, doi:10.1214/14-AOS1255",
-            compute=_floored(_dcor_bc, "dcor_bc"), pairing_statistics=_dcor_bc_pairings,
+            compute=_embedded(_floored(_dcor_bc, "dcor_bc")), pairing_statistics=_dcor_bc_pairings, kinds=_ANY_PAIR,
             role="dependence", short_label="bias-corrected dCor²", implied=lambda rho: float(distance.gaussian_dcor(rho)) ** 2,
             serial=_serial_block("dcor_bc"), serial_test=_BLOCK_TEXT, serial_resamples=True,
             presorted=_distance_presorted(distance.dcor_bc_from_statistics), presorted_needs=frozenset({"distance"}),
@@ -389,6 +437,52 @@ MEASURES: dict[str, Measure] = {
             role="dependence", short_label="ξ(x → y)", implied=chatterjee.gaussian_xi,
             serial=_serial_block("xi"), serial_test=_BLOCK_TEXT, serial_resamples=True,
             presorted=_xi_presorted,
+        ),
+        Measure(
+            name="cramer_v", label="Cramér's V (bias-corrected)", family="categorical", symmetric=True,
+            signed=False, lower=0.0, upper=1.0, multivariate=False, reflection="unchanged",
+            default_test="Pearson chi-square test on (r-1)(k-1) df; when Cochran's rule fails (an expected "
+                         "count below 1 or more than 20% below 5) a permutation test of the chi-square "
+                         "statistic with 1,999 relabellings",
+            tests=("auto", "chi2", "permutation"),
+            interval="",
+            formula="V~ = sqrt(phi~^2 / min(r~-1, k~-1)), phi~^2 = max(0, chi^2/n - (r-1)(k-1)/(n-1)), "
+                    "r~ = r - (r-1)^2/(n-1), k~ = k - (k-1)^2/(n-1)",
+            reference="Cramér, H. (1946) Mathematical Methods of Statistics; Cochran, W.G. (1954) Biometrics "
+                      "10:417-451, doi:10.2307/3001616; Bergsma, W. (2013) J. Korean Stat. Soc. 42:323-328, "
+                      "doi:10.1016/j.jkss.2012.10.002",
+            compute=_floored(_cramer_v, "cramer_v"), role="dependence", short_label="Cramér's V",
+            kinds=("categorical x categorical",),
+        ),
+        Measure(
+            name="eta", label="Correlation ratio η", family="categorical", symmetric=True,
+            signed=False, lower=0.0, upper=1.0, multivariate=False, reflection="unchanged",
+            default_test="one-way ANOVA F test on (k-1, n-k) df; omega² (Hays 1963), the bias-corrected "
+                         "effect size, beside it",
+            tests=("anova",),
+            interval="",
+            formula="eta^2 = SS_between / SS_total; F = (SS_between/(k-1)) / (SS_within/(n-k)); "
+                    "omega^2 = (SS_between - (k-1) MS_within) / (SS_total + MS_within)",
+            reference="Pearson, K. (1903) Proc. R. Soc. Lond. 71:288-313, doi:10.1098/rspl.1902.0099; "
+                      "Fisher, R.A. (1925) Statistical Methods for Research Workers; Hays, W.L. (1963) "
+                      "Statistics for Psychologists; Okada, K. (2013) Behaviormetrika 40:129-147, "
+                      "doi:10.2333/bhmk.40.129",
+            compute=_floored(_eta, "eta"), role="trend", short_label="η",
+            kinds=("categorical x numeric",),
+        ),
+        Measure(
+            name="kruskal", label="Kruskal-Wallis η (ranks)", family="categorical", symmetric=True,
+            signed=False, lower=0.0, upper=1.0, multivariate=False, reflection="unchanged",
+            default_test="Kruskal-Wallis H (tie-corrected) against chi-square with k-1 df; a permutation test "
+                         "with 1,999 relabellings when a level has fewer than 5 rows",
+            tests=("auto",),
+            interval="",
+            formula="eta_R = sqrt(H/(n-1)), H = (n-1) SS_between(R)/SS_total(R) on mid-ranks R; "
+                    "eta_R^2 is the epsilon^2 of Kruskal-Wallis",
+            reference="Kruskal, W.H. & Wallis, W.A. (1952) JASA 47:583-621, doi:10.1080/01621459.1952.10483441; "
+                      "Tomczak, M. & Tomczak, E. (2014) Trends Sport Sci. 21:19-25",
+            compute=_floored(_kruskal, "kruskal"), role="rank", short_label="rank η",
+            kinds=("categorical x numeric",),
         ),
     )
 }
@@ -489,6 +583,11 @@ def unregister(name: str) -> None:
     if name in _BUILT_IN:
         raise ValueError(f"{name!r} is a built-in measure and cannot be removed")
     MEASURES.pop(name, None)
+
+
+def measures_for(measures, kx: str, ky: str) -> tuple[str, ...]:
+    """The measures of ``measures`` that apply to a pair of kinds ``kx`` and ``ky``, in their order."""
+    return tuple(m for m in measures if MEASURES[m].applies_to(kx, ky))
 
 
 def measure_names() -> tuple[str, ...]:

@@ -814,6 +814,8 @@ def label_from_evidence(gathered: LabelEvidence, q_values: dict[str, float]) -> 
     >>> label_from_evidence(label_evidence(x, y, res), q) == classify_pair(x, y, res, q).label
     True
     """
+    if not isinstance(gathered, LabelEvidence):  # a pair with a categorical side (core.verdict_categorical)
+        return gathered.label(q_values or {})
     ev = dataclasses.replace(gathered.evidence, q={}, q_from_p=[])
     _set_q(ev, gathered.results, q_values or {})
     for rule in RULES:

@@ -80,7 +80,7 @@ def strict_options(options: dict) -> dict:
     """
     if not isinstance(options, dict):
         raise SettingsError("the options must be a JSON object")
-    for field in ("measures", "columns"):
+    for field in ("measures", "columns", "categorical", "numeric"):
         _text_list(field, options.get(field))
     groups = options.get("groups")
     if groups is not None:

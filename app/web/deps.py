@@ -181,7 +181,10 @@ def _spark(values: np.ndarray, bins: int = SPARK_BINS) -> list[int]:
 
 def dataset_summary(table) -> dict:
     """What the dataset page shows, computed once at upload and stored with the dataset."""
+    from ..kinds import detect
+
     position = {n: i for i, n in enumerate(table.columns)}
+    kinds = detect(table)  # each used column's detected kind and why (issue 18)
     columns = []
     for c in table.info:
         entry = {
@@ -191,6 +194,10 @@ def dataset_summary(table) -> dict:
             "min": finite(c.minimum), "median": finite(c.median), "max": finite(c.maximum),
             "spark": _spark(table.data[:, position[c.name]]) if c.name in position else [],
         }
+        if c.name in kinds:
+            entry["detected"] = kinds[c.name].kind
+            entry["kind_reason"] = kinds[c.name].reason
+            entry["levels"] = list(c.levels[:8])
         columns.append(entry)
     preview = [[str(cell)[:_PREVIEW_CELL_CHARS] for cell in row] for row in table.preview[:10]]
     return {
@@ -398,7 +405,7 @@ class Workspace:
     def start_analysis(self, dataset_id: str, options: dict) -> AnalysisRow:
         dataset = self.dataset(dataset_id)
         allowed = ("measures", "columns", "groups", "missing", "adjust", "confidence", "permutations", "seed",
-                   "tests", "ordered", "difference")
+                   "tests", "ordered", "difference", "categorical", "numeric")
         unknown = sorted(set(options) - set(allowed))
         if unknown:
             raise SettingsError(f"unknown option(s) {', '.join(unknown)}; use {', '.join(allowed)}")
@@ -406,9 +413,12 @@ class Workspace:
             settings = AnalysisSettings.from_options(**{k: options.get(k) for k in allowed})
         except (TypeError, ValueError) as exc:
             raise SettingsError(str(exc)) from None
+        from ..kinds import settle
+
+        settings = settle(self.table(dataset), settings)  # column kinds; a bad --categorical fails now
         variables = plan_variables(dataset.summary["numeric"], settings)  # unknown columns fail now, not in the job
         # beyond the work budget or the pair-table limit: refused now, with the estimate (app/budget.py)
-        check_plan(estimate_work(len(variables), len(settings.measures), dataset.n_rows,
+        check_plan(estimate_work(len(variables), len(settings.run_measures), dataset.n_rows,
                                  settings.budget_permutations()))
         self._check_group_rows(dataset, settings)
         return self.jobs.submit(dataset.id, settings.to_dict())
@@ -502,7 +512,7 @@ class Workspace:
         rows = [PairRow(r["x"], r["y"], r["measure"], *(math.nan if r[f] is None else r[f] for f in
                                                           ("estimate", "ci_low", "ci_high", "p_value", "q_value")),
                         int(r["n"]), r["note"], r.get("method", "")) for r in res["records"]]
-        res["table"] = PairTable(res["variables"], settings.measures, settings, rows, res["seconds"])
+        res["table"] = PairTable(res["variables"], settings.run_measures, settings, rows, res["seconds"])
         return self._pair_tables.put(row.id, res)
 
     def pair_table(self, row: AnalysisRow) -> PairTable:
@@ -656,7 +666,10 @@ class Workspace:
         if x not in data.columns or y not in data.columns:
             raise SettingsError("the pair view shows single columns; groups appear in the table only")
         started = time.perf_counter()
-        detail = full_detail(data.data, data.columns, x, y, table.settings, table).to_json(include_points=True)
+        from ..kinds import levels_of
+
+        detail = full_detail(data.data, data.columns, x, y, table.settings, table,
+                             levels=levels_of(data, table.settings)).to_json(include_points=True)
         detail["seconds"] = time.perf_counter() - started
         detail["analysis_id"] = row.id
         labels = self.verdicts(row).setdefault("labels", {})
@@ -688,6 +701,8 @@ class Workspace:
             return cached, True
         table = self.pair_table(row)
         if table.settings.ordered is not None:  # points in time order and the series panel: the full detail
+            return self.pair(row, x, y), True
+        if x in table.settings.categorical or y in table.settings.categorical:  # groups or contingency: cheap
             return self.pair(row, x, y), True
         if x not in table.variables or y not in table.variables:
             missing = x if x not in table.variables else y

@@ -121,11 +121,16 @@ async def start_analysis_form(dataset_id: str, request: Request, ws: Workspace =
         "ordered": _ordered_from_form(str(form.get("ordered") or "")),
         "difference": form.get("difference") == "yes",
     }
+    # per-column kind choices: "" keeps the detected kind (issue 18)
+    kinds = {key[len("kind-"):]: str(value) for key, value in form.multi_items()
+             if key.startswith("kind-") and str(value) in ("numeric", "categorical")}
+    options["categorical"] = [c for c, k in kinds.items() if k == "categorical"]
+    options["numeric"] = [c for c, k in kinds.items() if k == "numeric"]
     echo = {"measures": options["measures"], "columns": columns, "groups": str(form.get("groups", "")),
             "missing": options["missing"], "adjust": options["adjust"], "confidence": options["confidence"],
             "permutations": options["permutations"], "seed": options["seed"],
             "tests": str(form.get("tests") or ""), "ordered": str(form.get("ordered") or ""),
-            "difference": form.get("difference") == "yes"}
+            "difference": form.get("difference") == "yes", "kinds": kinds}
     if not options["measures"]:
         return _dataset_page(request, ws, dataset_id, "Choose at least one measure.", 422, echo)
     if options["columns"] is not None and len(options["columns"]) == 0 and not options["groups"]:
@@ -221,6 +226,14 @@ def pair_page(analysis_id: str, request: Request, x: str, y: str, ws: Workspace 
     dataset = ws.dataset(row.dataset_id)
     table = ws.pair_table(row)
     detail, complete = ws.pair_view(row, x, y)
+    if detail.get("categorical"):  # a categorical side: groups or a contingency table (issue 18)
+        from .. import figures_categorical as fc
+
+        figure = fc.group_figure(detail) if detail["categorical"]["view"] == "groups" else None
+        return _render(request, "pair_categorical.html", {
+            "analysis": row, "dataset": dataset, "table": table, "detail": detail,
+            "figure": embed_json(figure), "residual_colour": fc.residual_colour,
+            "saturation": fc.RESIDUAL_SATURATION})
     scatter = plots.pair_figure(detail)
     ranks = plots.rank_figure(detail)
     series = plots.series_figure(detail)
