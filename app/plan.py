@@ -30,6 +30,17 @@ def _parse_tests(tests) -> tuple[tuple[str, str], ...]:
         raise SettingsError(str(exc)) from None
 
 
+def _parse_given(given) -> tuple[str, ...]:
+    """--given COL[,COL...]: the columns held fixed, as a tuple of names."""
+    if not given:
+        return ()
+    if isinstance(given, str):
+        given = given.split(",")
+    if not isinstance(given, (list, tuple)) or not all(isinstance(c, str) for c in given):
+        raise SettingsError("given must be a list of column names (or one comma-separated string)")
+    return tuple(c.strip() for c in given if c.strip())
+
+
 def _parse_ordered(ordered, difference) -> str | None:
     """--ordered [COL]: None (not ordered), "" (file order) or a column name; --difference implies it."""
     if ordered is None or ordered is False:
@@ -54,11 +65,12 @@ class AnalysisSettings:
     tests: tuple[tuple[str, str], ...] = ()     # (measure, method) chosen with --test MEASURE=METHOD
     ordered: str | None = None  # rows in time order: None = no, "" = file order, else the column to sort by
     difference: bool = False    # analyse first differences (in time order; implies ordered)
+    given: tuple[str, ...] = ()  # --given: columns held fixed; the partial variants of the measures are added
 
     @classmethod
     def from_options(cls, *, measures=None, columns=None, groups=None, missing=None, adjust=None,
                      confidence=None, permutations=None, seed=None, tests=None, ordered=None,
-                     difference=None) -> "AnalysisSettings":
+                     difference=None, given=None) -> "AnalysisSettings":
         """Build validated settings from loosely typed options (CLI strings, JSON values)."""
         if isinstance(measures, str):
             measures = [m for m in measures.split(",") if m.strip()]
@@ -91,6 +103,7 @@ class AnalysisSettings:
             tests=_parse_tests(tests),
             ordered=_parse_ordered(ordered, difference),
             difference=bool(difference),
+            given=_parse_given(given),
         )
         settings.check()
         return settings
@@ -113,6 +126,10 @@ class AnalysisSettings:
             raise SettingsError(f"permutations must be between 0 and {config.MAX_PERMUTATIONS}; got {self.permutations}")
         if not (0 <= self.seed < 2**63):
             raise SettingsError(f"seed must be a non-negative integer; got {self.seed}")
+        if len(self.given) > config.GIVEN_MAX_COLUMNS:
+            raise SettingsError(f"given lists {len(self.given)} columns; at most {config.GIVEN_MAX_COLUMNS}")
+        if len(set(self.given)) != len(self.given):
+            raise SettingsError("given lists a column twice")
         for name, members in self.groups:
             if not name:
                 raise SettingsError("a group needs a name: NAME=COL,COL")
@@ -125,7 +142,14 @@ class AnalysisSettings:
         d["columns"] = list(self.columns) if self.columns is not None else None
         d["groups"] = {name: list(members) for name, members in self.groups}
         d["tests"] = dict(self.tests)
+        d["given"] = list(self.given)
         return d
+
+    def table_measures(self) -> tuple[str, ...]:
+        """The measures of the pair table: the chosen ones, then (with --given) their conditional variants."""
+        from .core.registry import partial_of
+
+        return self.measures + partial_of(self.measures) if self.given else self.measures
 
     def test_for(self, measure: str) -> str:
         """The method chosen for ``measure`` with --test, or "" (its default rule)."""
@@ -150,7 +174,7 @@ class AnalysisSettings:
     def from_dict(cls, d: dict) -> "AnalysisSettings":
         return cls.from_options(**{k: d.get(k) for k in (
             "measures", "columns", "groups", "missing", "adjust", "confidence", "permutations", "seed",
-            "tests", "ordered", "difference")})
+            "tests", "ordered", "difference", "given")})
 
     def cli_arguments(self) -> list[str]:
         """The options that reproduce these settings on the command line."""
@@ -164,6 +188,8 @@ class AnalysisSettings:
                  "--seed", str(self.seed)]
         for measure, method in self.tests:
             args += ["--test", f"{measure}={method}"]
+        if self.given:
+            args += ["--given", ",".join(self.given)]
         if self.difference:
             args += ["--difference"]
         if self.ordered:
@@ -198,7 +224,9 @@ def plan_variables(names: Sequence[str], settings: AnalysisSettings) -> list[Var
     """Variables in input column order; a group takes the place of its first column."""
     position = {n: i for i, n in enumerate(names)}
     selected = set(names) if settings.columns is None else set(settings.columns)
-    unknown = [c for c in (settings.columns or ()) if c not in position]
+    # the columns held fixed are not analysed as pairs
+    selected -= set(settings.given)
+    unknown = [c for c in (settings.columns or ()) + settings.given if c not in position]
     if unknown:
         raise SettingsError(f"unknown column(s) {', '.join(map(repr, unknown))}; numeric columns are: "
                             f"{', '.join(names[:20])}{' ...' if len(names) > 20 else ''}")
@@ -215,6 +243,8 @@ def plan_variables(names: Sequence[str], settings: AnalysisSettings) -> list[Var
         if len(set(members)) != len(members):
             raise SettingsError(f"group {gname!r} lists a column twice")
         for m in members:
+            if m in settings.given:
+                raise SettingsError(f"column {m!r} is both given (held fixed) and in group {gname!r}")
             if m in group_of:
                 raise SettingsError(f"column {m!r} is in both group {group_of[m]!r} and {gname!r}")
             group_of[m] = gname

@@ -27,7 +27,7 @@ from markupsafe import Markup
 
 from . import __version__, config, formatting
 from . import figures as plots
-from .core.registry import MEASURES
+from .core.registry import MEASURES, get_measure
 from .formatting import embed_json
 from .ordering import serial_note
 from .methods import methods_content
@@ -216,7 +216,7 @@ def _row_index(pt: PairTable) -> dict[tuple[str, str], dict[str, PairRow]]:
 
 
 def _strength(measure: str, value: float) -> float:
-    return abs(value) if MEASURES[measure].signed else value
+    return abs(value) if get_measure(measure).signed else value
 
 
 def rank_pairs(pt: PairTable, measure: str, top_k: int) -> list[PairRow]:
@@ -245,7 +245,7 @@ def _rankings(pt: PairTable, top_k: int) -> list[Ranking]:
     index = _row_index(pt)
     out: list[Ranking] = []
     for m in pt.measures:
-        meas = MEASURES[m]
+        meas = get_measure(m)
         ranking = Ranking(key=m, title=f"Strongest by {meas.label}",
                           explanation=("largest |estimate|" if meas.signed else "largest estimate")
                           + ("; each direction x → y ranked separately" if not meas.symmetric else ""),
@@ -258,7 +258,7 @@ def _rankings(pt: PairTable, top_k: int) -> list[Ranking]:
             ranking.pairs.append(RankedPair(r.x, r.y, float(r.estimate), rows))
         out.append(ranking)
     for a, b, kind, explanation in disagreement_contrasts(pt.measures):
-        la, lb = MEASURES[a].label, MEASURES[b].label
+        la, lb = get_measure(a).label, get_measure(b).label
         label = f"{la} − |{lb}|" if kind == "signed" else f"|{la}| − |{lb}|"
         ranking = Ranking(key=f"{a}-{b}", title=f"Disagreement: {label}", explanation=explanation,
                           score_label=label)
@@ -308,7 +308,7 @@ def compact_heatmap(fig: dict, pt: PairTable, measure: str) -> dict:
     # intervals are left to the pair table: three numbers per cell keep 30 x 30 maps small
     fields = ("p_value", "q_value", "n")
     stack = np.stack([pt.matrix(measure, f)[np.ix_(idx, idx)] for f in fields], axis=-1)
-    meas = MEASURES[measure]
+    meas = get_measure(measure)
     head = "<b>%{x}</b> × <b>%{y}</b>" if meas.symmetric else "<b>%{y}</b> → <b>%{x}</b>"
     body = f"{plot_label(meas.label)} %{{z:.3f}}"
     body += "<br>p %{customdata[0]:.2g}  q %{customdata[1]:.2g}  n %{customdata[2]}"
@@ -340,8 +340,8 @@ def compact_difference(fig: dict, pt: PairTable, a: str, b: str) -> dict:
     stack = np.stack([pt.matrix(a)[np.ix_(idx, idx)], pt.matrix(b)[np.ix_(idx, idx)]], axis=-1)
     heat = {k: v for k, v in heat.items() if k != "text"}
     heat["customdata"] = _rounded_matrix(stack, HOVER_DIGITS)
-    heat["hovertemplate"] = ("<b>%{x}</b> × <b>%{y}</b><br>" + plot_label(MEASURES[a].label)
-                             + " %{customdata[0]:.3f}  " + plot_label(MEASURES[b].label)
+    heat["hovertemplate"] = ("<b>%{x}</b> × <b>%{y}</b><br>" + plot_label(get_measure(a).label)
+                             + " %{customdata[0]:.3f}  " + plot_label(get_measure(b).label)
                              + " %{customdata[1]:.3f}<br>difference %{z:.3f}<extra></extra>")
     return _label_every_variable({**fig, "data": [heat, *fig["data"][1:]]}, len(names))
 
@@ -404,7 +404,7 @@ def _card_rows(pt: PairTable, rows: dict[str, PairRow]) -> list[dict]:
         r = rows.get(m)
         if r is None:
             continue
-        meas = MEASURES[m]
+        meas = get_measure(m)
         out.append({
             "measure": m,
             "label": meas.label if meas.symmetric else f"{meas.label} ({r.x} → {r.y})",
@@ -427,7 +427,7 @@ def _gaussian_summary(detail: dict) -> dict:
         if name not in observed:  # only measures this analysis computed have an observed value
             continue
         obs = observed.get(name)
-        implied.append({"name": MEASURES[name].label if name in MEASURES else name,
+        implied.append({"name": get_measure(name).label if name in MEASURES else name,
                         "implied": fmt_estimate(value), "observed": fmt_estimate(obs),
                         "gap": fmt_estimate(obs - value) if _finite(obs) and _finite(value) else "–"})
     cond = g.get("conditional") or {}
@@ -594,7 +594,7 @@ def _summary(pt: PairTable) -> list[dict]:
         rows = [r for r in pt.rows if r.measure == m]
         defined = [r for r in rows if _finite(r.p_value)]
         sig = [r for r in defined if _finite(r.q_value) and r.q_value < config.SIGNIFICANCE_LEVEL]
-        out.append({"measure": m, "label": MEASURES[m].label, "rows": len(rows), "defined": len(defined),
+        out.append({"measure": m, "label": get_measure(m).label, "rows": len(rows), "defined": len(defined),
                     "significant": len(sig)})
     return out
 
@@ -666,7 +666,7 @@ def build_report(table, pair_table: PairTable, *, command: str, generated_at: da
     for m in pair_table.measures:
         fid = f"heatmap-{m}"
         figures[fid] = compact_heatmap(plots.heatmap_figure(pair_table, m, order=order), pair_table, m)
-        meas = MEASURES[m]
+        meas = get_measure(m)
         heatmaps.append({"id": fid, "measure": m, "label": meas.label, "symmetric": meas.symmetric,
                          "range": f"[{meas.lower:g}, {meas.upper:g}]"})
     contrasts = []
@@ -676,7 +676,7 @@ def build_report(table, pair_table: PairTable, *, command: str, generated_at: da
         fid = f"difference-{a}-{b}"
         figures[fid] = compact_difference(plots.difference_figure(pair_table, a, b, order=order, top=0),
                                           pair_table, a, b)
-        contrasts.append({"id": fid, "label": f"{MEASURES[a].label} − |{MEASURES[b].label}|",
+        contrasts.append({"id": fid, "label": f"{get_measure(a).label} − |{get_measure(b).label}|",
                           "explanation": explanation})
 
     rankings = _rankings(pair_table, top_k)
@@ -712,12 +712,12 @@ def build_report(table, pair_table: PairTable, *, command: str, generated_at: da
         "serial_note": serial_note(table.data, table.columns, settings),
         "is_demo": _is_demo(table),
         "settings": settings,
-        "measure_labels": [(m, MEASURES[m].label) for m in settings.measures],
+        "measure_labels": [(m, get_measure(m).label) for m in settings.measures],
         "command": command,
         "seconds": pair_table.seconds,
         "summary": _summary(pair_table),
         "n_pairs": len(pair_table.variables) * (len(pair_table.variables) - 1) // 2,
-        "order_measure": MEASURES[order_measure].label,
+        "order_measure": get_measure(order_measure).label,
         "heatmaps": heatmaps,
         "contrasts": contrasts,
         "rankings": rankings,

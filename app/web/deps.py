@@ -398,7 +398,7 @@ class Workspace:
     def start_analysis(self, dataset_id: str, options: dict) -> AnalysisRow:
         dataset = self.dataset(dataset_id)
         allowed = ("measures", "columns", "groups", "missing", "adjust", "confidence", "permutations", "seed",
-                   "tests", "ordered", "difference")
+                   "tests", "ordered", "difference", "given")
         unknown = sorted(set(options) - set(allowed))
         if unknown:
             raise SettingsError(f"unknown option(s) {', '.join(unknown)}; use {', '.join(allowed)}")
@@ -502,7 +502,7 @@ class Workspace:
         rows = [PairRow(r["x"], r["y"], r["measure"], *(math.nan if r[f] is None else r[f] for f in
                                                           ("estimate", "ci_low", "ci_high", "p_value", "q_value")),
                         int(r["n"]), r["note"], r.get("method", "")) for r in res["records"]]
-        res["table"] = PairTable(res["variables"], settings.measures, settings, rows, res["seconds"])
+        res["table"] = PairTable(res["variables"], settings.table_measures(), settings, rows, res["seconds"])
         return self._pair_tables.put(row.id, res)
 
     def pair_table(self, row: AnalysisRow) -> PairTable:

@@ -120,12 +120,13 @@ async def start_analysis_form(dataset_id: str, request: Request, ws: Workspace =
         # empty: rows independent; ORDERED_FILE: time order as in the file; else the column to sort by
         "ordered": _ordered_from_form(str(form.get("ordered") or "")),
         "difference": form.get("difference") == "yes",
+        "given": [str(c) for c in form.getlist("given") if str(c)],
     }
     echo = {"measures": options["measures"], "columns": columns, "groups": str(form.get("groups", "")),
             "missing": options["missing"], "adjust": options["adjust"], "confidence": options["confidence"],
             "permutations": options["permutations"], "seed": options["seed"],
             "tests": str(form.get("tests") or ""), "ordered": str(form.get("ordered") or ""),
-            "difference": form.get("difference") == "yes"}
+            "difference": form.get("difference") == "yes", "given": [str(c) for c in form.getlist("given")]}
     if not options["measures"]:
         return _dataset_page(request, ws, dataset_id, "Choose at least one measure.", 422, echo)
     if options["columns"] is not None and len(options["columns"]) == 0 and not options["groups"]:
