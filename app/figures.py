@@ -650,3 +650,34 @@ def series_figure(detail: dict) -> dict | None:
         },
     }
     return {"series": {"data": traces, "layout": layout}, "xcorr": xcorr}
+
+
+def residual_figure(detail: dict) -> dict | None:
+    """--given: x given Z against y given Z (least-squares residuals on the given columns), with the
+    least-squares line through them, whose slope's correlation is the partial Pearson r."""
+    given = detail.get("given") or {}
+    res = given.get("residuals")
+    if not res:
+        return None
+    x, y = np.asarray(res["x"], dtype=float), np.asarray(res["y"], dtype=float)
+    n = len(x)
+    z = ", ".join(given.get("columns", []))
+    xl, yl, zl = plot_text(detail["x"]), plot_text(detail["y"]), plot_text(z)
+    trace = {"type": "scattergl" if n > 5000 else "scatter", "mode": "markers", "x": x.tolist(), "y": y.tolist(),
+             "marker": {"size": 3 if n > 2000 else 5, "color": _POINT}, "name": "residuals",
+             "hovertemplate": f"{xl} | {zl} %{{x:.3g}}<br>{yl} | {zl} %{{y:.3g}}<extra></extra>"}
+    data = [trace]
+    sxx = float(x @ x)
+    if n >= 3 and sxx > 0:
+        slope = float(x @ y) / sxx   # residuals have mean 0: the line passes through the origin
+        ends = [float(x.min()), float(x.max())]
+        data.append({"type": "scatter", "mode": "lines", "x": ends, "y": [slope * e for e in ends],
+                     "line": {"color": _FIT, "width": 2}, "name": "least squares", "hoverinfo": "skip"})
+    layout = {
+        "font": {"family": _FONT, "color": _INK, "size": 11},
+        "margin": {"l": 55, "r": 10, "t": 10, "b": 45},
+        "xaxis": {"title": {"text": f"{xl} given {zl} (residual)"}, "zeroline": True, "gridcolor": "#e3e7e9"},
+        "yaxis": {"title": {"text": f"{yl} given {zl} (residual)"}, "zeroline": True, "gridcolor": "#e3e7e9"},
+        "paper_bgcolor": "rgba(0,0,0,0)", "plot_bgcolor": "#fbfcfc", "showlegend": False,
+    }
+    return {"data": data, "layout": layout}

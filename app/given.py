@@ -106,3 +106,44 @@ def describe_given(given: GivenColumns | None) -> str:
             "terms (partial Pearson and Spearman); distances of the given columns, numeric ones scaled to unit "
             "SD, for partial distance correlation. Conditional q-values are adjusted within each conditional "
             "measure, a family of their own.")
+
+
+def conditioning_changes(table, alpha: float, limit: int = 25) -> dict | None:
+    """The pairs whose dependence changes most when the given columns are held fixed.
+
+    For the first chosen measure with a conditional variant, each pair's plain and
+    conditional estimate and q-value; ``kind`` "vanishes" (plain q < alpha, conditional
+    not), "appears" (the reverse) or "" (unchanged verdict). Vanishing and appearing pairs
+    come first, each by the size of the change; then the largest changes. None without --given.
+    """
+    settings = table.settings
+    if not settings.given:
+        return None
+    base = next((m for m in settings.measures if get_measure(m).partial), None)
+    if base is None:
+        return None
+    cond = get_measure(base).partial
+    plain: dict[tuple[str, str], PairRow] = {}
+    given: dict[tuple[str, str], PairRow] = {}
+    for r in table.rows:
+        if r.measure == base:
+            plain[(r.x, r.y)] = r
+        elif r.measure == cond:
+            given[(r.x, r.y)] = r
+    rows = []
+    for key, p in plain.items():
+        g = given.get(key)
+        if g is None:
+            continue
+        pe, ge = float(p.estimate), float(g.estimate)
+        if not (math.isfinite(pe) and math.isfinite(ge)):
+            continue
+        p_sig = p.q_value == p.q_value and p.q_value < alpha
+        g_sig = g.q_value == g.q_value and g.q_value < alpha
+        kind = "vanishes" if p_sig and not g_sig else "appears" if g_sig and not p_sig else ""
+        rows.append({"x": key[0], "y": key[1], "plain": pe, "plain_q": float(p.q_value), "given": ge,
+                     "given_q": float(g.q_value), "change": ge - pe, "kind": kind})
+    rows.sort(key=lambda r: (r["kind"] == "", -abs(r["change"])))
+    counts = {k: sum(r["kind"] == k for r in rows) for k in ("vanishes", "appears")}
+    return {"measure": base, "conditional": cond, "columns": list(settings.given), "rows": rows[:limit],
+            "counts": counts, "pairs": len(rows)}

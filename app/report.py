@@ -396,6 +396,8 @@ class PairCard:
     points_note: str = ""
     note: str = ""
     gaussian: dict | None = None        # display-ready summary of the Gaussian fit
+    residual_id: str = ""               # --given: the residual scatter's figure
+    residual_note: str = ""
 
 
 def _card_rows(pt: PairTable, rows: dict[str, PairRow]) -> list[dict]:
@@ -463,6 +465,25 @@ def _slim_pair_figure(fig: dict) -> dict:
                 trace = {**trace, "x": xs, "y": ys}
         out.append(trace)
     return {**fig, "data": out}
+
+
+def _residual_card(card: "PairCard", typed, figures: dict, seed: int) -> None:
+    """--given: the card's residual scatter (x given Z against y given Z), at most MAX_SCATTER_POINTS points."""
+    if typed.given is None or not typed.given.get("residuals"):
+        return
+    res = typed.given["residuals"]
+    n = len(res["x"])
+    keep = np.arange(n)
+    if n > MAX_SCATTER_POINTS:
+        keep = np.sort(np.random.default_rng(seed).choice(n, MAX_SCATTER_POINTS, replace=False))
+    shown = {"x": np.asarray(res["x"])[keep].tolist(), "y": np.asarray(res["y"])[keep].tolist()}
+    fig = plots.residual_figure({"x": card.x, "y": card.y, "given": {**typed.given, "residuals": shown}})
+    if fig is None:
+        return
+    card.residual_id = f"res-{card.anchor}"
+    card.residual_note = (f"Residuals of {card.x} and {card.y} given {', '.join(typed.given['columns'])} "
+                          f"(least squares; {'; '.join(typed.given['how'])}), {len(keep)} of {n} rows drawn.")
+    figures[card.residual_id] = fig
 
 
 def _pair_cards(table, pt: PairTable, rankings: list[Ranking], figures: dict,
@@ -538,6 +559,7 @@ def _pair_cards(table, pt: PairTable, rankings: list[Ranking], figures: dict,
         layout["margin"] = {**layout.get("margin", {}), "b": 110}
         figures[card.figure_id] = fig
         card.detail = detail
+        _residual_card(card, typed, figures, pt.settings.seed)
     return list(cards.values()), len(store.rows), store.to_json()
 
 

@@ -681,6 +681,8 @@ class Workspace:
         table = self.pair_table(row)
         if table.settings.ordered is not None:  # points in time order and the series panel: the full detail
             return self.pair(row, x, y), True
+        if table.settings.given:  # the residuals on the given columns come with the full detail
+            return self.pair(row, x, y), True
         if x not in table.variables or y not in table.variables:
             missing = x if x not in table.variables else y
             raise NotFound(f"{missing!r} is not a variable of analysis {row.id}")

@@ -13,6 +13,7 @@ from ..ingest import IngestError
 from ..methods import methods_content
 from ..store import UploadTooLarge
 from .. import figures as plots
+from ..given import conditioning_changes
 from ..core.verdict import marginals_normal_not_joint
 from ..formatting import embed_json
 from ..payloads import pair_columns
@@ -173,6 +174,7 @@ def analysis_page(analysis_id: str, request: Request, order: str = "input", diff
         "top_pairs": figures["top"], "verdicts": verdicts, "n_pairs": k * (k - 1) // 2,
         "n_variables": len(table.variables), "significant": significant, "tested": tested,
         "serial_note": ws.serial_note(row),
+        "given_changes": conditioning_changes(table, config.SIGNIFICANCE_LEVEL),
     })
     return _render(request, "analysis.html", context)
 
@@ -225,6 +227,7 @@ def pair_page(analysis_id: str, request: Request, x: str, y: str, ws: Workspace 
     scatter = plots.pair_figure(detail)
     ranks = plots.rank_figure(detail)
     series = plots.series_figure(detail)
+    residuals = plots.residual_figure(detail)
     g = detail["gaussian"]
     slice_data = {
         "x": detail["points"]["x"], "y": detail["points"]["y"],
@@ -236,7 +239,8 @@ def pair_page(analysis_id: str, request: Request, x: str, y: str, ws: Workspace 
                                           (g.get("normality") or {}).get("p_value"), config.SIGNIFICANCE_LEVEL)
     return _render(request, "pair.html", {
         "analysis": row, "dataset": dataset, "table": table, "detail": detail, "complete": complete,
-        "figures": embed_json({"scatter": scatter, "ranks": ranks, **(series or {})}), "slice": embed_json(slice_data),
+        "figures": embed_json({"scatter": scatter, "ranks": ranks, **(series or {}),
+                               **({"residuals": residuals} if residuals else {})}), "slice": embed_json(slice_data),
         "dense": scatter["layout"]["meta"]["dense"],
         "normal_marginals_not_joint": misleads,
         "weak_rho": g.get("rho") is not None and abs(g["rho"]) < 0.2,
