@@ -72,6 +72,10 @@ def _add_analysis_options(p: argparse.ArgumentParser) -> None:
                    help="analyse the first differences of every column in time order (for trending columns; "
                         "implies --ordered)")
     _add_kind_options(p)
+    p.add_argument("--given", default=None, metavar="COL[,COL...]",
+                   help="hold these columns fixed: adds partial Pearson, partial Spearman and partial distance "
+                        "correlation given them (own q-value family); the given columns are not paired "
+                        "(default: none)")
     p.add_argument("--workers", type=int, default=None, metavar="N", help="local worker processes (default: all cores)")
     p.add_argument("--cluster", default=None, metavar="ADDRESS",
                    help="Dask scheduler to run on, e.g. tcp://127.0.0.1:8786 (default: this machine)")
@@ -173,6 +177,9 @@ def build_parser(command: str | None = None) -> argparse.ArgumentParser:
         inspect.add_argument("--difference", action="store_true",
                        help="analyse the first differences of every column in time order (for trending columns; "
                             "implies --ordered)")
+        inspect.add_argument("--given", default=None, metavar="COL[,COL...]",
+                             help="hold these columns fixed: adds the partial measures and the residual view "
+                                  "(default: none)")
         inspect.add_argument("--test", action="append", default=[], metavar="MEASURE=METHOD",
                              help="the p-value method of one measure (repeatable; default: each measure's "
                                   "default test), e.g. pearson=t")
@@ -202,7 +209,7 @@ def _settings(args, table=None):
         measures=args.measures, columns=args.columns, groups=args.group, missing=args.missing,
         adjust=args.adjust, confidence=args.confidence, permutations=args.permutations, seed=args.seed,
         tests=args.test, ordered=args.ordered, difference=args.difference,
-        categorical=args.categorical, numeric=args.numeric)
+        categorical=args.categorical, numeric=args.numeric, given=args.given)
     return settle(table, settings) if table is not None else settings
 
 
@@ -317,7 +324,8 @@ def cmd_inspect(args) -> int:
     settings = AnalysisSettings.from_options(measures=list(MEASURES), confidence=args.confidence,
                                              permutations=args.permutations, seed=args.seed, tests=args.test,
                                              ordered=args.ordered, difference=args.difference,
-                                             categorical=args.categorical, numeric=args.numeric)
+                                             categorical=args.categorical, numeric=args.numeric,
+                                             given=args.given)
     settings = settle(table, settings)
     detail = pair_detail(table.data, table.columns, args.x, args.y, settings, levels=levels_of(table, settings))
     if detail.get("serial_note"):
@@ -340,11 +348,15 @@ _IMPLIED_LABELS = {"mi": "mutual information"}
 def format_detail(d: dict) -> str:
     """A readable text form of :func:`pairlens.engine.pair_detail`."""
     lines = [f"{d['x']}  vs  {d['y']}    (n = {d['n']} rows with both values)", ""]
-    lines.append(f"{'measure':<10} {'estimate':>10} {'interval':>22} {'p-value':>10}  method / note")
+    width = max([10] + [len(name) for name in d["measures"]])
+    lines.append(f"{'measure':<{width}} {'estimate':>10} {'interval':>22} {'p-value':>10}  method / note")
     for name, m in d["measures"].items():
         interval = "" if m["ci_low"] is None else f"[{_fmt(m['ci_low'])}, {_fmt(m['ci_high'])}]"
         extra = m.get("note") or m.get("method") or ""
-        lines.append(f"{name:<10} {_fmt(m['estimate']):>10} {interval:>22} {_fmt(m['p_value']):>10}  {extra}")
+        lines.append(f"{name:<{width}} {_fmt(m['estimate']):>10} {interval:>22} {_fmt(m['p_value']):>10}  {extra}")
+    if d.get("given"):
+        lines.append(f"partial_*: given {'; '.join(d['given']['how'])}; {d['given']['n']} rows with every "
+                     "given column present")
     if d.get("categorical"):
         lines += _format_categorical(d)
     else:

@@ -262,3 +262,10 @@ DASK_WORKER_WAIT_SECONDS = 10.0
 # Retries of a tile whose task raised on a worker (a tile lost with a dead
 # worker is rescheduled by Dask without using a retry).
 DASK_TASK_RETRIES = 2
+
+# Association given other columns (--given COL,...; pairlens.core.partial)
+PARTIAL_DCOR_PERMUTATIONS = 199   # relabellings of the partial distance correlation test without --permutations
+PARTIAL_DCOR_MAX_N = 1000         # its n x n matrices and O(B n^2) test: NaN with a note beyond this many rows
+GIVEN_INDICATOR_MAX_LEVELS = 6    # a numeric given column with at most this many distinct values is a class code
+GIVEN_MAX_COLUMNS = 20            # at most this many conditioning columns
+GIVEN_MAX_LEVELS = 50             # a class-code given column (text) with more levels is refused

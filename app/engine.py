@@ -20,7 +20,7 @@ from typing import Callable, Sequence
 import numpy as np
 
 from .budget import WorkEstimate, check_plan
-from .core.registry import MEASURES
+from .core.registry import MEASURES, get_measure
 from .core.testing import adjust_pvalues
 from .errors import SettingsError
 from .executors import Executor, ProcessExecutor, SerialExecutor, make_executor
@@ -111,9 +111,11 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
         data, names, order_note = time_order(data, names, settings)
     variables = plan_variables(list(names), settings)
     row_mask = analysis_row_mask(data, names, settings)
+    from .given import given_columns  # --given: the columns held fixed (None without)
+    given = given_columns(data, names, settings)
     n_pairs = len(variables) * (len(variables) - 1) // 2
     from . import matrix_path  # the matrix path: all its wiring is this block
-    if (not verdicts and settings.ordered is None
+    if (not verdicts and settings.ordered is None and given is None
             and matrix_path.choose_path(path, settings, variables, n_pairs,
                                         local=executor is None and cluster is None)):
         matrix_path.check_matrix_plan(n_pairs, settings, data.shape[0], streamed)
@@ -147,7 +149,7 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
         gc.freeze()
     try:
         for index, rows in executor.run(run_tile, tiles, init_worker,
-                                        (data, variables, settings, row_mask, prepared, verdicts),
+                                        (data, variables, settings, row_mask, prepared, verdicts, given),
                                         cancel=cancel):
             results[index] = rows
             done_pairs += len(tiles[index])
@@ -169,7 +171,8 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
     if settings.ordered is not None:
         mark_trending(rows, check)
     _fill_q_values(rows, settings.adjust)
-    table = PairTable([v.name for v in variables], settings.run_measures, settings, rows)
+    table = PairTable([v.name for v in variables], settings.table_measures(), settings, rows)
+    table.given = given
     table.serial = check._replace(order_note=order_note)
     if verdicts:
         table.verdicts = _labels(table, [e for _, tile_evidence in results for e in tile_evidence])
@@ -178,7 +181,7 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
 
 
 def _symmetric(measure: str) -> bool:
-    return MEASURES[measure].symmetric
+    return get_measure(measure).symmetric
 
 
 def _labels(table: PairTable, evidence: list) -> dict[tuple[str, str], str]:

@@ -27,7 +27,7 @@ from typing import Sequence
 import numpy as np
 
 from . import config
-from .core.registry import MEASURES
+from .core.registry import MEASURES, get_measure
 
 __all__ = [
     "SIGNED_SCALE",
@@ -129,7 +129,7 @@ def _compact(a: np.ndarray, digits: int = 6) -> list:
 
 def colour_range(measure: str) -> tuple[object, float, float]:
     """Colour scale and (zmin, zmax) for a measure, from its registry range and sign."""
-    m = MEASURES[measure]
+    m = get_measure(measure)
     if m.signed:
         bound = max(abs(m.lower), abs(m.upper))
         return SIGNED_SCALE, -bound, bound
@@ -149,7 +149,7 @@ def cluster_order(table, measure: str, method: str = "average") -> list[int]:
     if k < 3:
         return list(range(k))
     est = table.matrix(measure)
-    if not MEASURES[measure].symmetric:  # xi: use the stronger direction of each pair
+    if not get_measure(measure).symmetric:  # xi: use the stronger direction of each pair
         est = np.fmax(est, est.T)
     dist = 1.0 - np.clip(np.abs(np.nan_to_num(est, nan=0.0)), 0.0, 1.0)
     dist = (dist + dist.T) / 2.0
@@ -241,7 +241,7 @@ def heatmap_figure(table, measure: str, *, order: Sequence[int] | None = None,
     notes: dict[tuple[int, int], str] = {}
     if any(r.note for r in table.rows if r.measure == measure):
         pos = {v: p for p, v in enumerate(names)}
-        sym = MEASURES[measure].symmetric
+        sym = get_measure(measure).symmetric
         for r in table.rows:
             if r.measure == measure and r.note:
                 i, j = pos.get(r.x), pos.get(r.y)
@@ -250,7 +250,7 @@ def heatmap_figure(table, measure: str, *, order: Sequence[int] | None = None,
                 notes[(i, j)] = r.note
                 if sym:
                     notes[(j, i)] = r.note
-    m = MEASURES[measure]
+    m = get_measure(measure)
     text = []
     for i in range(k):
         row = []
@@ -281,7 +281,7 @@ def heatmap_figure(table, measure: str, *, order: Sequence[int] | None = None,
 
 def _matrix_figure(measure, names, labels, hover: dict, q_values, alpha, title) -> dict:
     """The heatmap of one measure with its significance dots; ``hover`` carries z and the hover data."""
-    m = MEASURES[measure]
+    m = get_measure(measure)
     scale, zmin, zmax = colour_range(measure)
     k = len(names)
     heat = {
@@ -300,7 +300,7 @@ def _matrix_figure(measure, names, labels, hover: dict, q_values, alpha, title) 
 
 
 def _template_heatmap(table, measure, names, labels, fields, alpha, title) -> dict:
-    m = MEASURES[measure]
+    m = get_measure(measure)
     has_interval = bool(m.interval)
     stack_fields = (("ci_low", "ci_high") if has_interval else ()) + ("p_value", "q_value", "n")
     custom = np.stack([fields[f] for f in stack_fields], axis=-1)
@@ -337,14 +337,14 @@ def difference_figure(table, measure_a: str, measure_b: str, *, order: Sequence[
     idx = np.asarray(order, dtype=int)
     a = table.matrix(measure_a)
     b = table.matrix(measure_b)
-    if not MEASURES[measure_a].symmetric:
+    if not get_measure(measure_a).symmetric:
         a = np.fmax(a, a.T)
-    if not MEASURES[measure_b].symmetric:
+    if not get_measure(measure_b).symmetric:
         b = np.fmax(b, b.T)
     bb = np.abs(b) if absolute else b
     diff = (a - bb)[np.ix_(idx, idx)]
     a_o, b_o = a[np.ix_(idx, idx)], b[np.ix_(idx, idx)]
-    la, lb = MEASURES[measure_a].label, MEASURES[measure_b].label
+    la, lb = get_measure(measure_a).label, get_measure(measure_b).label
     if hover == "template":
         text = None
     else:
@@ -574,11 +574,11 @@ def map_payload(table, order: Sequence[int] | None = None, diff: tuple[str, str]
             continue
         i, j = position[r.x], position[r.y]
         target[0][i, j], target[1][i, j] = r.estimate, r.q_value
-        if MEASURES[r.measure].symmetric:
+        if get_measure(r.measure).symmetric:
             target[0][j, i], target[1][j, i] = r.estimate, r.q_value
     maps = []
     for m in table.measures:
-        meas = MEASURES[m]
+        meas = get_measure(m)
         _, lo, hi = colour_range(m)
         est = full[m][0][np.ix_(idx, idx)]
         q = full[m][1][np.ix_(idx, idx)]
@@ -590,14 +590,14 @@ def map_payload(table, order: Sequence[int] | None = None, diff: tuple[str, str]
     if diff:
         a_name, b_name = diff
         a, b = full[a_name][0].copy(), full[b_name][0].copy()
-        if not MEASURES[a_name].symmetric:
+        if not get_measure(a_name).symmetric:
             a = np.fmax(a, a.T)
-        if not MEASURES[b_name].symmetric:
+        if not get_measure(b_name).symmetric:
             b = np.fmax(b, b.T)
         d = (a - np.abs(b))[np.ix_(idx, idx)]
         finite = np.abs(d[np.isfinite(d)])
         bound = float(max(0.05, finite.max() if finite.size else 1.0))
-        la, lb = MEASURES[a_name].label, MEASURES[b_name].label
+        la, lb = get_measure(a_name).label, get_measure(b_name).label
         maps.append({"key": "difference", "measure": None, "label": f"{la} − |{lb}|", "signed": True,
                      "symmetric": True, "lo": -bound, "hi": bound, "stops": SIGNED_SCALE,
                      "est": _flat(_rounded_for_display(d), True), "q": None})
@@ -998,3 +998,32 @@ def pair_svg(fig: dict, *, width: float = 560.0, height: float = 470.0, testid: 
         lx += wide
     parts.append("</svg>")
     return "".join(parts)
+def residual_figure(detail: dict) -> dict | None:
+    """--given: x given Z against y given Z (least-squares residuals on the given columns), with the
+    least-squares line through them, whose slope's correlation is the partial Pearson r."""
+    given = detail.get("given") or {}
+    res = given.get("residuals")
+    if not res:
+        return None
+    x, y = np.asarray(res["x"], dtype=float), np.asarray(res["y"], dtype=float)
+    n = len(x)
+    z = ", ".join(given.get("columns", []))
+    xl, yl, zl = plot_text(detail["x"]), plot_text(detail["y"]), plot_text(z)
+    trace = {"type": "scattergl" if n > 5000 else "scatter", "mode": "markers", "x": x.tolist(), "y": y.tolist(),
+             "marker": {"size": 3 if n > 2000 else 5, "color": _POINT}, "name": "residuals",
+             "hovertemplate": f"{xl} | {zl} %{{x:.3g}}<br>{yl} | {zl} %{{y:.3g}}<extra></extra>"}
+    data = [trace]
+    sxx = float(x @ x)
+    if n >= 3 and sxx > 0:
+        slope = float(x @ y) / sxx   # residuals have mean 0: the line passes through the origin
+        ends = [float(x.min()), float(x.max())]
+        data.append({"type": "scatter", "mode": "lines", "x": ends, "y": [slope * e for e in ends],
+                     "line": {"color": _FIT, "width": 2}, "name": "least squares", "hoverinfo": "skip"})
+    layout = {
+        "font": {"family": _FONT, "color": _INK, "size": 11},
+        "margin": {"l": 55, "r": 10, "t": 10, "b": 45},
+        "xaxis": {"title": {"text": f"{xl} given {zl} (residual)"}, "zeroline": True, "gridcolor": "#e3e7e9"},
+        "yaxis": {"title": {"text": f"{yl} given {zl} (residual)"}, "zeroline": True, "gridcolor": "#e3e7e9"},
+        "paper_bgcolor": "rgba(0,0,0,0)", "plot_bgcolor": "#fbfcfc", "showlegend": False,
+    }
+    return {"data": data, "layout": layout}

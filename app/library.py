@@ -188,7 +188,7 @@ def demo_path() -> Path:
 
 def analyze(df: "pd.DataFrame", *, measures=None, columns=None, groups=None, missing=None, adjust=None,
             confidence=None, permutations=None, tests=None, seed=None, ordered=None, difference=None,
-            workers: int | None = None,
+            given=None, workers: int | None = None,
             cluster: str | None = None, progress: bool = True, name: str | None = None,
             path: str = "auto", **options: Any) -> "Analysis":
     """Every measure for every pair of columns of ``df``.
@@ -223,6 +223,11 @@ def analyze(df: "pd.DataFrame", *, measures=None, columns=None, groups=None, mis
         line); ``analysis.serial_note`` says what the serial-dependence check found.
     difference : bool, optional
         Analyse first differences in time order (implies ``ordered``).
+    given : str or list of str, optional
+        Columns held fixed (``--given`` of the command line): the pair table gains
+        ``partial_pearson``, ``partial_spearman`` and ``partial_dcor`` rows (for the chosen
+        ``pearson``, ``spearman`` and ``dcor``/``dcor_bc``) given these columns, with q-values
+        adjusted within each of them; the given columns are not paired.
     workers : int, optional
         Local worker processes (default: all cores); 1 runs in this process.
     cluster : str, optional
@@ -273,7 +278,8 @@ def analyze(df: "pd.DataFrame", *, measures=None, columns=None, groups=None, mis
     table = _table_from_frame(df, name)
     settings = AnalysisSettings.from_options(measures=measures, columns=columns, groups=groups, missing=missing,
                                              adjust=adjust, confidence=confidence, permutations=permutations, tests=tests,
-                                             seed=seed, ordered=ordered, difference=difference, **options)
+                                             seed=seed, ordered=ordered, difference=difference, given=given,
+                                             **options)
     from .kinds import settle
 
     settings = settle(table, settings)  # column kinds: detected, or categorical=/numeric= (as --categorical)
@@ -469,9 +475,9 @@ class Analysis:
         return out.reset_index(drop=True)
 
     def _map_html(self, measure: str) -> str:
-        from .core.registry import MEASURES
+        from .core.registry import get_measure
 
-        entry = MEASURES[measure]
+        entry = get_measure(measure)
         est = self._pair_table.matrix(measure, "estimate")
         q = self._pair_table.matrix(measure, "q_value")
         names = [html.escape(v) for v in self.variables]

@@ -83,6 +83,7 @@ class PairDetail:
     serial_note: str = ""
     kinds: tuple[str, str] = ("numeric", "numeric")
     categorical: dict | None = None  # a pair with a categorical side: group summary or contingency table
+    given: dict | None = None       # --given: the columns held fixed, how, and the residuals of x and y
 
     @property
     def x(self) -> str:
@@ -109,6 +110,8 @@ class PairDetail:
         if self.ordered is not None:
             detail["ordered"] = self.ordered
             detail["serial_note"] = self.serial_note
+        if self.given is not None:
+            detail["given"] = {k: v for k, v in self.given.items() if include_points or k != "residuals"}
         if include_points == "packed":
             detail["points"] = pack_points(self.rows.x, self.rows.y, self.rows.rows)
         elif include_points:
@@ -236,10 +239,40 @@ def full_detail(data: np.ndarray, names: Sequence[str], x: str, y: str,
                 r.q_value = r.p_value
         timeline, note = _ordered_json(rows.x, rows.y, check, settings), check.message(True)
     kinds = (_kind(settings, x), _kind(settings, y))
+    given = None
+    if settings.given:
+        given = _given_detail(data, names, x, y, settings, row_mask, measures, computed=table is None)
     fit = fit_gaussian(rows.x, rows.y, tests="categorical" not in kinds)
-    label, reasons = verdict_of(rows, measures, fit, kinds)
+    base = {m: r for m, r in measures.items() if m in MEASURES}  # the verdict reads unconditional rows
+    label, reasons = verdict_of(rows, base, fit, kinds)
     part = _categorical_part(rows, kinds, levels) if "categorical" in kinds else None
-    return PairDetail(rows, measures, fit, label, reasons, True, timeline, note, kinds, part)
+    return PairDetail(rows, measures, fit, label, reasons, True, timeline, note, kinds, part, given)
+
+
+def _given_detail(data: np.ndarray, names: Sequence[str], x: str, y: str, settings: AnalysisSettings,
+                  row_mask: np.ndarray | None, measures: dict[str, PairRow], computed: bool) -> dict:
+    """--given: the conditional measures (added to ``measures`` when no table holds them) and the
+    residuals of x and y on the given columns, the pair view's residual scatter."""
+    from .core.partial import design_matrix, residuals
+    from .given import conditional_values, given_columns, given_rows
+
+    given = given_columns(data, names, settings)
+    if x in given.names or y in given.names:
+        raise SettingsError(f"{x if x in given.names else y!r} is held fixed (given); choose two other columns")
+    position = {n: i for i, n in enumerate(names)}
+    xvar, yvar = Variable(x, (position[x],)), Variable(y, (position[y],))
+    if computed:
+        for r in given_rows(data, xvar, yvar, settings, row_mask, given):
+            r.q_value = r.p_value  # a single pair: nothing to adjust over
+            measures[r.measure] = r
+    rows, xv, yv, z = conditional_values(data, xvar, yvar, given, row_mask)
+    out = {"columns": list(given.names), "how": given.describe(), "n": int(rows.size)}
+    if rows.size >= 3:
+        design = design_matrix(z, given.indicator)
+        ex, _ = residuals(xv, design)
+        ey, _ = residuals(yv, design)
+        out["residuals"] = {"x": ex.tolist(), "y": ey.tolist(), "rows": rows.tolist()}
+    return out
 
 
 def _ordered_json(xv: np.ndarray, yv: np.ndarray, check, settings: AnalysisSettings) -> dict:

@@ -6,7 +6,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .core.registry import MEASURES
+from .core.registry import get_measure
 from .export import PAIR_FIELDS
 from .plan import AnalysisSettings
 
@@ -42,6 +42,8 @@ class PairTable:
     verdicts: dict[tuple[str, str], str] = field(default_factory=dict)
     # per-column serial dependence (pairlens.core.serial.SerialCheck), rows in analysis order
     serial: object = None
+    # --given: pairlens.given.GivenColumns (the columns held fixed), None otherwise
+    given: object = None
 
     def records(self) -> list[dict]:
         return [r.record() for r in self.rows]
@@ -52,7 +54,7 @@ class PairTable:
         for r in self.rows:
             if r.x == x and r.y == y:
                 out[r.measure] = r
-            elif r.x == y and r.y == x and MEASURES[r.measure].symmetric and r.measure not in out:
+            elif r.x == y and r.y == x and get_measure(r.measure).symmetric and r.measure not in out:
                 out[r.measure] = r
         return out
 
@@ -61,7 +63,7 @@ class PairTable:
         index = {v: i for i, v in enumerate(self.variables)}
         k = len(self.variables)
         out = np.full((k, k), np.nan)
-        symmetric = MEASURES[measure].symmetric
+        symmetric = get_measure(measure).symmetric
         for r in self.rows:
             if r.measure != measure:
                 continue

@@ -13,7 +13,7 @@ import math
 import numpy as np
 
 from . import config
-from .core.registry import MEASURES
+from .core.registry import MEASURES, get_measure
 from .formatting import embed_json
 from .pairtable import PairTable
 
@@ -31,10 +31,10 @@ def default_difference(measures: tuple[str, ...]) -> tuple[str, str] | None:
     measures = tuple(measures)
     if len(measures) < 2:
         return None
-    linear = [m for m in measures if MEASURES[m].family == "linear"]
+    linear = [m for m in measures if get_measure(m).family == "linear"]
     base = linear[0] if linear else measures[0]
     others = [m for m in measures if m != base]
-    distance = [m for m in others if MEASURES[m].family == "distance" and not MEASURES[m].signed]
+    distance = [m for m in others if get_measure(m).family == "distance" and not get_measure(m).signed]
     return (distance or others)[0], base
 
 
@@ -53,7 +53,7 @@ def pair_columns(measures) -> list[dict]:
     """Columns of the wide pair table: one per measure, one per direction of an asymmetric one."""
     columns: list[dict] = []
     for m in measures:
-        meas = MEASURES[m]
+        meas = get_measure(m)
         if meas.symmetric:
             columns.append({"key": m, "measure": m, "label": meas.label, "direction": ""})
         else:
@@ -73,7 +73,7 @@ def pair_rows_payload(table: PairTable, labels: dict) -> dict:
     rows_ = table.rows
     xi = np.fromiter((position[r.x] for r in rows_), dtype=np.int64, count=len(rows_))
     yi = np.fromiter((position[r.y] for r in rows_), dtype=np.int64, count=len(rows_))
-    sym_key = {m: (col_index[m] if MEASURES[m].symmetric else -1) for m in table.measures}
+    sym_key = {m: (col_index[m] if get_measure(m).symmetric else -1) for m in table.measures}
     base = np.fromiter((sym_key[r.measure] if sym_key[r.measure] >= 0 else col_index[r.measure + ">"]
                         for r in rows_), dtype=np.int64, count=len(rows_))
     forward = xi < yi

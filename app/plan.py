@@ -39,6 +39,15 @@ def _name_list(value, option: str) -> tuple[str, ...]:
     if not isinstance(value, (list, tuple)) or not all(isinstance(v, str) for v in value):
         raise SettingsError(f"{option} must be a list of column names, e.g. [\"variety\", \"site\"]")
     return tuple(dict.fromkeys(v.strip() for v in value if v.strip()))
+def _parse_given(given) -> tuple[str, ...]:
+    """--given COL[,COL...]: the columns held fixed, as a tuple of names."""
+    if not given:
+        return ()
+    if isinstance(given, str):
+        given = given.split(",")
+    if not isinstance(given, (list, tuple)) or not all(isinstance(c, str) for c in given):
+        raise SettingsError("given must be a list of column names (or one comma-separated string)")
+    return tuple(c.strip() for c in given if c.strip())
 
 
 def _parse_ordered(ordered, difference) -> str | None:
@@ -78,11 +87,12 @@ class AnalysisSettings:
         if not self.categorical:
             return self.measures
         return self.measures + tuple(m for m in config.DEFAULT_CATEGORICAL_MEASURES if m not in self.measures)
+    given: tuple[str, ...] = ()  # --given: columns held fixed; the partial variants of the measures are added
 
     @classmethod
     def from_options(cls, *, measures=None, columns=None, groups=None, missing=None, adjust=None,
                      confidence=None, permutations=None, seed=None, tests=None, ordered=None,
-                     difference=None, categorical=None, numeric=None) -> "AnalysisSettings":
+                     difference=None, categorical=None, numeric=None, given=None) -> "AnalysisSettings":
         """Build validated settings from loosely typed options (CLI strings, JSON values)."""
         if isinstance(measures, str):
             measures = [m for m in measures.split(",") if m.strip()]
@@ -117,6 +127,7 @@ class AnalysisSettings:
             difference=bool(difference),
             categorical=_name_list(categorical, "categorical"),
             numeric=_name_list(numeric, "numeric"),
+            given=_parse_given(given),
         )
         settings.check()
         return settings
@@ -143,6 +154,10 @@ class AnalysisSettings:
         if both:
             raise SettingsError(f"column(s) {', '.join(map(repr, both))} named both categorical and numeric; "
                                 "keep each in one list")
+        if len(self.given) > config.GIVEN_MAX_COLUMNS:
+            raise SettingsError(f"given lists {len(self.given)} columns; at most {config.GIVEN_MAX_COLUMNS}")
+        if len(set(self.given)) != len(self.given):
+            raise SettingsError("given lists a column twice")
         for name, members in self.groups:
             if not name:
                 raise SettingsError("a group needs a name: NAME=COL,COL")
@@ -157,7 +172,15 @@ class AnalysisSettings:
         d["tests"] = dict(self.tests)
         d["categorical"] = list(self.categorical)
         d["numeric"] = list(self.numeric)
+        d["given"] = list(self.given)
         return d
+
+    def table_measures(self) -> tuple[str, ...]:
+        """The measures of the pair table: those of the run (``run_measures``), then (with --given) the
+        conditional variants of the chosen ones."""
+        from .core.registry import partial_of
+
+        return self.run_measures + partial_of(self.measures) if self.given else self.run_measures
 
     def test_for(self, measure: str) -> str:
         """The method chosen for ``measure`` with --test, or "" (its default rule)."""
@@ -182,7 +205,7 @@ class AnalysisSettings:
     def from_dict(cls, d: dict) -> "AnalysisSettings":
         return cls.from_options(**{k: d.get(k) for k in (
             "measures", "columns", "groups", "missing", "adjust", "confidence", "permutations", "seed",
-            "tests", "ordered", "difference", "categorical", "numeric")})
+            "tests", "ordered", "difference", "categorical", "numeric", "given")})
 
     def cli_arguments(self) -> list[str]:
         """The options that reproduce these settings on the command line."""
@@ -200,6 +223,8 @@ class AnalysisSettings:
             args += ["--categorical", ",".join(self.categorical)]
         if self.numeric:
             args += ["--numeric", ",".join(self.numeric)]
+        if self.given:
+            args += ["--given", ",".join(self.given)]
         if self.difference:
             args += ["--difference"]
         if self.ordered:
@@ -235,7 +260,9 @@ def plan_variables(names: Sequence[str], settings: AnalysisSettings) -> list[Var
     """Variables in input column order; a group takes the place of its first column."""
     position = {n: i for i, n in enumerate(names)}
     selected = set(names) if settings.columns is None else set(settings.columns)
-    unknown = [c for c in (settings.columns or ()) if c not in position]
+    # the columns held fixed are not analysed as pairs
+    selected -= set(settings.given)
+    unknown = [c for c in (settings.columns or ()) + settings.given if c not in position]
     if unknown:
         raise SettingsError(f"unknown column(s) {', '.join(map(repr, unknown))}; numeric columns are: "
                             f"{', '.join(names[:20])}{' ...' if len(names) > 20 else ''}")
@@ -256,6 +283,8 @@ def plan_variables(names: Sequence[str], settings: AnalysisSettings) -> list[Var
             raise SettingsError(f"group {gname!r}: column(s) {', '.join(map(repr, cat))} are categorical; "
                                 "groups take numeric columns only")
         for m in members:
+            if m in settings.given:
+                raise SettingsError(f"column {m!r} is both given (held fixed) and in group {gname!r}")
             if m in group_of:
                 raise SettingsError(f"column {m!r} is in both group {group_of[m]!r} and {gname!r}")
             group_of[m] = gname

@@ -25,7 +25,7 @@ from markupsafe import Markup
 
 from . import __version__, config, formatting
 from . import figures as plots
-from .core.registry import MEASURES
+from .core.registry import MEASURES, get_measure
 from .formatting import embed_json
 from .ordering import serial_note
 from .methods import methods_content
@@ -189,7 +189,7 @@ def _row_index(pt: PairTable) -> dict[tuple[str, str], dict[str, PairRow]]:
 
 
 def _strength(measure: str, value: float) -> float:
-    return abs(value) if MEASURES[measure].signed else value
+    return abs(value) if get_measure(measure).signed else value
 
 
 def rank_pairs(pt: PairTable, measure: str, top_k: int) -> list[PairRow]:
@@ -218,7 +218,7 @@ def _rankings(pt: PairTable, top_k: int) -> list[Ranking]:
     index = _row_index(pt)
     out: list[Ranking] = []
     for m in pt.measures:
-        meas = MEASURES[m]
+        meas = get_measure(m)
         ranking = Ranking(key=m, title=f"Strongest by {meas.label}",
                           explanation=("largest |estimate|" if meas.signed else "largest estimate")
                           + ("; each direction x → y ranked separately" if not meas.symmetric else ""),
@@ -231,7 +231,7 @@ def _rankings(pt: PairTable, top_k: int) -> list[Ranking]:
             ranking.pairs.append(RankedPair(r.x, r.y, float(r.estimate), rows))
         out.append(ranking)
     for a, b, kind, explanation in disagreement_contrasts(pt.measures):
-        la, lb = MEASURES[a].label, MEASURES[b].label
+        la, lb = get_measure(a).label, get_measure(b).label
         label = f"{la} − |{lb}|" if kind == "signed" else f"|{la}| − |{lb}|"
         ranking = Ranking(key=f"{a}-{b}", title=f"Disagreement: {label}", explanation=explanation,
                           score_label=label)
@@ -261,7 +261,7 @@ def map_hover(pt: PairTable, measure: str, order: list[int]) -> dict:
     idx = np.asarray(order, dtype=int)
     fields = {f: pt.matrix(measure, f)[np.ix_(idx, idx)] for f in ("estimate", "p_value", "q_value", "n")}
     k = len(idx)
-    symmetric = MEASURES[measure].symmetric
+    symmetric = get_measure(measure).symmetric
     cells = []
     for i in range(k):
         for j in range(i + 1 if symmetric else 0, k):
@@ -271,7 +271,7 @@ def map_hover(pt: PairTable, measure: str, order: list[int]) -> dict:
             n = fields["n"][i, j]
             cells.append([fmt_estimate(fields["estimate"][i, j]), fmt_p(fields["p_value"][i, j]),
                           fmt_p(fields["q_value"][i, j]), int(n) if math.isfinite(n) else "–"])
-    meas = MEASURES[measure]
+    meas = get_measure(measure]
     return {"label": meas.label, "symmetric": meas.symmetric, "cells": cells}
 
 
@@ -279,16 +279,16 @@ def difference_hover(pt: PairTable, a: str, b: str, order: list[int]) -> dict:
     """Hover numbers of the difference map: both estimates and their difference per cell."""
     idx = np.asarray(order, dtype=int)
     ma, mb = pt.matrix(a), pt.matrix(b)
-    if not MEASURES[a].symmetric:
+    if not get_measure(a].symmetric:
         ma = np.fmax(ma, ma.T)
-    if not MEASURES[b].symmetric:
+    if not get_measure(b].symmetric:
         mb = np.fmax(mb, mb.T)
     ma, mb = ma[np.ix_(idx, idx)], mb[np.ix_(idx, idx)]
     k = len(idx)
     cells = [[fmt_estimate(ma[i, j]), fmt_estimate(mb[i, j]), fmt_estimate(ma[i, j] - abs(mb[i, j]))]
              for i in range(k) for j in range(i + 1, k)]  # the upper triangle, as map_hover
-    return {"label": f"{MEASURES[a].label} − |{MEASURES[b].label}|", "difference": True,
-            "labels": [MEASURES[a].label, MEASURES[b].label], "symmetric": True, "cells": cells}
+    return {"label": f"{get_measure(a].label} − |{get_measure(b].label}|", "difference": True,
+            "labels": [get_measure(a].label, get_measure(b].label], "symmetric": True, "cells": cells}
 
 
 # Pair cards -----------------------------------------------------------------
@@ -306,6 +306,8 @@ class PairCard:
     points_note: str = ""
     note: str = ""
     gaussian: dict | None = None        # display-ready summary of the Gaussian fit
+    residual_svg: str = ""              # --given: the residual scatter as static SVG
+    residual_note: str = ""
 
 
 def _card_rows(pt: PairTable, rows: dict[str, PairRow]) -> list[dict]:
@@ -314,7 +316,7 @@ def _card_rows(pt: PairTable, rows: dict[str, PairRow]) -> list[dict]:
         r = rows.get(m)
         if r is None:
             continue
-        meas = MEASURES[m]
+        meas = get_measure(m)
         out.append({
             "measure": m,
             "label": meas.label if meas.symmetric else f"{meas.label} ({r.x} → {r.y})",
@@ -337,7 +339,7 @@ def _gaussian_summary(detail: dict) -> dict:
         if name not in observed:  # only measures this analysis computed have an observed value
             continue
         obs = observed.get(name)
-        implied.append({"name": MEASURES[name].label if name in MEASURES else name,
+        implied.append({"name": get_measure(name).label if name in MEASURES else name,
                         "implied": fmt_estimate(value), "observed": fmt_estimate(obs),
                         "gap": fmt_estimate(obs - value) if _finite(obs) and _finite(value) else "–"})
     cond = g.get("conditional") or {}
@@ -356,6 +358,24 @@ def _gaussian_summary(detail: dict) -> dict:
         "mi": fmt_num(all_implied["mi"]) if _finite(all_implied.get("mi")) else "",
         "note": g.get("note", ""),
     }
+
+
+def _residual_card(card: "PairCard", typed, seed: int) -> None:
+    """--given: the card's residual scatter (x given Z against y given Z), at most MAX_SCATTER_POINTS points."""
+    if typed.given is None or not typed.given.get("residuals"):
+        return
+    res = typed.given["residuals"]
+    n = len(res["x"])
+    keep = np.arange(n)
+    if n > MAX_SCATTER_POINTS:
+        keep = np.sort(np.random.default_rng(seed).choice(n, MAX_SCATTER_POINTS, replace=False))
+    shown = {"x": np.asarray(res["x"])[keep].tolist(), "y": np.asarray(res["y"])[keep].tolist()}
+    fig = plots.residual_figure({"x": card.x, "y": card.y, "given": {**typed.given, "residuals": shown}})
+    if fig is None:
+        return
+    card.residual_svg = Markup(plots.pair_svg(fig, testid="report-residual-scatter"))
+    card.residual_note = (f"Residuals of {card.x} and {card.y} given {', '.join(typed.given['columns'])} "
+                          f"(least squares; {'; '.join(typed.given['how'])}), {len(keep)} of {n} rows drawn.")
 
 
 def _pair_cards(table, pt: PairTable, rankings: list[Ranking],
@@ -402,8 +422,8 @@ def _pair_cards(table, pt: PairTable, rankings: list[Ranking],
 
             card.figure_id = f"fig-{card.anchor}"
             shown = {"x": typed.rows.x.tolist(), "y": typed.rows.y.tolist()}
-            figures[card.figure_id] = (fc.group_figure({**detail, "points": shown})
-                                       if detail["categorical"]["view"] == "groups" else fc.contingency_figure(detail))
+            card.svg = Markup(fc.group_svg({**detail, "points": shown}, seed=pt.settings.seed)
+                              if detail["categorical"]["view"] == "groups" else fc.contingency_svg(detail))
             card.points_note = f"All {typed.rows.n} rows. " + typed.rows.describe()
             card.detail = detail
             continue
@@ -427,6 +447,7 @@ def _pair_cards(table, pt: PairTable, rankings: list[Ranking],
             fig["data"][0]["name"] = f"rows ({len(shown_pos)} of {total} shown)"
         card.svg = Markup(plots.pair_svg(fig))
         card.detail = detail
+        _residual_card(card, typed, pt.settings.seed)
     return list(cards.values()), len(sample)
 
 
@@ -483,7 +504,7 @@ def _summary(pt: PairTable) -> list[dict]:
         rows = [r for r in pt.rows if r.measure == m]
         defined = [r for r in rows if _finite(r.p_value)]
         sig = [r for r in defined if _finite(r.q_value) and r.q_value < config.SIGNIFICANCE_LEVEL]
-        out.append({"measure": m, "label": MEASURES[m].label, "rows": len(rows), "defined": len(defined),
+        out.append({"measure": m, "label": get_measure(m).label, "rows": len(rows), "defined": len(defined),
                     "significant": len(sig)})
     return out
 
@@ -547,7 +568,7 @@ def build_report(table, pair_table: PairTable, *, command: str, generated_at: da
     heatmaps = []
     for m in pair_table.measures:
         fid = f"heatmap-{m}"
-        meas = MEASURES[m]
+        meas = get_measure(m)
         hover["maps"][fid] = map_hover(pair_table, m, order)
         heatmaps.append({"id": fid, "measure": m, "label": meas.label, "symmetric": meas.symmetric,
                          "range": f"[{meas.lower:g}, {meas.upper:g}]",
@@ -558,7 +579,7 @@ def build_report(table, pair_table: PairTable, *, command: str, generated_at: da
             continue
         fid = f"difference-{a}-{b}"
         hover["maps"][fid] = difference_hover(pair_table, a, b, order)
-        contrasts.append({"id": fid, "label": f"{MEASURES[a].label} − |{MEASURES[b].label}|",
+        contrasts.append({"id": fid, "label": f"{get_measure(a).label} − |{get_measure(b).label}|",
                           "explanation": explanation,
                           "svg": Markup(plots.difference_svg(pair_table, a, b, order=order))})
 
@@ -590,12 +611,12 @@ def build_report(table, pair_table: PairTable, *, command: str, generated_at: da
         "serial_note": serial_note(table.data, table.columns, settings),
         "is_demo": _is_demo(table),
         "settings": settings,
-        "measure_labels": [(m, MEASURES[m].label) for m in settings.run_measures],
+        "measure_labels": [(m, get_measure(m).label) for m in settings.table_measures()],
         "command": command,
         "seconds": pair_table.seconds,
         "summary": _summary(pair_table),
         "n_pairs": len(pair_table.variables) * (len(pair_table.variables) - 1) // 2,
-        "order_measure": MEASURES[order_measure].label,
+        "order_measure": get_measure(order_measure).label,
         "heatmaps": heatmaps,
         "contrasts": contrasts,
         "rankings": rankings,

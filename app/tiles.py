@@ -152,7 +152,7 @@ def prepare_columns(data: np.ndarray, variables: Sequence[Variable],
 _WORKER_STATE: dict = {}
 
 
-def init_worker(data, variables, settings, row_mask, prepared=None, verdicts=False) -> None:
+def init_worker(data, variables, settings, row_mask, prepared=None, verdicts=False, given=None) -> None:
     """Worker state for a run; ``prepared`` (the sorted columns) is built here when not given.
 
     ``verdicts`` True: each tile also gathers what every pair of single columns
@@ -160,7 +160,7 @@ def init_worker(data, variables, settings, row_mask, prepared=None, verdicts=Fal
     """
     _WORKER_STATE.clear()
     _WORKER_STATE.update(data=data, variables=variables, settings=settings, row_mask=row_mask,
-                         prepared=prepared, verdicts=verdicts)
+                         prepared=prepared, verdicts=verdicts, given=given)
 
 
 def release_worker() -> None:
@@ -277,6 +277,9 @@ def run_tile(tile: list[tuple[int, int]]) -> tuple[list[PairRow], list]:
             if s["settings"].ordered is not None:
                 rows = ordered_rows(s["data"], xvar, yvar, s["settings"], s["row_mask"], rows)
             out.extend(rows)
+            if s.get("given") is not None:  # --given: the conditional variants, beside (not in) the verdict
+                from .given import given_rows
+                out.extend(given_rows(s["data"], xvar, yvar, s["settings"], s["row_mask"], s["given"]))
             if s.get("verdicts"):
                 ev = _label_evidence(s["data"], prep, xvar, yvar, rows, s["row_mask"])
                 if ev is not None:

@@ -26,6 +26,9 @@ from pathlib import Path
 import numpy as np
 
 SEED = 61803
+# The confounded pair (evaporation_mm, leaf_stress_index) draws from its own generator, so adding it
+# left every earlier column bit-identical.
+SEED_CONFOUNDED = 271828
 N_BLOCKS = 40
 N_WEEKS = 24
 MISSING_FRACTION = 0.05
@@ -55,6 +58,8 @@ NUMERIC_FORMAT: dict[str, int] = {
     "sensor_drift_b": 3,
     "trap_count_noise": 0,
     "gust_noise_kmh": 1,
+    "evaporation_mm": 2,
+    "leaf_stress_index": 2,
 }
 TEXT_COLUMNS = ("block_id", "row_orientation")
 # Appended after every other column (issue 18), drawn from its own generator so that every
@@ -174,6 +179,12 @@ def generate(seed: int = SEED) -> dict[str, np.ndarray]:
         "trap_count_noise": rng["traps"].poisson(6.0, n).astype(float),
         "gust_noise_kmh": rng["gusts"].gamma(3.0, 4.0, n),
     }
+    # Confounded: evaporation and leaf stress both follow canopy temperature and nothing else ties
+    # them, so they correlate (r about 0.5) only through it; given canopy_temp_c the partial
+    # correlation is about 0. Drawn from the true temperatures (before blanking).
+    extra = np.random.default_rng(SEED_CONFOUNDED if seed == SEED else [seed, SEED_CONFOUNDED])
+    columns["evaporation_mm"] = 0.2 * canopy_temp + extra.normal(0.0, 1.0, n)
+    columns["leaf_stress_index"] = 0.1 * canopy_temp + extra.normal(0.0, 0.5, n)
     columns["grape_variety"] = _variety(sugar, acidity)
     return columns
 

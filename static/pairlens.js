@@ -167,6 +167,12 @@
       });
       Plotly.newPlot($("pair-xcorr"), figs.xcorr.data, figs.xcorr.layout, PLOT_CONFIG);
     }
+    if (figs.residuals && $("pair-residuals")) {
+      var resid = $("pair-residuals");
+      Plotly.newPlot(resid, figs.residuals.data, figs.residuals.layout, PLOT_CONFIG).then(function () {
+        resid.dataset.ready = "1";
+      });
+    }
     var toggle = $("toggle-points");
     if (toggle) toggle.addEventListener("click", function () {
       var on = toggle.getAttribute("aria-pressed") !== "true";

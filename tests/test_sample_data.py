@@ -39,6 +39,12 @@ PLANTED = {
 INDEPENDENT = ("week", "slope_aspect_deg", "sensor_drift_a", "sensor_drift_b",
                "trap_count_noise", "gust_noise_kmh")
 MISSING_COLUMNS = ("soil_moisture_60cm", "canopy_temp_c")
+# Related through canopy temperature, the planted confounder (sample_data/README.md): evaporation and
+# leaf stress follow it, and sugar follows it too, so all five of these pairs are dependent.
+CONFOUNDED = {("evaporation_mm", "leaf_stress_index"), ("canopy_temp_c", "evaporation_mm"),
+              ("canopy_temp_c", "leaf_stress_index"), ("sugar_brix", "evaporation_mm"),
+              ("sugar_brix", "leaf_stress_index")}
+N_NUMERIC = 20
 ALPHA = 0.05
 PERMUTATIONS = 199       # smallest attainable permutation p-value is 1 / 200
 
@@ -106,7 +112,7 @@ def test_generator_rewrites_the_committed_csv_byte_for_byte(tmp_path):
 # Layout (specification: sample_data/README.md) -------------------------------------------
 
 def test_layout_matches_the_readme(table, numeric):
-    assert table.shape == (960, 21)
+    assert table.shape == (960, 23)   # 20 numeric (with the confounded pair), block_id, row_orientation, grape_variety
     # the categorical column appended by issue 18 (sample_data/README.md)
     assert set(table["grape_variety"]) == {"Chardonnay", "Pinot noir", "Syrah"}
     assert list(table.columns)[-1] == "grape_variety"
@@ -236,17 +242,17 @@ def test_pair_driven_by_a_few_outlier_rows(table, all_pairs):
 
 def test_independent_columns_show_nothing_after_bh(all_pairs):
     involved = [key for key in all_pairs.index if set(key) & set(INDEPENDENT)]
-    assert len(involved) == len(INDEPENDENT) * 17 - len(INDEPENDENT) * (len(INDEPENDENT) - 1) // 2
+    assert len(involved) == len(INDEPENDENT) * (N_NUMERIC - 1) - len(INDEPENDENT) * (len(INDEPENDENT) - 1) // 2
     rows = all_pairs.loc[involved]
-    # scipy pearsonr / spearmanr, BH over all 153 pairs by scipy.stats.false_discovery_control
+    # scipy pearsonr / spearmanr, BH over all 190 pairs by scipy.stats.false_discovery_control
     assert (rows["q_r"] > ALPHA).all(), rows[rows["q_r"] <= ALPHA]
     assert (rows["q_rho"] > ALPHA).all(), rows[rows["q_rho"] <= ALPHA]
 
 
 def test_only_the_planted_pairs_are_related(all_pairs):
-    planted = {tuple(sorted(k)) for k in PLANTED}
+    planted = {tuple(sorted(k)) for k in PLANTED} | {tuple(sorted(k)) for k in CONFOUNDED}
     others = all_pairs[[tuple(sorted(k)) not in planted for k in all_pairs.index]]
-    assert len(others) == len(all_pairs) - len(PLANTED)
+    assert len(others) == len(all_pairs) - len(PLANTED) - len(CONFOUNDED)
     assert (others["q_r"] > ALPHA).all(), others[others["q_r"] <= ALPHA]
     assert (others["q_rho"] > ALPHA).all(), others[others["q_rho"] <= ALPHA]
     # dcor.distance_correlation: every unplanted pair sits far below the planted pairs whose
@@ -254,3 +260,15 @@ def test_only_the_planted_pairs_are_related(all_pairs):
     strong = [_row(all_pairs, a, b)["dcor"] for (a, b), kind in PLANTED.items()
               if kind != "driven by a few points"]
     assert others["dcor"].max() * 2 < min(strong)
+
+
+def test_confounded_pair_vanishes_given_canopy_temperature(table):
+    pingouin = pytest.importorskip("pingouin")
+    cols = ["evaporation_mm", "leaf_stress_index", "canopy_temp_c"]
+    rows = table[cols].dropna()
+    # scipy pearsonr: the pair is strongly correlated on its own ...
+    plain = st.pearsonr(rows["evaporation_mm"], rows["leaf_stress_index"])
+    assert plain.statistic > 0.4 and plain.pvalue < 1e-20
+    # ... pingouin.partial_corr: and about 0 given canopy temperature (true value 0 by construction)
+    given = pingouin.partial_corr(rows, x="evaporation_mm", y="leaf_stress_index", covar="canopy_temp_c").iloc[0]
+    assert abs(given["r"]) < 0.12

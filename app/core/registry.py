@@ -14,13 +14,13 @@ from typing import Callable
 
 import numpy as np
 
-from . import allpairs, categorical, chatterjee, distance, linear, rank, serial
+from . import allpairs, categorical, chatterjee, distance, linear, partial, rank, serial
 from .. import config
 from .results import TestResult
 from .testing import all_pairings, attainable_minimum, floor_pvalue, permutation_floor
 
-__all__ = ["PairContext", "Measure", "MEASURES", "KINDS", "pair_kind", "measures_for", "get_measure",
-           "measure_names", "parse_tests", "pvalue_floor", "register", "unregister"]
+__all__ = ["PairContext", "Measure", "MEASURES", "PARTIAL_MEASURES", "partial_of", "KINDS", "pair_kind",
+           "measures_for", "get_measure", "measure_names", "parse_tests", "pvalue_floor", "register", "unregister"]
 
 
 @dataclass(frozen=True)
@@ -32,6 +32,9 @@ class PairContext:
     seed: np.random.SeedSequence | None = None
     test: str = ""          # a method from the measure's ``tests``; "" = its default rule
     kinds: tuple[str, str] = ("numeric", "numeric")   # column kinds of x and y (pairlens.kinds)
+    # --given: the conditioning columns on the pair's rows (n, q) and which of them are class codes
+    given: np.ndarray | None = None
+    given_indicator: tuple[bool, ...] = ()
 
 
 KINDS: tuple[str, ...] = ("numeric", "categorical")
@@ -98,6 +101,10 @@ class Measure:
 
     def applies_to(self, kx: str, ky: str) -> bool:
         return pair_kind(kx, ky) in self.kinds
+    # --given: the name of the entry of PARTIAL_MEASURES that measures this one given other columns ("" = none)
+    partial: str = ""
+    # an entry of PARTIAL_MEASURES: the unconditional measure it is set beside ("" for the others)
+    partial_for: str = ""
 
 
 def _pearson(x, y, ctx: PairContext) -> TestResult:
@@ -362,6 +369,7 @@ MEASURES: dict[str, Measure] = {
             role="trend", short_label="Pearson r", implied=lambda rho: rho,
             serial=_serial_ess("pearson"), serial_test=_ESS_TEXT.format(law="t with n*-2 df"),
             presorted=_pearson_presorted,
+            partial="partial_pearson",
         ),
         Measure(
             name="spearman", label="Spearman rho", family="rank", symmetric=True, signed=True,
@@ -379,6 +387,7 @@ MEASURES: dict[str, Measure] = {
             role="rank", short_label="Spearman rho", implied=lambda rho: 6.0 / math.pi * math.asin(rho / 2.0),
             serial=_serial_ess("spearman"), serial_test=_ESS_TEXT.format(law="on the ranks, t with n*-2 df"),
             presorted=_spearman_presorted, presorted_needs=frozenset({"rank_sums"}),
+            partial="partial_spearman",
         ),
         Measure(
             name="kendall", label="Kendall tau-b", family="rank", symmetric=True, signed=True,
@@ -409,6 +418,7 @@ MEASURES: dict[str, Measure] = {
             role="dependence", short_label="dCor", implied=lambda rho: float(distance.gaussian_dcor(rho)),
             serial=_serial_block("dcor"), serial_test=_BLOCK_TEXT, serial_resamples=True,
             presorted=_distance_presorted(distance.dcor_from_statistics), presorted_needs=frozenset({"distance"}),
+            partial="partial_dcor",
         ),
         Measure(
             name="dcor_bc", label="Bias-corrected dCor²", family="distance", symmetric=True, signed=True,
@@ -423,6 +433,7 @@ MEASURES: dict[str, Measure] = {
             role="dependence", short_label="bias-corrected dCor²", implied=lambda rho: float(distance.gaussian_dcor(rho)) ** 2,
             serial=_serial_block("dcor_bc"), serial_test=_BLOCK_TEXT, serial_resamples=True,
             presorted=_distance_presorted(distance.dcor_bc_from_statistics), presorted_needs=frozenset({"distance"}),
+            partial="partial_dcor",
         ),
         Measure(
             name="xi", label="Chatterjee ξ", family="rank", symmetric=False, signed=True,
@@ -588,6 +599,74 @@ def unregister(name: str) -> None:
 def measures_for(measures, kx: str, ky: str) -> tuple[str, ...]:
     """The measures of ``measures`` that apply to a pair of kinds ``kx`` and ``ky``, in their order."""
     return tuple(m for m in measures if MEASURES[m].applies_to(kx, ky))
+def _partial_pearson(x, y, ctx: PairContext) -> TestResult:
+    return partial.partial_pearson(x, y, ctx.given, ctx.given_indicator or None, confidence=ctx.confidence)
+
+
+def _partial_spearman(x, y, ctx: PairContext) -> TestResult:
+    return partial.partial_spearman(x, y, ctx.given, ctx.given_indicator or None, confidence=ctx.confidence)
+
+
+def _partial_dcor(x, y, ctx: PairContext) -> TestResult:
+    return partial.partial_dcor(x, y, ctx.given, ctx.given_indicator or None,
+                                permutations=ctx.permutations or config.PARTIAL_DCOR_PERMUTATIONS,
+                                seed=ctx.seed, max_n=config.PARTIAL_DCOR_MAX_N)
+
+
+_GIVEN_Z = ("least squares on [1, Z]; a given column that is a class code (text, or at most "
+            f"{config.GIVEN_INDICATOR_MAX_LEVELS} distinct values) enters as indicators of its levels")
+
+# Measures given other columns (--given COL,...). They are not chosen with --measures: each entry of
+# MEASURES names its conditional variant in ``partial``, and a run with --given adds the variants of
+# its measures. Their rows carry the conditioning columns in the pair table's ``given`` field.
+PARTIAL_MEASURES: dict[str, Measure] = {
+    m.name: m
+    for m in (
+        Measure(
+            name="partial_pearson", label="Partial Pearson r | Z", family="partial", symmetric=True, signed=True,
+            lower=-1.0, upper=1.0, multivariate=False, reflection="flips sign",
+            default_test="t test with n-2-k degrees of freedom (k = regressors of Z)", tests=("t",),
+            interval="Fisher z, SE = 1/sqrt(n-3-k)",
+            formula="r_xy.Z = Pearson r of the residuals of x and y after " + _GIVEN_Z,
+            reference="Fisher, R.A. (1924) Metron 3:329-332; Baba, Shibata & Sibuya (2004) Aust. N. Z. J. Stat. "
+                      "46:657-664, doi:10.1111/j.1467-842X.2004.00360.x",
+            compute=_partial_pearson, short_label="partial r", implied=lambda rho: rho, partial_for="pearson",
+        ),
+        Measure(
+            name="partial_spearman", label="Partial Spearman rho | Z", family="partial", symmetric=True,
+            signed=True, lower=-1.0, upper=1.0, multivariate=False, reflection="flips sign",
+            default_test="t test with n-2-k degrees of freedom on the ranks", tests=("t",),
+            interval="Fisher z, SE = 1/sqrt(n-3-k)",
+            formula="r_s.Z = partial Pearson r of the mid-ranks of x, y and the numeric columns of Z; " + _GIVEN_Z,
+            reference="Kendall, M.G. (1942) Biometrika 32:277-283, doi:10.1093/biomet/32.3-4.277; "
+                      "Conover (1999) Practical Nonparametric Statistics, 3rd ed., section 5.4",
+            compute=_partial_spearman, short_label="partial rho", partial_for="spearman",
+        ),
+        Measure(
+            name="partial_dcor", label="Partial distance correlation | Z", family="partial", symmetric=True,
+            signed=True, lower=-1.0, upper=1.0, multivariate=True, reflection="unchanged",
+            default_test=f"permutation test of Szekely & Rizzo (2014): rows of the projected x matrix relabelled, "
+                         f"{config.PARTIAL_DCOR_PERMUTATIONS} relabellings (or --permutations); up to "
+                         f"{config.PARTIAL_DCOR_MAX_N} rows",
+            tests=("permutation",), interval="",
+            formula="R*(x, y; Z) = <P(A~), P(B~)> / sqrt(<P(A~), P(A~)> <P(B~), P(B~)>), U-centred distance "
+                    "matrices A~, B~ projected on the complement of Z's (numeric Z columns scaled to unit SD, "
+                    "class codes as 0/1 indicators)",
+            reference="Szekely, G.J. & Rizzo, M.L. (2014) Ann. Statist. 42:2382-2412, doi:10.1214/14-AOS1255",
+            compute=_partial_dcor, short_label="partial dCor", partial_for="dcor",
+        ),
+    )
+}
+
+
+def partial_of(measures) -> tuple[str, ...]:
+    """The conditional variants (PARTIAL_MEASURES names) of ``measures``, in order, each once."""
+    out: list[str] = []
+    for m in measures:
+        name = MEASURES[m].partial
+        if name and name not in out:
+            out.append(name)
+    return tuple(out)
 
 
 def measure_names() -> tuple[str, ...]:
@@ -595,6 +674,9 @@ def measure_names() -> tuple[str, ...]:
 
 
 def get_measure(name: str) -> Measure:
+    """An entry of MEASURES or of PARTIAL_MEASURES by name."""
+    if name in PARTIAL_MEASURES:
+        return PARTIAL_MEASURES[name]
     try:
         return MEASURES[name]
     except KeyError:

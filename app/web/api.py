@@ -107,6 +107,10 @@ def strict_options(options: dict) -> dict:
     value = options.get("ordered")
     if value is not None and not isinstance(value, (bool, str)):
         raise SettingsError(f"ordered: must be true (rows in file order) or a column name, got {_shown(value)}")
+    value = options.get("given")
+    if value is not None and not (isinstance(value, str) or (isinstance(value, list)
+                                                             and all(isinstance(c, str) for c in value))):
+        raise SettingsError(f"given: must be a list of column names, got {_shown(value)}")
     value = options.get("difference")
     if value is not None and not isinstance(value, bool):
         raise SettingsError(f"difference: must be true or false, got {_shown(value)}")

@@ -19,7 +19,7 @@ from jinja2 import Environment, FileSystemLoader, select_autoescape
 
 from .. import __version__, config, formatting
 from ..config import ServerSettings
-from ..core.registry import MEASURES
+from ..core.registry import MEASURES, PARTIAL_MEASURES
 from ..errors import SettingsError
 from ..ingest import IngestError
 from ..jobs import JobManager
@@ -99,7 +99,7 @@ def make_templates() -> Jinja2Templates:
     env.filters.update(fmt=_fmt, fmt_p=formatting.fmt_p, fmt_est=formatting.fmt_est, fmt_count=formatting.fmt_count,
                        fmt_interval=formatting.fmt_interval, fmt_share=formatting.fmt_share, rawnum=_rawnum, when=_when, size=_size, sparkline=_sparkline,
                        embed_json=embed_json)
-    env.globals.update(MEASURES=MEASURES, config=config, version=__version__)
+    env.globals.update(MEASURES={**MEASURES, **PARTIAL_MEASURES}, config=config, version=__version__)
     return Jinja2Templates(env=env)
 
 

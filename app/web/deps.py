@@ -405,7 +405,7 @@ class Workspace:
     def start_analysis(self, dataset_id: str, options: dict) -> AnalysisRow:
         dataset = self.dataset(dataset_id)
         allowed = ("measures", "columns", "groups", "missing", "adjust", "confidence", "permutations", "seed",
-                   "tests", "ordered", "difference", "categorical", "numeric")
+                   "tests", "ordered", "difference", "categorical", "numeric", "given")
         unknown = sorted(set(options) - set(allowed))
         if unknown:
             raise SettingsError(f"unknown option(s) {', '.join(unknown)}; use {', '.join(allowed)}")
@@ -512,7 +512,7 @@ class Workspace:
         rows = [PairRow(r["x"], r["y"], r["measure"], *(math.nan if r[f] is None else r[f] for f in
                                                           ("estimate", "ci_low", "ci_high", "p_value", "q_value")),
                         int(r["n"]), r["note"], r.get("method", "")) for r in res["records"]]
-        res["table"] = PairTable(res["variables"], settings.run_measures, settings, rows, res["seconds"])
+        res["table"] = PairTable(res["variables"], settings.table_measures(), settings, rows, res["seconds"])
         return self._pair_tables.put(row.id, res)
 
     def pair_table(self, row: AnalysisRow) -> PairTable:
@@ -703,6 +703,8 @@ class Workspace:
         if table.settings.ordered is not None:  # points in time order and the series panel: the full detail
             return self.pair(row, x, y), True
         if x in table.settings.categorical or y in table.settings.categorical:  # groups or contingency: cheap
+            return self.pair(row, x, y), True
+        if table.settings.given:  # the residuals on the given columns come with the full detail
             return self.pair(row, x, y), True
         if x not in table.variables or y not in table.variables:
             missing = x if x not in table.variables else y

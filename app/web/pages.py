@@ -13,6 +13,7 @@ from ..ingest import IngestError
 from ..methods import methods_content
 from ..store import UploadTooLarge
 from .. import figures as plots
+from ..given import conditioning_changes
 from ..core.verdict import marginals_normal_not_joint
 from ..formatting import embed_json
 from ..payloads import pair_columns
@@ -120,6 +121,7 @@ async def start_analysis_form(dataset_id: str, request: Request, ws: Workspace =
         # empty: rows independent; ORDERED_FILE: time order as in the file; else the column to sort by
         "ordered": _ordered_from_form(str(form.get("ordered") or "")),
         "difference": form.get("difference") == "yes",
+        "given": [str(c) for c in form.getlist("given") if str(c)],
     }
     # per-column kind choices: "" keeps the detected kind (issue 18)
     kinds = {key[len("kind-"):]: str(value) for key, value in form.multi_items()
@@ -130,7 +132,8 @@ async def start_analysis_form(dataset_id: str, request: Request, ws: Workspace =
             "missing": options["missing"], "adjust": options["adjust"], "confidence": options["confidence"],
             "permutations": options["permutations"], "seed": options["seed"],
             "tests": str(form.get("tests") or ""), "ordered": str(form.get("ordered") or ""),
-            "difference": form.get("difference") == "yes", "kinds": kinds}
+            "difference": form.get("difference") == "yes", "kinds": kinds,
+            "given": [str(c) for c in form.getlist("given")]}
     if not options["measures"]:
         return _dataset_page(request, ws, dataset_id, "Choose at least one measure.", 422, echo)
     if options["columns"] is not None and len(options["columns"]) == 0 and not options["groups"]:
@@ -177,6 +180,7 @@ def analysis_page(analysis_id: str, request: Request, order: str = "input", diff
         "top_pairs": figures["top"], "verdicts": verdicts, "n_pairs": k * (k - 1) // 2,
         "n_variables": len(table.variables), "significant": significant, "tested": tested,
         "serial_note": ws.serial_note(row),
+        "given_changes": conditioning_changes(table, config.SIGNIFICANCE_LEVEL),
     })
     return _render(request, "analysis.html", context)
 
@@ -237,6 +241,7 @@ def pair_page(analysis_id: str, request: Request, x: str, y: str, ws: Workspace 
     scatter = plots.pair_figure(detail)
     ranks = plots.rank_figure(detail)
     series = plots.series_figure(detail)
+    residuals = plots.residual_figure(detail)
     g = detail["gaussian"]
     slice_data = {
         "x": detail["points"]["x"], "y": detail["points"]["y"],
@@ -248,7 +253,8 @@ def pair_page(analysis_id: str, request: Request, x: str, y: str, ws: Workspace 
                                           (g.get("normality") or {}).get("p_value"), config.SIGNIFICANCE_LEVEL)
     return _render(request, "pair.html", {
         "analysis": row, "dataset": dataset, "table": table, "detail": detail, "complete": complete,
-        "figures": embed_json({"scatter": scatter, "ranks": ranks, **(series or {})}), "slice": embed_json(slice_data),
+        "figures": embed_json({"scatter": scatter, "ranks": ranks, **(series or {}),
+                               **({"residuals": residuals} if residuals else {})}), "slice": embed_json(slice_data),
         "dense": scatter["layout"]["meta"]["dense"],
         "normal_marginals_not_joint": misleads,
         "weak_rho": g.get("rho") is not None and abs(g["rho"]) < 0.2,
