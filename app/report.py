@@ -271,7 +271,7 @@ def map_hover(pt: PairTable, measure: str, order: list[int]) -> dict:
             n = fields["n"][i, j]
             cells.append([fmt_estimate(fields["estimate"][i, j]), fmt_p(fields["p_value"][i, j]),
                           fmt_p(fields["q_value"][i, j]), int(n) if math.isfinite(n) else "–"])
-    meas = get_measure(measure]
+    meas = get_measure(measure)
     return {"label": meas.label, "symmetric": meas.symmetric, "cells": cells}
 
 
@@ -279,16 +279,16 @@ def difference_hover(pt: PairTable, a: str, b: str, order: list[int]) -> dict:
     """Hover numbers of the difference map: both estimates and their difference per cell."""
     idx = np.asarray(order, dtype=int)
     ma, mb = pt.matrix(a), pt.matrix(b)
-    if not get_measure(a].symmetric:
+    if not get_measure(a).symmetric:
         ma = np.fmax(ma, ma.T)
-    if not get_measure(b].symmetric:
+    if not get_measure(b).symmetric:
         mb = np.fmax(mb, mb.T)
     ma, mb = ma[np.ix_(idx, idx)], mb[np.ix_(idx, idx)]
     k = len(idx)
     cells = [[fmt_estimate(ma[i, j]), fmt_estimate(mb[i, j]), fmt_estimate(ma[i, j] - abs(mb[i, j]))]
              for i in range(k) for j in range(i + 1, k)]  # the upper triangle, as map_hover
-    return {"label": f"{get_measure(a].label} − |{get_measure(b].label}|", "difference": True,
-            "labels": [get_measure(a].label, get_measure(b].label], "symmetric": True, "cells": cells}
+    return {"label": f"{get_measure(a).label} − |{get_measure(b).label}|", "difference": True,
+            "labels": [get_measure(a).label, get_measure(b).label], "symmetric": True, "cells": cells}
 
 
 # Pair cards -----------------------------------------------------------------
