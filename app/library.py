@@ -163,7 +163,7 @@ def read(path: str | os.PathLike, *, sheet: str | None = None) -> "pd.DataFrame"
     >>> import pairlens
     >>> df = pairlens.read(pairlens.demo_path())
     >>> df.shape
-    (960, 18)
+    (960, 20)
     >>> df.attrs["pairlens"]["left_out"][1]
     ['row_orientation', 'categorical column (4 distinct values)']
     """
