@@ -132,6 +132,8 @@ PEARSON_SPLIT_GROUPS = 64
 # its column's sum of squares, the law is split on the partners of both points (columns with
 # two dominant values, e.g. mostly zeros with two large values).
 PEARSON_SPLIT2_SHARE = 0.25
+# ... its partners then in this many bins a side (P^2 parts, P = 2 * bins)
+PEARSON_SPLIT2_GROUPS = 16
 # The matrix path (app/core/wide.py, issue 19): Pearson and Spearman of all pairs by matrix
 # products. path="auto" takes it from this many pairs on (fewer pairs finish quickly either way),
 # when every chosen measure has a matrix form and no column group is involved.

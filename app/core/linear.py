@@ -11,8 +11,8 @@ import numba
 import numpy as np
 from scipy import special
 
-from ..config import (MIN_ROWS, PEARSON_EXACT_MAX_N, PEARSON_SPLIT2_SHARE, PEARSON_SPLIT_GROUPS,
-                      PEARSON_SPLIT_MAX_N, PEARSON_SPLIT_SHARE)
+from ..config import (MIN_ROWS, PEARSON_EXACT_MAX_N, PEARSON_SPLIT2_GROUPS, PEARSON_SPLIT2_SHARE,
+                      PEARSON_SPLIT_GROUPS, PEARSON_SPLIT_MAX_N, PEARSON_SPLIT_SHARE)
 from .results import TestResult, undefined
 from .testing import fisher_z_interval
 
@@ -663,7 +663,7 @@ def _whole_law_pvalue(xc, yc, s):
     return _two_tails(s, e2, e3, e4)
 
 
-def _partner_groups(v, grouped=True):
+def _partner_groups(v, grouped=True, groups=PEARSON_SPLIT_GROUPS):
     """Values standing for the possible partners of a split point, and how many partners each stands for.
 
     ``v`` (..., m): the partners' values. Up to ``2 * PEARSON_SPLIT_GROUPS`` of them (or
@@ -675,7 +675,6 @@ def _partner_groups(v, grouped=True):
     bin gets weight 0.
     """
     m = v.shape[-1]
-    groups = PEARSON_SPLIT_GROUPS
     if not grouped or m <= 2 * groups:
         return v, np.ones(v.shape)
     lead = v.shape[:-1]
@@ -739,8 +738,8 @@ def _without(v, idx):
 def _two_point_pvalue(xc, yc, s, q_in_x, q):
     """The law split on the partners of two dominant points: the most extreme x (x the side of
     larger kurtosis, as oriented by the caller) and point q, the second most extreme x when
-    ``q_in_x`` else the most extreme y. Arrays (k, n); O(P^2) curves a pair, P the partner
-    groups of :func:`_partner_groups`.
+    ``q_in_x`` else the most extreme y. Arrays (k, n); O(n + P^2) a pair, P at most
+    2 * PEARSON_SPLIT2_GROUPS nodes of :func:`_partner_groups` per partner.
 
     Same side (x points a, b): every ordered pair of distinct partners (j1, j2),
     :math:`S = a y_{j1} + b y_{j2} + (n-2)\bar x'\bar y' + T`, each of the n(n-1) equally likely.
@@ -758,7 +757,7 @@ def _two_point_pvalue(xc, yc, s, q_in_x, q):
     same = np.flatnonzero(q_in_x)
     if same.size:
         b = xc[same, q[same]]
-        vals, w = _partner_groups(yc[same])
+        vals, w = _partner_groups(yc[same], groups=PEARSON_SPLIT2_GROUPS)
         u, v = vals[:, :, None], vals[:, None, :]
         weight = w[:, :, None] * w[:, None, :]
         diag = np.arange(w.shape[1])
@@ -775,8 +774,8 @@ def _two_point_pvalue(xc, yc, s, q_in_x, q):
         both = _rest_tails(s[cross], a_c * b,
                            [px_all[e - 1][cross] - a_c ** e for e in (1, 2, 3, 4)],
                            [py_all[e - 1][cross] - b ** e for e in (1, 2, 3, 4)], n - 1.0)
-        yv, wy = _partner_groups(_without(yc[cross], q[cross]))
-        xv, wx = _partner_groups(_without(xc[cross], p_idx[cross]))
+        yv, wy = _partner_groups(_without(yc[cross], q[cross]), groups=PEARSON_SPLIT2_GROUPS)
+        xv, wx = _partner_groups(_without(xc[cross], p_idx[cross]), groups=PEARSON_SPLIT2_GROUPS)
         yv, xv = yv[:, :, None], xv[:, None, :]
         px = [(px_all[e - 1][cross] - a_c ** e)[:, None, None] - xv ** e for e in (1, 2, 3, 4)]
         py = [(py_all[e - 1][cross] - b ** e)[:, None, None] - yv ** e for e in (1, 2, 3, 4)]
