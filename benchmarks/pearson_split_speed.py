@@ -6,16 +6,24 @@ binning) is run by raising ``PEARSON_SPLIT_GROUPS`` so that no binning happens.
 
     python benchmarks/pearson_split_speed.py
 """
-import time, sys, numpy as np
+import time
+
+import numpy as np
+
 from pairlens.core import linear
+
 rng = np.random.default_rng(7)
 data = rng.lognormal(size=(2000, 30))
-pairs = [(i, j) for i in range(30) for j in range(i+1, 30)]
+pairs = [(i, j) for i in range(30) for j in range(i + 1, 30)]
+
+
 def run(method):
     t = time.perf_counter()
     for i, j in pairs:
         linear.pearson(data[:, i], data[:, j], test=method)
     return time.perf_counter() - t
+
+
 run("moments"); run("t")
 res = {"moments": [], "t": []}
 for _ in range(3):
