@@ -847,7 +847,13 @@ def moment_pvalue(x, y) -> np.ndarray:
       :math:`S = x_{(1)} y_j + (n-1)\\bar x' \\bar y'_j + T_j`, where
       :math:`T_j` is the permutation sum of the remaining n-1 centred pairs,
       whose moments again come from :func:`permutation_moments`; each part's
-      tail comes from its own curve and the p-value is their mean (O(n) curves).
+      tail comes from its own curve and the p-value is their mean. Above
+      ``2 * PEARSON_SPLIT_GROUPS`` rows the partners are taken in equal-width bins of
+      their values, two nodes a bin (:func:`_partner_groups`; O(n) a pair). Above
+      ``PEARSON_SPLIT_MAX_N`` rows, when a second point (the next x or the most
+      extreme y) holds more than ``PEARSON_SPLIT2_SHARE`` of its side's sum of
+      squares, the law is split on the partners of both points
+      (:func:`_two_point_pvalue`).
     - above: one curve for the whole law.
 
     The thresholds were chosen by the level table (tests/test_levels_pearson.py):
