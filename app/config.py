@@ -147,6 +147,17 @@ PVALUE_FLOOR_ENUMERATE_MAX_N = 8
 PEARSON_EXACT_MAX_N = 7
 PEARSON_SPLIT_MAX_N = 60
 PEARSON_SPLIT_SHARE = 0.1
+# Above 2 * PEARSON_SPLIT_GROUPS rows the n parts of the split law are taken in that many
+# groups of the partner's sorted values, narrow at both ends (single values) and wider in the
+# middle, two nodes each (O(n log n) a pair instead of n curves; tests/test_pearson_moments.py
+# bounds the change against the n-part law).
+PEARSON_SPLIT_GROUPS = 64
+# When, beside the split point, one more point (on either side) holds more than this share of
+# its column's sum of squares, the law is split on the partners of both points (columns with
+# two dominant values, e.g. mostly zeros with two large values).
+PEARSON_SPLIT2_SHARE = 0.25
+# ... its partners then in this many bins a side (P^2 parts, P = 2 * bins)
+PEARSON_SPLIT2_GROUPS = 16
 # The matrix path (app/core/wide.py, issue 19): Pearson and Spearman of all pairs by matrix
 # products. path="auto" takes it from this many pairs on (fewer pairs finish quickly either way),
 # when every chosen measure has a matrix form and no column group is involved.

@@ -8,8 +8,12 @@ scipy.stats.binom.ppf). The table is printed (``pytest -s``) with every cell
 outside the 99% interval marked. 90 counts are checked at once, so an exact
 test would put about one of them outside its 99% interval by chance; the
 assertion uses the 99.9% interval per cell and allows at most 3 of the 90
-outside the 99% one (an exact test does so with probability about 0.94,
-scipy.stats.binom.cdf(3, 90, 0.01)).
+outside the 99% one (a test at exactly the nominal level passes both with
+probability about 0.91, scipy.stats.binom; all 90 inside the 99% intervals
+only about 46% of the time, so that stricter goal is not asserted: see the
+README's level table for the two cells outside at this seed and the
+permutation test on the same draws, benchmarks/pearson_level_paired.py).
+Print the table: ``python -m pytest -n 0 -s -m slow tests/test_levels_pearson.py -k level_table``.
 
 The p-values come from :func:`pairlens.core.linear.moment_pvalue` on all
 replicates at once (the function ``pearson`` calls; checked equal below).
@@ -151,25 +155,18 @@ def _agreement():
 @pytest.mark.slow
 def test_default_pvalue_agrees_with_permutation_test_on_real_skewed_tables():
     # B = 9,999 resamples (not 99,999) to keep CI time reasonable: the tolerance is 4 Monte Carlo
-    # standard errors at B = 9,999, about 3.2 times wider than at 99,999. (Run with B = 99,999 by
-    # hand: 47 of 50 within 4 SE; the three outside all involve star98's PCTCHRT, 88% zeros.)
+    # standard errors at B = 9,999, about 3.2 times wider than at 99,999. Run with B = 99,999 by hand
+    # (the same pairs, scipy.stats.permutation_test, random_state=1): see README "Pearson's default
+    # test on real tables". Columns with most of their values at one point are held to the same bound
+    # (the law split on the partners of two dominant values, linear._two_point_pvalue).
     rows = _agreement()
     assert len(rows) == 50
+    assert any(r[7] for r in rows)      # the mostly-one-value columns (star98 PCTCHRT, PCTYRRND) are in
     failures = []
     for tname, a, b, n, ref, ours, se, lumpy in rows:
         print(f"{tname} | {a} | {b} | n={n} | permutation {ref:.5f} | ours {ours:.5f} | z {(ours - ref) / se:+.1f}"
               + (" | point mass > 50%" if lumpy else ""))
         ok = abs(ours - ref) <= 4 * se or (ref < 1e-3 and abs(ours - ref) <= 0.1 * ref)
-        if not ok and not lumpy:
+        if not ok:
             failures.append((tname, a, b, ref, ours))
     assert not failures, failures
-
-
-@pytest.mark.slow
-@pytest.mark.xfail(strict=True, reason="a column with most of its values at one point and two or more "
-                                       "dominant values: splitting on one extreme value is not enough")
-def test_default_pvalue_on_columns_that_are_mostly_one_value():
-    rows = [r for r in _agreement() if r[7]]
-    assert rows
-    for tname, a, b, n, ref, ours, se, lumpy in rows:
-        assert abs(ours - ref) <= 4 * se, (tname, a, b, ref, ours)

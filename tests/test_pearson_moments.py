@@ -153,3 +153,79 @@ def test_compiled_incomplete_beta_and_gamma_match_scipy():
         assert linear._beta_sf(a, b, x) == pytest.approx(special.betaincc(a, b, x), rel=1e-10)
     for a, x in [(0.5, 0.1), (4.0, 9.0), (300.0, 250.0), (10.0, 40.0)]:
         assert linear._gamma_p(a, x) == pytest.approx(special.gammainc(a, x), rel=1e-10)
+
+
+# -- the split laws: their parts against full enumeration, the grouped parts against all n --------
+
+def _raw_moments_instead_of_tails(k):
+    """A stand-in for linear._two_tails giving E[(shift + T)^k] of a part (T centred, raw moments e2..e4),
+    so that a split p-value function returns the k-th raw moment of its mixture of parts."""
+    def moment(s, e2, e3, e4, shift=0.0):
+        c = np.broadcast_to(shift, np.broadcast_shapes(np.shape(s), np.shape(e2), np.shape(shift)))
+        return {1: c, 2: c ** 2 + e2, 3: c ** 3 + 3 * c * e2 + e3,
+                4: c ** 4 + 6 * c ** 2 * e2 + 4 * c * e3 + e4}[k]
+    return moment
+
+
+@pytest.mark.parametrize("case", ["one point", "two x points", "x and y points"])
+def test_split_laws_parts_add_up_to_the_enumerated_law(case, monkeypatch):
+    # Reference: the definition, S over all 8! = 40,320 relabellings. The parts' weights, shifts and
+    # the rest's moments, mixed, must give the whole law's raw moments E[S^k], k = 1..4, exactly.
+    rng = np.random.default_rng(30)
+    n = 8
+    x = rng.lognormal(size=n)
+    y = np.where(rng.random(n) < 0.5, 0.0, rng.exponential(size=n) * 3)
+    x, y = x - x.mean(), y - y.mean()
+    y[0] += 1.0    # no tie between the partner values that could hide a wrong weight
+    y -= y.mean()
+    perms = np.array(list(itertools.permutations(range(n))))
+    s_all = y[perms] @ x
+    for k in (1, 2, 3, 4):
+        monkeypatch.setattr(linear, "_two_tails", _raw_moments_instead_of_tails(k))
+        s = np.array([0.5])
+        if case == "one point":
+            mixed = linear._split_law_pvalue(x[None], y[None], s, grouped=False)[0]
+        else:
+            q_in_x = case == "two x points"
+            q = np.argsort(-np.abs(x))[1] if q_in_x else np.argmax(np.abs(y))
+            mixed = linear._two_point_pvalue(x[None], y[None], s, np.array([q_in_x]), np.array([q]))[0]
+        ref = np.mean(s_all ** k)
+        assert mixed == pytest.approx(ref, rel=1e-9, abs=1e-9 * np.mean(s_all ** 2) ** (k / 2)), (case, k)
+
+
+def test_grouped_partners_change_the_split_law_little():
+    # The split law over bins of the partner's values against the same law over all n partners
+    # (its definition, each partner its own part): lognormal pairs with p from about 1e-8 to 1.
+    rng = np.random.default_rng(31)
+    for n in (400, 1500):
+        x, y = rng.lognormal(size=(40, n)), rng.lognormal(size=(40, n))
+        y = y + np.linspace(0, 1.0, 40)[:, None] * x * math.sqrt(100 / n)
+        xc, yc = x - x.mean(1, keepdims=True), y - y.mean(1, keepdims=True)
+        xc, yc = xc / np.abs(xc).max(1, keepdims=True), yc / np.abs(yc).max(1, keepdims=True)
+        s = np.abs((xc * yc).sum(1))
+        full = linear._split_law_pvalue(xc, yc, s, grouped=False)
+        grouped = linear._split_law_pvalue(xc, yc, s)
+        assert full.min() < 1e-4 and full.max() > 0.5
+        np.testing.assert_allclose(grouped, full, rtol=1e-3, atol=1e-6)
+
+
+def test_two_dominant_values_against_permutation_test():
+    # A column that is mostly zeros with two large values (two points over 25% of its sum of
+    # squares each) beside a lognormal one, n = 250. Reference: scipy.stats.permutation_test, |r|,
+    # B = 9,999, within 4 Monte Carlo standard errors.
+    rng = np.random.default_rng(32)
+    n = 250
+    for trial in range(3):
+        x = np.zeros(n)
+        x[rng.choice(n, 25, replace=False)] = rng.exponential(size=25)
+        x[:2] = (30.0, 24.0)
+        y = rng.lognormal(size=n) + 0.02 * trial * x
+        xc, yc = x - x.mean(), y - y.mean()
+        shares = np.sort(xc * xc)[::-1] / (xc @ xc)
+        assert shares[1] > 0.25
+        scale = math.sqrt((xc @ xc) * (yc @ yc))
+        ref = stats.permutation_test((yc,), lambda v, axis=-1: np.abs(v @ xc) / scale,
+                                     permutation_type="pairings", vectorized=True, n_resamples=9999,
+                                     alternative="greater", random_state=3).pvalue
+        se = math.sqrt(ref * (1 - ref) / 9999)
+        assert abs(linear.pearson(x, y).p_value - ref) <= 4 * se + 1e-4, (trial, ref)

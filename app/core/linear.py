@@ -11,7 +11,8 @@ import numba
 import numpy as np
 from scipy import special
 
-from ..config import MIN_ROWS, PEARSON_EXACT_MAX_N, PEARSON_SPLIT_MAX_N, PEARSON_SPLIT_SHARE
+from ..config import (MIN_ROWS, PEARSON_EXACT_MAX_N, PEARSON_SPLIT2_GROUPS, PEARSON_SPLIT2_SHARE,
+                      PEARSON_SPLIT_GROUPS, PEARSON_SPLIT_MAX_N, PEARSON_SPLIT_SHARE)
 from .results import TestResult, undefined
 from .testing import fisher_z_interval
 
@@ -662,24 +663,154 @@ def _whole_law_pvalue(xc, yc, s):
     return _two_tails(s, e2, e3, e4)
 
 
-def _split_law_pvalue(xc, yc, s):
-    """The law as the mean of its n parts given the partner j of the most extreme x value
-    (x, y swapped first so that x is the side with the larger kurtosis)."""
-    n = xc.shape[-1]
+def _partner_groups(v, grouped=True, groups=PEARSON_SPLIT_GROUPS):
+    """Values standing for the possible partners of a split point, and how many partners each stands for.
+
+    ``v`` (..., m): the partners' values. Up to ``2 * PEARSON_SPLIT_GROUPS`` of them (or
+    ``grouped=False``) each is its own part. Above, the range of the values is cut into
+    ``PEARSON_SPLIT_GROUPS`` bins of equal width, and each bin is two nodes at its mean -/+ its SD
+    carrying half its count: exact for a part's tail that is quadratic in the partner's value
+    over the bin. A part's shift moves with the partner's value, so equal widths (not equal
+    counts) keep the tail's change across a bin small, in the heavy ends too. O(m); an empty
+    bin gets weight 0.
+    """
+    m = v.shape[-1]
+    if not grouped or m <= 2 * groups:
+        return v, np.ones(v.shape)
+    lead = v.shape[:-1]
+    flat = v.reshape(-1, m)
+    rows = flat.shape[0]
+    low = flat.min(axis=-1, keepdims=True)
+    width = np.maximum(flat.max(axis=-1, keepdims=True) - low, 1e-300)
+    which = np.minimum(((flat - low) / width * groups).astype(np.intp), groups - 1)
+    which += groups * np.arange(rows)[:, None]
+    size = rows * groups
+    counts = np.bincount(which.ravel(), minlength=size).reshape(rows, groups).astype(float)
+    sums = np.bincount(which.ravel(), weights=flat.ravel(), minlength=size).reshape(rows, groups)
+    squares = np.bincount(which.ravel(), weights=(flat * flat).ravel(), minlength=size).reshape(rows, groups)
+    safe = np.maximum(counts, 1.0)
+    mean = sums / safe
+    spread = np.sqrt(np.maximum(squares / safe - mean * mean, 0.0))
+    nodes = np.concatenate([mean - spread, mean + spread], axis=-1).reshape(*lead, 2 * groups)
+    weight = np.concatenate([counts / 2, counts / 2], axis=-1).reshape(*lead, 2 * groups)
+    return nodes, weight
+
+
+def _rest_tails(s, shift, px, py, m):
+    """Both tails of shift + T, T the permutation sum of the m pairs left, from their raw power sums."""
+    rest_x = _central_sums(*px, m)
+    rest_y = _central_sums(*py, m)
+    e2, e3, e4 = permutation_moments(rest_x[1], rest_x[2], rest_x[3], rest_y[1], rest_y[2], rest_y[3], m)
+    return _two_tails(s, e2, e3, e4, shift + m * rest_x[0] * rest_y[0])
+
+
+def _oriented(xc, yc):
+    """x, y swapped pair by pair so that x is the side with the larger kurtosis."""
     kx = (xc ** 4).sum(-1) / (xc ** 2).sum(-1) ** 2
     ky = (yc ** 4).sum(-1) / (yc ** 2).sum(-1) ** 2
     swap = (ky > kx)[..., None]
-    xc, yc = np.where(swap, yc, xc), np.where(swap, xc, yc)
+    return np.where(swap, yc, xc), np.where(swap, xc, yc)
+
+
+def _split_law_pvalue(xc, yc, s, grouped=True):
+    """The law as the mean of its n parts given the partner j of the most extreme x value
+    (x, y swapped first so that x is the side with the larger kurtosis); the parts taken in
+    groups (:func:`_partner_groups`) for large n."""
+    n = xc.shape[-1]
+    xc, yc = _oriented(xc, yc)
     top = np.argmax(np.abs(xc), axis=-1)[..., None]
     x_top = np.take_along_axis(xc, top, axis=-1)                    # (..., 1)
-    m = n - 1.0
-    rest_x = _central_sums(*((xc ** k).sum(-1, keepdims=True) - x_top ** k for k in (1, 2, 3, 4)), m)
-    rest_y = _central_sums(*((yc ** k).sum(-1, keepdims=True) - yc ** k for k in (1, 2, 3, 4)), m)
+    vals, weight = _partner_groups(yc, grouped)
     # S = x_top y_j + (n-1) mean(x rest) mean(y rest) + T_j, T_j a centred permutation sum of n-1 pairs
-    shift = x_top * yc + m * rest_x[0] * rest_y[0]
-    e2, e3, e4 = permutation_moments(rest_x[1], rest_x[2], rest_x[3], rest_y[1], rest_y[2], rest_y[3], m)
-    s = s[..., None]
-    return _two_tails(s, e2, e3, e4, shift).mean(axis=-1)
+    px = [(xc ** k).sum(-1, keepdims=True) - x_top ** k for k in (1, 2, 3, 4)]
+    py = [(yc ** k).sum(-1, keepdims=True) - vals ** k for k in (1, 2, 3, 4)]
+    tails = _rest_tails(s[..., None], x_top * vals, px, py, n - 1.0)
+    return (tails * weight).sum(axis=-1) / n
+
+
+def _without(v, idx):
+    """Each row of v (k, n) without its element idx[row]."""
+    keep = np.ones(v.shape, bool)
+    keep[np.arange(v.shape[0]), idx] = False
+    return v[keep].reshape(v.shape[0], v.shape[1] - 1)
+
+
+def _two_point_pvalue(xc, yc, s, q_in_x, q):
+    """The law split on the partners of two dominant points: the most extreme x (x the side of
+    larger kurtosis, as oriented by the caller) and point q, the second most extreme x when
+    ``q_in_x`` else the most extreme y. Arrays (k, n); O(n + P^2) a pair, P at most
+    2 * PEARSON_SPLIT2_GROUPS nodes of :func:`_partner_groups` per partner.
+
+    Same side (x points a, b): every ordered pair of distinct partners (j1, j2),
+    :math:`S = a y_{j1} + b y_{j2} + (n-2)\bar x'\bar y' + T`, each of the n(n-1) equally likely.
+    Across (x point a, y point b): a paired with b (probability 1/n, then n-1 pairs left), or a
+    with some y_j (j != b) and b with some x_i (i != a), each of the (n-1)^2 with probability
+    1/(n(n-1)), :math:`S = a y_j + x_i b + (n-2)\bar x'\bar y' + T`.
+    """
+    k, n = xc.shape
+    p_idx = np.argmax(np.abs(xc), axis=-1)
+    a = xc[np.arange(k), p_idx]
+    px_all = [(xc ** e).sum(-1) for e in (1, 2, 3, 4)]
+    py_all = [(yc ** e).sum(-1) for e in (1, 2, 3, 4)]
+    m = n - 2.0
+    out = np.empty(k)
+    same = np.flatnonzero(q_in_x)
+    if same.size:
+        b = xc[same, q[same]]
+        vals, w = _partner_groups(yc[same], groups=PEARSON_SPLIT2_GROUPS)
+        u, v = vals[:, :, None], vals[:, None, :]
+        weight = w[:, :, None] * w[:, None, :]
+        diag = np.arange(w.shape[1])
+        weight[:, diag, diag] -= w
+        px = [(px_all[e - 1][same] - a[same] ** e - b ** e)[:, None, None] for e in (1, 2, 3, 4)]
+        py = [py_all[e - 1][same][:, None, None] - u ** e - v ** e for e in (1, 2, 3, 4)]
+        tails = _rest_tails(s[same, None, None], a[same, None, None] * u + b[:, None, None] * v, px, py, m)
+        out[same] = (tails * weight).sum(axis=(-2, -1)) / (n * (n - 1.0))
+    cross = np.flatnonzero(~q_in_x)
+    if cross.size:
+        a_c = a[cross]
+        b = yc[cross, q[cross]]
+        # a with b: the other n-1 pairs are a plain permutation sum
+        both = _rest_tails(s[cross], a_c * b,
+                           [px_all[e - 1][cross] - a_c ** e for e in (1, 2, 3, 4)],
+                           [py_all[e - 1][cross] - b ** e for e in (1, 2, 3, 4)], n - 1.0)
+        yv, wy = _partner_groups(_without(yc[cross], q[cross]), groups=PEARSON_SPLIT2_GROUPS)
+        xv, wx = _partner_groups(_without(xc[cross], p_idx[cross]), groups=PEARSON_SPLIT2_GROUPS)
+        yv, xv = yv[:, :, None], xv[:, None, :]
+        px = [(px_all[e - 1][cross] - a_c ** e)[:, None, None] - xv ** e for e in (1, 2, 3, 4)]
+        py = [(py_all[e - 1][cross] - b ** e)[:, None, None] - yv ** e for e in (1, 2, 3, 4)]
+        tails = _rest_tails(s[cross, None, None], a_c[:, None, None] * yv + xv * b[:, None, None], px, py, m)
+        out[cross] = ((n - 1.0) * both + (tails * (wy[:, :, None] * wx[:, None, :])).sum(axis=(-2, -1))) / (n * (n - 1.0))
+    return out
+
+
+def _dominant_second(xc, yc):
+    """For oriented pairs (..., n): the larger of the second-largest x share and the largest y share
+    of the sums of squares, whether it is on the x side, and its index."""
+    sx = xc * xc / (xc * xc).sum(-1, keepdims=True)
+    sy = yc * yc / (yc * yc).sum(-1, keepdims=True)
+    order = np.argsort(-sx, axis=-1)[..., :2]
+    x2 = order[..., 1]
+    share_x2 = np.take_along_axis(sx, x2[..., None], axis=-1)[..., 0]
+    y1 = np.argmax(sy, axis=-1)
+    share_y1 = np.take_along_axis(sy, y1[..., None], axis=-1)[..., 0]
+    in_x = share_x2 >= share_y1
+    return np.where(in_x, share_x2, share_y1), in_x, np.where(in_x, x2, y1)
+
+
+def _lumpy_split_pvalue(xc, yc, s):
+    """Split law of large samples with a dominant value (n > PEARSON_SPLIT_MAX_N): on two points
+    where a second one dominates too (share above PEARSON_SPLIT2_SHARE), else on one. (k, n) arrays."""
+    xo, yo = _oriented(xc, yc)
+    share, in_x, q = _dominant_second(xo, yo)
+    two = share > PEARSON_SPLIT2_SHARE
+    p = np.empty(s.shape)
+    if (~two).any():
+        p[~two] = _split_law_pvalue(xc[~two], yc[~two], s[~two])
+    for chunk in np.array_split(np.flatnonzero(two), max(1, -(-int(two.sum()) // 256))):
+        if chunk.size:
+            p[chunk] = _two_point_pvalue(xo[chunk], yo[chunk], s[chunk], in_x[chunk], q[chunk])
+    return p
 
 
 def moment_pvalue(x, y) -> np.ndarray:
@@ -716,7 +847,13 @@ def moment_pvalue(x, y) -> np.ndarray:
       :math:`S = x_{(1)} y_j + (n-1)\\bar x' \\bar y'_j + T_j`, where
       :math:`T_j` is the permutation sum of the remaining n-1 centred pairs,
       whose moments again come from :func:`permutation_moments`; each part's
-      tail comes from its own curve and the p-value is their mean (O(n) curves).
+      tail comes from its own curve and the p-value is their mean. Above
+      ``2 * PEARSON_SPLIT_GROUPS`` rows the partners are taken in equal-width bins of
+      their values, two nodes a bin (:func:`_partner_groups`; O(n) a pair). Above
+      ``PEARSON_SPLIT_MAX_N`` rows, when a second point (the next x or the most
+      extreme y) holds more than ``PEARSON_SPLIT2_SHARE`` of its side's sum of
+      squares, the law is split on the partners of both points
+      (:func:`_two_point_pvalue`).
     - above: one curve for the whole law.
 
     The thresholds were chosen by the level table (tests/test_levels_pearson.py):
@@ -748,14 +885,21 @@ def moment_pvalue(x, y) -> np.ndarray:
         # the largest single share of the sum of squares, on either side (data scaled to max |v| = 1)
         share = np.maximum(1.0 / (xc * xc).sum(axis=-1), 1.0 / (yc * yc).sum(axis=-1))
         split = (n <= PEARSON_SPLIT_MAX_N) | (share > PEARSON_SPLIT_SHARE)
+        split_law = _split_law_pvalue if n <= PEARSON_SPLIT_MAX_N else _lumpy_split_pvalue
         if np.ndim(split) == 0:
-            p = (_split_law_pvalue if split else _whole_law_pvalue)(xc, yc, s)
+            if split:
+                p = split_law(xc[None], yc[None], s[None])[0]
+            else:
+                p = _whole_law_pvalue(xc, yc, s)
         else:
+            lead = s.shape
+            xc, yc, s, split = (xc.reshape(-1, n), yc.reshape(-1, n), s.reshape(-1), split.reshape(-1))
             p = np.empty(s.shape)
             if split.any():
-                p[split] = _split_law_pvalue(xc[split], yc[split], s[split])
+                p[split] = split_law(xc[split], yc[split], s[split])
             if (~split).any():
                 p[~split] = _whole_law_pvalue(xc[~split], yc[~split], s[~split])
+            p = p.reshape(lead)
     p = np.clip(p, 0.0, 1.0)
     return float(p) if np.ndim(p) == 0 else p
 
