@@ -62,8 +62,11 @@ def info(table: Table, name: str):
 
 def assert_blocks(table: Table) -> None:
     """The plain block table: three numeric columns and the text column 'block'."""
-    assert table.columns == ["moisture_10cm", "moisture_30cm", "sugar"]
-    np.testing.assert_array_equal(table.data, np.column_stack([corpus.MOISTURE_10, corpus.MOISTURE_30, corpus.SUGAR]))
+    # categorical columns within the level limit are kept too (issue 18); the numeric ones in file order
+    numeric = [c for c in table.columns if info(table, c).kind == "numeric"]
+    assert numeric == ["moisture_10cm", "moisture_30cm", "sugar"]
+    np.testing.assert_array_equal(table.data[:, [table.columns.index(c) for c in numeric]],
+                                  np.column_stack([corpus.MOISTURE_10, corpus.MOISTURE_30, corpus.SUGAR]))
     block = info(table, "block")
     assert (block.kind, block.used, block.reason) == ("text", False, "text column (6 distinct values)")
     assert table.preview[0][0] == "Nordhang"
@@ -303,14 +306,19 @@ def test_xlsx_title_row_and_error_cells(files):
 
 def test_parquet(files):
     table = load(files, "blocks.parquet")
-    assert table.columns == ["week", "moisture_10cm", "sugar", "acidity_text"]
+    # categorical columns within the level limit are kept too (issue 18), after these in file order
+    assert [c for c in table.columns if info(table, c).kind == "numeric"] == ["week", "moisture_10cm", "sugar",
+                                                                              "acidity_text"]
+    assert table.columns[:3] == ["week", "moisture_10cm", "sugar"]
     moisture = table.data[:, 1]
     assert np.isnan(moisture[1]) and info(table, "moisture_10cm").missing == 1
     # float32 column: the stored float32 values, widened exactly
     np.testing.assert_array_equal(table.data[:, 2], np.asarray(corpus.SUGAR, dtype=np.float32).astype(np.float64))
-    np.testing.assert_array_equal(table.data[:, 3], corpus.ACIDITY)  # strings of numbers follow the text rule
+    np.testing.assert_array_equal(table.data[:, table.columns.index("acidity_text")], corpus.ACIDITY)  # the text rule
     kinds = {c.name: c.kind for c in table.info if not c.used}
-    assert kinds == {"block": "text", "irrigated": "categorical", "sampled": "datetime", "variety": "categorical"}
+    # a Parquet boolean column is still left out (not yet read as levels); a text category is kept (issue 18)
+    assert kinds == {"block": "text", "irrigated": "categorical", "sampled": "datetime"}
+    assert (info(table, "variety").kind, info(table, "variety").used) == ("categorical", True)
     assert table.preview[0][3] == "18.1"
 
 

@@ -56,7 +56,7 @@ def table() -> pd.DataFrame:
 
 @pytest.fixture(scope="module")
 def numeric(table) -> list[str]:
-    return [c for c in table.columns if c not in TEXT_COLUMNS]
+    return [c for c in table.columns if c not in TEXT_COLUMNS + ("grape_variety",)]   # issue 18's column is text
 
 
 def _pair(table, a, b):
