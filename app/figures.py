@@ -835,7 +835,7 @@ def heatmap_svg(table, measure: str, *, order: Sequence[int] | None = None,
     with np.errstate(invalid="ignore"):
         dots = np.isfinite(q) & (q < alpha)
     np.fill_diagonal(dots, False)
-    return _matrix_svg(names, z, stops, zmin, zmax, MEASURES[measure].label, dots, f"heatmap-{measure}")
+    return _matrix_svg(names, z, stops, zmin, zmax, get_measure(measure).label, dots, f"heatmap-{measure}")
 
 
 def difference_svg(table, measure_a: str, measure_b: str, *, order: Sequence[int] | None = None) -> str:
@@ -843,7 +843,7 @@ def difference_svg(table, measure_a: str, measure_b: str, *, order: Sequence[int
     fig = difference_figure(table, measure_a, measure_b, order=order, top=0, hover="template")
     heat = fig["data"][0]
     z = np.array([[np.nan if v is None else v for v in row] for row in heat["z"]], dtype=float)
-    la, lb = MEASURES[measure_a].label, MEASURES[measure_b].label
+    la, lb = get_measure(measure_a).label, get_measure(measure_b).label
     return _matrix_svg(fig["layout"]["meta"]["variables"], z, SIGNED_SCALE, heat["zmin"], heat["zmax"],
                        f"{la} − |{lb}|", None, f"difference-{measure_a}-{measure_b}")
 

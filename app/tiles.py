@@ -110,7 +110,7 @@ def fast_pair_rows(prep: "allpairs.PreparedColumns", xvar: Variable, yvar: Varia
     i, j = prep.slot.get(xvar.columns[0]), prep.slot.get(yvar.columns[0])
     if i is None or j is None or not (prep.finite[i] and prep.finite[j]):
         return None
-    measures = settings.measures
+    measures = measures_for(settings.run_measures, xvar.kind, yvar.kind)  # those that apply to two numbers
     needs = frozenset().union(*(MEASURES[m].presorted_needs for m in measures))
     regular, view, sums, counts, dist_inputs = allpairs.pair_work(
         prep, i, j, config.MIN_ROWS, spearman="rank_sums" in needs, kendall="kendall_counts" in needs,

@@ -140,7 +140,8 @@ def test_pair_detail_matches_contract_shape():
     data, names = _table(8)
     d = pair_detail(data, names, "d", "e")
     assert set(d) >= {"x", "y", "n", "measures", "gaussian", "pattern"}
-    assert set(d["measures"]) == set(MEASURES)
+    # every measure that applies to a pair of two numeric columns (registry ``kinds``)
+    assert set(d["measures"]) == {m for m, e in MEASURES.items() if e.applies_to("numeric", "numeric")}
     for m in d["measures"].values():
         assert set(m) >= {"estimate", "ci_low", "ci_high", "p_value"}
     g = d["gaussian"]

@@ -84,9 +84,12 @@ LABELS = ("linear", "monotone but curved", "non-monotone", "driven by a few poin
           "no evidence of dependence")
 
 # Read from the registry entries' roles (a rank correlation is a trend test too).
-TREND_MEASURES = tuple(n for n, m in MEASURES.items() if m.role in ("trend", "rank"))
-RANK_MEASURES = tuple(n for n, m in MEASURES.items() if m.role == "rank")
-DEPENDENCE_MEASURES = tuple(n for n, m in MEASURES.items() if m.role == "dependence")
+# The rules below judge pairs of two numeric columns: the measures that apply to those
+# (categorical pairs have their own rules, core.verdict_categorical).
+_NUMERIC = {n: m for n, m in MEASURES.items() if m.applies_to("numeric", "numeric")}
+TREND_MEASURES = tuple(n for n, m in _NUMERIC.items() if m.role in ("trend", "rank"))
+RANK_MEASURES = tuple(n for n, m in _NUMERIC.items() if m.role == "rank")
+DEPENDENCE_MEASURES = tuple(n for n, m in _NUMERIC.items() if m.role == "dependence")
 
 # Thresholds of the rule table (see the module docstring). They are effect
 # sizes on the correlation scale, chosen well above the sampling noise of the
@@ -537,7 +540,7 @@ def _missing_reasons(ev: _Evidence, label: str) -> list[str]:
     untested_rank = [m for m in RANK_MEASURES if ev.q.get(m) is None]
     if label in ("no evidence of dependence", "linear", "monotone but curved") and len(untested_dep) == 2:
         out.append("No dependence test (dcor, xi) was run, so a non-monotone dependence could go unseen")
-    if label in ("no evidence of dependence", "linear") and len(untested_rank) == 2:
+    if label in ("no evidence of dependence", "linear") and len(untested_rank) == len(RANK_MEASURES):
         out.append("No rank correlation was tested, so a monotone curve cannot be told from a line")
     return out
 
