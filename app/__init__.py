@@ -2,8 +2,8 @@
 
 >>> import pairlens
 >>> result = pairlens.analyze(pairlens.read(pairlens.demo_path()), workers=1, progress=False)
->>> sorted(set(result.pairs["measure"]))
-['dcor', 'kendall', 'pearson', 'spearman']
+>>> sorted(set(result.pairs["measure"]))    # numeric defaults, and those of its categorical columns
+['cramer_v', 'dcor', 'eta', 'kendall', 'kruskal', 'pearson', 'spearman']
 
 The names below are loaded on first use, so ``import pairlens`` (and the
 ``pairlens`` command's start-up) does not pay for NumPy, pandas or SciPy.

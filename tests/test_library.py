@@ -20,7 +20,7 @@ def frame():
     n = 120
     a = rng.normal(size=n)
     df = pd.DataFrame({"a": a, "b": a + 0.6 * rng.normal(size=n), "c": rng.uniform(-1, 1, size=n),
-                       "label": [f"k{i % 4}" for i in range(n)]})
+                       "label": [f"k{i}" for i in range(n)]})  # 120 levels: over the limit, left out
     df["d"] = df["c"] ** 2 + 0.05 * rng.normal(size=n)
     df.loc[::17, "b"] = np.nan
     return df

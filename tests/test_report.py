@@ -220,8 +220,8 @@ def test_fingerprint_is_sha256_of_the_file_and_counts_match(report):
                              r'<td class="r">(\d+)', report.html, re.S)
     shown = {html.unescape(name.split(" <span")[0]): int(miss) for _, name, miss in column_rows}
     assert shown == blanks
-    # the categorical column is listed as left out, with its reason
-    assert re.search(r'<tr class="left-out">\s*<th scope="row">block</th>.*?categorical', report.html, re.S)
+    # the text column with few levels is analysed as categorical, and listed so
+    assert re.search(r'<tr class="used">\s*<th scope="row">block</th>\s*<td>categorical</td>', report.html, re.S)
 
 
 def test_demo_data_are_labelled_invented(report):

@@ -37,7 +37,7 @@ def test_every_demo_pair_has_the_pair_views_label():
     settings = AnalysisSettings(measures=("pearson", "spearman", "kendall", "dcor", "xi"))
     table = run_analysis(demo.data, demo.columns, settings, workers=1, verdicts=True)
     k = len(table.variables)
-    assert len(table.verdicts) == k * (k - 1) // 2 == 190   # 20 numeric columns (with the confounded pair)
+    assert len(table.verdicts) == k * (k - 1) // 2 == 231   # 20 numeric, row_orientation and grape_variety
     assert set(table.verdicts.values()) <= set(LABELS)
     # the pair view's verdict (full detail, with the Gaussian fit) for a seeded sample of pairs
     rng = np.random.default_rng(15)
