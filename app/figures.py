@@ -1020,6 +1020,7 @@ def residual_figure(detail: dict) -> dict | None:
         data.append({"type": "scatter", "mode": "lines", "x": ends, "y": [slope * e for e in ends],
                      "line": {"color": _FIT, "width": 2}, "name": "least squares", "hoverinfo": "skip"})
     layout = {
+        "meta": {"x": f"{detail['x']} given {z} (residual)", "y": f"{detail['y']} given {z} (residual)"},
         "font": {"family": _FONT, "color": _INK, "size": 11},
         "margin": {"l": 55, "r": 10, "t": 10, "b": 45},
         "xaxis": {"title": {"text": f"{xl} given {zl} (residual)"}, "zeroline": True, "gridcolor": "#e3e7e9"},

@@ -4,6 +4,7 @@ the pair table, and the two categorical pair views, in a real Chromium.
 The expected numbers are checked against scipy.stats (f_oneway, chi2_contingency) on the same rows.
 """
 
+from contextlib import nullcontext
 from pathlib import Path
 
 import httpx
@@ -11,7 +12,7 @@ import numpy as np
 import pytest
 import scipy.stats
 
-from browser_helpers import Server, chromium, chromium_available, screenshot
+from browser_helpers import Server, chromium_available, screenshot
 
 pytestmark = [pytest.mark.browser,
               pytest.mark.skipif(not chromium_available(), reason="needs Debian chromium and playwright")]
@@ -47,9 +48,9 @@ def server(tmp_path_factory):
     s.stop()
 
 
-def test_mixed_table_flow(server, mixed_file):
+def test_mixed_table_flow(server, mixed_file, browser):
     cols = _columns()
-    with chromium() as browser:
+    with nullcontext(browser) as browser:  # the worker's one Chromium (tests/conftest.py)
         page = browser.new_page(viewport={"width": 1400, "height": 900})
         page.set_default_timeout(120_000)
         page.goto(server.url("/"))

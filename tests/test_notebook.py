@@ -55,10 +55,14 @@ def test_every_cell_ran_without_error(executed):
 def test_reads_the_demo(executed):
     cells, _ = executed
     demo = pd.read_csv(ROOT / "sample_data" / "vineyard_blocks.csv")
-    numeric = [c for c in demo.columns if pd.api.types.is_numeric_dtype(demo[c])]
+    from pairlens import config
+
+    # numeric columns and text columns with few enough levels to be categorical
+    kept = [c for c in demo.columns if pd.api.types.is_numeric_dtype(demo[c])
+            or demo[c].nunique() <= config.CATEGORICAL_MAX_LEVELS]
     shape = next(_text(c) for c in cells if "df.shape" in c.source)
-    assert f"({len(demo)}, {len(numeric)})" in shape
-    assert "row_orientation" in shape  # left out, with its reason, in df.attrs
+    assert f"({len(demo)}, {len(kept)})" in shape
+    assert "block_id" in shape  # 40 levels: left out, with its reason, in df.attrs
 
 
 def test_shows_one_map_per_measure_and_the_top_pairs(executed):
