@@ -80,6 +80,8 @@ def given_rows(data: np.ndarray, xvar: Variable, yvar: Variable, settings: Analy
     out = []
     for name in partial_of(settings.measures):
         measure = get_measure(name)
+        if not measure.applies_to(xvar.kind, yvar.kind):
+            continue  # residuals of level codes mean nothing: a categorical side takes no partial measure
         if (xvar.is_group or yvar.is_group) and not measure.multivariate:
             res = undefined(n, f"{name} is not defined for column groups; use dcor for groups")
         elif n < config.MIN_ROWS:

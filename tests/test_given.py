@@ -117,3 +117,23 @@ def test_partial_dcor_row_beyond_its_row_limit_is_nan_with_a_note(monkeypatch):
     table = _run(_frame(4, n=60), measures="dcor", given="temp")
     row = table.lookup("evap", "stress")["partial_dcor"]
     assert math.isnan(row.estimate) and "limit of 50" in row.note
+
+
+def test_a_categorical_side_takes_no_partial_measure():
+    # Least-squares residuals of a categorical column's level codes mean nothing (the codes have no
+    # order or spacing), so pairs with a categorical side carry their categorical measures only.
+    import numpy as np
+    import pandas as pd
+
+    import pairlens
+
+    rng = np.random.default_rng(18)
+    n = 150
+    z = rng.normal(size=n)
+    frame = pd.DataFrame({"z": z, "a": z + rng.normal(size=n), "b": z + rng.normal(size=n),
+                          "kind": rng.choice(["red", "green", "blue"], size=n)})
+    pairs = pairlens.analyze(frame, given=["z"], workers=1, progress=False).pairs
+    partial = pairs[pairs.measure.str.startswith("partial_")]
+    assert set(partial.x) | set(partial.y) == {"a", "b"}            # the numeric pair only
+    assert len(partial) == 3                                       # partial Pearson, Spearman, dCor
+    assert set(pairs[(pairs.x == "kind") | (pairs.y == "kind")].measure) <= {"dcor", "eta", "kruskal"}
