@@ -49,7 +49,7 @@ def given_columns(data: np.ndarray, names: Sequence[str], settings: AnalysisSett
     position = {n: i for i, n in enumerate(names)}
     unknown = [c for c in settings.given if c not in position]
     if unknown:
-        raise SettingsError(f"given: unknown column(s) {', '.join(map(repr, unknown))}; numeric columns are: "
+        raise SettingsError(f"given: unknown column(s) {', '.join(map(repr, unknown))}; columns are: "
                             f"{', '.join(list(names)[:20])}{' ...' if len(names) > 20 else ''}")
     cols = tuple(position[c] for c in settings.given)
     indicator, levels = [], []

@@ -264,7 +264,7 @@ def plan_variables(names: Sequence[str], settings: AnalysisSettings) -> list[Var
     selected -= set(settings.given)
     unknown = [c for c in (settings.columns or ()) + settings.given if c not in position]
     if unknown:
-        raise SettingsError(f"unknown column(s) {', '.join(map(repr, unknown))}; numeric columns are: "
+        raise SettingsError(f"unknown column(s) {', '.join(map(repr, unknown))}; columns are: "
                             f"{', '.join(names[:20])}{' ...' if len(names) > 20 else ''}")
     group_of: dict[str, str] = {}
     members_of: dict[str, tuple[int, ...]] = {}
@@ -375,7 +375,7 @@ def pair_rows(data: np.ndarray, names: Sequence[str], x: str, y: str, settings: 
     position = {n: i for i, n in enumerate(names)}
     for col in (x, y):
         if col not in position:
-            raise SettingsError(f"unknown column {col!r}; numeric columns are: {', '.join(list(names)[:20])}")
+            raise SettingsError(f"unknown column {col!r}; columns are: {', '.join(list(names)[:20])}")
     if x == y:
         raise SettingsError("x and y must be different columns")
     xv_all, yv_all = data[:, position[x]], data[:, position[y]]
