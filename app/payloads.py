@@ -2,7 +2,7 @@
 
 Below the web layer: the background job (:mod:`pairlens.jobs`) builds them once
 when an analysis finishes (:func:`precompute_pages`) and the server
-(:mod:`pairlens.web.deps`) serves them or builds them on demand. Figures come
+(:mod:`pairlens.web.workspace`) serves them or builds them on demand. Figures come
 from :mod:`pairlens.figures`, the builders the report uses too.
 """
 

@@ -363,7 +363,7 @@ def test_server_survives_the_corpus(server, name):
 
 
 def test_pair_view_cache_is_bounded_by_bytes_and_keeps_points_as_arrays():
-    from pairlens.web.deps import _PairCache
+    from pairlens.web.workspace import _PairCache
 
     cache = _PairCache(max_bytes=10 * 1024 ** 2)
     n = 200_000  # one pair of 200k points: 4.8 MB as arrays (x, y float64, rows int64)

@@ -125,7 +125,8 @@ def test_the_graph_is_read():
     # a sanity check on the reader itself: edges the code is known to have
     graph, _ = import_graph()
     assert "pairlens.core.registry" in graph["pairlens.engine"] or "pairlens.core.registry" in graph["pairlens.tiles"]
-    assert "pairlens.web.deps" in graph["pairlens.web.app"]
+    assert "pairlens.web.workspace" in graph["pairlens.web.app"]
+    assert "pairlens.web.deps" in graph["pairlens.web.api"]
     assert "pairlens.plan" in graph["pairlens.pairs"]
 
 

@@ -25,7 +25,8 @@ from ..ingest import IngestError
 from ..jobs import JobManager
 from ..store import Store, UploadTooLarge, is_disk_full
 from ..formatting import embed_json
-from .deps import Conflict, NotFound, Workspace
+from .workspace import Conflict, NotFound, Workspace
+from .models import describe_errors
 from .security import RequestGuard, refuse_request
 
 __all__ = ["create_app", "UPLOAD_PATHS"]
@@ -240,11 +241,7 @@ def create_app(settings: ServerSettings | None = None, *, jobs: JobManager | Non
 
     @app.exception_handler(RequestValidationError)
     async def _validation(request: Request, exc: RequestValidationError):
-        parts = []
-        for e in exc.errors():
-            where = ".".join(str(p) for p in e.get("loc", ()) if p != "body")
-            parts.append(f"{where}: {e.get('msg', 'invalid')}" if where else str(e.get("msg", "invalid")))
-        return error(request, 422, "; ".join(parts) or "invalid request")
+        return error(request, 422, describe_errors(exc.errors(), exc.body))
 
     @app.exception_handler(HTTPException)
     async def _http(request: Request, exc: HTTPException):

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from fastapi import APIRouter, Depends, Request
+from fastapi import APIRouter, Request
 from fastapi.responses import HTMLResponse, RedirectResponse
 from starlette.concurrency import run_in_threadpool
 from starlette.datastructures import UploadFile
@@ -17,7 +17,11 @@ from ..given import conditioning_changes
 from ..core.verdict import marginals_normal_not_joint
 from ..formatting import embed_json
 from ..payloads import pair_columns
-from .deps import Workspace, get_workspace
+from pydantic import ValidationError
+
+from .deps import WorkspaceDep
+from .workspace import Workspace
+from .models import ORDERED_FILE, AnalysisRequest, validation_message
 
 router = APIRouter(include_in_schema=False)
 
@@ -39,12 +43,12 @@ def methods_page(request: Request):
 
 
 @router.get("/", response_class=HTMLResponse)
-def home(request: Request, ws: Workspace = Depends(get_workspace)):
+def home(request: Request, ws: WorkspaceDep):
     return _home(request, ws)
 
 
 @router.post("/upload")
-async def upload(request: Request, ws: Workspace = Depends(get_workspace)):
+async def upload(request: Request, ws: WorkspaceDep):
     form = await request.form()
     file = form.get("file")
     try:
@@ -63,7 +67,7 @@ async def upload(request: Request, ws: Workspace = Depends(get_workspace)):
 
 
 @router.post("/demo")
-def open_demo(request: Request, ws: Workspace = Depends(get_workspace)):
+def open_demo(request: Request, ws: WorkspaceDep):
     if not config.DEMO_FILE.exists():
         return _home(request, ws, "The demo dataset is not installed (sample_data/vineyard_blocks.csv).", 404)
     row = ws.ensure_demo()
@@ -85,73 +89,44 @@ def _dataset_page(request: Request, ws: Workspace, dataset_id: str, error: str =
 
 
 @router.get("/datasets/{dataset_id}", response_class=HTMLResponse)
-def dataset_page(dataset_id: str, request: Request, ws: Workspace = Depends(get_workspace)):
+def dataset_page(dataset_id: str, request: Request, ws: WorkspaceDep):
     return _dataset_page(request, ws, dataset_id)
 
 
-def _groups_from_text(text: str) -> list[str]:
-    return [line.strip() for line in (text or "").splitlines() if line.strip()]
-
-
-def _ordered_from_form(value: str):
-    if not value:
-        return None
-    return True if value == ORDERED_FILE else value
-
-
-ORDERED_FILE = "(file order)"
-
-
 @router.post("/datasets/{dataset_id}/analyses")
-async def start_analysis_form(dataset_id: str, request: Request, ws: Workspace = Depends(get_workspace)):
+async def start_analysis_form(dataset_id: str, request: Request, ws: WorkspaceDep):
     form = await request.form()
     dataset = ws.dataset(dataset_id)
     columns = [str(c) for c in form.getlist("columns")]
-    all_columns = dataset.summary["numeric"]
-    options = {
-        "measures": [str(m) for m in form.getlist("measures")],
-        "columns": None if set(columns) == set(all_columns) else columns,
-        "groups": _groups_from_text(str(form.get("groups", ""))),
-        "missing": str(form.get("missing") or config.DEFAULT_MISSING),
-        "adjust": str(form.get("adjust") or config.DEFAULT_ADJUST),
-        "confidence": str(form.get("confidence") or config.DEFAULT_CONFIDENCE),
-        "permutations": str(form.get("permutations") or 0),
-        "seed": str(form.get("seed") or config.DEFAULT_SEED),
-        "tests": [t for t in str(form.get("tests") or "").replace(",", " ").split() if t],
-        # empty: rows independent; ORDERED_FILE: time order as in the file; else the column to sort by
-        "ordered": _ordered_from_form(str(form.get("ordered") or "")),
-        "difference": form.get("difference") == "yes",
-        "given": [str(c) for c in form.getlist("given") if str(c)],
-    }
-    # per-column kind choices: "" keeps the detected kind (issue 18)
     kinds = {key[len("kind-"):]: str(value) for key, value in form.multi_items()
              if key.startswith("kind-") and str(value) in ("numeric", "categorical")}
-    options["categorical"] = [c for c, k in kinds.items() if k == "categorical"]
-    options["numeric"] = [c for c, k in kinds.items() if k == "numeric"]
-    echo = {"measures": options["measures"], "columns": columns, "groups": str(form.get("groups", "")),
-            "missing": options["missing"], "adjust": options["adjust"], "confidence": options["confidence"],
-            "permutations": options["permutations"], "seed": options["seed"],
+    # what the form shows again when the options are refused
+    echo = {"measures": [str(m) for m in form.getlist("measures")], "columns": columns,
+            "groups": str(form.get("groups", "")),
+            "missing": str(form.get("missing") or config.DEFAULT_MISSING),
+            "adjust": str(form.get("adjust") or config.DEFAULT_ADJUST),
+            "confidence": str(form.get("confidence") or config.DEFAULT_CONFIDENCE),
+            "permutations": str(form.get("permutations") or 0), "seed": str(form.get("seed") or config.DEFAULT_SEED),
             "tests": str(form.get("tests") or ""), "ordered": str(form.get("ordered") or ""),
             "difference": form.get("difference") == "yes", "kinds": kinds,
             "given": [str(c) for c in form.getlist("given")]}
-    if not options["measures"]:
+    if not echo["measures"]:
         return _dataset_page(request, ws, dataset_id, "Choose at least one measure.", 422, echo)
-    if options["columns"] is not None and len(options["columns"]) == 0 and not options["groups"]:
+    try:
+        options = AnalysisRequest.from_form(form, dataset.summary["numeric"])
+    except ValidationError as exc:
+        return _dataset_page(request, ws, dataset_id, validation_message(exc, echo), 422, echo)
+    if options.columns is not None and len(options.columns) == 0 and not options.groups:
         return _dataset_page(request, ws, dataset_id, "Choose at least two columns.", 422, echo)
     try:
-        for key in ("confidence",):
-            options[key] = float(options[key])
-        for key in ("permutations", "seed"):
-            options[key] = int(options[key])
         row = ws.start_analysis(dataset_id, options)
-    except (SettingsError, ValueError) as exc:
+    except SettingsError as exc:
         return _dataset_page(request, ws, dataset_id, " ".join(str(exc).split()), 422, echo)
     return RedirectResponse(f"/analyses/{row.id}", status_code=303)
 
 
 @router.get("/analyses/{analysis_id}", response_class=HTMLResponse)
-def analysis_page(analysis_id: str, request: Request, order: str = "input", diff: str = "",
-                  ws: Workspace = Depends(get_workspace)):
+def analysis_page(analysis_id: str, request: Request, ws: WorkspaceDep, order: str = "input", diff: str = ""):
     row = ws.analysis(analysis_id)
     dataset = ws.dataset(row.dataset_id)
     context = {"analysis": row, "dataset": dataset, "status_json": embed_json(ws.analysis_json(row))}
@@ -186,7 +161,7 @@ def analysis_page(analysis_id: str, request: Request, order: str = "input", diff
 
 
 @router.post("/analyses/{analysis_id}/cancel")
-def cancel_form(analysis_id: str, ws: Workspace = Depends(get_workspace)):
+def cancel_form(analysis_id: str, ws: WorkspaceDep):
     row = ws.analysis(analysis_id)
     if row.status in ("queued", "running"):
         ws.cancel(analysis_id)
@@ -204,13 +179,13 @@ async def _confirmed(request: Request) -> None:
 
 
 @router.post("/analyses/{analysis_id}/rerun")
-def rerun_form(analysis_id: str, ws: Workspace = Depends(get_workspace)):
+def rerun_form(analysis_id: str, ws: WorkspaceDep):
     row = ws.rerun(analysis_id)
     return RedirectResponse(f"/analyses/{row.id}", status_code=303)
 
 
 @router.post("/analyses/{analysis_id}/delete")
-async def delete_analysis_form(analysis_id: str, request: Request, ws: Workspace = Depends(get_workspace)):
+async def delete_analysis_form(analysis_id: str, request: Request, ws: WorkspaceDep):
     await _confirmed(request)
     row = ws.analysis(analysis_id)
     await run_in_threadpool(ws.delete_analysis, analysis_id)
@@ -218,14 +193,14 @@ async def delete_analysis_form(analysis_id: str, request: Request, ws: Workspace
 
 
 @router.post("/datasets/{dataset_id}/delete")
-async def delete_dataset_form(dataset_id: str, request: Request, ws: Workspace = Depends(get_workspace)):
+async def delete_dataset_form(dataset_id: str, request: Request, ws: WorkspaceDep):
     await _confirmed(request)
     await run_in_threadpool(ws.delete_dataset, dataset_id)
     return RedirectResponse("/", status_code=303)
 
 
 @router.get("/analyses/{analysis_id}/pair", response_class=HTMLResponse)
-def pair_page(analysis_id: str, request: Request, x: str, y: str, ws: Workspace = Depends(get_workspace)):
+def pair_page(analysis_id: str, request: Request, x: str, y: str, ws: WorkspaceDep):
     row = ws.analysis(analysis_id)
     dataset = ws.dataset(row.dataset_id)
     table = ws.pair_table(row)
