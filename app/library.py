@@ -463,9 +463,12 @@ class Analysis:
         return target
 
     def top_pairs(self, measure: str | None = None, k: int = _TOP_PAIRS_SHOWN) -> "pd.DataFrame":
-        """The ``k`` pairs with the smallest q-value of ``measure`` (default: dcor if run, else the first),
+        """The ``k`` pairs with the smallest q-value of ``measure`` (default: dcor if run, else the first;
+        :func:`pairlens.core.registry.map_order_measure`),
         one row per pair with every measure's estimate beside its q-value."""
-        measure = measure or ("dcor" if "dcor" in self.measures else self.measures[0])
+        from .core.registry import map_order_measure
+
+        measure = measure or map_order_measure(self.measures)
         rows = self.pairs[self.pairs["measure"] == measure].copy()
         rows["_strength"] = rows["estimate"].abs()
         ranked = rows.sort_values(["q_value", "_strength"], ascending=[True, False], na_position="last").head(k)

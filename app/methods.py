@@ -97,38 +97,16 @@ def measure_methods(measures: Iterable[str] | None = None,
     return out
 
 
-# Measured in tests/test_levels_classic.py (t-test) and tests/test_levels_pearson.py (the default),
-# 10,000 replicates per cell.
-_PEARSON_T_CAUTION = (
-    "Pearson's default p-value approximates the permutation law of r (Pitman 1937) from its exact first "
-    "four moments with a Pearson curve, without resamples (all relabellings are enumerated up to 7 rows; "
-    "small or lumpy samples are split by where their most extreme value lands). It holds its level on "
-    "normal, skewed, heavy-tailed and integer-score margins. The t-test (--test pearson=t, as "
-    "scipy.stats.pearsonr) is exact when at least one of the two variables is normal, but when both are "
-    "skewed or heavy-tailed it rejects too often: in our simulations of independent exponential, t(3) "
-    "and lognormal pairs, 1.2-2.4% of its p-values fell below 0.01.")
-
-
-_BEST_ROBERTS = ("Best, D.J. & Roberts, D.E. (1975). Algorithm AS 89: the upper tail probabilities of "
-                 "Spearman's rho. Applied Statistics 24:377-379. doi:10.2307/2347111")
-
-_SPEARMAN_SMALL_N = (
-    "Spearman's rho is referred to its permutation law: every pairing of the y ranks with the x ranks is "
-    f"equally likely under independence. Up to {config.SPEARMAN_EXACT_MAX_N} rows without ties (and "
-    f"{config.SPEARMAN_TIED_EXACT_MAX_N} with ties) the law is counted exactly; below "
-    f"{config.SPEARMAN_T_MIN_N} rows it is approximated by the Edgeworth series of Best & Roberts (1975, "
-    f"algorithm AS 89) without ties, or by {config.SPEARMAN_SMALL_N_PERMUTATIONS:,} seeded random pairings "
-    f"with ties up to {config.SPEARMAN_TIED_PERMUTATION_MAX_N} rows (beyond that, tied samples use the t "
-    "distribution, whose cost per pair stays small on wide tables); "
-    f"from {config.SPEARMAN_T_MIN_N} rows on, by the t distribution with n - 2 degrees of "
-    "freedom, which there rejects within a few percent of the nominal rate even at the 0.1% level. With few "
-    "rows the t approximation alone would overstate the evidence: three rows in the same (or the "
-    "reverse) rank order occur by chance in two orderings of six, which it reports as p = 0.")
-
 _PERMUTATION_FLOOR = (
     "No p-value is reported below the smallest value a permutation test on the same rows can give (for n "
     "rows without ties, 1/n! or 2/n!). Where an approximation would go lower on a very small sample, the "
     "p-value is raised to that smallest value and the note of the pair says so.")
+
+
+def _pvalue_notes(measures, permutations: int) -> list[str]:
+    """Each measure's own paragraph on its p-value (registry ``pvalue_note``), where it has one."""
+    notes = (get_measure(m).pvalue_note for m in measures)
+    return [text for note in notes if note is not None and (text := note(permutations))]
 
 
 def inference_methods(*, adjust: str = config.DEFAULT_ADJUST, confidence: float = config.DEFAULT_CONFIDENCE,
@@ -140,11 +118,11 @@ def inference_methods(*, adjust: str = config.DEFAULT_ADJUST, confidence: float 
     ``measures`` (default: all) decides measure-specific cautions. ``general`` (the
     dashboard's methods page) describes every choice instead of one analysis's settings.
     """
+    measures = list(MEASURES) if measures is None else list(measures)
     if general:
         return _general_inference(measures)
     adj = ADJUSTMENT_TEXT[adjust]
     level = f"{confidence * 100:g}%"
-    measures = list(MEASURES) if measures is None else list(measures)
     sections = [
         {
             "title": "p-values",
@@ -158,13 +136,13 @@ def inference_methods(*, adjust: str = config.DEFAULT_ADJUST, confidence: float 
                  if permutations else
                  "No permutations were requested, so every p-value comes from the closed-form or "
                  "approximate null distribution named for its measure."),
-                *([_PEARSON_T_CAUTION] if "pearson" in measures and not permutations else []),
-                *([_SPEARMAN_SMALL_N] if "spearman" in measures else []),
+                *_pvalue_notes(measures, permutations),
                 _PERMUTATION_FLOOR,
             ],
             "formula": "p = (1 + k) / (B + 1), k = resamples with a statistic at least the observed one"
                        if permutations else "",
-            "references": ([_PHIPSON] if permutations else []) + ([_BEST_ROBERTS] if "spearman" in measures else []),
+            "references": ([_PHIPSON] if permutations else [])
+                          + [ref for m in measures for ref in get_measure(m).pvalue_references],
         },
         {
             "title": "q-values (many pairs)",
@@ -246,7 +224,7 @@ def _general_inference(measures) -> list[dict]:
         "statistic is recomputed for each shuffle, and the observed value is counted as one of the "
         "resamples so that a p-value is never zero. Without them, every p-value comes from the "
         "closed-form or approximate null distribution named for its measure.",
-        _PEARSON_T_CAUTION,
+        *_pvalue_notes(measures, 0),
     ]
     q = one["q-values (many pairs)"]
     q["paragraphs"] = [

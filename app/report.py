@@ -25,7 +25,7 @@ from markupsafe import Markup
 
 from . import __version__, config, formatting
 from . import figures as plots
-from .core.registry import MEASURES, get_measure
+from .core.registry import MEASURES, get_measure, map_order_measure
 from .formatting import embed_json
 from .ordering import serial_note
 from .methods import methods_content
@@ -51,17 +51,6 @@ FIGURE_DIGITS = 6
 HOVER_DIGITS = 4           # numbers only shown in hover text need fewer digits
 TABLE_DIGITS = 6           # machine-readable values in the pair table (data-v)
 TEMPLATE_NAME = "report.html"
-
-# Contrasts whose largest values point at dependence one of the measures misses.
-_CONTRASTS = (
-    ("dcor", "pearson", "signed",
-     "Distance correlation well above |Pearson r|: dependence that a straight line misses "
-     "(curved, U-shaped or mixed patterns)."),
-    ("spearman", "pearson", "absolute",
-     "|Spearman rho| and |Pearson r| far apart: curvature (ranks stronger) or a few influential "
-     "points (raw values stronger)."),
-)
-
 
 # JSON and number helpers ----------------------------------------------------
 
@@ -200,9 +189,13 @@ def rank_pairs(pt: PairTable, measure: str, top_k: int) -> list[PairRow]:
 
 
 def disagreement_contrasts(measures: Iterable[str]) -> list[tuple[str, str, str, str]]:
-    """The contrasts available for the chosen measures: (a, b, kind, explanation)."""
+    """The contrasts available for the chosen measures (registry ``contrast``): (a, b, kind, explanation)."""
     chosen = set(measures)
-    return [c for c in _CONTRASTS if c[0] in chosen and c[1] in chosen]
+    found = [name for name in MEASURES if name in chosen and get_measure(name).contrast
+             and get_measure(name).contrast[0] in chosen]
+    # dependence a line misses entirely (a dependence measure's map) comes before rank-vs-linear gaps
+    found.sort(key=lambda name: get_measure(name).role != "dependence")
+    return [(name, *get_measure(name).contrast) for name in found]
 
 
 def _contrast_score(a_row: PairRow, b_row: PairRow, kind: str) -> float:
@@ -561,7 +554,7 @@ def build_report(table, pair_table: PairTable, *, command: str, generated_at: da
         generated_at = generated_at.replace(tzinfo=timezone.utc)
     settings = pair_table.settings
 
-    order_measure = "dcor" if "dcor" in pair_table.measures else pair_table.measures[0]
+    order_measure = map_order_measure(pair_table.measures)
     order = plots.cluster_order(pair_table, order_measure)
     # what the report script needs for hover and click on a map; the maps themselves are SVG
     hover: dict = {"variables": [pair_table.variables[i] for i in order], "maps": {}}
