@@ -147,6 +147,25 @@ def _ols(y: np.ndarray, design: np.ndarray) -> tuple[np.ndarray, float, float]:
     return beta, ssr, se0
 
 
+def _nested_ssr(x: np.ndarray, max_lag: int, rows: int) -> np.ndarray:
+    """Residual sums of squares of the ADF regressions with 0..max_lag lags, all on the same rows.
+
+    With the columns ordered level, constant, lag 1, lag 2, ..., the regression with p
+    lags uses the first p + 2 columns, so one QR factorisation of the largest design
+    gives every one: with :math:`Q^T y = c`, :math:`SSR_p = SSR_{max} + \sum_{i \ge p + 2} c_i^2`.
+    One factorisation instead of max_lag + 1 (the lag search dominated the serial check).
+    """
+    y, design = _lagged_design(x, max_lag, rows)
+    nested = design[:, [0, design.shape[1] - 1, *range(1, max_lag + 1)]]
+    q, _ = np.linalg.qr(nested)
+    c = q.T @ y
+    resid = y - q @ c
+    ssr_full = float(resid @ resid)
+    # tail[k] = sum of c_i^2 for i >= k; the regression with p lags leaves out c_{p+2}, ...
+    tail = np.append(np.cumsum((c * c)[::-1])[::-1], 0.0)
+    return ssr_full + tail[2: max_lag + 3]
+
+
 def _mackinnon_p(stat: float) -> float:
     if stat > _TAU_MAX:
         return 1.0
@@ -345,10 +364,8 @@ def adf(x, max_lag: int | None = None, autolag: bool = True) -> AdfResult:
     if autolag and max_lag > 0:
         rows = n - 1 - max_lag
         best = math.inf
-        for p in range(max_lag + 1):
-            y, design = _lagged_design(x, p, rows)
-            _, ssr, _ = _ols(y, design)
-            aic = rows * math.log(ssr / rows) + 2 * design.shape[1]
+        for p, ssr in enumerate(_nested_ssr(x, max_lag, rows)):
+            aic = rows * math.log(ssr / rows) + 2 * (p + 2)
             if aic < best - 1e-12:
                 best, lags = aic, p
     rows = n - 1 - lags
