@@ -656,10 +656,15 @@ def _exact_pvalue(xc: np.ndarray, yc: np.ndarray) -> np.ndarray:
     return np.mean(sb >= (s * (1.0 - 1e-12))[..., None], axis=-1)
 
 
+def _power_sums(v, keepdims: bool = False) -> tuple:
+    """Sums of v, v^2, v^3, v^4 over the last axis, by products (``v ** 3`` calls pow: 7x slower)."""
+    v2 = v * v
+    return tuple(t.sum(axis=-1, keepdims=keepdims) for t in (v, v2, v2 * v, v2 * v2))
+
+
 def _whole_law_pvalue(xc, yc, s):
     n = xc.shape[-1]
-    e2, e3, e4 = permutation_moments(*((xc ** k).sum(axis=-1) for k in (2, 3, 4)),
-                                     *((yc ** k).sum(axis=-1) for k in (2, 3, 4)), n)
+    e2, e3, e4 = permutation_moments(*_power_sums(xc)[1:], *_power_sums(yc)[1:], n)
     return _two_tails(s, e2, e3, e4)
 
 
@@ -722,8 +727,8 @@ def _split_law_pvalue(xc, yc, s, grouped=True):
     x_top = np.take_along_axis(xc, top, axis=-1)                    # (..., 1)
     vals, weight = _partner_groups(yc, grouped)
     # S = x_top y_j + (n-1) mean(x rest) mean(y rest) + T_j, T_j a centred permutation sum of n-1 pairs
-    px = [(xc ** k).sum(-1, keepdims=True) - x_top ** k for k in (1, 2, 3, 4)]
-    py = [(yc ** k).sum(-1, keepdims=True) - vals ** k for k in (1, 2, 3, 4)]
+    px = [total - x_top ** k for k, total in zip((1, 2, 3, 4), _power_sums(xc, keepdims=True))]
+    py = [total - vals ** k for k, total in zip((1, 2, 3, 4), _power_sums(yc, keepdims=True))]
     tails = _rest_tails(s[..., None], x_top * vals, px, py, n - 1.0)
     return (tails * weight).sum(axis=-1) / n
 
