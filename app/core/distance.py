@@ -1018,32 +1018,25 @@ def _third_moment_coefficients():
     parts = [tuple(tuple(sorted(b)) for b in p) for p in _set_partitions(list(range(6)))]
     # Each coarse pattern as the block label of every slot, and its sum, computed once:
     # a fine pattern refines it when every fine block lies in one labelled block.
-    labels = []
-    for p in parts:
-        lab = [0] * 6
+    labels = np.zeros((len(parts), 6), np.int64)
+    for c, p in enumerate(parts):
         for b, members in enumerate(p):
-            for slot in members:
-                lab[slot] = b
-        labels.append(lab)
+            labels[c, list(members)] = b
     quantity = [_quantity_of(p) for p in parts]
+    nonzero = np.array([q is not None for q in quantity])
+    q_index = np.array([-1 if q is None else q for q in quantity])
+    # Moebius weight of k fine blocks merged into one coarse block: (-1)^(k-1) (k-1)!
+    weight = np.array([1] + [(-1) ** (k - 1) * math.factorial(k - 1) for k in range(1, 7)], np.int64)
     coef = np.zeros((7, 8, 8))
     for fine in parts:
-        vec = np.zeros(8)
-        for coarse, lab, q in zip(parts, labels, quantity):
-            inside = [0] * len(coarse)       # fine blocks in each coarse block
-            refines = True
-            for b in fine:
-                first = lab[b[0]]
-                if any(lab[slot] != first for slot in b[1:]):
-                    refines = False
-                    break
-                inside[first] += 1
-            if not refines or q is None:
-                continue
-            mu = 1
-            for k in inside:
-                mu *= (-1) ** (k - 1) * math.factorial(k - 1)
-            vec[q] += mu
+        firsts = labels[:, [b[0] for b in fine]]            # coarse label of each fine block
+        refines = nonzero.copy()
+        for b, first in zip(fine, firsts.T):
+            refines &= np.all(labels[:, list(b)] == first[:, None], axis=1)
+        inside = (firsts[:, :, None] == np.arange(6)).sum(axis=1)   # fine blocks per coarse block
+        mu = weight[inside].prod(axis=1)
+        # integer sums (exact in float64), so the matrix is the one the pattern-by-pattern loop gives
+        vec = np.bincount(q_index[refines], weights=mu[refines], minlength=8).astype(float)
         coef[len(fine)] += np.outer(vec, vec)
     return coef
 
