@@ -141,7 +141,9 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
         # Sorted once here; forked workers share the orders copy-on-write, and the
         # kernels they call are already loaded. Remote workers sort for themselves.
         prepared = prepare_columns(data, variables, row_mask)
-        warm_kernels(settings)
+        if isinstance(executor, ProcessExecutor):
+            # in this process each kernel loads on first use: a small job loads only those it calls
+            warm_kernels(settings)
     frozen = isinstance(executor, ProcessExecutor) and gc.isenabled()
     if frozen:
         # Objects that exist before the fork are never collected in the workers, so

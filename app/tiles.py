@@ -131,6 +131,9 @@ def fast_pair_rows(prep: "allpairs.PreparedColumns", xvar: Variable, yvar: Varia
 
 def warm_kernels(settings: AnalysisSettings) -> None:
     """Load every compiled kernel the chosen measures use, on a tiny pair, before forking."""
+    from .core import jit
+
+    jit.compile_all()  # else the tiny pair would run as Python and each worker would load numba for itself
     rng = np.random.default_rng(0)
     tiny = np.column_stack([rng.normal(size=24), np.round(rng.normal(size=24))])
     tiny[3, 0] = np.nan

@@ -17,9 +17,9 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-import numba
 import numpy as np
 
+from .jit import kernel
 from .rank import exact_score_sums
 
 __all__ = ["PreparedColumns", "prepare_columns", "PairView", "pair_view", "spearman_sums",
@@ -29,7 +29,7 @@ __all__ = ["PreparedColumns", "prepare_columns", "PairView", "pair_view", "spear
 
 # --- compiled kernels ---------------------------------------------------------------
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _pair_view(xcol, ycol, xorder, xcount, yorder, ycount, xpresent, ypresent):
     """Complete rows of a pair in row order and both stable orders, by filtering."""
     n_rows = xcol.shape[0]
@@ -67,7 +67,7 @@ def _pair_view(xcol, ycol, xorder, xcount, yorder, ycount, xpresent, ypresent):
     return xp, yp, ox, oy
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _centred_midranks(values, order):
     """Mid-ranks minus (n + 1)/2, by row, from a stable ascending order."""
     n = values.shape[0]
@@ -83,7 +83,7 @@ def _centred_midranks(values, order):
     return out
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _spearman_sums(xp, ox, yp, oy):
     """Exact integer sums of the scores 2 r (r the centred mid-ranks) as high and low parts.
 
@@ -107,7 +107,7 @@ def _rank_sums_as_floats(hi: np.ndarray, lo: np.ndarray) -> tuple[float, float, 
     return tuple((int(h) * 2**32 + int(l)) / 4 for h, l in zip(hi, lo))
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _lex_order(xp, ox, oy):
     """Rows by x, and by y within tied x: each row of the y order dropped into its x run."""
     n = xp.shape[0]
@@ -129,7 +129,7 @@ def _lex_order(xp, ox, oy):
     return seq
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _run_sums(values, order):
     """Tied pairs, sum t(t-1)(t-2), sum t(t-1)(2t+5) over runs, and the dense rank by row."""
     n = order.shape[0]
@@ -154,7 +154,7 @@ def _run_sums(values, order):
     return pairs, t3, t5, dense, level
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _kendall_counts(xp, ox, yp, oy):
     """Knight's counts from the two orders: rows in (x, y) order, then the
     discordant pairs as inversions of the dense y ranks, counted with a
@@ -192,7 +192,7 @@ def _kendall_counts(xp, ox, yp, oy):
     return discordant, tied_x, tied_y, tied_xy, x_t3, x_t5, y_t3, y_t5
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _distance_orders(xp, xc, ox, yp, yc, oy):
     """(argsort(xc), argsort(yc[argsort(xc)])), both stable, from the orders of x and y.
 
@@ -232,7 +232,7 @@ def _distance_orders(xp, xc, ox, yp, yc, oy):
     return order, y_order, merged
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _kendall_ties(xp, ox, yp, oy):
     """Knight's counts without the discordant pairs (returned as -1): the tie sums of
     each side, and the pairs tied on both, counted per run of x with a tally of y ranks."""
@@ -256,7 +256,7 @@ def _kendall_ties(xp, ox, yp, oy):
     return -1, tied_x, tied_y, tied_xy, x_t3, x_t5, y_t3, y_t5
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _has_ties(values, order):
     for k in range(1, order.shape[0]):
         if values[order[k]] == values[order[k - 1]]:
@@ -264,7 +264,7 @@ def _has_ties(values, order):
     return False
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _order_ties_by_key(values, order, keys):
     """Within each run of tied values, rows by increasing key (by row among equal keys)."""
     n = order.shape[0]
@@ -282,7 +282,7 @@ def _order_ties_by_key(values, order, keys):
     return out
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _rank_counts(values, order):
     """r_i = #{j: v_j <= v_i}, l_i = #{j: v_j >= v_i} by row, from a sorted order."""
     n = order.shape[0]
@@ -298,7 +298,7 @@ def _rank_counts(values, order):
     return r, l
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _pair_work(xcol, ycol, xorder, xcount, yorder, ycount, xpresent, ypresent, min_rows,
                want_spearman, want_kendall, want_distance):
     """Everything compiled one regular pair needs, in one call (fewer transitions per pair).

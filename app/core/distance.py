@@ -20,10 +20,10 @@ import functools
 import math
 from typing import Callable, NamedTuple
 
-import numba
 import numpy as np
 from scipy import special as _special
 
+from .jit import kernel
 from .. import config
 from .results import TestResult, undefined
 
@@ -54,7 +54,7 @@ _CUBE_EXACT_ROWS = 1000
 # compiled kernels
 # --------------------------------------------------------------------------
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _row_sums_sorted(xs):
     """Row sums a_k = sum_j |x_k - x_j| for ascending xs: (2k - n) x_k + T - 2 P_k."""
     n = xs.shape[0]
@@ -69,7 +69,7 @@ def _row_sums_sorted(xs):
     return out
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _gap_traces(xs):
     """tr(M), tr(M^2), tr(M^3) of M = -A/n for ascending 1-D xs, in O(n).
 
@@ -112,7 +112,7 @@ def _gap_traces(xs):
     return t1, t2, t3
 
 
-@numba.njit(cache=True, nogil=True, inline="always")
+@kernel(cache=True, nogil=True, inline="always", python_max_n=64)
 def _tree_add(tree, position, x, y):
     """Add the weights 1, x, y, xy at 0-based y position ``position`` of the Fenwick tree."""
     n = tree.shape[0] - 1
@@ -126,7 +126,7 @@ def _tree_add(tree, position, x, y):
         i += i & (-i)
 
 
-@numba.njit(cache=True, nogil=True, inline="always")
+@kernel(cache=True, nogil=True, inline="always", python_max_n=64)
 def _tree_below(tree, position):
     """Sums of the weights 1, x, y, xy over the y positions below ``position``."""
     c_lo = 0.0
@@ -143,7 +143,7 @@ def _tree_below(tree, position):
     return c_lo, x_lo, y_lo, xy_lo
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _cross_sum(xv, yv, yr):
     """sum_{i,j} |x_i - x_j| |y_i - y_j| in O(n log n), for resamples.
 
@@ -170,7 +170,7 @@ def _cross_sum(xv, yv, yr):
     return 2.0 * half
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _cross_sum_discordant(xv, yv, yr):
     """sum_{i,j} |x_i - x_j| |y_i - y_j| in O(n log n), and the discordant pairs.
 
@@ -213,7 +213,7 @@ def _cross_sum_discordant(xv, yv, yr):
     return 2.0 * half, int(discordant)
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _fisher_yates(uniforms, perm):
     """Fill perm with the permutation that the uniforms (length n - 1) encode."""
     n = perm.shape[0]
@@ -228,7 +228,7 @@ def _fisher_yates(uniforms, perm):
         perm[j] = tmp
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _permuted_sums_1d(xv, arow, order, y, yr, brow, uniforms):
     """(S1, S2) for each resample: y permuted against the fixed x order.
 
@@ -257,7 +257,7 @@ def _permuted_sums_1d(xv, arow, order, y, yr, brow, uniforms):
     return s1, s2
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _euclid(z, i, j):
     d = 0.0
     for c in range(z.shape[1]):
@@ -266,7 +266,7 @@ def _euclid(z, i, j):
     return math.sqrt(d)
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _group_sums(x, y):
     """One pass over i < j: row sums, sum a_ij b_ij, sum a_ij^2, sum b_ij^2.
 
@@ -303,7 +303,7 @@ def _group_sums(x, y):
     return arow, brow, 2.0 * s_ab, 2.0 * s_aa, 2.0 * s_bb
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _distance_matrix(z):
     n = z.shape[0]
     out = np.zeros((n, n))
@@ -315,7 +315,7 @@ def _distance_matrix(z):
     return out
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _permuted_sums_group_matrix(amat, arow, bmat, brow, uniforms):
     n_resamples = uniforms.shape[0]
     n = amat.shape[0]
@@ -338,7 +338,7 @@ def _permuted_sums_group_matrix(amat, arow, bmat, brow, uniforms):
     return s1, s2
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _permuted_sums_group_direct(x, arow, y, brow, uniforms):
     n_resamples = uniforms.shape[0]
     n = x.shape[0]
@@ -361,7 +361,7 @@ def _permuted_sums_group_direct(x, arow, y, brow, uniforms):
     return s1, s2
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _weighted_row_sums_sorted(xs, w):
     """sum_v |x_u - x_v| w_v for every u, xs ascending, in O(n)."""
     n = xs.shape[0]
@@ -382,7 +382,7 @@ def _weighted_row_sums_sorted(xs, w):
     return out
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _third_quantities_1d(xs, arow):
     """The eight sums of the double-centred A that fix E[T^3] (see _third_moment).
 
@@ -452,7 +452,7 @@ def _third_quantities_1d(xs, arow):
     return t, dd, ddd, q4, tr3, q6, q7
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _third_quantities_1d_fused(xs, arow):
     """_third_quantities_1d in three passes instead of ten, bit for bit.
 
@@ -556,7 +556,7 @@ def _third_quantities_1d_fused(xs, arow):
     return t, dd, ddd, q4, tr3, q6, q7
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _sorted_kernels(xc, yc, order, y_order):
     """The compiled steps of the fast path in one call: gathers, row sums, cross sum, third sums.
 
@@ -587,7 +587,7 @@ def _sorted_kernels(xc, yc, order, y_order):
     return xv, yv, yr, arow, brow_sorted, brow, s1, parts_x, parts_y, discordant
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _third_pass_group(z, arow):
     """Same sums as _third_quantities_1d for Euclidean distances, one O(n^2 d) pass."""
     n = z.shape[0]
@@ -1018,32 +1018,25 @@ def _third_moment_coefficients():
     parts = [tuple(tuple(sorted(b)) for b in p) for p in _set_partitions(list(range(6)))]
     # Each coarse pattern as the block label of every slot, and its sum, computed once:
     # a fine pattern refines it when every fine block lies in one labelled block.
-    labels = []
-    for p in parts:
-        lab = [0] * 6
+    labels = np.zeros((len(parts), 6), np.int64)
+    for c, p in enumerate(parts):
         for b, members in enumerate(p):
-            for slot in members:
-                lab[slot] = b
-        labels.append(lab)
+            labels[c, list(members)] = b
     quantity = [_quantity_of(p) for p in parts]
+    nonzero = np.array([q is not None for q in quantity])
+    q_index = np.array([-1 if q is None else q for q in quantity])
+    # Moebius weight of k fine blocks merged into one coarse block: (-1)^(k-1) (k-1)!
+    weight = np.array([1] + [(-1) ** (k - 1) * math.factorial(k - 1) for k in range(1, 7)], np.int64)
     coef = np.zeros((7, 8, 8))
     for fine in parts:
-        vec = np.zeros(8)
-        for coarse, lab, q in zip(parts, labels, quantity):
-            inside = [0] * len(coarse)       # fine blocks in each coarse block
-            refines = True
-            for b in fine:
-                first = lab[b[0]]
-                if any(lab[slot] != first for slot in b[1:]):
-                    refines = False
-                    break
-                inside[first] += 1
-            if not refines or q is None:
-                continue
-            mu = 1
-            for k in inside:
-                mu *= (-1) ** (k - 1) * math.factorial(k - 1)
-            vec[q] += mu
+        firsts = labels[:, [b[0] for b in fine]]            # coarse label of each fine block
+        refines = nonzero.copy()
+        for b, first in zip(fine, firsts.T):
+            refines &= np.all(labels[:, list(b)] == first[:, None], axis=1)
+        inside = (firsts[:, :, None] == np.arange(6)).sum(axis=1)   # fine blocks per coarse block
+        mu = weight[inside].prod(axis=1)
+        # integer sums (exact in float64), so the matrix is the one the pattern-by-pattern loop gives
+        vec = np.bincount(q_index[refines], weights=mu[refines], minlength=8).astype(float)
         coef[len(fine)] += np.outer(vec, vec)
     return coef
 

@@ -7,10 +7,10 @@ import itertools
 import math
 from functools import lru_cache
 
-import numba
 import numpy as np
 from scipy import special
 
+from .jit import kernel
 from ..config import (MIN_ROWS, PEARSON_EXACT_MAX_N, PEARSON_SPLIT2_GROUPS, PEARSON_SPLIT2_SHARE,
                       PEARSON_SPLIT_GROUPS, PEARSON_SPLIT_MAX_N, PEARSON_SPLIT_SHARE)
 from .results import TestResult, undefined
@@ -33,7 +33,7 @@ _METHOD_LABELS = {"moments": "permutation law from exact moments (Pearson curve)
 _ILL_CONDITIONED = 1e-8
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _mean(v):
     # blocks of 256 summed apart, then the block sums (see _r_kernel)
     n = v.shape[0]
@@ -46,7 +46,7 @@ def _mean(v):
     return total / n
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _centred_scaled(v):
     """v minus its mean (two passes: the second removes the first mean's rounding), divided by its
     largest magnitude so that squares can neither overflow nor underflow; (values, peak)."""
@@ -68,7 +68,7 @@ def _centred_scaled(v):
     return out, peak
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _r_kernel(x, y):
     """r of complete arrays with spread, in four passes; NaN when a side has none after centring."""
     cx, px = _centred_scaled(x)
@@ -369,7 +369,7 @@ _FPMIN = 1e-300
 _EPS = 1e-15
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True)
 def _beta_cf(a, b, x):
     # continued fraction of the incomplete beta function (modified Lentz; Press et al. 2007, 6.4)
     qab, qap, qam = a + b, a + 1.0, a - 1.0
@@ -405,7 +405,7 @@ def _beta_cf(a, b, x):
     return h
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True)
 def _beta_sf(a, b, x):
     """1 - I_x(a, b), the smaller side computed directly so that tiny tails keep their digits."""
     if x <= 0.0:
@@ -419,7 +419,7 @@ def _beta_sf(a, b, x):
     return front * _beta_cf(b, a, 1.0 - x) / b
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True)
 def _gamma_p(a, x):
     """Regularised lower incomplete gamma P(a, x) (series below a + 1, continued fraction above)."""
     if x <= 0.0:
@@ -457,12 +457,12 @@ def _gamma_p(a, x):
     return 1.0 - math.exp(log_front) * h
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True)
 def _normal_sf(z):
     return 0.5 * math.erfc(z / math.sqrt(2.0))
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True)
 def _type_iii_sf(z, g):
     """Standardised gamma (Pearson type III) with skewness g: G ~ Gamma(4/g^2), Z = sign(g)(G - a)/sqrt(a)."""
     if abs(g) < 1e-8:
@@ -477,7 +477,7 @@ def _type_iii_sf(z, g):
     return 1.0 - lower if g > 0 else lower
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True)
 def _log_abs_gamma(x, y):
     """Re log Gamma(x + iy) for x > 0: shifted up, then Stirling's series."""
     z = complex(x, y)
@@ -492,7 +492,7 @@ def _log_abs_gamma(x, y):
     return series.real - shift
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True)
 def _type_iv_sf(z, r, nu, a, lam, nodes, weights):
     """P(Z >= z), density ~ (1 + u^2)^-m exp(-nu atan u), u = (z - lam)/a, m = 1 + r/2; after
     theta = atan u the tail is one smooth integral, by Gauss-Legendre over its live range."""
@@ -521,7 +521,7 @@ def _type_iv_sf(z, r, nu, a, lam, nodes, weights):
     return tail if theta0 >= mode else 1.0 - tail
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True)
 def _curve_sf(z, g, k, nodes, weights):
     b1 = g * g
     k = max(k, b1 + 1.0 + 1e-9)   # no law lies below beta2 = beta1 + 1
@@ -547,7 +547,7 @@ def _curve_sf(z, g, k, nodes, weights):
     return _type_iii_sf(z, g)
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True)
 def _curve_sf_many(z, g, k, nodes, weights):
     out = np.empty(z.shape[0])
     for i in range(z.shape[0]):

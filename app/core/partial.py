@@ -15,7 +15,6 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import stats
 
 from .rank import midranks
 from .results import TestResult, undefined
@@ -123,6 +122,8 @@ def _correlate(ex: np.ndarray, ey: np.ndarray, n: int, k: int, confidence: float
     if abs(r) >= 1.0:
         p = 0.0
     else:
+        from scipy import stats  # about half a second to import: only a run with --given pays it
+
         t = r * math.sqrt(df / (1.0 - r * r))
         p = float(2.0 * stats.t.sf(abs(t), df))
     lo, hi = fisher_z_interval(r, 1.0 / math.sqrt(n - 3 - k), confidence)

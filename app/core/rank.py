@@ -6,10 +6,10 @@ import math
 from functools import lru_cache
 from typing import NamedTuple
 
-import numba
 import numpy as np
 from scipy import special
 
+from .jit import kernel
 from .. import config
 from ..config import KENDALL_EXACT_MAX_N
 from .linear import correlation_t_pvalue, pearson_matrix, screen_pair
@@ -40,7 +40,7 @@ _FHP_VARIANCE = 0.437
 
 # --- private compiled kernels ---------------------------------------------------------
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _tie_runs(sorted_values):
     """Pairs tied, sum t(t-1)(t-2) and sum t(t-1)(2t+5) over runs of a sorted array."""
     n = sorted_values.shape[0]
@@ -60,7 +60,7 @@ def _tie_runs(sorted_values):
     return pairs, t3, t5
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _merge_sort_inversions(values):
     """Sort ``values`` in place (bottom-up merge sort); return the count of strict inversions."""
     n = values.shape[0]
@@ -103,7 +103,7 @@ def _merge_sort_inversions(values):
     return inversions
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=6)
 def _assignment_counts(a, b, top):
     """counts[t] = #{permutations p : sum_i a[i] * b[p[i]] = t}, for non-negative integers a, b.
 
@@ -139,7 +139,7 @@ def _assignment_counts(a, b, top):
     return dp[full - 1].copy()
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def exact_score_sums(x_scores, y_scores):
     """Exact sums of products of integer rank scores, split in high and low 32-bit parts.
 
@@ -358,7 +358,7 @@ class KendallCounts(NamedTuple):
         return self.concordant - self.discordant
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True, python_max_n=64)
 def knight_counts(x_sorted, y_by_x):
     """Knight's O(n log n) pair counts from rows already sorted by x.
 

@@ -23,10 +23,10 @@ import math
 from dataclasses import dataclass, field
 from functools import lru_cache
 
-import numba
 import numpy as np
 from scipy import special
 
+from .jit import kernel
 from .. import config
 from . import linear, rank
 
@@ -55,7 +55,7 @@ class _Labels:
         return self._index[text]
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True)
 def _joint_log_mult(dense, levels, pi, pj):
     """sum log(m!) over the groups of equal (x, y) rows of each listed pair (dense integer codes)."""
     out = np.zeros(pi.shape[0])
@@ -286,7 +286,7 @@ def _permutation_floor(cols, xi, yj, n, logm, dense, levels, p):
     return floor
 
 
-@numba.njit(cache=True, nogil=True)
+@kernel(cache=True, nogil=True)
 def _masked_extremes(values, orders, counts, present, pi, pj):
     """Largest and smallest value of column pi[k] over the rows where column pj[k] is present.
 
