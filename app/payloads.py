@@ -8,8 +8,6 @@ from :mod:`pairlens.figures`, the builders the report uses too.
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 
 from . import config
@@ -88,15 +86,15 @@ def pair_rows_payload(table: PairTable, labels: dict) -> dict:
     qv[slot, col] = np.fromiter((r.q_value for r in rows_), dtype=float, count=len(rows_))
     np.maximum.at(nn, slot, np.fromiter((int(r.n) for r in rows_), dtype=np.int64, count=len(rows_)))
     used = np.unique(slot)                             # sorted: input order of (x, y)
-    est_l = np.where(np.isfinite(est[used]), est[used], np.nan).tolist()
-    q_l = qv[used].tolist()
     names = table.variables
-    rows = []
-    for t, s_ in enumerate(used.tolist()):
-        a, b = names[s_ // nvar], names[s_ % nvar]
-        e = [None if v != v or v in (math.inf, -math.inf) else v for v in est_l[t]]
-        q = [None if v != v or v in (math.inf, -math.inf) else v for v in q_l[t]]
-        rows.append([a, b, int(nn[s_]), e, q, labels.get(pair_key(a, b))])
+    # NaN and infinities become None (JSON null) in one masked pass per array, not per value
+    values = []
+    for arr in (est[used], qv[used]):
+        obj = arr.astype(object)
+        obj[~np.isfinite(arr)] = None
+        values.append(obj.tolist())
+    rows = [[names[a], names[b], n, e, q, labels.get(pair_key(names[a], names[b]))]
+            for a, b, n, e, q in zip((used // nvar).tolist(), (used % nvar).tolist(), nn[used].tolist(), *values)]
     body = {"columns": columns, "rows": rows, "alpha": config.SIGNIFICANCE_LEVEL}
     return {"columns": columns, "n_rows": len(rows), "embedded": embed_json(body)}
 

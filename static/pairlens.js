@@ -132,7 +132,9 @@
           phaseWrap.hidden = !s.phase;
           left.textContent = s.status === "queued" ? "waiting to start" : seconds(s.seconds_left);
           if (s.status === "queued" || s.status === "running") {
-            window.setTimeout(poll, s.progress >= 0.99 ? 250 : 500);
+            // Once every pair is computed only the q-values, figures and saving are left (about a
+            // second for the demo): this interval is what the user waits for between "done" and the maps.
+            window.setTimeout(poll, s.progress >= 0.99 ? 80 : 500);
           } else if (!leaving) {
             leaving = true;
             window.location.reload();
