@@ -18,7 +18,7 @@ from .errors import SettingsError
 from .pairtable import PairRow
 from .plan import AnalysisSettings
 
-__all__ = ["time_order", "serial_check", "serial_note", "mark_trending"]
+__all__ = ["time_order", "serial_check", "serial_note", "mark_trending", "trending_sides"]
 
 
 def time_order(data: np.ndarray, names: Sequence[str], settings: AnalysisSettings
@@ -78,6 +78,11 @@ def mark_trending(rows: list[PairRow], check: "serial_mod.SerialCheck") -> None:
         sides = [v for v in (r.x, r.y) if v in trending]
         if sides and r.p_value == r.p_value:
             r.p_value = math.nan
-            r.note = "; ".join(filter(None, [r.note, f"{' and '.join(sides)} trend{'s' if len(sides) == 1 else ''} "
-                                                     "(augmented Dickey-Fuller): levels of trending series "
-                                                     "correlate by chance; analyse differences (--difference)"]))
+            r.note = "; ".join(filter(None, [r.note, serial_mod.trending_reason(sides)]))
+
+
+def trending_sides(x: str, y: str, check: "serial_mod.SerialCheck | None") -> tuple[str, ...]:
+    """The sides of the pair (x, y) that the serial check of an ordered analysis found trending; the
+    verdict calls such a pair "not tested (trending)"."""
+    trending = set(check.trending) if check is not None else set()
+    return tuple(v for v in (x, y) if v in trending)

@@ -271,3 +271,67 @@ def test_series_figure_of_an_ordered_pair():
     assert fig["xcorr"]["data"][0]["x"] == list(range(-5, 6))
     plain = pair_detail(data, names, "a", "b", AnalysisSettings.from_options(measures="pearson"), include_points=True)
     assert plots.series_figure(plain) is None
+
+
+# A trending pair gets no verdict on levels, in every face ---------------------------
+# Project contract (issue 21): levels of trending series correlate by chance (Yule 1926; Granger &
+# Newbold 1974), so neither "dependent" nor "no evidence of dependence" may be said of them.
+
+NOT_TESTED = "not tested (trending)"
+
+
+def test_trending_pairs_are_labelled_not_tested_in_the_pair_table():
+    data, names = _table()
+    ordered = run_analysis(data, names, AnalysisSettings.from_options(ordered="week"), workers=1, verdicts=True)
+    assert ordered.serial.trending == ["walk"]
+    for (x, y), label in ordered.verdicts.items():
+        assert (label == NOT_TESTED) == ("walk" in (x, y)), (x, y, label)
+    assert ordered.verdicts[("a", "b")] == "linear"
+    # on differences nothing trends and the pair is judged again
+    diffed = run_analysis(data, names, AnalysisSettings.from_options(ordered="week", difference=True), workers=1,
+                          verdicts=True)
+    assert NOT_TESTED not in diffed.verdicts.values()
+
+
+def test_trending_pair_view_cli_library_and_report_say_not_tested(tmp_path):
+    import contextlib
+    import io
+    import json
+
+    import pandas as pd
+
+    from pairlens import analyze, cli
+
+    data, names = _table()
+    settings = AnalysisSettings.from_options(measures=list(MEASURES), ordered="week")
+    # the pair view's detail (the web pair page and the report cards read the same function)
+    d = pair_detail(data, names, "a", "walk", settings)
+    assert d["pattern"]["label"] == NOT_TESTED and "--difference" in d["pattern"]["reasons"][0]
+    assert pair_detail(data, names, "a", "b", settings)["pattern"]["label"] == "linear"
+    # the same detail read through a computed table (q-values from the analysis)
+    table = run_analysis(data, names, settings, workers=1)
+    assert pair_detail(data, names, "walk", "c", settings, table)["pattern"]["label"] == NOT_TESTED
+    # inspect --json and its text form
+    path = tmp_path / "weekly.csv"
+    pd.DataFrame(data, columns=names).to_csv(path, index=False)
+    out = io.StringIO()
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(io.StringIO()):
+        assert cli.main(["inspect", str(path), "--x", "a", "--y", "walk", "--ordered", "week", "--json"]) == 0
+    assert json.loads(out.getvalue())["pattern"]["label"] == NOT_TESTED
+    out = io.StringIO()
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(io.StringIO()):
+        assert cli.main(["inspect", str(path), "--x", "a", "--y", "walk", "--ordered", "week"]) == 0
+    assert f"Verdict: {NOT_TESTED}" in out.getvalue() and "no evidence" not in out.getvalue()
+    # the library and its report (every pair of four columns is among the report's strongest)
+    analysis = analyze(pd.DataFrame(data, columns=names), measures="pearson,dcor", ordered="week", workers=1,
+                       progress=False)
+    assert analysis.inspect("walk", "b").verdict == NOT_TESTED
+    html = analysis.report(tmp_path / "r.html").read_text()
+    assert html.count(f"<span class=\"muted\">Verdict</span> {NOT_TESTED}") >= 1
+    verdicts = {}  # each pair card's title (its h3) and its verdict label
+    for card in html.split('<header class="card-head">')[1:]:
+        if "Verdict</span>" in card:
+            title = card.split("<h3>", 1)[1].split("</h3>", 1)[0]
+            verdicts[title] = card.split('<span class="muted">Verdict</span> ', 1)[1].split("<", 1)[0]
+    assert {label == NOT_TESTED for label in verdicts.values()} == {True, False}, verdicts
+    assert all((label == NOT_TESTED) == ("walk" in title) for title, label in verdicts.items()), verdicts

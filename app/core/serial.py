@@ -28,7 +28,7 @@ from .testing import fisher_z_interval
 
 __all__ = ["AdfResult", "ColumnSerial", "autocorrelation", "ljung_box", "adf", "block_length", "effective_n",
            "cross_correlation", "column_serial", "serial_check", "SerialCheck", "ess_test",
-           "block_permutation_test", "ESS_KINDS"]
+           "block_permutation_test", "ESS_KINDS", "trending_reason"]
 
 # MacKinnon (1994) response surface of the ADF statistic's distribution with a constant
 # (one series): the range it covers, the switch point and the polynomial coefficients
@@ -598,6 +598,21 @@ def serial_check(data: np.ndarray, names: list[str], level: float = 0.01, share:
     trending = [nm for nm, c in zip(names, cols) if c.trending]
     warn = len(dependent) >= max(2, math.ceil(share * len(names)))
     return SerialCheck(list(names), cols, dependent, trending, warn)
+
+
+def trending_reason(sides) -> str:
+    """Why a pair with trending sides (named in ``sides``) gets no p-value and no verdict on its levels.
+
+    The pair table's note and the verdict's reason say the same sentence.
+
+    Examples
+    --------
+    >>> trending_reason(["stock"])
+    'stock trends (augmented Dickey-Fuller): levels of trending series correlate by chance; analyse differences (--difference)'
+    """
+    sides = list(sides)
+    return (f"{' and '.join(sides)} trend{'s' if len(sides) == 1 else ''} (augmented Dickey-Fuller): levels of "
+            "trending series correlate by chance; analyse differences (--difference)")
 
 
 def ess_test(x: np.ndarray, y: np.ndarray, kind: str, base: TestResult, confidence: float = 0.95,
