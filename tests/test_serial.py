@@ -219,7 +219,7 @@ def test_ordered_settings_round_trip_and_refuse_unknown_columns():
     assert AnalysisSettings.from_dict(s.to_dict()) == s
     assert s.cli_arguments()[-3:] == ["--difference", "--ordered", "week"]
     data, names = _table()
-    with pytest.raises(SettingsError, match="no numeric column"):
+    with pytest.raises(SettingsError, match="no numeric or date/time column"):
         run_analysis(data, names, AnalysisSettings.from_options(ordered="day"), workers=1)
 
 
