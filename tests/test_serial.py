@@ -335,3 +335,30 @@ def test_trending_pair_view_cli_library_and_report_say_not_tested(tmp_path):
             verdicts[title] = card.split('<span class="muted">Verdict</span> ', 1)[1].split("<", 1)[0]
     assert {label == NOT_TESTED for label in verdicts.values()} == {True, False}, verdicts
     assert all((label == NOT_TESTED) == ("walk" in title) for title, label in verdicts.items()), verdicts
+
+
+# Kendall's tau-b under --ordered with ties -----------------------------------------
+
+def test_kendall_effective_rows_test_with_ties_matches_scipy_scaled_by_n_over_n_star():
+    from statsmodels.tsa.stattools import acf
+
+    rng = np.random.default_rng(SEED + 3)
+    n = 240
+    # AR(1) series rounded to few levels: many ties in both columns
+    x, y = np.round(_ar1(rng, 0.6, (2,), n) * 1.5)
+    base = MEASURES["kendall"].compute(x, y, PairContext())
+    res = serial.ess_test(x, y, "kendall", base)
+    # source: scipy.stats.kendalltau, tau-b with its tie-corrected asymptotic variance (Kendall 1970)
+    ref = stats.kendalltau(x, y, method="asymptotic")
+    z_indep = stats.norm.isf(ref.pvalue / 2)
+    # n* from the mid-ranks' autocorrelations (source: scipy.stats.rankdata, statsmodels acf) and
+    # the Bartlett (1935) sum to n/5 lags
+    k = n // 5
+    ax, ay = (acf(stats.rankdata(v), nlags=k, fft=False) for v in (x, y))
+    lags = np.arange(1, k + 1)
+    s = np.sum((n - lags) / n * ax[1:] * ay[1:])
+    n_star = min(n, n / (1 + 2 * s))
+    assert n_star < 0.8 * n                               # the correction does something here
+    expected = 2 * stats.norm.sf(z_indep * math.sqrt(n_star / n))
+    assert res.p_value == pytest.approx(expected, rel=1e-9)
+    assert len(np.unique(x)) < 15 and len(np.unique(y)) < 15
