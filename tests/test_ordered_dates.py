@@ -106,3 +106,21 @@ def test_refusals_name_the_problem(tmp_path):
     with contextlib.redirect_stderr(err):
         assert cli.main(["pairs", str(path), "-o", str(tmp_path / "o.csv"), "--ordered", "label"]) != 0
     assert "no numeric or date/time column" in err.getvalue()
+
+
+def test_the_api_refuses_a_date_column_with_the_way_out(tmp_path):
+    from fastapi.testclient import TestClient
+
+    from live_server import WAIT_SECONDS, wait_for_analysis
+    from pairlens.config import ServerSettings
+    from pairlens.web.app import create_app
+
+    df = _frame()
+    content = df.assign(when=df["when"].dt.strftime("%Y-%m-%d")).to_csv(index=False).encode()
+    with TestClient(create_app(ServerSettings(data_dir=tmp_path))) as client:
+        dataset = client.post("/api/datasets", files={"file": ("log.csv", content, "text/csv")}).json()
+        r = client.post(f"/api/datasets/{dataset['id']}/analyses", json={"measures": ["pearson"], "ordered": "when"})
+        assert r.status_code == 202, r.text
+        status = wait_for_analysis(client, r.json()["id"], timeout=WAIT_SECONDS)
+    assert status["status"] == "failed", status
+    assert "holds dates" in str(status) and "numeric time column" in str(status)
