@@ -65,8 +65,9 @@ def time_order(data: np.ndarray, names: Sequence[str], settings: AnalysisSetting
         order = np.flatnonzero(known)[np.argsort(key[known], kind="stable")]
         repeated = int(np.count_nonzero(np.diff(key[order]) == 0))
         if repeated:
-            note = (f"{settings.ordered} has repeated values ({repeated} row{'s share' if repeated != 1 else ' shares'} "
-                    "a value with an earlier one); rows with equal values keep their file order")
+            rows = f"{repeated} row{'s share' if repeated != 1 else ' shares'}"
+            note = (f"{settings.ordered} has repeated values ({rows} a value with an earlier one); rows with equal "
+                    "values keep their file order")
         if not known.all():
             left = int((~known).sum())
             note = "; ".join(filter(None, [note, f"{left} row{'s' if left != 1 else ''} without a value of "

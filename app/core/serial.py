@@ -667,7 +667,8 @@ def ess_test(x: np.ndarray, y: np.ndarray, kind: str, base: TestResult, confiden
     asymptotic test uses), again times :math:`n/n^*` with :math:`n^*` from
     the mid-ranks, which estimate the mid-distribution transforms the
     projection uses with ties; the level table measures continuous series
-    only, so with heavy ties this product is an approximation. Intervals: Fisher z with :math:`n^*` in place of n (Pearson
+    only, so with heavy ties this product is an approximation. Intervals:
+    Fisher z with :math:`n^*` in place of n (Pearson
     :math:`1/\\sqrt{n^*-3}`, Spearman :math:`\\sqrt{(1+\\rho^2/2)/(n^*-3)}`,
     Kendall :math:`\\sqrt{0.437/(n^*-4)}`).
 
