@@ -220,7 +220,8 @@ def analyze(df: "pd.DataFrame", *, measures=None, columns=None, groups=None, mis
     ordered : bool or str, optional
         The rows are in time order: ``True`` as in ``df``, or the name of a numeric or date/time
         column to sort by (then not analysed; rows without a time left out, with a note). Tests
-        then allow for serial dependence (``--ordered`` of the command line); ``analysis.serial_note`` says what the serial-dependence check found.
+        then allow for serial dependence (``--ordered`` of the command line);
+        ``analysis.serial_note`` says what the serial-dependence check found.
     difference : bool, optional
         Analyse first differences in time order (implies ``ordered``).
     given : str or list of str, optional
