@@ -66,8 +66,9 @@ def _add_analysis_options(p: argparse.ArgumentParser) -> None:
                    help="the p-value method of one measure (repeatable; default: each measure's default test), "
                         "e.g. pearson=t, pearson=permutation, dcor=permutation")
     p.add_argument("--ordered", nargs="?", const="", default=None, metavar="COL",
-                   help="the rows are in time order (as in the file, or sorted by the numeric column COL, which "
-                        "is then not analysed): tests allow for serial dependence (default: rows independent)")
+                   help="the rows are in time order (as in the file, or sorted by the numeric or date/time column "
+                        "COL, which is then not analysed; rows without a time left out): tests allow for serial "
+                        "dependence (default: rows independent)")
     p.add_argument("--difference", action="store_true",
                    help="analyse the first differences of every column in time order (for trending columns; "
                         "implies --ordered)")
@@ -172,8 +173,9 @@ def build_parser(command: str | None = None) -> argparse.ArgumentParser:
         inspect.add_argument("--seed", type=int, default=config.DEFAULT_SEED, metavar="S",
                              help="random seed of the tests that draw random numbers")
         inspect.add_argument("--ordered", nargs="?", const="", default=None, metavar="COL",
-                             help="the rows are in time order (as in the file, or sorted by the numeric column COL, which "
-                            "is then not analysed): tests allow for serial dependence (default: rows independent)")
+                             help="the rows are in time order (as in the file, or sorted by the numeric or date/time "
+                                  "column COL, which is then not analysed; rows without a time left out): tests allow "
+                                  "for serial dependence (default: rows independent)")
         inspect.add_argument("--difference", action="store_true",
                        help="analyse the first differences of every column in time order (for trending columns; "
                             "implies --ordered)")
@@ -197,6 +199,10 @@ def _load(args):
     from .ingest import load_table
 
     table = load_table(args.data, sheet=getattr(args, "sheet", None))
+    if getattr(args, "ordered", None):
+        from .ordering import with_time_column
+
+        table = with_time_column(table, args.ordered)  # --ordered DATE: the times become the sort key
     args.table_notes = list(table.notes)  # said on stderr once the command has succeeded
     return table
 

@@ -24,7 +24,7 @@ from .core.registry import MEASURES, get_measure
 from .core.testing import adjust_pvalues
 from .errors import SettingsError
 from .executors import Executor, ProcessExecutor, SerialExecutor, make_executor
-from .ordering import mark_trending, serial_check, serial_note, time_order  # noqa: F401 - serial_note re-exported
+from .ordering import mark_trending, serial_check, serial_note, time_order, trending_sides  # noqa: F401 - serial_note re-exported
 from .pairtable import PairRow, PairTable
 from .plan import AnalysisSettings, Variable, analysis_row_mask, pair_indices, plan_variables
 from .tiles import (compute_pair, init_worker, make_tiles, one_blas_thread, prepare_columns, release_worker,
@@ -177,7 +177,8 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
     table.given = given
     table.serial = check._replace(order_note=order_note)
     if verdicts:
-        table.verdicts = _labels(table, [e for _, tile_evidence in results for e in tile_evidence])
+        table.verdicts = _labels(table, [e for _, tile_evidence in results for e in tile_evidence],
+                                 check if settings.ordered is not None else None)
     table.seconds = time.perf_counter() - started
     return table
 
@@ -186,8 +187,9 @@ def _symmetric(measure: str) -> bool:
     return get_measure(measure).symmetric
 
 
-def _labels(table: PairTable, evidence: list) -> dict[tuple[str, str], str]:
-    """Each pair's verdict label from its tile's evidence and the analysis's q-values."""
+def _labels(table: PairTable, evidence: list, check=None) -> dict[tuple[str, str], str]:
+    """Each pair's verdict label from its tile's evidence and the analysis's q-values; ``check``, the
+    serial check of an ordered analysis, names the trending columns whose pairs are not tested."""
     from .core.verdict import label_from_evidence
 
     # q-values of each pair in one pass (PairTable.lookup scans every row: per pair that is
@@ -200,7 +202,7 @@ def _labels(table: PairTable, evidence: list) -> dict[tuple[str, str], str]:
         q_values = dict(q_of.get((y, x), {}))
         q_values = {m: q for m, q in q_values.items() if _symmetric(m)}
         q_values.update(q_of.get((x, y), {}))
-        out[(x, y)] = label_from_evidence(ev, q_values)
+        out[(x, y)] = label_from_evidence(ev, q_values, trending_sides(x, y, check))
     return out
 
 

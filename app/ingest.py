@@ -106,6 +106,9 @@ class Table:
     decimal: str = "."            # text formats: "," when a decimal comma was detected
     sheet: str = ""               # xlsx: the sheet read
     sheets: list[str] = field(default_factory=list)  # xlsx: every sheet in the workbook
+    # datetime columns (left out of the analysis): seconds since 1970-01-01 UTC per row, NaN where
+    # missing or unreadable; --ordered COL sorts the rows by one of them (app/ordering.py)
+    times: dict[str, np.ndarray] = field(default_factory=dict)
 
     def levels(self, name: str) -> tuple[str, ...]:
         """The level names of a categorical text column (its codes index them), () otherwise."""
@@ -952,12 +955,45 @@ def _read_parquet(content: bytes, base: str):
         elif pa.types.is_temporal(kind):
             distinct = len(pc.unique(column.drop_null()))
             word = "duration" if pa.types.is_duration(kind) else "datetime"
-            columns.append(_Typed("datetime" if word == "datetime" else "text", reason=f"{word} column",
+            times = None
+            if word == "datetime" and not pa.types.is_time(kind):  # dates and timestamps (UTC) for --ordered COL
+                stamps = pc.cast(column, pa.timestamp("ns", tz=getattr(kind, "tz", None)), safe=False)
+                times = _seconds(stamps.cast(pa.int64()).to_numpy(zero_copy_only=False).astype("datetime64[ns]"))
+            columns.append(_Typed("datetime" if word == "datetime" else "text", values=times, reason=f"{word} column",
                                   missing=missing, distinct=distinct))
         else:
             columns.append(_Typed("text", reason=f"{kind} column (not numbers)", missing=missing))
     preview = [list(row) for row in zip(*preview_cols)] if preview_cols else []
     return names, columns, preview, table.num_rows
+
+
+def _seconds(stamps) -> np.ndarray:
+    """Seconds since 1970-01-01 UTC of a pandas datetime Series/Index or a datetime64 array, NaN for NaT."""
+    values = np.asarray(stamps, dtype="datetime64[ns]")
+    out = values.astype("int64").astype(np.float64) / 1e9
+    out[np.isnat(values)] = np.nan
+    return out
+
+
+def _text_times(present) -> np.ndarray:
+    """Seconds (UTC) of the date/time texts of a datetime column, NaN for a cell that cannot be read.
+
+    ISO 8601 first (2024-05-31, 2024-05-31T12:00+02:00); otherwise one day-first or month-first
+    reading for the whole column, so that 01.05.2024 and 31.05.2024 are read alike: day first when
+    the dates are written with dots (31.05.2024) or a first number exceeds 12, month first else
+    (5/31/24, common practice in US files). Texts without a zone count as UTC.
+    """
+    import pandas as pd
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # pandas warns when it falls back to dateutil per cell
+        iso = pd.to_datetime(present, format="ISO8601", errors="coerce", utc=True)
+        if iso.notna().sum() >= config.NUMERIC_MIN_SHARE * len(present):
+            return _seconds(iso.dt.tz_localize(None))
+        first = present.str.extract(r"^\s*(\d{1,2})([./-])\d{1,2}[./-]")
+        dayfirst = bool((first[1] == ".").any() or (pd.to_numeric(first[0], errors="coerce") > 12).any())
+        mixed = pd.to_datetime(present, format="mixed", dayfirst=dayfirst, errors="coerce", utc=True)
+        return _seconds(mixed.dt.tz_localize(None))
 
 
 def _numeric(values: np.ndarray, non_numeric: int = 0, examples: tuple[str, ...] = ()) -> _Typed:
@@ -992,7 +1028,9 @@ def _classify_strings(series, decimal_comma: bool) -> _Typed:
         return _categorical(f"true/false column ({_plural(distinct, 'distinct value')})", present, missing, distinct)
     n_dates = int(present.str.fullmatch(_DATETIME_RE).sum())
     if n_dates >= config.NUMERIC_MIN_SHARE * n_present:
-        return _Typed("datetime", reason="datetime column", missing=n_missing, distinct=distinct)
+        times = np.full(len(series), np.nan)  # kept for --ordered COL (rows sorted by time)
+        times[~missing] = _text_times(present)
+        return _Typed("datetime", values=times, reason="datetime column", missing=n_missing, distinct=distinct)
     if n_parsed >= 0.5 * n_present:
         share = f"{n_parsed} of {n_present}"
         return _Typed("text", reason=f"mixed column: only {share} values are numbers "
@@ -1042,8 +1080,11 @@ def _type_column(series, decimal_comma: bool) -> _Typed:
     if ptypes.is_numeric_dtype(dtype) and not ptypes.is_complex_dtype(dtype):
         return _numeric(series.to_numpy(dtype=np.float64, na_value=np.nan))
     if ptypes.is_datetime64_any_dtype(dtype) or isinstance(dtype, pd.PeriodDtype):
-        return _Typed("datetime", reason="datetime column", missing=int(series.isna().sum()),
-                      distinct=int(series.nunique()))
+        stamps = series.dt.to_timestamp() if isinstance(dtype, pd.PeriodDtype) else series
+        if getattr(stamps.dt, "tz", None) is not None:
+            stamps = stamps.dt.tz_convert("UTC").dt.tz_localize(None)
+        return _Typed("datetime", values=_seconds(stamps), reason="datetime column",
+                      missing=int(series.isna().sum()), distinct=int(series.nunique()))
     if ptypes.is_timedelta64_dtype(dtype):
         return _Typed("text", reason="duration column", missing=int(series.isna().sum()),
                       distinct=int(series.nunique()))
@@ -1119,6 +1160,7 @@ def _build_table(base: str, sha: str, originals: list[str], columns: list, previ
     info: list[ColumnInfo] = []
     used_names: list[str] = []
     used_values: list[np.ndarray] = []
+    times: dict[str, np.ndarray] = {}
     for name, original, t, c in zip(names, originals, typed, columns):
         original_text = original if isinstance(original, str) else _cell_text(original)
         if t.kind == "categorical" and t.values is not None:
@@ -1139,6 +1181,8 @@ def _build_table(base: str, sha: str, originals: list[str], columns: list, previ
             continue
         if t.kind != "numeric":
             info.append(ColumnInfo(name, original_text, t.kind, False, t.reason, t.missing, 0, t.distinct))
+            if t.kind == "datetime" and t.values is not None:
+                times[name] = t.values
             continue
         values = t.values
         # -0 and 0 are the same number to every measure; one zero keeps the readers and
@@ -1194,7 +1238,7 @@ def _build_table(base: str, sha: str, originals: list[str], columns: list, previ
     for j, values in enumerate(used_values):
         data[:, j] = values
     return Table(name=base, sha256=sha, n_rows=n_rows, columns=used_names, data=data, info=info,
-                 notes=notes, preview=[list(map(str, r)) for r in preview], preview_header=names)
+                 notes=notes, preview=[list(map(str, r)) for r in preview], preview_header=names, times=times)
 
 
 def _load(content: bytes, base: str, sheet: str | None) -> Table:

@@ -218,9 +218,10 @@ def analyze(df: "pd.DataFrame", *, measures=None, columns=None, groups=None, mis
     seed : int, optional
         Random seed; results do not depend on ``workers`` or ``cluster``.
     ordered : bool or str, optional
-        The rows are in time order: ``True`` as in ``df``, or the name of a numeric column to sort by
-        (then not analysed). Tests then allow for serial dependence (``--ordered`` of the command
-        line); ``analysis.serial_note`` says what the serial-dependence check found.
+        The rows are in time order: ``True`` as in ``df``, or the name of a numeric or date/time
+        column to sort by (then not analysed; rows without a time left out, with a note). Tests
+        then allow for serial dependence (``--ordered`` of the command line);
+        ``analysis.serial_note`` says what the serial-dependence check found.
     difference : bool, optional
         Analyse first differences in time order (implies ``ordered``).
     given : str or list of str, optional
@@ -276,6 +277,10 @@ def analyze(df: "pd.DataFrame", *, measures=None, columns=None, groups=None, mis
     from .engine import AnalysisSettings, run_analysis
 
     table = _table_from_frame(df, name)
+    if ordered:
+        from .ordering import with_time_column
+
+        table = with_time_column(table, ordered)  # a date/time column: its times become the sort key
     settings = AnalysisSettings.from_options(measures=measures, columns=columns, groups=groups, missing=missing,
                                              adjust=adjust, confidence=confidence, permutations=permutations, tests=tests,
                                              seed=seed, ordered=ordered, difference=difference, given=given,

@@ -342,8 +342,9 @@ def _ordered_entry(settings) -> dict:
                     "serially dependent rows; each pair's method names it with its effective rows n* or block length."]
     paragraphs += [f"{MEASURES[m].label}: {MEASURES[m].serial_test}." for m in settings.measures if MEASURES[m].serial_test]
     paragraphs.append("A pair with a trending column (augmented Dickey-Fuller test at 5 %, MacKinnon p-values) "
-                      "gets no p-value: levels of trending series correlate by chance (Yule 1926; Granger & "
-                      "Newbold 1974); analyse differences instead. Levels of these tests: README, 'Rows in time order'.")
+                      "gets no p-value and the verdict 'not tested (trending)', neither dependent nor independent: "
+                      "levels of trending series correlate by chance (Yule 1926; Granger & Newbold 1974); analyse "
+                      "differences instead. Levels of these tests: README, 'Rows in time order'.")
     return {"title": "Rows in time order", "paragraphs": paragraphs,
             "formula": "1/n* = 1/n + (2/n) sum_{k=1}^{n/5} (n-k)/n rho_x(k) rho_y(k)",
             "references": ["Bartlett, M.S. (1935) J. R. Stat. Soc. 98:536-543, doi:10.2307/2342284",

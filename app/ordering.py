@@ -18,7 +18,35 @@ from .errors import SettingsError
 from .pairtable import PairRow
 from .plan import AnalysisSettings
 
-__all__ = ["time_order", "serial_check", "serial_note", "mark_trending"]
+__all__ = ["time_order", "serial_check", "serial_note", "mark_trending", "trending_sides", "with_time_column"]
+
+
+def with_time_column(table, ordered: str | None):
+    """The loaded ``table`` (pairlens.ingest.Table) ready for ``--ordered COL`` when COL is a date/time
+    column: its times (seconds since 1970-01-01 UTC) appended as a numeric column that
+    :func:`time_order` sorts by and leaves out. Any other table is returned as it is.
+
+    Rows without a time (missing, or a cell that is not a date the reader can read) are left out
+    by :func:`time_order`, which says how many; rows that share a time keep their file order and
+    the note says how many. A date column with no readable time at all is refused.
+    """
+    import dataclasses
+
+    times = getattr(table, "times", {}) or {}
+    if not ordered or ordered not in times or ordered in table.columns:
+        return table
+    seconds = np.asarray(times[ordered], dtype=float)
+    if not np.isfinite(seconds).any():
+        raise SettingsError(f"--ordered {ordered!r}: none of its cells could be read as a date or time; "
+                            "write them as 2024-05-31 or 2024-05-31 12:00, or give a numeric time column")
+    notes = list(table.notes)
+    missing = next((c.missing for c in table.info if c.name == ordered), 0)
+    unreadable = int(np.isnan(seconds).sum()) - int(missing)
+    if unreadable > 0:
+        notes.append(f"--ordered {ordered}: {unreadable} cell{'s' if unreadable != 1 else ''} could not be read "
+                     "as dates or times; their rows are left out")
+    return dataclasses.replace(table, columns=[*table.columns, ordered],
+                               data=np.column_stack([table.data, seconds]), notes=notes)
 
 
 def time_order(data: np.ndarray, names: Sequence[str], settings: AnalysisSettings
@@ -29,16 +57,20 @@ def time_order(data: np.ndarray, names: Sequence[str], settings: AnalysisSetting
     note = ""
     if settings.ordered:
         if settings.ordered not in names:
-            raise SettingsError(f"--ordered {settings.ordered!r}: no numeric column of that name; numeric columns "
-                                f"are: {', '.join(names[:20])}{' ...' if len(names) > 20 else ''}")
+            raise SettingsError(f"--ordered {settings.ordered!r}: no numeric or date/time column of that name; "
+                                f"numeric columns are: {', '.join(names[:20])}{' ...' if len(names) > 20 else ''}")
         k = names.index(settings.ordered)
         key = data[:, k]
         known = ~np.isnan(key)
         order = np.flatnonzero(known)[np.argsort(key[known], kind="stable")]
-        if np.any(np.diff(key[order]) == 0):
-            note = f"{settings.ordered} has repeated values; rows with equal values keep their file order"
+        repeated = int(np.count_nonzero(np.diff(key[order]) == 0))
+        if repeated:
+            rows = f"{repeated} row{'s share' if repeated != 1 else ' shares'}"
+            note = (f"{settings.ordered} has repeated values ({rows} a value with an earlier one); rows with equal "
+                    "values keep their file order")
         if not known.all():
-            note = "; ".join(filter(None, [note, f"{int((~known).sum())} rows without a value of "
+            left = int((~known).sum())
+            note = "; ".join(filter(None, [note, f"{left} row{'s' if left != 1 else ''} without a value of "
                                                  f"{settings.ordered} left out"]))
         data = np.delete(data[order], k, axis=1)
         names = names[:k] + names[k + 1:]
@@ -78,6 +110,11 @@ def mark_trending(rows: list[PairRow], check: "serial_mod.SerialCheck") -> None:
         sides = [v for v in (r.x, r.y) if v in trending]
         if sides and r.p_value == r.p_value:
             r.p_value = math.nan
-            r.note = "; ".join(filter(None, [r.note, f"{' and '.join(sides)} trend{'s' if len(sides) == 1 else ''} "
-                                                     "(augmented Dickey-Fuller): levels of trending series "
-                                                     "correlate by chance; analyse differences (--difference)"]))
+            r.note = "; ".join(filter(None, [r.note, serial_mod.trending_reason(sides)]))
+
+
+def trending_sides(x: str, y: str, check: "serial_mod.SerialCheck | None") -> tuple[str, ...]:
+    """The sides of the pair (x, y) that the serial check of an ordered analysis found trending; the
+    verdict calls such a pair "not tested (trending)"."""
+    trending = set(check.trending) if check is not None else set()
+    return tuple(v for v in (x, y) if v in trending)

@@ -23,7 +23,7 @@ from .core.registry import MEASURES
 from .core import serial as serial_mod
 from .core.results import TestResult
 from .errors import SettingsError
-from .ordering import mark_trending, serial_check, time_order
+from .ordering import mark_trending, serial_check, time_order, trending_sides
 from .pairtable import PairRow, PairTable
 from .plan import AnalysisSettings, PairRows, Variable, analysis_row_mask, pair_rows
 from .tiles import compute_pair, ordered_rows
@@ -192,19 +192,22 @@ def _categorical_part(rows: PairRows, kinds: tuple[str, str], levels: dict | Non
 
 
 def verdict_of(rows: PairRows, measures: dict[str, PairRow], fit=None,
-               kinds: tuple[str, str] = ("numeric", "numeric")) -> tuple[str, tuple[str, ...]]:
-    """The verdict label and reasons of a pair from its rows and its rows of the pair table."""
+               kinds: tuple[str, str] = ("numeric", "numeric"),
+               trending: tuple[str, ...] = ()) -> tuple[str, tuple[str, ...]]:
+    """The verdict label and reasons of a pair from its rows and its rows of the pair table;
+    ``trending``: its sides that trend in an ordered analysis (then "not tested (trending)")."""
     # Loaded here, not at import: the pair table does not need scipy.stats.
     from .core.verdict import classify_pair
 
     results = {m: TestResult(r.estimate, r.p_value, r.method, r.ci_low, r.ci_high, r.n, r.note)
                for m, r in measures.items()}
     q_values = {m: float(r.q_value) for m, r in measures.items()}
-    if "categorical" in kinds:
+    if "categorical" in kinds and not trending:
         from .core.verdict_categorical import categorical_verdict
         return categorical_verdict(kinds, results, q_values, alpha=config.SIGNIFICANCE_LEVEL)
     try:
-        pattern = classify_pair(rows.x, rows.y, results, q_values, alpha=config.SIGNIFICANCE_LEVEL, fit=fit)
+        pattern = classify_pair(rows.x, rows.y, results, q_values, alpha=config.SIGNIFICANCE_LEVEL, fit=fit,
+                                trending=trending)
     except ArithmeticError:  # values near 1e300 overflow a measure's sums: no verdict, the view still shows
         return "", (_OVERFLOW_REASON,)
     return pattern.label, tuple(pattern.reasons)
@@ -229,7 +232,7 @@ def full_detail(data: np.ndarray, names: Sequence[str], x: str, y: str,
         data, names, row_mask = _analysis_order(data, names, settings, row_mask)
     rows = pair_rows(data, names, x, y, settings, row_mask)
     measures = _measures_of(data, names, rows, settings, table, row_mask)
-    timeline, note = None, ""
+    timeline, note, trending = None, "", ()
     if ordered:
         position = {n: i for i, n in enumerate(names)}
         check = serial_check(np.column_stack([data[:, position[x]], data[:, position[y]]]), [x, y])
@@ -238,13 +241,14 @@ def full_detail(data: np.ndarray, names: Sequence[str], x: str, y: str,
             for r in measures.values():
                 r.q_value = r.p_value
         timeline, note = _ordered_json(rows.x, rows.y, check, settings), check.message(True)
+        trending = trending_sides(x, y, check)
     kinds = (_kind(settings, x), _kind(settings, y))
     given = None
     if settings.given:
         given = _given_detail(data, names, x, y, settings, row_mask, measures, computed=table is None)
     fit = fit_gaussian(rows.x, rows.y, tests="categorical" not in kinds)
     base = {m: r for m, r in measures.items() if m in MEASURES}  # the verdict reads unconditional rows
-    label, reasons = verdict_of(rows, base, fit, kinds)
+    label, reasons = verdict_of(rows, base, fit, kinds, trending)
     part = _categorical_part(rows, kinds, levels) if "categorical" in kinds else None
     return PairDetail(rows, measures, fit, label, reasons, True, timeline, note, kinds, part, given)
 
@@ -311,7 +315,12 @@ def pair_verdict(data: np.ndarray, names: Sequence[str], x: str, y: str, table: 
     data, names, row_mask = _analysis_order(data, names, table.settings, row_mask)
     rows = pair_rows(data, names, x, y, table.settings, row_mask)
     kinds = (_kind(table.settings, x), _kind(table.settings, y))
-    return verdict_of(rows, dict(table.lookup(x, y)), kinds=kinds)[0]
+    trending: tuple[str, ...] = ()
+    if table.settings.ordered is not None:
+        position = {n: i for i, n in enumerate(names)}
+        trending = trending_sides(x, y, serial_check(np.column_stack([data[:, position[x]], data[:, position[y]]]),
+                                                     [x, y]))
+    return verdict_of(rows, dict(table.lookup(x, y)), kinds=kinds, trending=trending)[0]
 
 
 def pair_detail(data: np.ndarray, names: Sequence[str], x: str, y: str,

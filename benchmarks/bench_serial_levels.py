@@ -32,15 +32,20 @@ def ar1(rng: np.random.Generator, phi: float, shape: tuple[int, ...], n: int) ->
     return signal.lfilter([1.0], [1.0, -phi], e, axis=-1)
 
 
-def rejections(measure: str, x: np.ndarray, y: np.ndarray, permutations: int, seed: int) -> np.ndarray:
-    """p-values of ``measure`` under --ordered for each row pair (x[k], y[k])."""
+def rejections(measure: str, x: np.ndarray, y: np.ndarray, permutations: int, seed: int,
+               save: str = "") -> np.ndarray:
+    """p-values of ``measure`` under --ordered for each row pair (x[k], y[k]); with ``save``, the
+    p-values so far (NaN for pairs not yet run) are written to that .npy file every 25 pairs, so a
+    long cell stopped early still gives its finished pairs."""
     m = MEASURES[measure]
-    out = np.empty(x.shape[0])
+    out = np.full(x.shape[0], np.nan)
     seeds = np.random.SeedSequence(seed).spawn(x.shape[0])
     for k in range(x.shape[0]):
         ctx = PairContext(permutations=permutations, seed=seeds[k])
         base = m.compute(x[k], y[k], ctx if m.default_test != "gamma" else PairContext())
         out[k] = m.serial(x[k], y[k], ctx, base).p_value
+        if save and (k % 25 == 24 or k == x.shape[0] - 1):
+            np.save(save, out)
     return out
 
 
@@ -60,6 +65,10 @@ def main(argv=None) -> int:
     ap.add_argument("--n", default="100,500")
     ap.add_argument("--phi", default="0,0.5,0.9")
     ap.add_argument("--seed", type=int, default=20261202)
+    ap.add_argument("--power-pairs", type=int, default=200, help="related pairs per cell for the power column")
+    ap.add_argument("--save", default="", help="directory: each cell's p-values as .npy, written as they come")
+    ap.add_argument("--power-only", action="store_true",
+                    help="only the power column (the level cells of a long run stopped early, --save, lack it)")
     a = ap.parse_args(argv)
     rng = np.random.default_rng(a.seed)
     print("| measure | phi | n | pairs | rejected at 0.05 | 99% interval | rejected at 0.01 | 99% interval "
@@ -71,10 +80,14 @@ def main(argv=None) -> int:
         for n in (int(v) for v in a.n.split(",")):
             for phi in (float(v) for v in a.phi.split(",")):
                 x, y = ar1(rng, phi, (2, pairs), n)
-                p = rejections(measure, x, y, a.permutations, a.seed)
-                related = 0.4 * x[: min(pairs, 200)] + ar1(rng, phi, (min(pairs, 200),), n)
-                power = rejections(measure, x[: related.shape[0]], related, a.permutations, a.seed + 1)
-                r05, r01 = np.mean(p < 0.05), np.mean(p < 0.01)
+                stem = f"{a.save}/{measure}_n{n}_phi{phi:g}" if a.save else ""
+                p = (np.full(pairs, np.nan) if a.power_only else
+                     rejections(measure, x, y, a.permutations, a.seed, stem + "_null.npy" if stem else ""))
+                power_pairs = min(pairs, a.power_pairs)
+                related = 0.4 * x[:power_pairs] + ar1(rng, phi, (power_pairs,), n)
+                power = rejections(measure, x[:power_pairs], related, a.permutations, a.seed + 1,
+                                   stem + "_power.npy" if stem else "")
+                r05, r01 = (np.nan, np.nan) if a.power_only else (np.mean(p < 0.05), np.mean(p < 0.01))
                 i05, i01 = binomial_interval(pairs, 0.05), binomial_interval(pairs, 0.01)
                 print(f"| {measure} | {phi:g} | {n} | {pairs} | {r05:.3f} | {i05[0]:.3f}-{i05[1]:.3f} | "
                       f"{r01:.3f} | {i01[0]:.3f}-{i01[1]:.3f} | {np.mean(power < 0.05):.2f} |", flush=True)

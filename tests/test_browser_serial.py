@@ -84,6 +84,16 @@ def test_weekly_series_warning_ordered_run_and_series_panel(server, page):
     # (cellar_temp_c is so persistent that the ADF test names it trending: no p-value, so not significant)
     assert _q(server, plain, SPURIOUS) < 0.05 and not _q(server, ordered, SPURIOUS) < 0.05
     assert _q(server, ordered, PLANTED) < 0.05
+    # the trending pair's verdict: not tested, never "no evidence of dependence" (README, the verdict table)
+    page.fill("#filter-text", SPURIOUS[0])
+    cell = page.locator(f'tr.pair-row[data-x="{SPURIOUS[0]}"][data-y="{SPURIOUS[1]}"] td.verdict')
+    cell.wait_for(timeout=WAIT_SECONDS * 1000)
+    assert cell.inner_text() == "not tested (trending)"
+    page.goto(server.url(f"/analyses/{ordered}/pair?x={SPURIOUS[0]}&y={SPURIOUS[1]}"))
+    page.wait_for_selector('#verdict[data-complete="yes"]', timeout=WAIT_SECONDS * 1000)
+    assert page.inner_text("#verdict-label") == "not tested (trending)"
+    assert "--difference" in page.inner_text("#verdict-reasons")
+    screenshot(page, "serial-pair-trending")
 
     page.goto(server.url(f"/analyses/{ordered}/pair?x={PLANTED[0]}&y={PLANTED[1]}"))
     page.wait_for_selector('[data-testid="pair-series"][data-ready="1"]', timeout=WAIT_SECONDS * 1000)

@@ -91,7 +91,10 @@ def test_adf_names_the_trending_series():
 
 def test_effective_n_matches_the_ar1_closed_form():
     # Two AR(1) series with coefficients a, b: sum over all lags of rho_x(k) rho_y(k) gives
-    # n* = n (1 - ab) / (1 + ab) for large n (Bartlett 1935; closed form from memory).
+    # n* = n (1 - ab) / (1 + ab) for large n: the published closed form of Bretherton et al. (1999,
+    # J. Climate 12:1990-2009, section 5; as quoted in the public Q&A thread talkstats.com/threads/65489).
+    # No worked numerical example of Bartlett (1935), Dutilleul (1993), Pyper & Peterman (1998) or
+    # Afyouni et al. (2019) was found to check against.
     n, a, b = 100_000, 0.6, 0.8
     k = np.arange(200)
     assert serial.effective_n(a ** k, b ** k, n) == pytest.approx(n * (1 - a * b) / (1 + a * b), rel=2e-3)
@@ -219,7 +222,7 @@ def test_ordered_settings_round_trip_and_refuse_unknown_columns():
     assert AnalysisSettings.from_dict(s.to_dict()) == s
     assert s.cli_arguments()[-3:] == ["--difference", "--ordered", "week"]
     data, names = _table()
-    with pytest.raises(SettingsError, match="no numeric column"):
+    with pytest.raises(SettingsError, match="no numeric or date/time column"):
         run_analysis(data, names, AnalysisSettings.from_options(ordered="day"), workers=1)
 
 
@@ -271,3 +274,94 @@ def test_series_figure_of_an_ordered_pair():
     assert fig["xcorr"]["data"][0]["x"] == list(range(-5, 6))
     plain = pair_detail(data, names, "a", "b", AnalysisSettings.from_options(measures="pearson"), include_points=True)
     assert plots.series_figure(plain) is None
+
+
+# A trending pair gets no verdict on levels, in every face ---------------------------
+# Project contract (issue 21): levels of trending series correlate by chance (Yule 1926; Granger &
+# Newbold 1974), so neither "dependent" nor "no evidence of dependence" may be said of them.
+
+NOT_TESTED = "not tested (trending)"
+
+
+def test_trending_pairs_are_labelled_not_tested_in_the_pair_table():
+    data, names = _table()
+    ordered = run_analysis(data, names, AnalysisSettings.from_options(ordered="week"), workers=1, verdicts=True)
+    assert ordered.serial.trending == ["walk"]
+    for (x, y), label in ordered.verdicts.items():
+        assert (label == NOT_TESTED) == ("walk" in (x, y)), (x, y, label)
+    assert ordered.verdicts[("a", "b")] == "linear"
+    # on differences nothing trends and the pair is judged again
+    diffed = run_analysis(data, names, AnalysisSettings.from_options(ordered="week", difference=True), workers=1,
+                          verdicts=True)
+    assert NOT_TESTED not in diffed.verdicts.values()
+
+
+def test_trending_pair_view_cli_library_and_report_say_not_tested(tmp_path):
+    import contextlib
+    import io
+    import json
+
+    import pandas as pd
+
+    from pairlens import analyze, cli
+
+    data, names = _table()
+    settings = AnalysisSettings.from_options(measures=list(MEASURES), ordered="week")
+    # the pair view's detail (the web pair page and the report cards read the same function)
+    d = pair_detail(data, names, "a", "walk", settings)
+    assert d["pattern"]["label"] == NOT_TESTED and "--difference" in d["pattern"]["reasons"][0]
+    assert pair_detail(data, names, "a", "b", settings)["pattern"]["label"] == "linear"
+    # the same detail read through a computed table (q-values from the analysis)
+    table = run_analysis(data, names, settings, workers=1)
+    assert pair_detail(data, names, "walk", "c", settings, table)["pattern"]["label"] == NOT_TESTED
+    # inspect --json and its text form
+    path = tmp_path / "weekly.csv"
+    pd.DataFrame(data, columns=names).to_csv(path, index=False)
+    out = io.StringIO()
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(io.StringIO()):
+        assert cli.main(["inspect", str(path), "--x", "a", "--y", "walk", "--ordered", "week", "--json"]) == 0
+    assert json.loads(out.getvalue())["pattern"]["label"] == NOT_TESTED
+    out = io.StringIO()
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(io.StringIO()):
+        assert cli.main(["inspect", str(path), "--x", "a", "--y", "walk", "--ordered", "week"]) == 0
+    assert f"Verdict: {NOT_TESTED}" in out.getvalue() and "no evidence" not in out.getvalue()
+    # the library and its report (every pair of four columns is among the report's strongest)
+    analysis = analyze(pd.DataFrame(data, columns=names), measures="pearson,dcor", ordered="week", workers=1,
+                       progress=False)
+    assert analysis.inspect("walk", "b").verdict == NOT_TESTED
+    html = analysis.report(tmp_path / "r.html").read_text()
+    assert html.count(f"<span class=\"muted\">Verdict</span> {NOT_TESTED}") >= 1
+    verdicts = {}  # each pair card's title (its h3) and its verdict label
+    for card in html.split('<header class="card-head">')[1:]:
+        if "Verdict</span>" in card:
+            title = card.split("<h3>", 1)[1].split("</h3>", 1)[0]
+            verdicts[title] = card.split('<span class="muted">Verdict</span> ', 1)[1].split("<", 1)[0]
+    assert {label == NOT_TESTED for label in verdicts.values()} == {True, False}, verdicts
+    assert all((label == NOT_TESTED) == ("walk" in title) for title, label in verdicts.items()), verdicts
+
+
+# Kendall's tau-b under --ordered with ties -----------------------------------------
+
+def test_kendall_effective_rows_test_with_ties_matches_scipy_scaled_by_n_over_n_star():
+    from statsmodels.tsa.stattools import acf
+
+    rng = np.random.default_rng(SEED + 3)
+    n = 240
+    # AR(1) series rounded to few levels: many ties in both columns
+    x, y = np.round(_ar1(rng, 0.6, (2,), n) * 1.5)
+    base = MEASURES["kendall"].compute(x, y, PairContext())
+    res = serial.ess_test(x, y, "kendall", base)
+    # source: scipy.stats.kendalltau, tau-b with its tie-corrected asymptotic variance (Kendall 1970)
+    ref = stats.kendalltau(x, y, method="asymptotic")
+    z_indep = stats.norm.isf(ref.pvalue / 2)
+    # n* from the mid-ranks' autocorrelations (source: scipy.stats.rankdata, statsmodels acf) and
+    # the Bartlett (1935) sum to n/5 lags
+    k = n // 5
+    ax, ay = (acf(stats.rankdata(v), nlags=k, fft=False) for v in (x, y))
+    lags = np.arange(1, k + 1)
+    s = np.sum((n - lags) / n * ax[1:] * ay[1:])
+    n_star = min(n, n / (1 + 2 * s))
+    assert n_star < 0.8 * n                               # the correction does something here
+    expected = 2 * stats.norm.sf(z_indep * math.sqrt(n_star / n))
+    assert res.p_value == pytest.approx(expected, rel=1e-9)
+    assert len(np.unique(x)) < 15 and len(np.unique(y)) < 15

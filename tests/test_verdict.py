@@ -283,3 +283,32 @@ def test_curvature_rule_false_alarm_rate_on_gaussian_pairs():
           f"(rho uniform on 0.1..0.99): {rates}")
     assert rates[200] <= 0.01
     assert rates[50] <= 0.08
+
+
+def test_a_trending_pair_is_not_tested_whatever_its_q_values():
+    # Project contract (issue 21): levels of trending series correlate by chance (Yule 1926;
+    # Granger & Newbold 1974), so a pair with a trending side under --ordered gets neither a
+    # dependence nor an independence label. Two random walks: their levels' test is meaningless.
+    rng = np.random.default_rng(21)
+    x, y = np.cumsum(rng.normal(size=N)), np.cumsum(rng.normal(size=N))
+    results, q = _panel(x, y)
+    plain = classify_pair(x, y, results, q)
+    assert plain.label != "not tested (trending)"      # without the trending sides the rules run as before
+    p = classify_pair(x, y, results, q, trending=("x", "y"))
+    assert p.label == "not tested (trending)" and p.rule == 2
+    assert p.reasons[0].startswith("Not tested: x and y trend") and "--difference" in p.reasons[0]
+    assert not any("dependence" in r and "Neither" not in r for r in p.reasons)
+    # significant q-values change nothing, nor do q-values that say nothing
+    assert classify_pair(x, y, results, dict.fromkeys(q, 1e-9), trending=("y",)).label == "not tested (trending)"
+    assert classify_pair(x, y, results, dict.fromkeys(q, 0.9), trending=("y",)).label == "not tested (trending)"
+
+
+def test_label_from_evidence_agrees_on_trending_pairs():
+    from pairlens.core.verdict import label_evidence, label_from_evidence
+
+    x, y = _make("linear", 3)
+    results, q = _panel(x, y)
+    ev = label_evidence(x, y, results)
+    assert label_from_evidence(ev, q) == "linear"
+    assert label_from_evidence(ev, q, ("x",)) == classify_pair(x, y, results, q, trending=("x",)).label \
+        == "not tested (trending)"

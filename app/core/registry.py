@@ -444,7 +444,8 @@ MEASURES: dict[str, Measure] = {
                       "Fieller, Hartley & Pearson (1957) Biometrika 44:470-481",
             compute=_floored(_kendall, "kendall"), pairing_statistics=_kendall_pairings,
             role="rank", short_label="Kendall tau", implied=lambda rho: 2.0 / math.pi * math.asin(rho),
-            serial=_serial_ess("kendall"), serial_test=_ESS_TEXT.format(law="on the ranks, normal with variance x n/n*"),
+            serial=_serial_ess("kendall"),
+            serial_test=_ESS_TEXT.format(law="on the ranks, normal with the tie-corrected variance x n/n*"),
             presorted=_kendall_presorted, presorted_needs=frozenset({"kendall_counts"}),
         ),
         Measure(

@@ -28,7 +28,7 @@ from .testing import fisher_z_interval
 
 __all__ = ["AdfResult", "ColumnSerial", "autocorrelation", "ljung_box", "adf", "block_length", "effective_n",
            "cross_correlation", "column_serial", "serial_check", "SerialCheck", "ess_test",
-           "block_permutation_test", "ESS_KINDS"]
+           "block_permutation_test", "ESS_KINDS", "trending_reason"]
 
 # MacKinnon (1994) response surface of the ADF statistic's distribution with a constant
 # (one series): the range it covers, the switch point and the polynomial coefficients
@@ -190,6 +190,23 @@ def _midranks(v: np.ndarray) -> np.ndarray:
     mean_pos = (starts + ends - 1) / 2.0 + 1.0
     ranks[order] = np.repeat(mean_pos, ends - starts)
     return ranks
+
+
+def _kendall_null_variance(x: np.ndarray, y: np.ndarray) -> float:
+    """Variance of Kendall's tau-b under independence of n independent rows, ties corrected.
+
+    Var(S) of Kendall (1970, ch. 4), divided by the tau-b denominator (n0 - n1)(n0 - n2); equal to
+    2(2n+5)/(9n(n-1)) without ties. scipy.stats.kendalltau's asymptotic test uses the same.
+    """
+    n = float(x.size)
+    t = np.unique(x, return_counts=True)[1].astype(float)
+    u = np.unique(y, return_counts=True)[1].astype(float)
+    var_s = ((n * (n - 1) * (2 * n + 5) - np.sum(t * (t - 1) * (2 * t + 5)) - np.sum(u * (u - 1) * (2 * u + 5))) / 18.0
+             + np.sum(t * (t - 1) * (t - 2)) * np.sum(u * (u - 1) * (u - 2)) / (9.0 * n * (n - 1) * (n - 2))
+             + np.sum(t * (t - 1)) * np.sum(u * (u - 1)) / (2.0 * n * (n - 1)))
+    n0 = n * (n - 1) / 2.0
+    denominator = (n0 - np.sum(t * (t - 1)) / 2.0) * (n0 - np.sum(u * (u - 1)) / 2.0)
+    return float(var_s / denominator) if denominator > 0 else math.nan
 
 
 def _ess_from_acfs(ax: np.ndarray, ay: np.ndarray, n: int) -> float:
@@ -617,6 +634,21 @@ def serial_check(data: np.ndarray, names: list[str], level: float = 0.01, share:
     return SerialCheck(list(names), cols, dependent, trending, warn)
 
 
+def trending_reason(sides) -> str:
+    """Why a pair with trending sides (named in ``sides``) gets no p-value and no verdict on its levels.
+
+    The pair table's note and the verdict's reason say the same sentence.
+
+    Examples
+    --------
+    >>> trending_reason(["stock"])
+    'stock trends (augmented Dickey-Fuller): levels of trending series correlate by chance; analyse differences (--difference)'
+    """
+    sides = list(sides)
+    return (f"{' and '.join(sides)} trend{'s' if len(sides) == 1 else ''} (augmented Dickey-Fuller): levels of "
+            "trending series correlate by chance; analyse differences (--difference)")
+
+
 def ess_test(x: np.ndarray, y: np.ndarray, kind: str, base: TestResult, confidence: float = 0.95,
              max_lag: int | None = None) -> TestResult:
     """A correlation's test and interval with the effective number of rows of two autocorrelated series.
@@ -647,7 +679,13 @@ def ess_test(x: np.ndarray, y: np.ndarray, kind: str, base: TestResult, confiden
     dependence is :math:`(4/9n)\\sum_k \\rho_{F(x)}(k)\\rho_{G(y)}(k)` by
     Hoeffding's projection, i.e. the independent-rows variance
     :math:`2(2n+5)/(9n(n-1))` times :math:`n/n^*` with :math:`n^*` from the
-    ranks. Intervals: Fisher z with :math:`n^*` in place of n (Pearson
+    ranks. With ties the independent-rows variance is that of tau-b with
+    Kendall's (1970) tie correction (the one scipy.stats.kendalltau's
+    asymptotic test uses), again times :math:`n/n^*` with :math:`n^*` from
+    the mid-ranks, which estimate the mid-distribution transforms the
+    projection uses with ties; the level table measures continuous series
+    only, so with heavy ties this product is an approximation. Intervals:
+    Fisher z with :math:`n^*` in place of n (Pearson
     :math:`1/\\sqrt{n^*-3}`, Spearman :math:`\\sqrt{(1+\\rho^2/2)/(n^*-3)}`,
     Kendall :math:`\\sqrt{0.437/(n^*-4)}`).
 
@@ -661,6 +699,9 @@ def ess_test(x: np.ndarray, y: np.ndarray, kind: str, base: TestResult, confiden
 
     Pyper, B.J. & Peterman, R.M. (1998). Can. J. Fish. Aquat. Sci.
     55:2127-2140. doi:10.1139/f98-104
+
+    Kendall, M.G. (1970). Rank Correlation Methods, 4th ed., Griffin, London,
+    ch. 4 (variance of S with ties).
 
     Examples
     --------
@@ -692,7 +733,7 @@ def ess_test(x: np.ndarray, y: np.ndarray, kind: str, base: TestResult, confiden
                           "to test; try --difference")
     r = min(1.0, max(-1.0, est))
     if kind == "kendall":
-        var = 2.0 * (2.0 * n + 5.0) / (9.0 * n * (n - 1.0)) * n / n_eff
+        var = _kendall_null_variance(x, y) * n / n_eff
         p = float(special.erfc(abs(r) / math.sqrt(2.0 * var)))
         method = f"normal, variance x n/n* (n* = {n_eff:.1f} of {n})"
         se_z = math.sqrt(0.437 / (n_eff - 4.0)) if n_eff > 4.0 else math.inf

@@ -12,7 +12,10 @@ Rule table (alpha is the significance level applied to the q-values):
 #   label                      holds when
 ==  =========================  ==============================================================
 1   no evidence of dependence  fewer than 3 complete rows, or a constant column
-2   driven by a few points     Pearson's q < alpha; dropping the k most influential points
+2   not tested (trending)      rows in time order (--ordered) and a side trends (augmented
+                               Dickey-Fuller): levels of trending series correlate by chance,
+                               so neither dependence nor independence is claimed on them
+3   driven by a few points     Pearson's q < alpha; dropping the k most influential points
                                (k = min(10, max(3, ceil(n/100)), n // 10), chosen greedily,
                                each the one whose removal shrinks |r| most) leaves
                                |r| < |r_full| / 2 and takes off at least 0.10; and no rank
@@ -20,17 +23,17 @@ Rule table (alpha is the significance level applied to the q-values):
                                |r| of at least |r_full| / 2); and dCor of the remaining points
                                is not significant (its own unadjusted p >= alpha: a follow-up
                                question about a pair already found dependent)
-3   no evidence of dependence  no measure with a q-value has q < alpha
-4   non-monotone               a dependence test (dcor, dcor_bc or xi) has q < alpha, and
+4   no evidence of dependence  no measure with a q-value has q < alpha
+5   non-monotone               a dependence test (dcor, dcor_bc or xi) has q < alpha, and
                                either no trend test (pearson, spearman, kendall) has, or the
                                observed dCor exceeds the dCor a Gaussian with the stronger of
                                |r| and the rank-equivalent r would have by more than 0.15
-5   monotone but curved        a rank correlation has q < alpha and its rank-equivalent r
+6   monotone but curved        a rank correlation has q < alpha and its rank-equivalent r
                                exceeds |r| by more than 0.10 on Fisher's z scale
                                (atanh|r_rank| - atanh|r|), which does not saturate near
                                |r| = 1; "non-monotone" on a dependence test alone with
                                q between 0.2 alpha and alpha says "weak evidence"
-6   linear                     a trend test has q < alpha (what is left)
+7   linear                     a trend test has q < alpha (what is left)
 ==  =========================  ==============================================================
 
 The thresholds (0.5, 0.10, 0.15) are our own choices on the correlation
@@ -81,7 +84,7 @@ __all__ = ["Pattern", "LABELS", "RULES", "Rule", "classify_pair", "influence_on_
            "label_evidence", "label_from_evidence", "marginals_normal_not_joint"]
 
 LABELS = ("linear", "monotone but curved", "non-monotone", "driven by a few points",
-          "no evidence of dependence")
+          "no evidence of dependence", "not tested (trending)")
 
 # Read from the registry entries' roles (a rank correlation is a trend test too).
 # The rules below judge pairs of two numeric columns: the measures that apply to those
@@ -158,6 +161,7 @@ class _Evidence:
     marg_p: tuple[float, float] = (math.nan, math.nan)
     hz_p: float = math.nan
     class_codes: tuple[tuple[str, int], ...] = ()   # ("x", levels) for a side that looks like a code
+    trending: tuple[str, ...] = ()   # names of the sides that trend, rows in time order
     alpha: float = 0.05
 
     def sig(self, m: str) -> bool | None:
@@ -413,19 +417,25 @@ def _rule_linear(ev: _Evidence) -> bool:
     return ev.any_sig(TREND_MEASURES)
 
 
+def _rule_trending(ev: _Evidence) -> bool:
+    return bool(ev.trending)
+
+
 RULES: tuple[Rule, ...] = (
     Rule(1, "no evidence of dependence", "fewer than 3 complete rows or a constant column", _rule_degenerate),
-    Rule(2, "driven by a few points",
+    Rule(2, "not tested (trending)", "rows in time order and a side trends (augmented Dickey-Fuller): no "
+         "verdict on levels", _rule_trending),
+    Rule(3, "driven by a few points",
          "Pearson significant; dropping the k most influential points halves |r| (and removes >= 0.10); "
          "no rank correlation backs it; dCor of the remaining points not significant", _rule_few_points),
-    Rule(3, "no evidence of dependence", "no tested measure has q < alpha", _rule_nothing),
-    Rule(4, "non-monotone",
+    Rule(4, "no evidence of dependence", "no tested measure has q < alpha", _rule_nothing),
+    Rule(5, "non-monotone",
          "a dependence test (dcor, dcor_bc, xi) significant and either no trend test is, or dCor exceeds "
          "the Gaussian-implied dCor of max(|r|, rank-equivalent r) by more than 0.15", _rule_non_monotone),
-    Rule(5, "monotone but curved", "a rank correlation significant and atanh|rank-equivalent r| exceeds "
+    Rule(6, "monotone but curved", "a rank correlation significant and atanh|rank-equivalent r| exceeds "
          "atanh|r| by > 0.10",
          _rule_curved),
-    Rule(6, "linear", "a trend test (pearson, spearman, kendall) significant", _rule_linear),
+    Rule(7, "linear", "a trend test (pearson, spearman, kendall) significant", _rule_linear),
 )
 
 
@@ -549,6 +559,13 @@ def _reasons(rule: Rule, ev: _Evidence) -> list[str]:
     if rule.number == 1:
         return [ev.degenerate]
     label = rule.label
+    if label == "not tested (trending)":
+        from .serial import trending_reason
+
+        # the estimates stay visible in the table; no sentence here reads them as evidence either way
+        return ["Not tested: " + trending_reason(ev.trending),
+                "Neither dependence nor independence is claimed on levels alone (Yule 1926; Granger & "
+                "Newbold 1974); the differences of the two series can be tested"]
     out: list[str] = []
     if label == "driven by a few points":
         out += _influence_reasons(ev, always=True)
@@ -708,7 +725,8 @@ def class_code_levels(values: np.ndarray) -> int:
 
 
 def classify_pair(x: np.ndarray, y: np.ndarray, results: dict[str, TestResult],
-                  q_values: dict[str, float], *, alpha: float = 0.05, fit=None) -> Pattern:
+                  q_values: dict[str, float], *, alpha: float = 0.05, fit=None,
+                  trending: tuple[str, ...] = ()) -> Pattern:
     """Combine adjusted significance, estimates, Gaussian gaps and influence into a label.
 
     Parameters
@@ -726,6 +744,9 @@ def classify_pair(x: np.ndarray, y: np.ndarray, results: dict[str, TestResult],
     fit : GaussianFit, optional
         The pair's Gaussian fit if already computed (saves the Henze-Zirkler
         test); computed here otherwise.
+    trending : tuple of str
+        Names of the sides found trending when the rows are in time order
+        (``--ordered``); any gives "not tested (trending)" (rule 2).
 
     Returns
     -------
@@ -755,6 +776,7 @@ def classify_pair(x: np.ndarray, y: np.ndarray, results: dict[str, TestResult],
     'linear'
     """
     ev = _gather(x, y, results or {}, q_values or {}, float(alpha), fit)
+    ev.trending = tuple(trending)
     for rule in RULES:
         if rule.holds(ev):
             break
@@ -803,8 +825,10 @@ def label_evidence(x: np.ndarray, y: np.ndarray, results: dict[str, TestResult],
     return LabelEvidence(ev, dict(results or {}))
 
 
-def label_from_evidence(gathered: LabelEvidence, q_values: dict[str, float]) -> str:
-    """The label :func:`classify_pair` gives, from :func:`label_evidence` and the q-values.
+def label_from_evidence(gathered: LabelEvidence, q_values: dict[str, float],
+                        trending: tuple[str, ...] = ()) -> str:
+    """The label :func:`classify_pair` gives, from :func:`label_evidence` and the q-values
+    (``trending`` as there).
 
     Examples
     --------
@@ -817,9 +841,11 @@ def label_from_evidence(gathered: LabelEvidence, q_values: dict[str, float]) -> 
     >>> label_from_evidence(label_evidence(x, y, res), q) == classify_pair(x, y, res, q).label
     True
     """
+    if trending:
+        return RULES[1].label
     if not isinstance(gathered, LabelEvidence):  # a pair with a categorical side (core.verdict_categorical)
         return gathered.label(q_values or {})
-    ev = dataclasses.replace(gathered.evidence, q={}, q_from_p=[])
+    ev = dataclasses.replace(gathered.evidence, q={}, q_from_p=[], trending=tuple(trending))
     _set_q(ev, gathered.results, q_values or {})
     for rule in RULES:
         if rule.holds(ev):
