@@ -79,6 +79,7 @@ import numpy as np
 from .. import config
 from .registry import MEASURES
 from .results import TestResult
+from .numbers import fmt_est, fmt_p
 
 __all__ = ["Pattern", "LABELS", "RULES", "Rule", "classify_pair", "influence_on_r", "rank_rank", "LabelEvidence",
            "label_evidence", "label_from_evidence", "marginals_normal_not_joint"]
@@ -189,18 +190,13 @@ class Rule:
 
 # -- private helpers --------------------------------------------------------
 
-def _fmt(v: float, digits: int = 2) -> str:
-    if v is None or not math.isfinite(v):
-        return "n/a"
-    return f"{v:.{digits}f}"
+def _fmt(v: float) -> str:
+    # the one number rule of every face (pairlens.core.numbers): the same digits as the tables beside
+    return fmt_est(v)
 
 
 def _fmt_q(q: float | None, name: str = "q") -> str:
-    if q is None or not math.isfinite(q):
-        return f"{name} n/a"
-    if q < 0.001:
-        return f"{name} < 0.001"
-    return f"{name} = {q:.3f}"
+    return f"{name} = {fmt_p(q)}"
 
 
 _PRETTY = {n: m.short_label or m.label for n, m in MEASURES.items()}
@@ -604,7 +600,7 @@ def _reasons(rule: Rule, ev: _Evidence) -> list[str]:
         if dr:
             out.append(dr)
         if label == "linear" and math.isfinite(ev.loo_max_change) and ev.loo_max_change <= 0.05:
-            out.append(f"r is stable: no single point moves it by more than {_fmt(ev.loo_max_change, 3)}")
+            out.append(f"r is stable: no single point moves it by more than {_fmt(ev.loo_max_change)}")
         out += _influence_reasons(ev, always=False)
     out += _normality_reasons(ev)
     out += _missing_reasons(ev, label)
