@@ -240,3 +240,21 @@ def test_slice_of_degenerate_fit_is_nan():
     s = slice_conditional(fit_gaussian(np.ones(10), np.arange(10.0)), 1.0, 0.5)
     assert math.isnan(s.mean) and math.isnan(s.sd)
     assert observed_slice(np.arange(5.0), np.arange(5.0), 100.0, 1.0)[0] == 0
+
+
+@pytest.mark.parametrize("kind", ["normal", "exponential", "t3", "rounded"])
+def test_dagostino_pearson_equals_scipy_normaltest(kind):
+    # reference: scipy.stats.normaltest (D'Agostino & Pearson 1973); our copy avoids importing
+    # scipy.stats in commands that fit a Gaussian on more than SHAPIRO_MAX_ROWS rows
+    from scipy import stats
+
+    from pairlens.core.gaussian import _dagostino_pearson
+
+    rng = np.random.default_rng(["normal", "exponential", "t3", "rounded"].index(kind))
+    n = 6000
+    v = {"normal": rng.normal(size=n), "exponential": rng.exponential(size=n),
+         "t3": rng.standard_t(3, size=n), "rounded": np.round(rng.normal(size=n) * 3)}[kind] * 7.5 + 40.0
+    ref = stats.normaltest(v)
+    statistic, p = _dagostino_pearson(v)
+    assert statistic == pytest.approx(float(ref.statistic), rel=1e-12)
+    assert p == pytest.approx(float(ref.pvalue), rel=1e-12, abs=1e-300)
