@@ -252,7 +252,7 @@ def _run(args, table):
     try:
         result = run_analysis(table.data, table.columns, settings, workers=args.workers,
                               cluster=args.cluster, progress=bar, path=getattr(args, "path", "auto"),
-                              streamed=getattr(args, "streamed", False))
+                              streamed=getattr(args, "streamed", False), top=getattr(args, "top", None))
     finally:
         bar.finish()
     _serial_note(args, result.serial, settings.ordered is not None)

@@ -31,7 +31,7 @@ from .. import config
 from . import linear, rank
 
 __all__ = ["MeasureArrays", "WidePairs", "WideCancelled", "WIDE_MEASURES", "fisher_intervals", "head_adjusted",
-           "key_histogram", "pair_blocks", "pair_matrix"]
+           "key_histogram", "KEY_BINS", "pair_blocks", "pair_matrix"]
 
 # Measures this module computes (the engine takes the matrix path only when every chosen measure is here).
 WIDE_MEASURES = ("pearson", "spearman")
@@ -611,7 +611,7 @@ def _prepare_ties(cols: _Columns) -> None:
 _FIELDS = ("estimate", "p_value", "ci_low", "ci_high", "n", "method", "note", "fallback", "batched")
 # Bins of the first pass over p-values: the top 24 bits of the double (sign, exponent, 12 bits of mantissa)
 _KEY_SHIFT = 40
-_KEY_BINS = (0x3FF0000000000000 >> _KEY_SHIFT) + 1          # 1.0 is the largest p-value
+KEY_BINS = (0x3FF0000000000000 >> _KEY_SHIFT) + 1          # 1.0 is the largest p-value
 _GATHER_MAX = 1 << 22           # values gathered and sorted at once when the candidate bins hold this few
 _SUB_BINS = 1 << 22             # bins of a refinement pass
 
@@ -693,7 +693,7 @@ def _run_blocks(data, measures, pearson_test, confidence, block_elements, thread
 def key_histogram(p: np.ndarray) -> np.ndarray:
     """Counts of non-negative p-values (no NaN) in the first-pass bins of :func:`head_adjusted`."""
     keys = (np.asarray(p, dtype=float) + 0.0).view(np.int64) >> _KEY_SHIFT    # + 0.0: -0.0 becomes 0.0
-    return np.bincount(keys, minlength=_KEY_BINS)
+    return np.bincount(keys, minlength=KEY_BINS)
 
 
 def _bin_bounds(lo_keys, hi_keys, ends, m):
@@ -706,7 +706,7 @@ def _bin_bounds(lo_keys, hi_keys, ends, m):
 def _bh_tail_min(m: int, k: int, chunks, histogram=None) -> float:
     """min over ranks j > k of m p_(j) / j, exactly (see :func:`head_adjusted`); values above 1 as 1."""
     if histogram is None:
-        histogram = np.zeros(_KEY_BINS, np.int64)
+        histogram = np.zeros(KEY_BINS, np.int64)
         for part in chunks():
             histogram += key_histogram(part)
     # candidates: bin ids at this shift, the count of values below each, and each bin's count
