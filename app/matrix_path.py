@@ -221,6 +221,10 @@ def _merge_head(head, arr, i, j, start, resolved, top):
     if head is not None and head["p_value"].size >= top:
         keep &= p <= head["p_value"][-1]
     ks = np.flatnonzero(keep)
+    if ks.size > top:
+        # only rows at or below the block's top-th smallest p-value can enter (ties kept)
+        bound = np.partition(p[ks], top - 1)[top - 1]
+        ks = ks[p[ks] <= bound]
     new = {"estimate": arr.estimate[ks], "p_value": p[ks], "ci_low": arr.ci_low[ks], "ci_high": arr.ci_high[ks],
            "n": arr.n[ks], "method": arr.method[ks], "note": arr.note[ks], "resolved": resolved[ks],
            "i": i[ks], "j": j[ks], "index": start + ks}
