@@ -658,6 +658,23 @@ def _run_blocks(data, measures, pearson_test, confidence, block_elements, thread
     cols = _prepare(data, measures, pearson_test)
     p = cols.data.shape[1]
     total = p * (p - 1) // 2
+    pool = None
+    if threads > 1 and len(measures) > 1 and total > block_elements:
+        from concurrent.futures import ThreadPoolExecutor
+
+        pool = ThreadPoolExecutor(max_workers=len(measures))
+    try:
+        yield from _block_loop(cols, measures, pearson_test, confidence, block_elements, threads, labels, counts,
+                               intervals, progress, cancel, pool)
+    finally:
+        if pool is not None:
+            pool.shutdown()
+
+
+def _block_loop(cols, measures, pearson_test, confidence, block_elements, threads, labels, counts, intervals,
+                progress, cancel, pool):
+    p = cols.data.shape[1]
+    total = p * (p - 1) // 2
     start = 0
     row = 0
     while row < p - 1:
@@ -671,8 +688,8 @@ def _run_blocks(data, measures, pearson_test, confidence, block_elements, thread
         rows_i = np.arange(row, stop)
         cols_j = np.arange(row + 1, p)
         keep = (cols_j[None, :] > rows_i[:, None]).ravel()
-        out = {}
-        for m in measures:
+
+        def one(m, rows_i=rows_i, cols_j=cols_j, keep=keep):
             block = MeasureArrays.empty(rows_i.size * cols_j.size)
             lm, ln = labels[m]
             if m == "pearson":
@@ -680,8 +697,14 @@ def _run_blocks(data, measures, pearson_test, confidence, block_elements, thread
                                intervals)
             else:
                 _spearman_block(cols, rows_i, cols_j, block, confidence, lm, ln, counts, intervals)
-            kept = MeasureArrays(*(getattr(block, name)[keep] for name in _FIELDS))
-            out[m] = kept
+            return MeasureArrays(*(getattr(block, name)[keep] for name in _FIELDS))
+
+        if pool is not None:
+            # NumPy's and SciPy's elementwise loops and BLAS release the GIL: the measures share the cores
+            futures = {m: pool.submit(one, m) for m in measures}
+            out = {m: futures[m].result() for m in measures}
+        else:
+            out = {m: one(m) for m in measures}
         ii, jj = np.meshgrid(rows_i.astype(np.int32), cols_j.astype(np.int32), indexing="ij")
         yield start, start + size, ii.ravel()[keep], jj.ravel()[keep], out
         start += size
