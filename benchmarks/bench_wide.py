@@ -104,6 +104,9 @@ def main() -> None:
                     help="skip the baseline above this many pairs (it holds full matrices and the long table)")
     args = ap.parse_args()
     pairlens = [sys.executable, "-m", "pairlens"]
+    # pairlens reads at most config.MAX_COLUMNS (5,000) columns unless told otherwise
+    widest = max(int(size.lower().split("x")[1]) for size in args.sizes.split(","))
+    os.environ["PAIRLENS_MAX_COLUMNS"] = str(max(widest, int(os.environ.get("PAIRLENS_MAX_COLUMNS", "0") or 0)))
     results = []
     with tempfile.TemporaryDirectory(prefix="bench_wide_") as tmp:
         tmp = Path(tmp)
