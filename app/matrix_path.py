@@ -412,4 +412,5 @@ def check_matrix_plan(n_pairs: int, settings, n_rows: int, streamed: bool, top: 
     elif rows > config.MATRIX_MAX_PAIR_ROWS:
         raise SettingsError(f"this analysis would give {rows:,} pair-table rows; the matrix path streams at most "
                             f"{config.MATRIX_MAX_PAIR_ROWS:,} (config.MATRIX_MAX_PAIR_ROWS, or "
-                            "PAIRLENS_MATRIX_MAX_PAIR_ROWS): choose fewer columns (--columns)")
+                            "PAIRLENS_MATRIX_MAX_PAIR_ROWS): keep each measure's best rows (--top K, q-values still "
+                            "over all pairs) or choose fewer columns (--columns)")
