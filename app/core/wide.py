@@ -663,6 +663,8 @@ def _run_blocks(data, measures, pearson_test, confidence, block_elements, thread
         from concurrent.futures import ThreadPoolExecutor
 
         pool = ThreadPoolExecutor(max_workers=len(measures))
+        # the measures' blocks are in memory at once: together no larger than one block alone
+        block_elements = max(1, block_elements // len(measures))
     try:
         yield from _block_loop(cols, measures, pearson_test, confidence, block_elements, threads, labels, counts,
                                intervals, progress, cancel, pool)
