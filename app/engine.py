@@ -123,11 +123,15 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
             and matrix_path.choose_path(path, settings, variables, n_pairs,
                                         local=executor is None and cluster is None)):
         matrix_path.check_matrix_plan(n_pairs, settings, data.shape[0], streamed, top)
-        with one_blas_thread():  # a threaded BLAS loses to one thread on a busy machine (benchmarks/bench_wide.py)
-            wide = matrix_path.run_matrix(data, variables, settings, row_mask,
-                                          lambda a, b, s: compute_pair(data, a, b, s, row_mask),
-                                          progress=progress, cancel=cancel, started=started, top=top,
-                                          threads=workers or os.cpu_count() or 1)
+        from .core.wide import WideCancelled
+        try:
+            with one_blas_thread():  # a threaded BLAS loses to one thread on a busy machine (bench_wide.py)
+                wide = matrix_path.run_matrix(data, variables, settings, row_mask,
+                                              lambda a, b, s: compute_pair(data, a, b, s, row_mask),
+                                              progress=progress, cancel=cancel, started=started, top=top,
+                                              threads=workers or os.cpu_count() or 1)
+        except WideCancelled:
+            raise AnalysisCancelled("analysis cancelled") from None
         wide.serial = serial_check(data, names)
         return wide
     pairs = pair_indices(variables)

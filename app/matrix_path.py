@@ -137,9 +137,10 @@ def _progress_adapter(progress, started, weight=1.0, offset=0.0):
 
 
 def _cancelled():
-    from .engine import AnalysisCancelled
+    # the engine turns it into its AnalysisCancelled (this module does not import the engine)
+    from .core.wide import WideCancelled
 
-    return AnalysisCancelled("analysis cancelled")
+    return WideCancelled("analysis cancelled")
 
 
 def _resolve(arr, ks, i, j, variables, per_pair, single, labels_n, labels_m, cancel=None):
@@ -167,27 +168,22 @@ def run_matrix(data: np.ndarray, variables, settings, row_mask, per_pair: Callab
     ``top``: keep only each measure's ``top`` rows of smallest q-value (:class:`TopPairTable`), the
     pairs taken in blocks so that no array spans all pairs; otherwise a :class:`WidePairTable` of
     every pair. ``progress(fraction, seconds_left)`` is called after each block, ``cancel()``
-    polled before each (True stops the run with :class:`pairlens.engine.AnalysisCancelled`)."""
+    polled before each (True stops the run with :class:`pairlens.core.wide.WideCancelled`)."""
     import time
-
-    from .core.wide import WideCancelled
 
     cols = [v.columns[0] for v in variables]
     sub = data[:, cols] if row_mask is None else data[row_mask][:, cols]
     test = linear.resolved_test(settings.test_for("pearson") or None, settings.permutations)
     test = test if test in ("moments", "t") else "moments"
-    try:
-        if top is not None:
-            return _run_top(sub, variables, settings, per_pair, test, top, progress, cancel, started, threads)
-        # the pairs handed back to the per-pair path (Spearman's pairs with missing values) can be
-        # most of the work: then the products count for half of the progress
-        handed_back = "spearman" in settings.measures and not np.isfinite(sub).all()
-        weight = 0.5 if handed_back else 1.0
-        pairs = pair_matrix(sub, measures=settings.measures, pearson_test=test, confidence=settings.confidence,
-                            threads=threads, progress=_progress_adapter(progress, started, weight),
-                            cancel=cancel)
-    except WideCancelled:
-        raise _cancelled() from None
+    if top is not None:
+        return _run_top(sub, variables, settings, per_pair, test, top, progress, cancel, started, threads)
+    # the pairs handed back to the per-pair path (Spearman's pairs with missing values) can be
+    # most of the work: then the products count for half of the progress
+    handed_back = "spearman" in settings.measures and not np.isfinite(sub).all()
+    weight = 0.5 if handed_back else 1.0
+    pairs = pair_matrix(sub, measures=settings.measures, pearson_test=test, confidence=settings.confidence,
+                        threads=threads, progress=_progress_adapter(progress, started, weight),
+                        cancel=cancel)
     todo = sum(int(pairs.measures[m].fallback.sum()) for m in settings.measures)
     done = 0
     for m in settings.measures:

@@ -265,7 +265,7 @@ def test_head_qvalues_equal_scipy_on_the_whole_column(shape, monkeypatch):
          "two_groups": np.concatenate([rng.uniform(size=m // 2) * 1e-8, rng.uniform(size=m // 2)]),
          "zeros": np.concatenate([np.zeros(50), rng.uniform(size=m)])}[shape]
     rng.shuffle(p)
-    chunks = lambda: iter(np.array_split(p, 7))  # noqa: E731
+    chunks = lambda: iter(np.array_split(p, 7))
     # Reference: scipy.stats.false_discovery_control (BH) and the Holm step-down of
     # pairlens.core.testing.adjust_pvalues, each on the whole column
     bh = np.sort(stats.false_discovery_control(p, method="bh"))
