@@ -149,7 +149,8 @@ def build_parser(command: str | None = None) -> argparse.ArgumentParser:
                                 "(default: CSV on standard output); CSV, JSON Lines and Parquet are written in "
                                 "chunks as they go")
         pairs.add_argument("--top", type=int, default=None, metavar="K",
-                           help="only each measure's K rows of smallest q-value, most significant first")
+                           help="only each measure's K rows of smallest q-value, most significant first; on the "
+                                "matrix path the pairs are then taken in blocks, so any number of pairs fits")
         pairs.add_argument("--max-q", type=float, default=None, metavar="Q",
                            help="only rows with q-value at most Q (q-values are over all pairs either way)")
         pairs.add_argument("--path", choices=("auto", "matrix", "pairs"), default="auto",
@@ -258,7 +259,7 @@ def _run(args, table):
     try:
         result = run_analysis(table.data, table.columns, settings, workers=args.workers,
                               cluster=args.cluster, progress=bar, path=getattr(args, "path", "auto"),
-                              streamed=getattr(args, "streamed", False))
+                              streamed=getattr(args, "streamed", False), top=getattr(args, "top", None))
     finally:
         bar.finish()
     _serial_note(args, result.serial, settings.ordered is not None)

@@ -64,7 +64,7 @@ MAX_UPLOAD_MB = 200
 # one is refused with 413 instead of being buffered.
 MAX_REQUEST_BODY_KB = 1024
 MAX_ROWS = _env_int("PAIRLENS_MAX_ROWS", 5_000_000)
-MAX_COLUMNS = 5_000
+MAX_COLUMNS = _env_int("PAIRLENS_MAX_COLUMNS", 5_000)   # the matrix path with --top takes more (bench_wide.py)
 # Cells (rows x columns of the file, every column) read from one file: the float64 table alone
 # is 8 bytes a cell, the parsers need several times that while they work.
 MAX_CELLS = _env_int("PAIRLENS_MAX_CELLS", 20_000_000)

@@ -64,7 +64,7 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
                  executor: Executor | None = None,
                  progress: ProgressCallback | None = None,
                  cancel: Callable[[], bool] | None = None, verdicts: bool = False, path: str = "auto",
-                 streamed: bool = False) -> PairTable:
+                 streamed: bool = False, top: int | None = None) -> PairTable:
     """Compute the pair table for ``settings`` on ``data`` (n, p) with column ``names``.
 
     Parameters
@@ -100,6 +100,10 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
     streamed : bool
         The caller streams the table to a file: a matrix-path run may then give
         up to ``config.MATRIX_MAX_PAIR_ROWS`` rows instead of ``MAX_PAIR_ROWS``.
+    top : int, optional
+        A matrix-path run keeps only each measure's ``top`` rows of smallest
+        q-value (q-values over all pairs), taking the pairs in blocks: any
+        number of pairs (:func:`pairlens.matrix_path.run_matrix`).
     """
     started = time.perf_counter()
     data = np.asarray(data, dtype=np.float64)
@@ -118,11 +122,16 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
     if (not verdicts and settings.ordered is None and given is None
             and matrix_path.choose_path(path, settings, variables, n_pairs,
                                         local=executor is None and cluster is None)):
-        matrix_path.check_matrix_plan(n_pairs, settings, data.shape[0], streamed)
-        with one_blas_thread():  # a threaded BLAS loses to one thread on a busy machine (benchmarks/bench_wide.py)
-            wide = matrix_path.run_matrix(data, variables, settings, row_mask,
-                                          lambda a, b, s: compute_pair(data, a, b, s, row_mask),
-                                          progress=progress, started=started, threads=workers or os.cpu_count() or 1)
+        matrix_path.check_matrix_plan(n_pairs, settings, data.shape[0], streamed, top)
+        from .core.wide import WideCancelled
+        try:
+            with one_blas_thread():  # a threaded BLAS loses to one thread on a busy machine (bench_wide.py)
+                wide = matrix_path.run_matrix(data, variables, settings, row_mask,
+                                              lambda a, b, s: compute_pair(data, a, b, s, row_mask),
+                                              progress=progress, cancel=cancel, started=started, top=top,
+                                              threads=workers or os.cpu_count() or 1)
+        except WideCancelled:
+            raise AnalysisCancelled("analysis cancelled") from None
         wide.serial = serial_check(data, names)
         return wide
     pairs = pair_indices(variables)

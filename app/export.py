@@ -85,14 +85,29 @@ class _LongTable:
             i, j, names, arrays = table.columns()
             m = len(self.measure_names)
             self.names = [str(v) for v in names]
-            self._pair = np.repeat(np.arange(i.size), m)
-            self._measure = np.tile(np.arange(m), i.size)
             self._i, self._j, self._arrays = i, j, [arrays[name] for name in self.measure_names]
-            self.q = np.empty(i.size * m)
-            self.p = np.empty(i.size * m)
-            self.estimate = np.empty(i.size * m)
-            for k, a in enumerate(self._arrays):
-                self.q[k::m], self.p[k::m], self.estimate[k::m] = a.q_value, a.p_value, a.estimate
+            layout = getattr(table, "row_layout", None)
+            if layout is None:
+                # every pair once per measure (pairlens.matrix_path.WidePairTable)
+                # int32 while it fits: these two index every row (72 MB each at 9 million rows in int64)
+                itype = np.int32 if i.size * m < 2 ** 31 else np.int64
+                self._pair = np.repeat(np.arange(i.size, dtype=itype), m)
+                self._measure = np.tile(np.arange(m, dtype=itype), i.size)
+                self.q = np.empty(i.size * m)
+                self.p = np.empty(i.size * m)
+                self.estimate = np.empty(i.size * m)
+                for k, a in enumerate(self._arrays):
+                    self.q[k::m], self.p[k::m], self.estimate[k::m] = a.q_value, a.p_value, a.estimate
+            else:
+                # rows that differ by measure (pairlens.matrix_path.TopPairTable)
+                self._pair, self._measure = layout()
+                self.q = np.empty(self._pair.size)
+                self.p = np.empty(self._pair.size)
+                self.estimate = np.empty(self._pair.size)
+                for k, a in enumerate(self._arrays):
+                    sel = self._measure == k
+                    at = self._pair[sel]
+                    self.q[sel], self.p[sel], self.estimate[sel] = a.q_value[at], a.p_value[at], a.estimate[at]
         else:
             rows = table.rows
             self._rows = rows
@@ -167,6 +182,8 @@ def select_rows(long: _LongTable, top: int | None = None, max_q: float | None = 
     (then smallest p, then largest |estimate|), in that order."""
     import numpy as np
 
+    if max_q is None and top is None:
+        return np.arange(long.size, dtype=np.int32 if long.size < 2 ** 31 else np.int64)
     keep = np.ones(long.size, dtype=bool)
     if max_q is not None:
         keep &= long.q <= max_q

@@ -22,7 +22,7 @@ from .core import linear
 from .core.testing import adjust_pvalues
 from .core.wide import WIDE_MEASURES, pair_matrix
 
-__all__ = ["PATHS", "matrix_applies", "run_matrix", "WidePairTable"]
+__all__ = ["PATHS", "matrix_applies", "run_matrix", "TopPairTable", "WidePairTable"]
 
 PATHS = ("auto", "matrix", "pairs")
 
@@ -123,39 +123,261 @@ class WidePairTable:
         return self.pairs.i, self.pairs.j, self.variables, self.pairs.measures
 
 
+def _progress_adapter(progress, started, weight=1.0, offset=0.0):
+    """``progress(fraction, seconds_left)`` from a fraction of one phase of the run."""
+    import time
+
+    def report(fraction: float) -> None:
+        if progress is None:
+            return
+        done = offset + weight * fraction
+        elapsed = time.perf_counter() - started
+        progress(done, elapsed / done * (1.0 - done) if done > 0 else float("nan"))
+    return report
+
+
+def _cancelled():
+    # the engine turns it into its AnalysisCancelled (this module does not import the engine)
+    from .core.wide import WideCancelled
+
+    return WideCancelled("analysis cancelled")
+
+
+def _resolve(arr, ks, i, j, variables, per_pair, single, labels_n, labels_m, cancel=None):
+    """The per-pair path's rows for the pairs ``ks`` of ``arr`` (those the matrix form hands back)."""
+    for count, k in enumerate(ks.tolist()):
+        if cancel is not None and count % 256 == 255 and cancel():
+            raise _cancelled()
+        (row,) = per_pair(variables[i[k]], variables[j[k]], single)
+        arr.estimate[k], arr.p_value[k], arr.ci_low[k], arr.ci_high[k] = (
+            row.estimate, row.p_value, row.ci_low, row.ci_high)
+        arr.n[k] = row.n
+        for text, table, lst, field in ((row.note, labels_n, arr.notes, arr.note),
+                                        (row.method, labels_m, arr.methods, arr.method)):
+            if text not in table:
+                table[text] = len(lst)
+                lst.append(text)
+            field[k] = table[text]
+
+
 def run_matrix(data: np.ndarray, variables, settings, row_mask, per_pair: Callable, *,
-               progress=None, started: float = 0.0, threads: int = 1) -> WidePairTable:
+               progress=None, cancel=None, started: float = 0.0, threads: int = 1, top: int | None = None):
     """All pairs of ``variables`` by the matrix path; ``per_pair(xvar, yvar, measure_settings)`` gives the
-    per-pair path's rows for the pairs the matrix form hands back."""
+    per-pair path's rows for the pairs the matrix form hands back.
+
+    ``top``: keep only each measure's ``top`` rows of smallest q-value (:class:`TopPairTable`), the
+    pairs taken in blocks so that no array spans all pairs; otherwise a :class:`WidePairTable` of
+    every pair. ``progress(fraction, seconds_left)`` is called after each block, ``cancel()``
+    polled before each (True stops the run with :class:`pairlens.core.wide.WideCancelled`)."""
     import time
 
     cols = [v.columns[0] for v in variables]
     sub = data[:, cols] if row_mask is None else data[row_mask][:, cols]
     test = linear.resolved_test(settings.test_for("pearson") or None, settings.permutations)
-    pairs = pair_matrix(sub, measures=settings.measures, pearson_test=test if test in ("moments", "t") else "moments",
-                        confidence=settings.confidence, threads=threads)
+    test = test if test in ("moments", "t") else "moments"
+    if top is not None:
+        return _run_top(sub, variables, settings, per_pair, test, top, progress, cancel, started, threads)
+    # the pairs handed back to the per-pair path (Spearman's pairs with missing values) can be
+    # most of the work: then the products count for half of the progress
+    handed_back = "spearman" in settings.measures and not np.isfinite(sub).all()
+    weight = 0.5 if handed_back else 1.0
+    pairs = pair_matrix(sub, measures=settings.measures, pearson_test=test, confidence=settings.confidence,
+                        threads=threads, progress=_progress_adapter(progress, started, weight),
+                        cancel=cancel)
+    todo = sum(int(pairs.measures[m].fallback.sum()) for m in settings.measures)
+    done = 0
     for m in settings.measures:
         arr = pairs.measures[m]
         single = replace(settings, measures=(m,))
         labels_n = {t: k for k, t in enumerate(arr.notes)}
         labels_m = {t: k for k, t in enumerate(arr.methods)}
-        for k in np.flatnonzero(arr.fallback):
-            (row,) = per_pair(variables[pairs.i[k]], variables[pairs.j[k]], single)
-            arr.estimate[k], arr.p_value[k], arr.ci_low[k], arr.ci_high[k] = (
-                row.estimate, row.p_value, row.ci_low, row.ci_high)
-            arr.n[k] = row.n
-            for text, table, lst, field in ((row.note, labels_n, arr.notes, arr.note),
-                                            (row.method, labels_m, arr.methods, arr.method)):
-                if text not in table:
-                    table[text] = len(lst)
-                    lst.append(text)
-                field[k] = table[text]
+        ks = np.flatnonzero(arr.fallback)
+        report = _progress_adapter(progress, started, 1.0 - weight, weight)
+        for part in np.array_split(ks, max(1, ks.size // 2000)):
+            _resolve(arr, part, pairs.i, pairs.j, variables, per_pair, single, labels_n, labels_m, cancel)
+            done += part.size
+            if todo:
+                report(done / todo)
         arr.q_value = adjust_pvalues(arr.p_value, settings.adjust)
     if progress is not None:
         progress(1.0, 0.0)
     table = WidePairTable([v.name for v in variables], settings.measures, settings, pairs)
     table.seconds = time.perf_counter() - started
     return table
+
+
+_HEAD_FIELDS = ("estimate", "p_value", "ci_low", "ci_high", "n", "method", "note", "resolved", "i", "j", "index")
+
+
+def _merge_head(head, arr, i, j, start, resolved, top):
+    """The ``top`` rows of smallest p-value so far (ties: larger |estimate|, then earlier pair),
+    as in :func:`pairlens.export.select_rows`."""
+    p = arr.p_value
+    keep = ~np.isnan(p)
+    if head is not None and head["p_value"].size >= top:
+        keep &= p <= head["p_value"][-1]
+    ks = np.flatnonzero(keep)
+    if ks.size > top:
+        # only rows at or below the block's top-th smallest p-value can enter (ties kept)
+        bound = np.partition(p[ks], top - 1)[top - 1]
+        ks = ks[p[ks] <= bound]
+    new = {"estimate": arr.estimate[ks], "p_value": p[ks], "ci_low": arr.ci_low[ks], "ci_high": arr.ci_high[ks],
+           "n": arr.n[ks], "method": arr.method[ks], "note": arr.note[ks], "resolved": resolved[ks],
+           "i": i[ks], "j": j[ks], "index": start + ks}
+    if head is not None:
+        new = {f: np.concatenate([head[f], new[f]]) for f in _HEAD_FIELDS}
+    order = np.lexsort((new["index"], -np.abs(np.nan_to_num(new["estimate"])), new["p_value"]))[:top]
+    return {f: new[f][order] for f in _HEAD_FIELDS}
+
+
+def _run_top(sub, variables, settings, per_pair, test, top, progress, cancel, started, threads):
+    """Each measure's ``top`` rows of smallest p-value, blocks of pairs at a time. Every p-value goes
+    to a temporary file (8 bytes a pair, not held in memory) and into a histogram, from which
+    :func:`pairlens.core.wide.head_adjusted` gives the kept rows the q-values of the whole column."""
+    import tempfile
+    import time
+    from pathlib import Path
+
+    from .core.wide import KEY_BINS, fisher_intervals, head_adjusted, key_histogram, pair_blocks
+
+    measures = settings.measures
+    heads = {m: None for m in measures}
+    histograms = {m: np.zeros(KEY_BINS, np.int64) for m in measures}
+    present = {m: 0 for m in measures}
+    label_maps = {}
+    labels = {}
+    report = _progress_adapter(progress, started)
+    total = 0
+    with tempfile.TemporaryDirectory(prefix="pairlens_pvalues_") as tmp:
+        paths = {m: Path(tmp) / f"{m}.f8" for m in measures}
+        files = {m: open(paths[m], "wb") for m in measures}
+        try:
+            for start, stop, i, j, block, total in pair_blocks(sub, measures=measures, pearson_test=test,
+                                                               confidence=settings.confidence, threads=threads,
+                                                               intervals=False, cancel=cancel):
+                for m in measures:
+                    arr = block[m]
+                    labels[m] = (arr.methods, arr.notes)
+                    if m not in label_maps:
+                        label_maps[m] = ({}, {})
+                    labels_n, labels_m = label_maps[m]
+                    for t_map, lst in ((labels_n, arr.notes), (labels_m, arr.methods)):
+                        t_map.update({t: k for k, t in enumerate(lst) if t not in t_map})
+                    ks = np.flatnonzero(arr.fallback)
+                    if ks.size:
+                        _resolve(arr, ks, i, j, variables, per_pair, replace(settings, measures=(m,)),
+                                 labels_n, labels_m, cancel)
+                    values = arr.p_value[~np.isnan(arr.p_value)]
+                    values.tofile(files[m])
+                    histograms[m] += key_histogram(values)
+                    present[m] += values.size
+                    heads[m] = _merge_head(heads[m], arr, i, j, start, arr.fallback, top)
+                report(0.97 * stop / max(total, 1))
+        finally:
+            for fh in files.values():
+                fh.close()
+        kept = {}
+        for m in measures:
+            head = heads[m] or _merge_head(None, _empty_arrays(), np.empty(0, np.int32), np.empty(0, np.int32), 0,
+                                           np.empty(0, bool), top)
+
+            def chunks(path=paths[m]):
+                # read back in slices of 16M p-values (128 MB)
+                with open(path, "rb") as fh:
+                    while True:
+                        part = np.fromfile(fh, dtype=np.float64, count=1 << 24)
+                        if part.size == 0:
+                            return
+                        yield part
+
+            head["q_value"] = head_adjusted(head["p_value"], present[m], chunks, settings.adjust, histograms[m])
+            # the intervals the blocks skipped, for the kept rows (pairs from the per-pair path have theirs)
+            fill = ~head["resolved"]
+            low, high = fisher_intervals(m, head["estimate"][fill], head["n"][fill], settings.confidence)
+            head["ci_low"][fill], head["ci_high"][fill] = low, high
+            methods, notes = labels.get(m, ([""], [""]))
+            head["methods"], head["notes"] = list(methods), list(notes)
+            kept[m] = head
+    if progress is not None:
+        progress(1.0, 0.0)
+    table = TopPairTable([v.name for v in variables], measures, settings, kept, total, present)
+    table.seconds = time.perf_counter() - started
+    return table
+
+
+def _empty_arrays():
+    from .core.wide import MeasureArrays
+
+    return MeasureArrays.empty(0)
+
+
+class TopPairTable:
+    """Each measure's rows of smallest q-value (at most ``top``) from a matrix-path run over
+    ``pairs`` pairs; q-values are those of the whole column of ``present[m]`` p-values.
+
+    Offers what the writers of :mod:`pairlens.export` and ``pairlens pairs`` need: ``columns``
+    with ``row_layout`` (rows differ by measure), ``rows`` and ``records``."""
+
+    def __init__(self, variables, measures, settings, heads, pairs, present, seconds=0.0):
+        from .core.wide import MeasureArrays
+
+        self.variables = list(variables)
+        self.measures = tuple(measures)
+        self.settings = settings
+        self.pairs_total = int(pairs)
+        self.present = present
+        self.seconds = seconds
+        sizes = [heads[m]["p_value"].size for m in self.measures]
+        size = sum(sizes)
+        self._i = np.concatenate([heads[m]["i"] for m in self.measures]).astype(np.int64)
+        self._j = np.concatenate([heads[m]["j"] for m in self.measures]).astype(np.int64)
+        self._measure = np.repeat(np.arange(len(self.measures)), sizes)
+        self._arrays = {}
+        at = 0
+        for m, k in zip(self.measures, sizes):
+            arr = MeasureArrays.empty(size)
+            sl = slice(at, at + k)
+            for f in ("estimate", "p_value", "ci_low", "ci_high", "n", "method", "note"):
+                getattr(arr, f)[sl] = heads[m][f]
+            arr.q_value = np.full(size, np.nan)
+            arr.q_value[sl] = heads[m]["q_value"]
+            arr.methods, arr.notes = heads[m]["methods"], heads[m]["notes"]
+            self._arrays[m] = arr
+            at += k
+        self.serial = None
+        self._rows = None
+
+    def __len__(self) -> int:
+        return int(self._i.size)
+
+    @property
+    def counts(self) -> dict:
+        return {m: {"pairs": self.pairs_total, "p_values": int(self.present[m])} for m in self.measures}
+
+    def columns(self):
+        return self._i, self._j, self.variables, self._arrays
+
+    def row_layout(self):
+        """(pair position, measure index) of each row."""
+        return np.arange(self._i.size), self._measure
+
+    @property
+    def rows(self):
+        if self._rows is None:
+            from .pairtable import PairRow
+
+            out = []
+            for k, (i, j, mk) in enumerate(zip(self._i.tolist(), self._j.tolist(), self._measure.tolist())):
+                m = self.measures[mk]
+                a = self._arrays[m]
+                out.append(PairRow(self.variables[i], self.variables[j], m, float(a.estimate[k]),
+                                   float(a.ci_low[k]), float(a.ci_high[k]), float(a.p_value[k]),
+                                   float(a.q_value[k]), int(a.n[k]), a.notes[a.note[k]], a.methods[a.method[k]]))
+            self._rows = out
+        return self._rows
+
+    def records(self) -> list[dict]:
+        return [r.record() for r in self.rows]
 
 
 def choose_path(path: str, settings, variables, n_pairs: int, *, local: bool = True) -> bool:
@@ -173,14 +395,18 @@ def choose_path(path: str, settings, variables, n_pairs: int, *, local: bool = T
     return not why_not and local and n_pairs >= config.MATRIX_PATH_MIN_PAIRS
 
 
-def check_matrix_plan(n_pairs: int, settings, n_rows: int, streamed: bool) -> None:
-    """The row limit of a matrix-path run: ``MATRIX_MAX_PAIR_ROWS`` when streamed, else the stored table's."""
+def check_matrix_plan(n_pairs: int, settings, n_rows: int, streamed: bool, top: int | None = None) -> None:
+    """The row limit of a matrix-path run: ``MATRIX_MAX_PAIR_ROWS`` when streamed, else the stored table's;
+    none with ``top`` (at most ``top`` rows a measure are kept, the pairs taken in blocks)."""
     from .budget import WorkEstimate, check_plan
 
     rows = n_pairs * len(settings.measures)
+    if top is not None:
+        return
     if not streamed:
         check_plan(WorkEstimate(n_pairs, len(settings.measures), n_rows, 0))
     elif rows > config.MATRIX_MAX_PAIR_ROWS:
         raise SettingsError(f"this analysis would give {rows:,} pair-table rows; the matrix path streams at most "
                             f"{config.MATRIX_MAX_PAIR_ROWS:,} (config.MATRIX_MAX_PAIR_ROWS, or "
-                            "PAIRLENS_MATRIX_MAX_PAIR_ROWS): choose fewer columns (--columns)")
+                            "PAIRLENS_MATRIX_MAX_PAIR_ROWS): keep each measure's best rows (--top K, q-values still "
+                            "over all pairs) or choose fewer columns (--columns)")

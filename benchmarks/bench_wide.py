@@ -17,6 +17,11 @@ log pairs over the sizes) are printed as a Markdown table. Not a timed test; run
     python benchmarks/bench_wide.py                          # 4 x 1,000 and 4 x 3,000, 3 repeats
     python benchmarks/bench_wide.py --sizes 4x300,4x1000,4x3000 --repeats 3,3,1
     python benchmarks/bench_wide.py --sizes 4x300,4x1000 --repeats 1   # quick look
+    python benchmarks/bench_wide.py --sizes 100x2000,100x6000,100x20000 --repeats 3,3,1 --top 1000 \
+        --pearson-test t          # the 2 x 10^8-pair goal: blocks, --top, q-values over all pairs
+
+Above --baseline-max-pairs (2 x 10^7) the baseline is not run: its two full correlation
+matrices and long table need more than the machine's memory at 20,000 columns.
 
 Timings on a shared machine vary; compare the ratios measured in the same run.
 """
@@ -91,8 +96,17 @@ def main() -> None:
     ap.add_argument("--sizes", default="4x1000,4x3000", help="ROWSxCOLUMNS,... (default 4x1000,4x3000)")
     ap.add_argument("--repeats", default="3", help="runs of each side per size: one number, or one per size (3,3,1)")
     ap.add_argument("--seed", type=int, default=19)
+    ap.add_argument("--top", type=int, default=None, metavar="K",
+                    help="pairlens keeps each measure's K rows of smallest q-value (q over all pairs), in blocks")
+    ap.add_argument("--pearson-test", default=None, choices=("moments", "t"),
+                    help="pairlens's Pearson p-value (default: its default, the moment law)")
+    ap.add_argument("--baseline-max-pairs", type=float, default=2e7,
+                    help="skip the baseline above this many pairs (it holds full matrices and the long table)")
     args = ap.parse_args()
     pairlens = [sys.executable, "-m", "pairlens"]
+    # pairlens reads at most config.MAX_COLUMNS (5,000) columns unless told otherwise
+    widest = max(int(size.lower().split("x")[1]) for size in args.sizes.split(","))
+    os.environ["PAIRLENS_MAX_COLUMNS"] = str(max(widest, int(os.environ.get("PAIRLENS_MAX_COLUMNS", "0") or 0)))
     results = []
     with tempfile.TemporaryDirectory(prefix="bench_wide_") as tmp:
         tmp = Path(tmp)
@@ -107,36 +121,45 @@ def main() -> None:
             _write_table(src, rows, cols, args.seed)
             times = {"baseline": [], "pairlens": []}
             memory = {"baseline": [], "pairlens": []}
+            pairs = cols * (cols - 1) // 2
+            ours = pairlens + ["pairs", str(src), "--measures", "pearson,spearman", "-o", str(tmp / "p.csv")]
+            if args.top:
+                ours += ["--top", str(args.top)]
+            if args.pearson_test:
+                ours += ["--test", f"pearson={args.pearson_test}"]
+            sides = [("pairlens", ours)]
+            if pairs <= args.baseline_max_pairs:
+                sides.insert(0, ("baseline", [sys.executable, str(script), str(src), str(tmp / "b.csv")]))
             for _ in range(runs):
-                for name, cmd in (("baseline", [sys.executable, str(script), str(src), str(tmp / "b.csv")]),
-                                  ("pairlens", pairlens + ["pairs", str(src), "--measures", "pearson,spearman",
-                                                           "-o", str(tmp / "p.csv")])):
+                for name, cmd in sides:
                     wall, peak = _run(cmd)
                     times[name].append(wall)
                     memory[name].append(peak)
                     print(f"{size} {name}: {wall:.1f} s, {peak:.0f} MB", file=sys.stderr, flush=True)
-            pairs = cols * (cols - 1) // 2
             with (tmp / "p.csv").open() as fh:
                 lines = sum(1 for _ in fh) - 1
-            assert lines == 2 * pairs, (lines, pairs)
-            results.append((rows, cols, pairs, {k: statistics.median(v) for k, v in times.items()},
-                            {k: max(v) for k, v in memory.items()}, runs))
+            assert lines == 2 * min(pairs, args.top or pairs), (lines, pairs)
+            results.append((rows, cols, pairs, {k: statistics.median(v) if v else math.nan for k, v in times.items()},
+                            {k: max(v) if v else math.nan for k, v in memory.items()}, runs))
     print(f"\n{time.strftime('%Y-%m-%d')}, {platform.machine()} {os.cpu_count()} cores "
           f"({platform.processor() or platform.platform()}), load average at the end "
           f"{os.getloadavg()[0]:.1f}, medians of whole-process runs (runs per size: {args.repeats})\n")
     print("| table | pairs | baseline wall | pairlens wall | ratio (baseline / pairlens) "
           "| baseline peak MB | pairlens peak MB |")
     print("|---|---|---|---|---|---|---|")
+    def cell(v, fmt):
+        return "not run" if not math.isfinite(v) else fmt.format(v)
+
     for rows, cols, pairs, med, peak, _ in results:
-        print(f"| {rows} x {cols:,} | {pairs:,} | {med['baseline']:.1f} s | {med['pairlens']:.1f} s | "
-              f"{med['baseline'] / med['pairlens']:.2f} | {peak['baseline']:.0f} | {peak['pairlens']:.0f} |")
-    if len(results) >= 2:
-        lp = np.log([r[2] for r in results])
-        for name in ("baseline", "pairlens"):
-            lt = np.log([r[3][name] for r in results])
-            slope = np.polyfit(lp, lt, 1)[0]
+        print(f"| {rows} x {cols:,} | {pairs:,} | {cell(med['baseline'], '{:.1f} s')} | {med['pairlens']:.1f} s | "
+              f"{cell(med['baseline'] / med['pairlens'], '{:.2f}')} | {cell(peak['baseline'], '{:.0f}')} | "
+              f"{peak['pairlens']:.0f} |")
+    for name in ("baseline", "pairlens"):
+        points = [(r[2], r[3][name]) for r in results if math.isfinite(r[3][name])]
+        if len(points) >= 2:
+            slope = np.polyfit(np.log([p for p, _ in points]), np.log([t for _, t in points]), 1)[0]
             print(f"\ntime exponent in pairs, {name}: {slope:.2f}", end="")
-        print()
+    print(f"\noptions: top={args.top}, pearson test={args.pearson_test or 'default'}")
 
 
 if __name__ == "__main__":

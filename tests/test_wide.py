@@ -252,3 +252,93 @@ def test_library_analyze_takes_the_matrix_path():
     # Reference: pandas DataFrame.corr (pairwise-complete Pearson)
     np.testing.assert_allclose(a.matrix("pearson").to_numpy()[~np.eye(8, dtype=bool)],
                                df.corr().to_numpy()[~np.eye(8, dtype=bool)], rtol=1e-12, atol=1e-15)
+
+
+# --- columns too long to hold: blocks, exact q-values of the kept rows, progress and cancel --------
+
+@pytest.mark.parametrize("shape", ["uniform", "skewed", "rounded", "two_groups", "zeros"])
+def test_head_qvalues_equal_scipy_on_the_whole_column(shape, monkeypatch):
+    rng = np.random.default_rng(len(shape))
+    m = 20_000
+    p = {"uniform": rng.uniform(size=m), "skewed": rng.uniform(size=m) ** 6,
+         "rounded": np.round(rng.uniform(size=m), 3),          # ties
+         "two_groups": np.concatenate([rng.uniform(size=m // 2) * 1e-8, rng.uniform(size=m // 2)]),
+         "zeros": np.concatenate([np.zeros(50), rng.uniform(size=m)])}[shape]
+    rng.shuffle(p)
+    chunks = lambda: iter(np.array_split(p, 7))
+    # Reference: scipy.stats.false_discovery_control (BH) and the Holm step-down of
+    # pairlens.core.testing.adjust_pvalues, each on the whole column
+    bh = np.sort(stats.false_discovery_control(p, method="bh"))
+    from pairlens.core.testing import adjust_pvalues
+    holm = np.sort(adjust_pvalues(p, "holm"))
+    # tiny gather and bin limits force every refinement level; the defaults gather at once
+    for gather, sub in ((1, 16), (64, 256), (wide._GATHER_MAX, wide._SUB_BINS)):
+        monkeypatch.setattr(wide, "_GATHER_MAX", gather)
+        monkeypatch.setattr(wide, "_SUB_BINS", sub)
+        for k in (1, 300, p.size - 1, p.size + 3):
+            head = np.sort(p)[:k]
+            np.testing.assert_allclose(wide.head_adjusted(head, p.size, chunks), bh[:k], rtol=1e-13, atol=0)
+            np.testing.assert_array_equal(wide.head_adjusted(head, p.size, chunks, "holm"), holm[:k])
+
+
+@pytest.mark.parametrize("n", [4, 30])
+def test_top_run_in_blocks_equals_the_whole_table_filtered(n):
+    data = _table(n, seed=11)
+    rng = np.random.default_rng(11)
+    data = np.column_stack([data, rng.normal(size=(n, 40)) + data[:, :1]])
+    names = [f"v{k}" for k in range(data.shape[1])]
+    settings = AnalysisSettings(measures=("pearson", "spearman"))
+    whole = run_analysis(data, names, settings, workers=1, path="matrix", streamed=True)
+    top = run_analysis(data, names, settings, workers=1, path="matrix", streamed=True, top=40)
+    assert not isinstance(top, WidePairTable) and len(top) == 80
+    for kw in ({"top": 40}, {"top": 40, "max_q": 0.5}):
+        a, b = io.StringIO(), io.StringIO()
+        write_pairs_stream(whole, a, "csv", **kw)
+        write_pairs_stream(top, b, "csv", **kw)
+        assert a.getvalue() == b.getvalue()
+    rows = list(csv.DictReader(io.StringIO(b.getvalue())))
+    all_rows = whole.records()
+    for m in ("pearson", "spearman"):
+        p = np.array([r["p_value"] for r in all_rows if r["measure"] == m], dtype=float)
+        ref = np.sort(stats.false_discovery_control(p[~np.isnan(p)], method="bh"))
+        shown = np.array([float(r["q_value"]) for r in rows if r["measure"] == m])
+        # Reference: scipy.stats.false_discovery_control on the whole column of p-values
+        np.testing.assert_allclose(np.sort(shown), ref[:shown.size], rtol=1e-12)
+
+
+def test_blocks_report_progress_and_stop_on_cancel():
+    data = np.random.default_rng(12).normal(size=(15, 60))
+    seen = []
+    wp = wide.pair_matrix(data, block_elements=200, progress=seen.append)
+    assert len(seen) > 3 and seen == sorted(seen) and seen[-1] == 1.0
+    ref = wide.pair_matrix(data)
+    threaded = wide.pair_matrix(data, block_elements=200, threads=2)      # a thread per measure
+    for m in ("pearson", "spearman"):
+        for got in (wp, threaded):
+            # other block shapes sum the products in another order: the oracle's tolerance
+            for field in ("estimate", "p_value", "ci_low"):
+                np.testing.assert_allclose(getattr(got.measures[m], field), getattr(ref.measures[m], field),
+                                           rtol=1e-12, atol=1e-15)
+    polls = []
+
+    def cancel():
+        polls.append(1)
+        return len(polls) > 2
+    with pytest.raises(wide.WideCancelled):
+        wide.pair_matrix(data, block_elements=200, cancel=cancel)
+    assert len(polls) == 3        # stopped before the third block
+
+
+@pytest.mark.parametrize("top", [None, 10])
+def test_engine_matrix_path_cancels_and_reports_progress(top):
+    from pairlens.engine import AnalysisCancelled
+
+    data = np.random.default_rng(13).normal(size=(12, 20))
+    names = [f"c{k}" for k in range(20)]
+    settings = AnalysisSettings(measures=("pearson", "spearman"))
+    with pytest.raises(AnalysisCancelled):
+        run_analysis(data, names, settings, workers=1, path="matrix", top=top, cancel=lambda: True)
+    seen = []
+    run_analysis(data, names, settings, workers=1, path="matrix", top=top,
+                 progress=lambda frac, left: seen.append(frac))
+    assert seen and seen[-1] == 1.0 and seen == sorted(seen)

@@ -30,7 +30,8 @@ from .jit import kernel
 from .. import config
 from . import linear, rank
 
-__all__ = ["MeasureArrays", "WidePairs", "WIDE_MEASURES", "pair_matrix"]
+__all__ = ["MeasureArrays", "WidePairs", "WideCancelled", "WIDE_MEASURES", "fisher_intervals", "head_adjusted",
+           "key_histogram", "KEY_BINS", "pair_blocks", "pair_matrix"]
 
 # Measures this module computes (the engine takes the matrix path only when every chosen measure is here).
 WIDE_MEASURES = ("pearson", "spearman")
@@ -96,6 +97,18 @@ def _fisher_interval(est: np.ndarray, se: np.ndarray, confidence: float) -> tupl
     high = np.where(whole, 1.0, high)
     bad = np.isnan(est) | np.isnan(se)
     return np.where(bad, np.nan, low), np.where(bad, np.nan, high)
+
+
+def fisher_intervals(measure: str, est: np.ndarray, n: np.ndarray, confidence: float):
+    """The per-pair kernels' Fisher z intervals over arrays: se 1/sqrt(n-3) (Pearson) or
+    sqrt((1 + rho^2/2)/(n-3)) (Spearman, Bonett & Wright 2000); the whole range up to 3 rows."""
+    n = np.asarray(n)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        if measure == "pearson":
+            se = np.where(n > 3, 1.0 / np.sqrt(np.maximum(n, 4) - 3.0), np.inf)
+        else:
+            se = np.where(n > 3, np.sqrt((1.0 + est * est / 2.0) / (np.maximum(n, 4) - 3)), np.inf)
+    return _fisher_interval(est, se, confidence)
 
 
 def _edgeworth_upper(n: int, s: np.ndarray) -> np.ndarray:
@@ -360,7 +373,8 @@ def _pearson_masked_moments(cols, rows_i, cols_j, xi, yj, sel, n, out, labels_m,
         out.method[exact] = labels_m.code(linear._METHOD_LABELS["exact"])
 
 
-def _pearson_block(cols, rows_i, cols_j, out, test, confidence, labels_m, labels_n, counts, threads=1):
+def _pearson_block(cols, rows_i, cols_j, out, test, confidence, labels_m, labels_n, counts, threads=1,
+                   intervals=True):
     """Fill ``out`` (the pairs of columns rows_i x cols_j, flattened) for Pearson."""
     n_rows = cols.n
     xi, yj = np.meshgrid(rows_i, cols_j, indexing="ij")
@@ -414,10 +428,8 @@ def _pearson_block(cols, rows_i, cols_j, out, test, confidence, labels_m, labels
     out.method[:] = labels_m.code(method_label)
     out.method[few] = labels_m.code("")
     out.estimate[:] = np.where(ok, r, np.nan)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        se = np.where(n > 3, 1.0 / np.sqrt(np.maximum(n, 4) - 3.0), np.inf)
-    low, high = _fisher_interval(out.estimate, se, confidence)
-    out.ci_low[:], out.ci_high[:] = low, high
+    if intervals:
+        out.ci_low[:], out.ci_high[:] = fisher_intervals("pearson", out.estimate, n, confidence)
     three = ok & (n == 3)
     out.note[three] = labels_n.code("interval is the whole range: Fisher z needs more than 3 rows")
     if test == "t":
@@ -514,7 +526,7 @@ def _floor_block(cols, xi, yj, out, ok, counts, measure, labels, grid=None):
     _apply_floor(out, sel, floors, np.full(int(sel.sum()), n_rows), labels)
 
 
-def _spearman_block(cols, rows_i, cols_j, out, confidence, labels_m, labels_n, counts):
+def _spearman_block(cols, rows_i, cols_j, out, confidence, labels_m, labels_n, counts, intervals=True):
     n_rows = cols.n
     xi, yj = np.meshgrid(rows_i, cols_j, indexing="ij")
     xi, yj = xi.ravel(), yj.ravel()
@@ -562,13 +574,10 @@ def _spearman_block(cols, rows_i, cols_j, out, confidence, labels_m, labels_n, c
     rows_needed = ok & ~use_t & tied
     out.fallback[rows_needed] = True
     out.p_value[:] = p
-    if n_rows > 3:
-        se = np.sqrt((1.0 + rho * rho / 2.0) / (n_rows - 3))
-    else:
-        se = np.full(pairs, np.inf)
+    if n_rows <= 3:
         out.note[ok] = labels_n.code("interval is the whole range: Fisher z needs more than 3 rows")
-    low, high = _fisher_interval(rho, se, confidence)
-    out.ci_low[:], out.ci_high[:] = low, high
+    if intervals:
+        out.ci_low[:], out.ci_high[:] = fisher_intervals("spearman", rho, n, confidence)
     _floor_block(cols, xi, yj, out, ok & ~rows_needed, counts, "spearman", labels_n)
 
 
@@ -599,10 +608,207 @@ def _prepare_ties(cols: _Columns) -> None:
     cols.logm, cols.dense, cols.levels = logm, np.asfortranarray(dense), levels
 
 
+_FIELDS = ("estimate", "p_value", "ci_low", "ci_high", "n", "method", "note", "fallback", "batched")
+# Bins of the first pass over p-values: the top 24 bits of the double (sign, exponent, 12 bits of mantissa)
+_KEY_SHIFT = 40
+KEY_BINS = (0x3FF0000000000000 >> _KEY_SHIFT) + 1          # 1.0 is the largest p-value
+_GATHER_MAX = 1 << 22           # values gathered and sorted at once when the candidate bins hold this few
+_SUB_BINS = 1 << 22             # bins of a refinement pass
+
+
+class WideCancelled(RuntimeError):
+    """The caller's ``cancel()`` returned True between two blocks."""
+
+
+def _n_pairs(data) -> int:
+    p = np.asarray(data).shape[1]
+    return p * (p - 1) // 2
+
+
+def _counts(arr: MeasureArrays, total: int) -> dict:
+    return {"pairs": int(total), "per_pair_kernel": int(arr.fallback.sum()),
+            "split_law_batched": int(arr.batched.sum()),
+            "exact_enumeration": int(sum((arr.method == k).sum() for k, label in enumerate(arr.methods)
+                                         if label.startswith("exact")))}
+
+
+def _prepare(data, measures, pearson_test):
+    data = np.asarray(data, dtype=float)
+    if data.ndim != 2:
+        raise ValueError("data must be a 2-D (rows, columns) array")
+    unknown = [m for m in measures if m not in WIDE_MEASURES]
+    if unknown:
+        raise ValueError(f"the matrix path computes {', '.join(WIDE_MEASURES)}; not {', '.join(unknown)}")
+    if pearson_test not in ("moments", "t"):
+        raise ValueError(f"the matrix path's Pearson test is moments or t, not {pearson_test!r}")
+    n_rows, p = data.shape
+    cols = _Columns(data)
+    if "spearman" in measures:
+        _prepare_ranks(cols)
+        if n_rows > _SPEARMAN_EXACT_MAX_N:
+            cols.complete = np.zeros(p, bool)   # integer products would no longer be exact: per pair
+    _prepare_ties(cols)
+    return cols
+
+
+def _run_blocks(data, measures, pearson_test, confidence, block_elements, threads, labels, counts, intervals,
+                progress, cancel):
+    """Blocks of whole rows of the upper triangle (columns row..stop-1 against every later column):
+    yields (start, stop, i, j, {measure: MeasureArrays of the block's pairs})."""
+    cols = _prepare(data, measures, pearson_test)
+    p = cols.data.shape[1]
+    total = p * (p - 1) // 2
+    pool = None
+    if threads > 1 and len(measures) > 1 and total > block_elements:
+        from concurrent.futures import ThreadPoolExecutor
+
+        pool = ThreadPoolExecutor(max_workers=len(measures))
+        # the measures' blocks are in memory at once: together no larger than one block alone
+        block_elements = max(1, block_elements // len(measures))
+    try:
+        yield from _block_loop(cols, measures, pearson_test, confidence, block_elements, threads, labels, counts,
+                               intervals, progress, cancel, pool)
+    finally:
+        if pool is not None:
+            pool.shutdown()
+
+
+def _block_loop(cols, measures, pearson_test, confidence, block_elements, threads, labels, counts, intervals,
+                progress, cancel, pool):
+    p = cols.data.shape[1]
+    total = p * (p - 1) // 2
+    start = 0
+    row = 0
+    while row < p - 1:
+        if cancel is not None and cancel():
+            raise WideCancelled("cancelled between blocks")
+        stop = row + 1
+        size = p - 1 - row
+        while stop < p - 1 and size + (p - 1 - stop) <= block_elements:
+            size += p - 1 - stop
+            stop += 1
+        rows_i = np.arange(row, stop)
+        cols_j = np.arange(row + 1, p)
+        keep = (cols_j[None, :] > rows_i[:, None]).ravel()
+
+        def one(m, rows_i=rows_i, cols_j=cols_j, keep=keep):
+            block = MeasureArrays.empty(rows_i.size * cols_j.size)
+            lm, ln = labels[m]
+            if m == "pearson":
+                _pearson_block(cols, rows_i, cols_j, block, pearson_test, confidence, lm, ln, counts, threads,
+                               intervals)
+            else:
+                _spearman_block(cols, rows_i, cols_j, block, confidence, lm, ln, counts, intervals)
+            return MeasureArrays(*(getattr(block, name)[keep] for name in _FIELDS))
+
+        if pool is not None:
+            # NumPy's and SciPy's elementwise loops and BLAS release the GIL: the measures share the cores
+            futures = {m: pool.submit(one, m) for m in measures}
+            out = {m: futures[m].result() for m in measures}
+        else:
+            out = {m: one(m) for m in measures}
+        ii, jj = np.meshgrid(rows_i.astype(np.int32), cols_j.astype(np.int32), indexing="ij")
+        yield start, start + size, ii.ravel()[keep], jj.ravel()[keep], out
+        start += size
+        row = stop
+        if progress is not None:
+            progress(start / max(total, 1))
+
+
+def key_histogram(p: np.ndarray) -> np.ndarray:
+    """Counts of non-negative p-values (no NaN) in the first-pass bins of :func:`head_adjusted`."""
+    keys = (np.asarray(p, dtype=float) + 0.0).view(np.int64) >> _KEY_SHIFT    # + 0.0: -0.0 becomes 0.0
+    return np.bincount(keys, minlength=KEY_BINS)
+
+
+def _bin_bounds(lo_keys, hi_keys, ends, m):
+    """Lower bound of m p / j over a bin's values and an upper bound of its last value's."""
+    lo = lo_keys.view(np.float64)
+    hi = np.minimum(hi_keys, 0x3FF0000000000000).view(np.float64)
+    return lo * m / ends, hi * m / ends
+
+
+def _bh_tail_min(m: int, k: int, chunks, histogram=None) -> float:
+    """min over ranks j > k of m p_(j) / j, exactly (see :func:`head_adjusted`); values above 1 as 1."""
+    if histogram is None:
+        histogram = np.zeros(KEY_BINS, np.int64)
+        for part in chunks():
+            histogram += key_histogram(part)
+    # candidates: bin ids at this shift, the count of values below each, and each bin's count
+    shift = _KEY_SHIFT
+    ids = np.flatnonzero(histogram)
+    cnt = histogram[ids].astype(np.int64)
+    before = np.cumsum(cnt) - cnt
+    best = 1.0      # q-values are capped at 1: a tail value above 1 changes nothing
+    while True:
+        ends = before + cnt
+        tail = ends > k
+        ids, cnt, before, ends = ids[tail], cnt[tail], before[tail], ends[tail]
+        lo_keys = (ids << shift).astype(np.int64)
+        hi_keys = ((ids + 1) << shift).astype(np.int64)
+        low, high = _bin_bounds(lo_keys, hi_keys, ends.astype(float), m)
+        if shift == 0:
+            # one value a bin: its last rank gives its smallest m p / j
+            return float(min(best, low.min())) if low.size else best
+        best = min(best, float(high.min())) if high.size else best
+        keep = low <= best
+        ids, cnt, before = ids[keep], cnt[keep], before[keep]
+        if ids.size == 0:
+            return best
+        if cnt.sum() <= _GATHER_MAX:
+            return min(best, _gather_min(m, k, chunks, ids, before, shift))
+        bits = max(1, min(shift, int(math.log2(_SUB_BINS // ids.size)) if ids.size < _SUB_BINS else 1))
+        new_shift = shift - bits
+        sub = np.zeros(ids.size << bits, np.int64)
+        first, last = int(ids[0]), int(ids[-1])
+        for part in chunks():
+            key = (np.asarray(part, dtype=float) + 0.0).view(np.int64)
+            top = key >> shift
+            near = (top >= first) & (top <= last)
+            key, top = key[near], top[near]
+            at = np.minimum(np.searchsorted(ids, top), ids.size - 1)
+            hit = ids[at] == top
+            code = (at[hit] << bits) + ((key[hit] >> new_shift) & ((1 << bits) - 1))
+            sub += np.bincount(code, minlength=sub.size)
+        sub = sub.reshape(ids.size, 1 << bits)
+        inner = np.cumsum(sub, axis=1) - sub
+        nonzero = sub > 0
+        owner, slot = np.nonzero(nonzero)
+        before = (before[owner] + inner[owner, slot]).astype(np.int64)
+        cnt = sub[owner, slot]
+        ids = (ids[owner] << bits) + slot
+        shift = new_shift
+
+
+def _gather_min(m, k, chunks, ids, before, shift) -> float:
+    """The candidate bins' values gathered, sorted and ranked: min of m p / j over ranks j > k."""
+    first, last = int(ids[0]), int(ids[-1])
+    found = []
+    for part in chunks():
+        key = (np.asarray(part, dtype=float) + 0.0).view(np.int64)
+        top = key >> shift
+        near = (top >= first) & (top <= last)
+        key, top = key[near], top[near]
+        at = np.minimum(np.searchsorted(ids, top), ids.size - 1)
+        found.append(key[ids[at] == top])
+    keys = np.sort(np.concatenate(found)) if found else np.empty(0, np.int64)
+    if keys.size == 0:
+        return math.inf
+    owner = np.searchsorted(ids, keys >> shift)
+    first_of = np.searchsorted(keys >> shift, ids)          # where each bin's values start
+    rank = before[owner] + (np.arange(keys.size) - first_of[owner]) + 1
+    values = keys.view(np.float64)
+    tail = rank > k
+    if not tail.any():
+        return math.inf
+    return float((values[tail] * m / rank[tail]).min())
+
+
 # --- public function -----------------------------------------------------------------
 
 def pair_matrix(data: np.ndarray, *, measures=WIDE_MEASURES, pearson_test: str = "moments",
-                confidence: float = 0.95, block_elements: int = 2_000_000, threads: int = 1) -> WidePairs:
+                confidence: float = 0.95, block_elements: int = 2_000_000, threads: int = 1,
+                progress=None, cancel=None) -> WidePairs:
     """Pearson and Spearman for every pair of columns, by blocks of matrix products.
 
     Parameters
@@ -621,6 +827,10 @@ def pair_matrix(data: np.ndarray, *, measures=WIDE_MEASURES, pearson_test: str =
         Pairs per block of products (bounds the working memory).
     threads : int
         Threads for the pairs batched through the per-pair kernel (split law).
+    progress : callable, optional
+        ``progress(fraction_of_pairs_done)`` after each block.
+    cancel : callable, optional
+        Polled before each block; True stops the run with :class:`WideCancelled`.
 
     Returns
     -------
@@ -673,56 +883,136 @@ def pair_matrix(data: np.ndarray, *, measures=WIDE_MEASURES, pearson_test: str =
     >>> wp.i.size, bool(wp.measures["pearson"].fallback.any())
     (10, False)
     """
-    data = np.asarray(data, dtype=float)
-    if data.ndim != 2:
-        raise ValueError("data must be a 2-D (rows, columns) array")
-    unknown = [m for m in measures if m not in WIDE_MEASURES]
-    if unknown:
-        raise ValueError(f"the matrix path computes {', '.join(WIDE_MEASURES)}; not {', '.join(unknown)}")
-    if pearson_test not in ("moments", "t"):
-        raise ValueError(f"the matrix path's Pearson test is moments or t, not {pearson_test!r}")
-    n_rows, p = data.shape
-    cols = _Columns(data)
-    if "spearman" in measures:
-        _prepare_ranks(cols)
-        if n_rows > _SPEARMAN_EXACT_MAX_N:
-            cols.complete = np.zeros(p, bool)   # integer products would no longer be exact: per pair
-    _prepare_ties(cols)
-    iu, ju = np.triu_indices(p, k=1)
-    total = iu.size
-    result = {m: MeasureArrays.empty(total) for m in measures}
+    result = None
     labels = {m: (_Labels(), _Labels()) for m in measures}
     counts: dict = {}
-    start = 0
-    row = 0
-    # blocks of whole rows of the upper triangle: columns row..stop-1 against every later column
-    while row < p - 1:
-        stop = row + 1
-        size = p - 1 - row
-        while stop < p - 1 and size + (p - 1 - stop) <= block_elements:
-            size += p - 1 - stop
-            stop += 1
-        rows_i = np.arange(row, stop)
-        cols_j = np.arange(row + 1, p)
-        keep = (cols_j[None, :] > rows_i[:, None]).ravel()
+    for start, stop, _, _, block in _run_blocks(data, measures, pearson_test, confidence, block_elements, threads,
+                                                labels, counts, True, progress, cancel):
+        if result is None:
+            total = _n_pairs(data)
+            result = {m: MeasureArrays.empty(total) for m in measures}
         for m in measures:
-            block = MeasureArrays.empty(rows_i.size * cols_j.size)
-            lm, ln = labels[m]
-            if m == "pearson":
-                _pearson_block(cols, rows_i, cols_j, block, pearson_test, confidence, lm, ln, counts, threads)
-            else:
-                _spearman_block(cols, rows_i, cols_j, block, confidence, lm, ln, counts)
-            dest = result[m]
-            sl = slice(start, start + size)
-            for name in ("estimate", "p_value", "ci_low", "ci_high", "n", "method", "note", "fallback", "batched"):
-                getattr(dest, name)[sl] = getattr(block, name)[keep]
-        start += size
-        row = stop
+            dest, src = result[m], block[m]
+            for name in _FIELDS:
+                getattr(dest, name)[start:stop] = getattr(src, name)
+    p = np.asarray(data).shape[1]
+    if result is None:
+        result = {m: MeasureArrays.empty(0) for m in measures}
+    total = p * (p - 1) // 2
     for m in measures:
         result[m].methods, result[m].notes = labels[m][0].items, labels[m][1].items
-        arr = result[m]
-        counts[m] = {"pairs": int(total), "per_pair_kernel": int(arr.fallback.sum()),
-                     "split_law_batched": int(arr.batched.sum()),
-                     "exact_enumeration": int(sum((arr.method == k).sum() for k, label in enumerate(arr.methods)
-                                                  if label.startswith("exact")))}
+        counts[m] = _counts(result[m], total)
+    iu, ju = np.triu_indices(p, k=1)
     return WidePairs(iu.astype(np.int32), ju.astype(np.int32), result, counts)
+
+
+def pair_blocks(data: np.ndarray, *, measures=WIDE_MEASURES, pearson_test: str = "moments",
+                confidence: float = 0.95, block_elements: int = 1_000_000, threads: int = 1,
+                intervals: bool = True, cancel=None):
+    """:func:`pair_matrix` one block of pairs at a time, for tables whose pairs do not fit in memory.
+
+    Parameters
+    ----------
+    data, measures, pearson_test, confidence, block_elements, threads
+        As in :func:`pair_matrix`.
+    intervals : bool
+        False leaves ``ci_low``/``ci_high`` NaN (fill the rows kept afterwards
+        with :func:`fisher_intervals`): they are most of the elementwise work.
+    cancel : callable, optional
+        Polled before each block; when it returns True the iteration stops with
+        :class:`WideCancelled`.
+
+    Yields
+    ------
+    tuple
+        ``(start, stop, i, j, arrays, labels)``: the pairs ``start:stop`` of the
+        upper triangle in :func:`pair_matrix`'s order, their column indices, a
+        :class:`MeasureArrays` per measure (``methods``/``notes`` hold the labels
+        so far, shared by all blocks) and the number of pairs in all.
+
+    Notes
+    -----
+    Peak memory is the table, its rank scores and one block (about 30 arrays of
+    ``block_elements`` numbers), whatever the number of pairs.
+
+    Examples
+    --------
+    >>> rng = np.random.default_rng(3)
+    >>> parts = list(pair_blocks(rng.normal(size=(20, 30)), block_elements=100))
+    >>> sum(b[1] - b[0] for b in parts), parts[-1][5]
+    (435, 435)
+    """
+    labels = {m: (_Labels(), _Labels()) for m in measures}
+    counts: dict = {}
+    total = _n_pairs(data)
+    for start, stop, i, j, block in _run_blocks(data, measures, pearson_test, confidence, block_elements, threads,
+                                                labels, counts, intervals, None, cancel):
+        for m in measures:
+            block[m].methods, block[m].notes = labels[m][0].items, labels[m][1].items
+        yield start, stop, i, j, block, total
+
+
+def head_adjusted(head: np.ndarray, m: int, chunks, method: str = "bh", histogram=None) -> np.ndarray:
+    r"""Adjusted p-values of the smallest p-values of a column too long to hold, exactly as
+    :func:`pairlens.core.testing.adjust_pvalues` would give them on the whole column.
+
+    Parameters
+    ----------
+    head : numpy.ndarray
+        The K smallest p-values of the column, ascending (no NaN).
+    m : int
+        The number of non-missing p-values in the whole column.
+    chunks : callable
+        ``chunks()`` yields the column's m p-values (float64, no NaN, any order)
+        as arrays; called once per refinement pass (BH only).
+    method : {"bh", "holm", "none"}
+    histogram : numpy.ndarray, optional
+        :func:`key_histogram` summed over the chunks, if already counted (saves a pass).
+
+    Returns
+    -------
+    numpy.ndarray
+        The adjusted p-values of ``head``, in its order.
+
+    Notes
+    -----
+    Holm's :math:`\max_{j \le i} (m-j+1) p_{(j)}` needs the head only. BH's
+    :math:`q_{(i)} = \min(1, \min_{j \ge i} m p_{(j)}/j)` needs, beyond the head,
+    :math:`T = \min_{j > K} m p_{(j)} / j` over the whole column. Non-negative
+    doubles order as their bit patterns, so the top bits of the pattern bin the
+    p-values and the bins' counts give every bin's ranks exactly. A bin
+    :math:`[l, h)` whose ranks end at :math:`C` holds values of
+    :math:`m p / j` at least :math:`m l / C`, and its last value is below
+    :math:`m h / C`; bins whose lower bound exceeds the smallest upper bound
+    cannot hold :math:`T`. The other bins are split on the next bits (a pass
+    over the chunks each) until few values are left, which are then gathered,
+    sorted and ranked: the same products and divisions as the whole-column
+    computation, so the same doubles.
+
+    References
+    ----------
+    Benjamini, Y. & Hochberg, Y. (1995). J. R. Stat. Soc. B 57:289-300.
+    doi:10.1111/j.2517-6161.1995.tb02031.x
+
+    Examples
+    --------
+    >>> from pairlens.core.testing import adjust_pvalues
+    >>> p = np.random.default_rng(5).uniform(size=1000) ** 4
+    >>> head = np.sort(p)[:10]
+    >>> q = head_adjusted(head, p.size, lambda: iter([p]))
+    >>> bool(np.allclose(q, np.sort(adjust_pvalues(p))[:10], rtol=0, atol=0))
+    True
+    """
+    head = np.asarray(head, dtype=float)
+    k = head.size
+    if method == "none":
+        return head.copy()
+    j = np.arange(1, k + 1)
+    if method == "holm":
+        return np.minimum(np.maximum.accumulate(head * (m - np.arange(k))), 1.0)
+    if method != "bh":
+        raise ValueError(f"unknown adjustment {method!r}; choose from bh, holm, none")
+    scaled = head * m / j
+    tail = _bh_tail_min(m, k, chunks, histogram) if m > k else np.inf
+    q = np.minimum.accumulate(np.append(scaled, tail)[::-1])[::-1][:-1]
+    return np.minimum(q, 1.0)
