@@ -130,7 +130,7 @@ def _central_moment(z: np.ndarray, order: int) -> float:
 
 
 def _dagostino_pearson(v: np.ndarray) -> tuple[float, float]:
-    """D'Agostino-Pearson omnibus test of normality: (K^2, p), for n >= 8.
+    r"""D'Agostino-Pearson omnibus test of normality: (K^2, p), for n >= 8.
 
     Notes
     -----

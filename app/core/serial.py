@@ -148,7 +148,7 @@ def _ols(y: np.ndarray, design: np.ndarray) -> tuple[np.ndarray, float, float]:
 
 
 def _nested_ssr(x: np.ndarray, max_lag: int, rows: int) -> np.ndarray:
-    """Residual sums of squares of the ADF regressions with 0..max_lag lags, all on the same rows.
+    r"""Residual sums of squares of the ADF regressions with 0..max_lag lags, all on the same rows.
 
     With the columns ordered level, constant, lag 1, lag 2, ..., the regression with p
     lags uses the first p + 2 columns, so one QR factorisation of the largest design
