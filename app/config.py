@@ -142,14 +142,14 @@ PVALUE_FLOOR_ENUMERATE_MAX_N = 8
 # this many rows (7! = 5040); up to PEARSON_SPLIT_MAX_N rows, or when one point holds more
 # than PEARSON_SPLIT_SHARE of a column's sum of squares, the moment curve is applied to the
 # n parts of the permutation law given the partner of the most extreme value, else to the
-# whole law (chosen by the level table in tests/test_levels_pearson.py and the agreement
-# with scipy.stats.permutation_test in tests/test_pearson_moments.py).
+# whole law (chosen by the level table in tests/core/test_levels_pearson.py and the agreement
+# with scipy.stats.permutation_test in tests/core/test_pearson_moments.py).
 PEARSON_EXACT_MAX_N = 7
 PEARSON_SPLIT_MAX_N = 60
 PEARSON_SPLIT_SHARE = 0.1
 # Above 2 * PEARSON_SPLIT_GROUPS rows the n parts of the split law are taken in that many
 # groups of the partner's sorted values, narrow at both ends (single values) and wider in the
-# middle, two nodes each (O(n log n) a pair instead of n curves; tests/test_pearson_moments.py
+# middle, two nodes each (O(n log n) a pair instead of n curves; tests/core/test_pearson_moments.py
 # bounds the change against the n-part law).
 PEARSON_SPLIT_GROUPS = 64
 # When, beside the split point, one more point (on either side) holds more than this share of

@@ -1,6 +1,6 @@
 """Pearson's default test and a Monte Carlo permutation test on the same simulated pairs.
 
-A cell of the level table (tests/test_levels_pearson.py) counts rejections of one set of
+A cell of the level table (tests/core/test_levels_pearson.py) counts rejections of one set of
 10,000 draws; a count outside the binomial interval can come from the draws themselves. This
 script runs, on the very draws of a cell (same seed), the permutation test with B random
 relabellings per pair, (1 + #{|S_b| >= |S|}) / (B + 1), whose level is exact whatever the

@@ -1,6 +1,6 @@
 """Pearson's default p-value against scipy.stats.permutation_test (B = 99,999) on the 50 real skewed pairs.
 
-The pairs and the reference are those of tests/test_levels_pearson.py (which uses B = 9,999 in CI);
+The pairs and the reference are those of tests/core/test_levels_pearson.py (which uses B = 9,999 in CI);
 prints one row per pair (permutation p, ours, z in Monte Carlo standard errors) and the count outside
 4 standard errors (or 10% relative where p < 1e-3). Takes several minutes.
 

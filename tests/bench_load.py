@@ -2,7 +2,7 @@
 
 Run:  python tests/bench_load.py [--clients 20] [--seconds 20]
 
-Same set-up as tests/test_load.py (which checks only that every answer is right): a live
+Same set-up as tests/web/test_load.py (which checks only that every answer is right): a live
 ``pairlens serve`` on a free loopback port, a finished 12-column analysis, and a dCor permutation
 run in the background. Prints median, 95th percentile and maximum latency per kind of request.
 Goal (common practice for an interactive page, not a published figure): p95 under 300 ms.

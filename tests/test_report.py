@@ -349,7 +349,7 @@ def test_methods_content_follows_settings_and_registry(report):
     text = json.dumps(methods_content(settings=holm))
     assert "Holm" in text and "(m - j + 1)" in text and "B = 99" in text and "(1 + k) / (B + 1)" in text
     assert "complete" in text and "Benjamini" not in text
-    # the t-test caution (levels measured in tests/test_levels_classic.py) where it applies
+    # the t-test caution (levels measured in tests/core/test_levels_classic.py) where it applies
     caution = "The t-test (--test pearson=t, as scipy.stats.pearsonr) is exact when at least one of the two variables is normal"
     assert caution in json.dumps(methods_content(settings=AnalysisSettings.from_options(measures="pearson")))
     assert caution not in text  # permutations were requested

@@ -8,7 +8,7 @@ mid-ranks (Spearman), the (x, y) order for Knight's count (Kendall), the
 orders of the O(n log n) distance covariance and the x order of Chatterjee's
 xi. The kernels only prepare orders and exact sums; estimates and p-values are
 finished by the same functions the per-pair measures use, so both paths give
-the same numbers (tests/test_allpairs.py).
+the same numbers (tests/core/test_allpairs.py).
 
 Memory: the prepared columns hold O(n p) numbers; each pair needs O(n) more.
 """

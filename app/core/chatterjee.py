@@ -108,7 +108,7 @@ def xi_null_variance(n: int) -> float:
     Notes
     -----
     Var(xi_n) = (n - 2)(4n - 7) / (10 (n + 1)(n - 1)^2), which tends to 2/(5n).
-    The formula is from memory; tests/test_chatterjee.py checks it against
+    The formula is from memory; tests/core/test_chatterjee.py checks it against
     full enumeration of all permutations for small n.
     """
     if n < 3:

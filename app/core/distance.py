@@ -1062,7 +1062,7 @@ def _gamma_sf(x: float, shape: float, scale: float) -> float:
 
     scipy.stats evaluates ``gammaincc(shape, (x - 0) / scale)`` on the open
     support and 1 at or below 0; the same steps here give the same bits
-    (tests/test_allpairs.py compares them).
+    (tests/core/test_allpairs.py compares them).
     """
     if math.isnan(x) or not (shape > 0.0 and scale > 0.0):
         return math.nan

@@ -139,7 +139,7 @@ def _dagostino_pearson(v: np.ndarray) -> tuple[float, float]:
     (1970) and Anscombe & Glynn's (1983) transformations; under normality
     :math:`K^2` is chi-square with 2 df, so :math:`p = e^{-K^2/2}`. The steps are
     those of ``scipy.stats.normaltest``, whose import alone costs about a second
-    of every command that fits a Gaussian (tests/test_gaussian.py compares them).
+    of every command that fits a Gaussian (tests/core/test_gaussian.py compares them).
 
     References
     ----------

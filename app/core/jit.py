@@ -20,7 +20,7 @@ bit may differ between CPython's math module and numba's, keep
 ``python_max_n=0`` and always compile. Where Python would raise where numba
 gives a value (a float overflow or division by zero, integer wrap-around)
 the Python run is abandoned, the array arguments are restored and the
-compiled kernel runs instead. ``tests/test_jit.py`` compares both runs kernel
+compiled kernel runs instead. ``tests/core/test_jit.py`` compares both runs kernel
 by kernel and on whole analyses.
 """
 

@@ -336,7 +336,7 @@ def permutation_moments(a2, a3, a4, b2, b3, b4, n):
         + \\frac{6 (2A_4 - A_2^2)(2B_4 - B_2^2)}{n(n-1)(n-2)}
         + \\frac{(3A_2^2 - 6A_4)(3B_2^2 - 6B_4)}{n(n-1)(n-2)(n-3)}
 
-    (Pitman 1937; tests/test_pearson_moments.py checks all three against full
+    (Pitman 1937; tests/core/test_pearson_moments.py checks all three against full
     enumeration of the relabellings).
 
     References
@@ -592,7 +592,7 @@ def pearson_curve_sf(z, skew, kurtosis):
 
     Compiled scalar kernels (incomplete beta and gamma by their continued
     fractions, Press et al. 2007 section 6.4; checked against scipy.special in
-    tests/test_pearson_moments.py).
+    tests/core/test_pearson_moments.py).
 
     References
     ----------
@@ -861,7 +861,7 @@ def moment_pvalue(x, y) -> np.ndarray:
       (:func:`_two_point_pvalue`).
     - above: one curve for the whole law.
 
-    The thresholds were chosen by the level table (tests/test_levels_pearson.py):
+    The thresholds were chosen by the level table (tests/core/test_levels_pearson.py):
     15 pairs of margins, n = 10, 30, 200.
 
     References

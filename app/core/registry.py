@@ -360,7 +360,7 @@ def _complete(x, y):
 
 
 # The methods page's paragraphs on a measure's p-value (Measure.pvalue_note).
-# Measured in tests/test_levels_classic.py (t-test) and tests/test_levels_pearson.py (the default),
+# Measured in tests/core/test_levels_classic.py (t-test) and tests/core/test_levels_pearson.py (the default),
 # 10,000 replicates per cell.
 _PEARSON_DEFAULT_NOTE = (
     "Pearson's default p-value approximates the permutation law of r (Pitman 1937) from its exact first "

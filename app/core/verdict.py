@@ -38,7 +38,7 @@ Rule table (alpha is the significance level applied to the q-values):
 
 The thresholds (0.5, 0.10, 0.15) are our own choices on the correlation
 scale, set well above the sampling noise at a few hundred rows and checked on
-the synthetic pairs of tests/test_verdict.py; they are not from a paper.
+the synthetic pairs of tests/core/test_verdict.py; they are not from a paper.
 
 The rank-equivalent r is the correlation a bivariate normal would need to
 show the observed rank correlation: 2 sin(pi rho_s / 6) from Spearman, or

@@ -13,7 +13,7 @@ from pairlens.core.registry import MEASURES, PairContext
 from pairlens.core.results import TestResult
 
 # The common checks below feed numeric pairs; the categorical measures have theirs in
-# tests/test_categorical.py (their data are level codes).
+# tests/core/test_categorical.py (their data are level codes).
 EVERY = list(MEASURES.values())
 ALL = [m for m in EVERY if m.applies_to("numeric", "numeric")]
 IDS = [m.name for m in ALL]

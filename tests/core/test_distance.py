@@ -19,7 +19,7 @@ from pairlens import config
 from pairlens.core import distance
 from pairlens.core.results import TestResult
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 ATOL = 1e-9
 
 

@@ -24,7 +24,7 @@ from pairlens.engine import AnalysisSettings, run_analysis
 # Which tail each measure's default test uses: two-sided |statistic| for the signed
 # correlations, the upper tail for the dependence measures (their tests reject for large
 # values). A new measure must be added here before this module passes.
-# the measures of numeric pairs (the categorical ones run on level codes: tests/test_categorical.py)
+# the measures of numeric pairs (the categorical ones run on level codes: tests/core/test_categorical.py)
 NUMERIC = {name: m for name, m in MEASURES.items() if m.applies_to("numeric", "numeric")}
 TAILS = {"pearson": "two", "spearman": "two", "kendall": "two", "dcor": "upper", "dcor_bc": "upper",
          "xi": "upper"}
