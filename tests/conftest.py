@@ -19,7 +19,7 @@ if _WORKER:
     _base = os.environ.get("NUMBA_CACHE_DIR") or str(Path(__file__).resolve().parents[1] / ".numba_cache")
     os.environ["NUMBA_CACHE_DIR"] = str(Path(_base) / _WORKER)
 
-from browser_helpers import chromium  # noqa: E402
+from browser_helpers import Server, chromium  # noqa: E402
 
 
 # Playwright's own default (30 s per click, wait or navigation) is a hang guard that a page
@@ -50,3 +50,27 @@ def browser():
     viewport and storage) and closes it."""
     with chromium() as b:
         yield _PatientBrowser(b)
+
+
+@pytest.fixture(scope="module")
+def server(tmp_path_factory):
+    """A pairlens server in a subprocess, on a free port, over an empty workspace (one per module;
+    a module that needs another, the demo's say, defines its own ``server``)."""
+    root = tmp_path_factory.mktemp("server")
+    (root / "data").mkdir()
+    srv = Server(root / "data")
+    yield srv
+    srv.stop()
+
+
+@pytest.fixture()
+def page(browser):
+    """A page in a context of its own at 1400 x 900 px, downloads accepted; ``page.errors`` lists the
+    page's uncaught script errors."""
+    context = browser.new_context(viewport={"width": 1400, "height": 900}, accept_downloads=True)
+    pg = context.new_page()
+    errors: list[str] = []
+    pg.on("pageerror", lambda exc: errors.append(str(exc)))
+    pg.errors = errors
+    yield pg
+    context.close()

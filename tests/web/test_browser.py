@@ -82,17 +82,6 @@ def server(tmp_path_factory):
     srv.stop()
 
 
-@pytest.fixture()
-def page(browser):
-    context = browser.new_context(viewport={"width": 1440, "height": 900}, accept_downloads=True)
-    pg = context.new_page()
-    errors: list[str] = []
-    pg.on("pageerror", lambda exc: errors.append(str(exc)))
-    pg.errors = errors
-    yield pg
-    context.close()
-
-
 def _not_pwned(page) -> None:
     assert page.evaluate("typeof window.__pwned") == "undefined", page.url
 

@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 import scipy.stats
 
-from browser_helpers import Server, chromium_available, screenshot
+from browser_helpers import chromium_available, screenshot
 
 pytestmark = [pytest.mark.browser,
               pytest.mark.skipif(not chromium_available(), reason="needs Debian chromium and playwright")]
@@ -39,13 +39,6 @@ def mixed_file(tmp_path_factory) -> Path:
                                              f"{cols['height'][i]:.6f}" for i in range(N)]
     path.write_text("\n".join(lines) + "\n", encoding="utf-8")
     return path
-
-
-@pytest.fixture(scope="module")
-def server(tmp_path_factory):
-    s = Server(tmp_path_factory.mktemp("ws"))
-    yield s
-    s.stop()
 
 
 def test_mixed_table_flow(server, mixed_file, browser):

@@ -13,7 +13,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from browser_helpers import WAIT_SECONDS, Server, chromium_available, goto_settled, screenshot
+from browser_helpers import WAIT_SECONDS, chromium_available, goto_settled, screenshot
 from pairlens import config
 
 pytestmark = [pytest.mark.browser,
@@ -22,29 +22,6 @@ pytestmark = [pytest.mark.browser,
 
 PAIR = ("evaporation_mm", "leaf_stress_index")   # driven by canopy temperature only (sample_data/README.md)
 GIVEN = "canopy_temp_c"
-
-
-@pytest.fixture(scope="module")
-def server(tmp_path_factory):
-    root = tmp_path_factory.mktemp("given-server")
-    (root / "data").mkdir()
-    srv = Server(root / "data")
-    yield srv
-    srv.stop()
-
-
-@pytest.fixture()
-def page(browser):  # the session's Chromium (tests/conftest.py), a context of our own at 1400 px
-    context = browser.new_context(viewport={"width": 1400, "height": 900})
-    pg = context.new_page()
-    # On a loaded 2-core machine (load 12-19) an upload's redirect and an analysis page's first render
-    # took 40-100 s, past Playwright's 30 s default: the suite's generous bound (not a speed check)
-    pg.set_default_timeout(WAIT_SECONDS * 1000)
-    errors: list[str] = []
-    pg.on("pageerror", lambda exc: errors.append(str(exc)))
-    pg.errors = errors
-    yield pg
-    context.close()
 
 
 def test_given_view_and_residual_scatter_on_the_demo(server, page):

@@ -10,7 +10,7 @@ import os
 import httpx
 import pytest
 
-from browser_helpers import WAIT_SECONDS, Server, chromium_available, goto_settled, screenshot
+from browser_helpers import WAIT_SECONDS, chromium_available, goto_settled, screenshot
 from pairlens import config
 
 pytestmark = [pytest.mark.browser,
@@ -20,26 +20,6 @@ pytestmark = [pytest.mark.browser,
 WEEKLY = config.SAMPLE_DATA_DIR / "vineyard_weekly.csv"
 SPURIOUS = ("bird_visits", "cellar_temp_c")      # unrelated AR(1) series (sample_data/README.md)
 PLANTED = ("rain_mm", "soil_water_index")
-
-
-@pytest.fixture(scope="module")
-def server(tmp_path_factory):
-    root = tmp_path_factory.mktemp("serial-server")
-    (root / "data").mkdir()
-    srv = Server(root / "data")
-    yield srv
-    srv.stop()
-
-
-@pytest.fixture()
-def page(browser):  # the session's Chromium (tests/conftest.py), a context of our own at 1400 px
-    context = browser.new_context(viewport={"width": 1400, "height": 900})
-    pg = context.new_page()
-    errors: list[str] = []
-    pg.on("pageerror", lambda exc: errors.append(str(exc)))
-    pg.errors = errors
-    yield pg
-    context.close()
 
 
 def _q(server, analysis_id, pair, measure="pearson"):
