@@ -338,6 +338,29 @@ def _permuted_sums_group_matrix(amat, arow, bmat, brow, uniforms):
     return s1, s2
 
 
+@kernel(cache=True, nogil=True)
+def _relabelled_cross(amat, bmat, orders):
+    """sum_ij a_ij b_(p_i, p_j) for each relabelling p, a row of ``orders``.
+
+    The block permutation test of rows in time order evaluates this for B given
+    relabellings of centred distance matrices; a gather per cell in compiled code
+    needs no relabelled n x n copy (NumPy's take-then-einsum allocates two).
+    """
+    count = orders.shape[0]
+    n = amat.shape[0]
+    out = np.empty(count)
+    for m in range(count):
+        acc = 0.0
+        for i in range(n):
+            pi = orders[m, i]
+            row = 0.0
+            for j in range(n):
+                row += amat[i, j] * bmat[pi, orders[m, j]]
+            acc += row
+        out[m] = acc
+    return out
+
+
 @kernel(cache=True, nogil=True, python_max_n=64)
 def _permuted_sums_group_direct(x, arow, y, brow, uniforms):
     n_resamples = uniforms.shape[0]

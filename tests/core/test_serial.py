@@ -161,7 +161,7 @@ def _interval(count, alpha):
 LEVEL_CELLS = [  # (measure, phi, n, pairs): sized to run in about 20 s together on an idle machine
     ("pearson", 0.5, 100, 600), ("pearson", 0.9, 500, 300),
     ("spearman", 0.5, 100, 600), ("kendall", 0.5, 100, 600),
-    ("dcor", 0.5, 100, 200), ("dcor", 0.9, 100, 200), ("xi", 0.9, 100, 200),
+    ("dcor", 0.5, 100, 200), ("dcor", 0.9, 100, 200), ("dcor", 0.5, 500, 200), ("xi", 0.9, 100, 200),
 ]
 
 
@@ -176,6 +176,25 @@ def test_ordered_tests_hold_their_level_on_ar1_pairs(measure, phi, n, pairs):
     for alpha in (0.05, 0.01):
         lo, hi = _interval(pairs, alpha)
         assert lo <= np.count_nonzero(p <= alpha) <= hi, (measure, phi, n, alpha, np.mean(p <= alpha))
+
+
+@pytest.mark.parametrize("name", ["dcor", "dcor_bc"])
+@pytest.mark.parametrize("n", [12, 60, 300])
+def test_relabelled_statistics_equal_the_dcov_definition(name, n):
+    # oracle: dCov^2 of x against y[p] by its definition (Szekely, Rizzo & Bakirov 2007, eq. 2.8; U-centred
+    # for the bias-corrected one, Szekely & Rizzo 2014) from dcor.distance_covariance_sqr / u_distance_covariance_sqr
+    # times the normalising constant, for block relabellings as the --ordered test draws them
+    import dcor
+    rng = np.random.default_rng([SEED, n])
+    x, y = rng.normal(size=(2, n))
+    y = y + 0.5 * x
+    orders = serial._block_orders(n, 5, 7, rng)
+    got = MEASURES[name].pairing_statistics(x, y, np.vstack([np.arange(n)[None, :], orders]))
+    if name == "dcor":
+        want = [n * n * dcor.distance_covariance_sqr(x, y[o]) for o in [np.arange(n), *orders]]
+    else:
+        want = [n * (n - 3) * dcor.u_distance_covariance_sqr(x, y[o]) for o in [np.arange(n), *orders]]
+    np.testing.assert_allclose(got, want, rtol=1e-10, atol=1e-12 * n * n)
 
 
 def test_the_default_tests_do_not_hold_their_level_on_the_same_pairs():
