@@ -121,8 +121,11 @@ def group_svg(detail: dict, *, width: float = 560.0, height: float = 420.0, seed
                          f'y2="{ypos(med):.1f}" stroke="#1f4e60" stroke-width="2"/>')
             shown = v if v.size <= 400 else rng.choice(v, 400, replace=False)
             jitter = rng.uniform(-slot * 0.2, slot * 0.2, shown.size)
-            parts.extend(f'<circle cx="{cx + j:.1f}" cy="{ypos(s):.1f}" r="1.8" fill="#2b5c8a" fill-opacity="0.45"/>'
-                         for s, j in zip(shown, jitter))
+            # one path of zero-length round-capped segments: about 14 bytes a point instead of 80
+            # for a circle element each (the demo report's five strip plots: 360 KB before)
+            dots = "".join(f"M{cx + j:.1f} {ypos(s):.1f}h0" for s, j in zip(shown, jitter))
+            parts.append(f'<path class="points" d="{dots}" stroke="#2b5c8a" stroke-opacity="0.45" '
+                         f'stroke-width="3.6" stroke-linecap="round" fill="none"/>')
         if g.get("mean") is not None and np.isfinite(g["mean"]):
             my = ypos(g["mean"])
             parts.append(f'<path d="M{cx:.1f},{my - 7:.1f} L{cx + 7:.1f},{my:.1f} L{cx:.1f},{my + 7:.1f} '

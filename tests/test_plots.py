@@ -72,3 +72,26 @@ def test_map_payload_holds_the_pair_table_in_one_order():
     expected = max(records[(best["x"], best["y"])], records[(best["y"], best["x"])]) - abs(
         scipy.stats.pearsonr(cols[best["x"]], cols[best["y"]]).statistic)
     assert abs(best["difference"] - expected) < 1e-9
+
+
+def test_group_strip_plot_draws_every_row_up_to_400_per_level_inside_the_plot():
+    # the report's strip plot (figures_categorical.group_svg): one round-capped mark per row of a level,
+    # a seeded sample of 400 above that, every mark between the axis limits of the values
+    import re
+    from pairlens import figures_categorical
+
+    rng = np.random.default_rng(12)
+    sizes = {0: 30, 1: 250, 2: 900}
+    codes = np.concatenate([np.full(n, code, float) for code, n in sizes.items()])
+    values = rng.normal(size=codes.size) + codes
+    groups = [{"level": f"level {code}", "n": n, "mean": float(values[codes == code].mean())}
+              for code, n in sizes.items()]
+    detail = {"kinds": ["categorical", "numeric"], "points": {"x": codes.tolist(), "y": values.tolist()},
+              "categorical": {"groups": groups, "group": "batch", "value": "yield"}}
+    svg = figures_categorical.group_svg(detail, seed=3)
+    strips = re.findall(r'<path class="points" d="([^"]*)"', svg)
+    marks = [re.findall(r"M([\d.]+) ([\d.]+)h0", d) for d in strips]
+    assert [len(m) for m in marks] == [30, 250, 400]
+    ys = np.array([float(y) for m in marks for _, y in m])
+    assert ys.min() >= 12.0 and ys.max() <= 420.0 - 56.0  # inside the plot area (top 12, bottom margin 56)
+    assert svg == figures_categorical.group_svg(detail, seed=3)  # seeded: the same report twice
