@@ -185,8 +185,8 @@ SERIAL_CHECK_MAX_ROWS = 20_000    # the check looks at the first rows only
 DEFAULT_HOST = "127.0.0.1"
 DEFAULT_PORT = 8000
 MAX_CONCURRENT_ANALYSES = 2
-# Keep one analysis process started ahead while the server is idle (engine imported, kernels
-# loaded): measured 4-7 s of the demo's Run-to-maps under load were this start-up.
+# Keep one analysis process started ahead whenever another analysis could start (engine imported,
+# kernels loaded): measured 4-7 s of the demo's Run-to-maps under load were this start-up.
 STANDBY_CHILD = True
 # A cancelled analysis that has not stopped after this long is terminated.
 CANCEL_GRACE_SECONDS = 3.0

@@ -320,8 +320,8 @@ class JobManager:
     cluster : str, optional
         Dask scheduler address passed to the engine.
     standby : bool, optional
-        Default ``config.STANDBY_CHILD``. Keep one child process started ahead (imports done, kernels loaded) while no
-        analysis runs, and give it the next analysis.
+        Default ``config.STANDBY_CHILD``. Keep one child process started ahead (imports done, kernels loaded)
+        whenever another analysis could start, and give it the next analysis.
     """
 
     def __init__(self, store: Store, *, max_concurrent: int = config.MAX_CONCURRENT_ANALYSES,
@@ -577,9 +577,12 @@ class JobManager:
                 self._procs[row.id] = proc
             free -= 1
         with self._lock:
-            idle = not self._procs
-        # started only while nothing runs, so it never takes a core from an analysis
-        if self.standby and idle and self._spare is None and not self._stop.is_set():
+            room = len(self._procs) < self.max_concurrent
+        # Started as soon as one is taken, while that analysis runs: an analysis started
+        # seconds after the previous one then finds it loaded (started only once nothing ran,
+        # it left that analysis 7.7 s in "queued" at load 9). Its loading costs the running
+        # analysis about a second of one core, once.
+        if self.standby and room and self._spare is None and not self._stop.is_set():
             self._start_spare()
 
 
