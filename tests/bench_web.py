@@ -169,8 +169,8 @@ def browser_part() -> None:
                 print(f"10,000 rows: click to scatter median {statistics.median(clicks):.0f} ms "
                       f"(min {min(clicks):.0f}, max {max(clicks):.0f}) over {len(clicks)} distinct pairs")
                 # Run to maps: the demo through the form, minus the engine's own time. First pressed
-                # as soon as the previous analysis ended (its standby process is still loading), then
-                # after some seconds on the dataset page, as a user reading the form would.
+                # three times as soon as the previous analysis ended, then after some seconds on the
+                # dataset page, as a user reading the form would.
                 rapid = [_run_to_maps(page, srv, client, 0.0) for _ in range(3)]
                 diffs = [r[1] - r[2] for r in rapid]
                 demo_aid = rapid[-1][0]

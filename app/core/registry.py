@@ -251,7 +251,7 @@ def _cross(a: np.ndarray, b: np.ndarray, pairings: np.ndarray) -> np.ndarray:
     # centring commutes with relabelling the rows, so each pairing only permutes b
     if b.shape[0] > 16:
         # long rows (the block permutation test of --ordered): a compiled gather per cell, no relabelled
-        # copy; about 10x NumPy's take-then-einsum at n = 500 (benchmarks/README.md)
+        # copy; about 2x NumPy's take-then-einsum per relabelling at n = 100-1,500 (benchmarks/README.md)
         return distance._relabelled_cross(np.ascontiguousarray(a, dtype=np.float64),
                                           np.ascontiguousarray(b, dtype=np.float64),
                                           np.ascontiguousarray(pairings, dtype=np.int64))

@@ -158,7 +158,7 @@ def _interval(count, alpha):
     return stats.binom.ppf(0.005, count, alpha), stats.binom.ppf(0.995, count, alpha)
 
 
-LEVEL_CELLS = [  # (measure, phi, n, pairs): sized to run in about 20 s together on an idle machine
+LEVEL_CELLS = [  # (measure, phi, n, pairs): sized to run in about 25 s together on an idle machine
     ("pearson", 0.5, 100, 600), ("pearson", 0.9, 500, 300),
     ("spearman", 0.5, 100, 600), ("kendall", 0.5, 100, 600),
     ("dcor", 0.5, 100, 200), ("dcor", 0.9, 100, 200), ("dcor", 0.5, 500, 200), ("xi", 0.9, 100, 200),
@@ -181,9 +181,9 @@ def test_ordered_tests_hold_their_level_on_ar1_pairs(measure, phi, n, pairs):
 @pytest.mark.parametrize("name", ["dcor", "dcor_bc"])
 @pytest.mark.parametrize("n", [12, 60, 300])
 def test_relabelled_statistics_equal_the_dcov_definition(name, n):
-    # oracle: dCov^2 of x against y[p] by its definition (Szekely, Rizzo & Bakirov 2007, eq. 2.8; U-centred
-    # for the bias-corrected one, Szekely & Rizzo 2014) from dcor.distance_covariance_sqr / u_distance_covariance_sqr
-    # times the normalising constant, for block relabellings as the --ordered test draws them
+    # oracle: the dcor library's dCov^2 of x against y[p] (dcor.distance_covariance_sqr, the V-statistic of
+    # Szekely, Rizzo & Bakirov 2007; dcor.u_distance_covariance_sqr, the U-centred one of Szekely & Rizzo
+    # 2014) times the statistic's normalising constant, for block relabellings as the --ordered test draws them
     import dcor
     rng = np.random.default_rng([SEED, n])
     x, y = rng.normal(size=(2, n))
