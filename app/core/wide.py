@@ -111,9 +111,14 @@ def fisher_intervals(measure: str, est: np.ndarray, n: np.ndarray, confidence: f
     return _fisher_interval(est, se, confidence)
 
 
-def _edgeworth_upper(n: int, s: np.ndarray) -> np.ndarray:
-    """:func:`pairlens.core.rank._edgeworth_upper` over an array of s (AS 89, Best & Roberts 1975)."""
-    s = np.asarray(s, dtype=float)
+@kernel(cache=True, nogil=True)
+def _edgeworth_upper_one(n, s):
+    """:func:`pairlens.core.rank._edgeworth_upper` compiled (AS 89, Best & Roberts 1975)."""
+    n3 = n * (n * n - 1) / 3.0
+    if s <= 0:
+        return 1.0
+    if s > n3:
+        return 0.0
     c1, c2, c3, c4, c5, c6 = 0.2274, 0.2531, 0.1745, 0.0758, 0.1033, 0.3932
     c7, c8, c9, c10, c11, c12 = 0.0879, 0.0151, 0.0072, 0.0831, 0.0131, 4.6e-4
     b = 1.0 / n
@@ -121,16 +126,29 @@ def _edgeworth_upper(n: int, s: np.ndarray) -> np.ndarray:
     y = x * x
     u = x * b * (c1 + b * (c2 + c3 * b) + y * (-c4 + b * (c5 + c6 * b)
                  - y * b * (c7 + c8 * b - y * (c9 - c10 * b + y * b * (c11 - c12 * y)))))
-    p = np.clip(u / np.exp(y / 2.0) + 0.5 * special.erfc(x / math.sqrt(2.0)), 0.0, 1.0)
-    n3 = n * (n * n - 1) / 3.0
-    return np.where(s <= 0, 1.0, np.where(s > n3, 0.0, p))
+    p = u / math.exp(y / 2.0) + 0.5 * math.erfc(x / math.sqrt(2.0))
+    return min(1.0, max(0.0, p))
+
+
+@kernel(cache=True, nogil=True)
+def _spearman_edgeworth_kernel(n, s, out):
+    # each pair's tail on its observed side only (the array form evaluated both and chose)
+    half = n * n * n - n
+    for k in range(s.shape[0]):
+        v = s[k]
+        if 6 * v > half:
+            tail = _edgeworth_upper_one(n, float(v - 1))
+        else:
+            tail = 1.0 - _edgeworth_upper_one(n, float(v + 2))
+        out[k] = min(1.0, 2.0 * tail)
 
 
 def _spearman_edgeworth(n: int, s: np.ndarray) -> np.ndarray:
     """:func:`pairlens.core.rank.spearman_edgeworth_pvalue` over an array of integer s."""
-    upper = 6 * s > n * n * n - n
-    tail = np.where(upper, _edgeworth_upper(n, s - 1), 1.0 - _edgeworth_upper(n, s + 2))
-    return np.minimum(1.0, 2.0 * tail)
+    s = np.ascontiguousarray(s, dtype=np.int64)
+    out = np.empty(s.shape[0])
+    _spearman_edgeworth_kernel(int(n), s, out)
+    return out
 
 
 @lru_cache(maxsize=16)
@@ -433,7 +451,7 @@ def _pearson_block(cols, rows_i, cols_j, out, test, confidence, labels_m, labels
     three = ok & (n == 3)
     out.note[three] = labels_n.code("interval is the whole range: Fisher z needs more than 3 rows")
     if test == "t":
-        out.p_value[:] = np.where(ok, linear.correlation_t_pvalue(r, n), np.nan)
+        out.p_value[:] = np.where(ok, linear.correlation_t_pvalue(r, n, "auto"), np.nan)
     else:
         partial = ok & ~complete
         if partial.any():
@@ -559,7 +577,7 @@ def _spearman_block(cols, rows_i, cols_j, out, confidence, labels_m, labels_n, c
     tied = cols.tied[xi] | cols.tied[yj]
     p = np.full(pairs, np.nan)
     use_t = ok & ((n_rows >= config.SPEARMAN_T_MIN_N) | (tied & (n_rows > config.SPEARMAN_TIED_PERMUTATION_MAX_N)))
-    p[use_t] = linear.correlation_t_pvalue(rho[use_t], n[use_t])
+    p[use_t] = linear.correlation_t_pvalue(rho[use_t], n[use_t], "auto")
     untied = ok & ~use_t & ~tied
     if untied.any():
         s = (n_rows ** 3 - n_rows) // 6 - np.rint(txy[untied] / 2).astype(np.int64)

@@ -569,3 +569,58 @@ def test_pearson_r_against_exact_rational_arithmetic(seed):
     assert abs(got - exact) <= 1e-13 * abs(exact) + 1e-16
     # scipy.stats.pearsonr, for scale: both within a few units of the 15th digit
     assert abs(stats.pearsonr(x, y).statistic - exact) <= 1e-13 * abs(exact) + 1e-16
+
+
+@pytest.mark.parametrize("n", [3, 4, 5, 6, 7, 12, 31, 100, 101, 250, 401, 402, 403, 1000])
+def test_t_pvalue_series_equals_scipy_t_tail(n):
+    """The series form of the t tail (Abramowitz & Stegun 26.7.3-26.7.4) against scipy.stats.t.sf.
+
+    Reference: scipy.stats.t.sf(|t|, n - 2) doubled, t = r sqrt((n-2)/(1-r^2)); below the
+    series' bound and above T_SERIES_MAX_DF the incomplete beta function answers, so those
+    values must also equal the reference method ("betainc") bit for bit."""
+    rng = np.random.default_rng(n)
+    r = np.concatenate([rng.uniform(-1, 1, 4000), np.tanh(rng.normal(scale=3 / math.sqrt(n), size=4000)),
+                        [0.0, -0.0, 1.0, -1.0, 1 - 1e-15, 1e-3, -1e-3, 0.5, np.nan]])
+    fast = linear.correlation_t_pvalue(r, n, "series")
+    reference = linear.correlation_t_pvalue(r, n, "betainc")
+    finite = ~np.isnan(r)
+    assert np.array_equal(np.isnan(fast), ~finite)
+    t = np.abs(r[finite]) * np.sqrt((n - 2) / ((1 - r[finite]) * (1 + r[finite])))
+    with np.errstate(divide="ignore"):
+        scipy_p = 2 * stats.t.sf(t, n - 2)
+    # scipy.stats.t.sf keeps full precision near r = 0 (where 1 - r^2 rounds to 1) and in the tail
+    assert fast[finite] == pytest.approx(scipy_p, rel=1e-9, abs=1e-300)
+    by_beta = (reference[finite] <= config.T_SERIES_MIN_P) | (n - 2 > config.T_SERIES_MAX_DF)
+    assert np.array_equal(fast[finite][by_beta], reference[finite][by_beta])
+    # and the two methods agree to the matrix path's tolerance away from r = 0
+    away = finite & (np.abs(r) > 1e-5)
+    assert fast[away] == pytest.approx(reference[away], rel=1e-9)
+
+
+def test_t_pvalue_series_with_a_row_count_per_value():
+    """Mixed row counts (pairs with missing values) and counts below MIN_ROWS: NaN there,
+    scipy.stats.t.sf elsewhere."""
+    rng = np.random.default_rng(5)
+    r = rng.uniform(-0.9, 0.9, 3000)
+    n = rng.integers(1, 60, size=r.size)
+    fast = linear.correlation_t_pvalue(r, n, "series")
+    few = n < config.MIN_ROWS
+    assert np.isnan(fast[few]).all()
+    t = np.abs(r[~few]) * np.sqrt((n[~few] - 2) / (1 - r[~few] ** 2))
+    assert fast[~few] == pytest.approx(2 * stats.t.sf(t, n[~few] - 2), rel=1e-9)
+    with pytest.raises(ValueError, match="betainc, series or auto"):
+        linear.correlation_t_pvalue(r, n, "fast")
+
+
+@pytest.mark.parametrize("n", [13, 30, 100, 1000])
+def test_compiled_edgeworth_equals_the_per_pair_series(n):
+    """The matrix path's compiled AS 89 series against the per-pair function it mirrors, whose
+    coefficients are Best & Roberts (1975), on every even S from 0 to its maximum (n = 13, 30)
+    or a random sample of them."""
+    from pairlens.core import wide
+
+    top = (n ** 3 - n) // 3
+    s = np.arange(0, top + 1, 2) if n <= 30 else np.random.default_rng(n).integers(0, top // 2 + 1, 5000) * 2
+    got = wide._spearman_edgeworth(n, s)
+    expected = np.array([rank.spearman_edgeworth_pvalue(n, int(v)) for v in s])
+    assert got == pytest.approx(expected, rel=1e-9, abs=1e-15)
