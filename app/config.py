@@ -60,9 +60,10 @@ CATEGORICAL_PERMUTATIONS = 1_999
 
 # The t-test's p-value on large arrays (linear.correlation_t_pvalue, method "series"): the finite
 # series up to this many degrees of freedom (df/2 multiply-adds a pair), and only where it gives p
-# above the bound; below it 1 - S loses digits and the incomplete beta function is used.
+# above the bound; below it 1 - S loses digits and the incomplete beta function is used. Measured
+# against scipy.stats.t.sf: at most 2e-10 relative at this bound and 400 df (1.4e-9 at 1e-6).
 T_SERIES_MAX_DF = 400
-T_SERIES_MIN_P = 1e-3
+T_SERIES_MIN_P = 1e-5
 
 # Limits ------------------------------------------------------------------
 MAX_UPLOAD_MB = 200

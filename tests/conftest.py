@@ -19,6 +19,21 @@ if _WORKER:
     _base = os.environ.get("NUMBA_CACHE_DIR") or str(Path(__file__).resolve().parents[1] / ".numba_cache")
     os.environ["NUMBA_CACHE_DIR"] = str(Path(_base) / _WORKER)
 
+# One BLAS thread in the workers and in every process a test starts. The suite runs two workers
+# on two cores, each often with a server or an analysis beside it; OpenBLAS's helper threads then
+# wait for cores and a small product costs milliseconds (measured: the group dCor level test
+# 14.8 s with the default threads beside two busy loops, 3.4 s with one, 2.7 s idle). The
+# analysis tiles already run on one BLAS thread (tiles.one_blas_thread); tests that call the
+# core directly did not.
+for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
+try:  # NumPy may already be loaded by a plugin, its BLAS sized: limit it in place too
+    from threadpoolctl import threadpool_limits
+
+    _BLAS_LIMIT = threadpool_limits(limits=1, user_api="blas")
+except ImportError:  # pragma: no cover - threadpoolctl comes with the test extras' dependencies
+    _BLAS_LIMIT = None
+
 from browser_helpers import Server, chromium  # noqa: E402
 
 
