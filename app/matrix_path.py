@@ -177,8 +177,8 @@ def run_matrix(data: np.ndarray, variables, settings, row_mask, per_pair: Callab
     test = test if test in ("moments", "t") else "moments"
     if top is not None:
         return _run_top(sub, variables, settings, per_pair, test, top, progress, cancel, started, threads)
-    # the pairs handed back to the per-pair path (Spearman's pairs with missing values) can be
-    # most of the work: then the products count for half of the progress
+    # the pairs handed back to the per-pair path (Spearman's pairs with missing values and few
+    # rows, or ties) can be most of the work: then the products count for half of the progress
     handed_back = "spearman" in settings.measures and not np.isfinite(sub).all()
     weight = 0.5 if handed_back else 1.0
     pairs = pair_matrix(sub, measures=settings.measures, pearson_test=test, confidence=settings.confidence,

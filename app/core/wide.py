@@ -544,6 +544,78 @@ def _floor_block(cols, xi, yj, out, ok, counts, measure, labels, grid=None):
     _apply_floor(out, sel, floors, np.full(int(sel.sum()), n_rows), labels)
 
 
+@kernel(cache=True, nogil=True)
+def _pair_scores(values, present, order, count, own, other, rows, out):
+    """Integer mid-rank scores 2 * midrank - (rows + 1) of column ``own`` on the rows where ``other``
+    is present too, written at those rows of ``out`` (the column's ascending order walked once)."""
+    placed = 0
+    t = 0
+    while t < count:
+        row = order[own, t]
+        if not present[other, row]:
+            t += 1
+            continue
+        # a tie group: the next rows (of the pair) with the same value
+        value = values[own, row]
+        end = t
+        size = 0
+        u = t
+        while u < count and values[own, order[own, u]] == value:
+            if present[other, order[own, u]]:
+                size += 1
+            end = u
+            u += 1
+        # the group holds ranks placed + 1 .. placed + size: 2 * midrank = 2 * placed + size + 1
+        score = 2.0 * placed + size - rows
+        for w in range(t, end + 1):
+            r = order[own, w]
+            if present[other, r]:
+                out[r] = score
+        placed += size
+        t = end + 1
+
+
+@kernel(cache=True, nogil=True)
+def _masked_score_sums(values, present, order, counts, pi, pj):
+    """Spearman's integer score sums of each pair (pi[k], pj[k]) on the pair's own rows.
+
+    ``values``, ``present``, ``order``: one column a row (the data, its presence, its present rows in
+    ascending value). Returns (sum sx sy, sum sx^2, sum sy^2, rows); the scores are integers, so the
+    sums are exact as long as n^3 stays below 2^53 (the caller's limit), as in the per-pair kernel.
+    """
+    m = pi.shape[0]
+    n = values.shape[1]
+    txy = np.empty(m)
+    txx = np.empty(m)
+    tyy = np.empty(m)
+    rows = np.zeros(m, np.int64)
+    sx = np.zeros(n)
+    sy = np.zeros(n)
+    for k in range(m):
+        i = pi[k]
+        j = pj[k]
+        c = 0
+        for t in range(counts[i]):
+            if present[j, order[i, t]]:
+                c += 1
+        rows[k] = c
+        _pair_scores(values, present, order, counts[i], i, j, c, sx)
+        _pair_scores(values, present, order, counts[j], j, i, c, sy)
+        a = 0.0
+        b = 0.0
+        d = 0.0
+        for t in range(counts[i]):
+            r = order[i, t]
+            if present[j, r]:
+                a += sx[r] * sy[r]
+                b += sx[r] * sx[r]
+                d += sy[r] * sy[r]
+        txy[k] = a
+        txx[k] = b
+        tyy[k] = d
+    return txy, txx, tyy, rows
+
+
 def _spearman_block(cols, rows_i, cols_j, out, confidence, labels_m, labels_n, counts, intervals=True):
     n_rows = cols.n
     xi, yj = np.meshgrid(rows_i, cols_j, indexing="ij")
@@ -566,28 +638,41 @@ def _spearman_block(cols, rows_i, cols_j, out, confidence, labels_m, labels_n, c
     ok = complete & ~cx & ~cy & ~few & (xi < yj)
     out.n[:] = np.where(complete, n, 0)
     out.note[:] = note
-    if not ok.any():
+    partial, sums = _spearman_partial(cols, xi, yj, complete, cx, cy, out)
+    if not (ok | partial).any():
         return
-    txy = (cols.scores[:, rows_i].T @ cols.scores[:, cols_j]).ravel()
-    sxx, syy = cols.score_sq[xi] / 4, cols.score_sq[yj] / 4
+    txy = np.zeros(pairs)
+    sxx = np.zeros(pairs)
+    syy = np.zeros(pairs)
+    if ok.any():
+        txy[:] = (cols.scores[:, rows_i].T @ cols.scores[:, cols_j]).ravel()
+        sxx[:], syy[:] = cols.score_sq[xi] / 4, cols.score_sq[yj] / 4
+    tied = cols.tied[xi] | cols.tied[yj]
+    if partial.any():
+        txy[partial], sxx[partial], syy[partial] = sums[0], sums[1] / 4, sums[2] / 4
+        n = np.where(partial, out.n, n)
+        n3 = n[partial] ** 3 - n[partial]
+        tied[partial] = (sums[1] != n3 / 3) | (sums[2] != n3 / 3)
+        ok = ok | partial
     with np.errstate(invalid="ignore", divide="ignore"):
         rho = np.clip((txy / 4) / np.sqrt(sxx * syy), -1.0, 1.0)
     rho = np.where(ok, rho, np.nan)
     out.estimate[:] = rho
-    tied = cols.tied[xi] | cols.tied[yj]
     p = np.full(pairs, np.nan)
-    use_t = ok & ((n_rows >= config.SPEARMAN_T_MIN_N) | (tied & (n_rows > config.SPEARMAN_TIED_PERMUTATION_MAX_N)))
+    use_t = ok & ((n >= config.SPEARMAN_T_MIN_N) | (tied & (n > config.SPEARMAN_TIED_PERMUTATION_MAX_N)))
     p[use_t] = linear.correlation_t_pvalue(rho[use_t], n[use_t], "auto")
     untied = ok & ~use_t & ~tied
-    if untied.any():
-        s = (n_rows ** 3 - n_rows) // 6 - np.rint(txy[untied] / 2).astype(np.int64)
-        if n_rows <= config.SPEARMAN_EXACT_MAX_N:
-            s_values, table = _spearman_exact_table(n_rows)
-            p[untied] = table[np.searchsorted(s_values, s)]
-            out.method[untied] = labels_m.code("exact")
+    for rows in np.unique(n[untied]).tolist():
+        # each row count's own law (pairs of complete columns share n_rows; others have their own)
+        at = untied & (n == rows)
+        s = (rows ** 3 - rows) // 6 - np.rint(txy[at] / 2).astype(np.int64)
+        if rows <= config.SPEARMAN_EXACT_MAX_N:
+            s_values, table = _spearman_exact_table(rows)
+            p[at] = table[np.searchsorted(s_values, s)]
+            out.method[at] = labels_m.code("exact")
         else:
-            p[untied] = _spearman_edgeworth(n_rows, s)
-            out.method[untied] = labels_m.code("Edgeworth series (AS 89)")
+            p[at] = _spearman_edgeworth(rows, s)
+            out.method[at] = labels_m.code("Edgeworth series (AS 89)")
     # tied and small: a permutation test on the pair's scores (exact or seeded), the per-pair kernel
     rows_needed = ok & ~use_t & tied
     out.fallback[rows_needed] = True
@@ -597,6 +682,31 @@ def _spearman_block(cols, rows_i, cols_j, out, confidence, labels_m, labels_n, c
     if intervals:
         out.ci_low[:], out.ci_high[:] = fisher_intervals("spearman", rho, n, confidence)
     _floor_block(cols, xi, yj, out, ok & ~rows_needed, counts, "spearman", labels_n)
+
+
+def _spearman_partial(cols, xi, yj, complete, cx, cy, out):
+    """The pairs touching an incomplete column whose scores on their own rows are computed here
+    (:func:`_masked_score_sums`), as a mask, and their score sums (sum sx sy, sum sx^2, sum sy^2);
+    their row counts go to ``out.n`` and they leave the fallback. The per-pair kernel keeps the rest: a side constant over its present values
+    (it words the note), fewer than ``SPEARMAN_TIED_PERMUTATION_MAX_N + 1`` rows (exact and
+    permutation laws), a side constant on the pair's rows, and tables beyond exact integer sums."""
+    cand = ~complete & ~cx & ~cy & (xi < yj)
+    if not cand.any() or cols.n > _SPEARMAN_EXACT_MAX_N:
+        return np.zeros(xi.size, bool), None
+    if getattr(cols, "_score_layout", None) is None:
+        by_value = np.where(cols.present, cols.data, np.inf)
+        order = np.ascontiguousarray(np.argsort(by_value, axis=0, kind="stable").T.astype(np.int64))
+        cols._score_layout = (cols.by_column(), np.ascontiguousarray(cols.present.T), order)
+    values, present, order = cols._score_layout
+    idx = np.flatnonzero(cand)
+    txy, txx, tyy, rows = _masked_score_sums(values, present, order, cols.counts, xi[idx].astype(np.int64),
+                                             yj[idx].astype(np.int64))
+    usable = (rows > config.SPEARMAN_TIED_PERMUTATION_MAX_N) & (txx > 0) & (tyy > 0)
+    partial = np.zeros(xi.size, bool)
+    partial[idx[usable]] = True
+    out.n[idx] = rows
+    out.fallback[partial] = False
+    return partial, (txy[usable], txx[usable], tyy[usable])
 
 
 def _prepare_ranks(cols: _Columns) -> None:

@@ -90,6 +90,40 @@ def test_missing_values_in_every_column_match_per_pair_kernels(n):
     _assert_matches_per_pair(data, "t")
 
 
+@pytest.mark.parametrize("n", [60, 200])
+def test_spearman_with_missing_values_on_each_pairs_own_rows(n):
+    """Spearman of pairs touching incomplete columns, from scores on each pair's own rows.
+
+    Reference: scipy.stats.spearmanr on the pair's complete rows (estimate; its t p-value where
+    the per-pair rule is the t approximation), and the per-pair kernel for everything (p-values of
+    the Edgeworth series, notes, methods, row counts); ties, a constant-on-its-rows column and a
+    column with only a few rows left are included."""
+    rng = np.random.default_rng(n)
+    data = rng.normal(size=(n, 8)) + rng.normal(size=(n, 1))
+    data[:, 2] = np.round(data[:, 2])                     # ties
+    data[:, 3] = np.exp(data[:, 3])                       # skewed, same ranks as a normal column
+    data[rng.uniform(size=data.shape) < 0.12] = np.nan
+    data[: n - 20, 6] = np.nan                            # 20 rows left: the per-pair kernel's laws
+    data[:, 7] = np.where(np.arange(n) < n // 2, 1.0, data[:, 7])
+    wp = wide.pair_matrix(data, measures=("spearman",))
+    arr = wp.measures["spearman"]
+    computed = 0
+    for k, (i, j) in enumerate(zip(wp.i.tolist(), wp.j.tolist())):
+        if arr.fallback[k]:
+            continue
+        both = ~np.isnan(data[:, i]) & ~np.isnan(data[:, j])
+        ref = stats.spearmanr(data[both, i], data[both, j])
+        np.testing.assert_allclose(arr.estimate[k], ref.statistic, rtol=1e-12, atol=1e-15)
+        assert arr.n[k] == both.sum()
+        if arr.methods[arr.method[k]].startswith("t approximation"):
+            np.testing.assert_allclose(arr.p_value[k], ref.pvalue, rtol=1e-9)
+        computed += 1
+    # pairs of columns 0-5 (no few-row column among them) come from the scores, not the fallback
+    assert computed >= 15
+    assert not arr.fallback[(wp.i < 6) & (wp.j < 6) & (wp.i != 2) & (wp.j != 2)].any()
+    _assert_matches_per_pair(data, "t")
+
+
 def test_constant_column_is_nan_with_the_reason():
     wp = wide.pair_matrix(_table(40, seed=1))
     arr = wp.measures["pearson"]
