@@ -234,6 +234,7 @@ def _run_top(sub, variables, settings, per_pair, test, top, progress, cancel, st
     """Each measure's ``top`` rows of smallest p-value, blocks of pairs at a time. Every p-value goes
     to a temporary file (8 bytes a pair, not held in memory) and into a histogram, from which
     :func:`pairlens.core.wide.head_adjusted` gives the kept rows the q-values of the whole column."""
+    import contextlib
     import tempfile
     import time
     from pathlib import Path
@@ -248,34 +249,31 @@ def _run_top(sub, variables, settings, per_pair, test, top, progress, cancel, st
     labels = {}
     report = _progress_adapter(progress, started)
     total = 0
-    with tempfile.TemporaryDirectory(prefix="pairlens_pvalues_") as tmp:
+    with tempfile.TemporaryDirectory(prefix="pairlens_pvalues_") as tmp, contextlib.ExitStack() as open_files:
         paths = {m: Path(tmp) / f"{m}.f8" for m in measures}
-        files = {m: open(paths[m], "wb") for m in measures}
-        try:
-            for start, stop, i, j, block, total in pair_blocks(sub, measures=measures, pearson_test=test,
-                                                               confidence=settings.confidence, threads=threads,
-                                                               intervals=False, cancel=cancel):
-                for m in measures:
-                    arr = block[m]
-                    labels[m] = (arr.methods, arr.notes)
-                    if m not in label_maps:
-                        label_maps[m] = ({}, {})
-                    labels_n, labels_m = label_maps[m]
-                    for t_map, lst in ((labels_n, arr.notes), (labels_m, arr.methods)):
-                        t_map.update({t: k for k, t in enumerate(lst) if t not in t_map})
-                    ks = np.flatnonzero(arr.fallback)
-                    if ks.size:
-                        _resolve(arr, ks, i, j, variables, per_pair, replace(settings, measures=(m,)),
-                                 labels_n, labels_m, cancel)
-                    values = arr.p_value[~np.isnan(arr.p_value)]
-                    values.tofile(files[m])
-                    histograms[m] += key_histogram(values)
-                    present[m] += values.size
-                    heads[m] = _merge_head(heads[m], arr, i, j, start, arr.fallback, top)
-                report(0.97 * stop / max(total, 1))
-        finally:
-            for fh in files.values():
-                fh.close()
+        files = {m: open_files.enter_context(open(paths[m], "wb")) for m in measures}
+        for start, stop, i, j, block, total in pair_blocks(sub, measures=measures, pearson_test=test,
+                                                           confidence=settings.confidence, threads=threads,
+                                                           intervals=False, cancel=cancel):
+            for m in measures:
+                arr = block[m]
+                labels[m] = (arr.methods, arr.notes)
+                if m not in label_maps:
+                    label_maps[m] = ({}, {})
+                labels_n, labels_m = label_maps[m]
+                for t_map, lst in ((labels_n, arr.notes), (labels_m, arr.methods)):
+                    t_map.update({t: k for k, t in enumerate(lst) if t not in t_map})
+                ks = np.flatnonzero(arr.fallback)
+                if ks.size:
+                    _resolve(arr, ks, i, j, variables, per_pair, replace(settings, measures=(m,)),
+                             labels_n, labels_m, cancel)
+                values = arr.p_value[~np.isnan(arr.p_value)]
+                values.tofile(files[m])
+                histograms[m] += key_histogram(values)
+                present[m] += values.size
+                heads[m] = _merge_head(heads[m], arr, i, j, start, arr.fallback, top)
+            report(0.97 * stop / max(total, 1))
+        open_files.close()      # every p-value is on disk before the files are read back
         kept = {}
         for m in measures:
             head = heads[m] or _merge_head(None, _empty_arrays(), np.empty(0, np.int32), np.empty(0, np.int32), 0,
