@@ -239,6 +239,7 @@ class _Columns:
         self.counts = self.present.sum(axis=0).astype(np.int64)
         self._by_column = None
         self._orders = None
+        self._score_layout = None   # (values, presence, order by value), one column a row: _spearman_partial
 
     def orders(self) -> np.ndarray:
         """Each column's present rows in ascending value (column-wise), computed on first use."""
@@ -687,13 +688,15 @@ def _spearman_block(cols, rows_i, cols_j, out, confidence, labels_m, labels_n, c
 def _spearman_partial(cols, xi, yj, complete, cx, cy, out):
     """The pairs touching an incomplete column whose scores on their own rows are computed here
     (:func:`_masked_score_sums`), as a mask, and their score sums (sum sx sy, sum sx^2, sum sy^2);
-    their row counts go to ``out.n`` and they leave the fallback. The per-pair kernel keeps the rest: a side constant over its present values
-    (it words the note), fewer than ``SPEARMAN_TIED_PERMUTATION_MAX_N + 1`` rows (exact and
-    permutation laws), a side constant on the pair's rows, and tables beyond exact integer sums."""
+    their row counts go to ``out.n`` and they leave the fallback.
+
+    The per-pair kernel keeps the rest: a side constant over its present values (it words the
+    note), at most ``SPEARMAN_TIED_PERMUTATION_MAX_N`` rows (exact and permutation laws), a side
+    constant on the pair's rows, and tables beyond exact integer sums."""
     cand = ~complete & ~cx & ~cy & (xi < yj)
     if not cand.any() or cols.n > _SPEARMAN_EXACT_MAX_N:
         return np.zeros(xi.size, bool), None
-    if getattr(cols, "_score_layout", None) is None:
+    if cols._score_layout is None:
         by_value = np.where(cols.present, cols.data, np.inf)
         order = np.ascontiguousarray(np.argsort(by_value, axis=0, kind="stable").T.astype(np.int64))
         cols._score_layout = (cols.by_column(), np.ascontiguousarray(cols.present.T), order)
