@@ -17,7 +17,7 @@ import numpy as np
 
 from . import config
 from .core import allpairs
-from .core.registry import MEASURES, PairContext, get_measure, measures_for, pvalue_floor
+from .core.registry import MEASURES, PairContext, get_measure, measures_for, presorted_pvalue_floor
 from .core.results import TestResult, undefined
 from .core.testing import floor_pvalue, pair_seed
 from .pairtable import PairRow
@@ -124,7 +124,7 @@ def fast_pair_rows(prep: "allpairs.PreparedColumns", xvar: Variable, yvar: Varia
             seen = pair.direction(swapped)
             res = _presorted_measure(m, seen, a, b, settings)
             if res.p_value == res.p_value:  # the registry's floor, as on the per-pair path
-                res = floor_pvalue(res, pvalue_floor(MEASURES[m], seen.x, seen.y))
+                res = floor_pvalue(res, presorted_pvalue_floor(MEASURES[m], seen))
             rows.append(_pair_row(a, b, m, res))
     return rows
 

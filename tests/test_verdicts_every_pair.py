@@ -71,3 +71,26 @@ def test_a_100_column_table_has_a_verdict_for_every_pair():
         for other in (j + 1, j + 2):
             x, y = names[j], names[other]
             assert _classify(z, names, table, x, y) == table.verdicts[(x, y)], (x, y)
+
+
+@pytest.mark.parametrize("measures", [("pearson",), ("pearson", "spearman"), ("pearson", "xi"),
+                                      ("spearman", "dcor_bc"), ("kendall", "xi"), ("dcor",)])
+def test_labels_of_partial_panels_are_the_pair_views(measures):
+    # The tiles skip the estimates a label cannot read with these panels (no dependence test that
+    # can be significant: rule 5 out of reach); every pair's label must still be classify_pair's.
+    rng = np.random.default_rng(21)
+    n = 120
+    base = rng.normal(size=n)
+    few_x, few_y = rng.normal(size=n), rng.normal(size=n)
+    few_x[-3:], few_y[-3:] = (8.0, 9.0, 10.0), (8.5, 9.5, 10.5)   # three points make r
+    z = np.column_stack([base, 0.8 * base + 0.6 * rng.normal(size=n), base ** 2 + 0.3 * rng.normal(size=n),
+                         np.exp(2 * base) + 0.2 * rng.normal(size=n), few_x, few_y, rng.normal(size=n),
+                         np.round(rng.normal(size=n))])
+    z[rng.random(z.shape) < 0.02] = np.nan
+    names = ["base", "linear", "square", "curve", "few_x", "few_y", "noise", "ticks"]
+    table = run_analysis(z, names, AnalysisSettings(measures=measures), workers=1, verdicts=True)
+    assert len(table.verdicts) == 28
+    for x, y in table.verdicts:
+        assert _classify(z, names, table, x, y) == table.verdicts[(x, y)], (measures, x, y)
+    # the panels see different things: not every pair gets the same label
+    assert len(set(table.verdicts.values())) >= 2

@@ -598,6 +598,14 @@ class PresortedPair:
             st = self.shared["distance"] = centred_statistics_presorted(*self.distance_inputs)
         return st
 
+    def untied(self) -> bool:
+        """Neither column holds two equal values (O(n) from the orders, computed once per pair)."""
+        flag = self.shared.get("untied")
+        if flag is None:
+            v = self.view
+            flag = self.shared["untied"] = not (_has_ties(v.x, v.x_order) or _has_ties(v.y, v.y_order))
+        return flag
+
     def direction(self, swapped: bool) -> "PresortedPair":
         """The same parts seen from the other direction when ``swapped`` differs."""
         if swapped == self.swapped:

@@ -13,6 +13,7 @@ from dataclasses import dataclass, replace as replace_fields
 from typing import Callable
 
 import numpy as np
+from scipy import special
 
 from . import allpairs, categorical, chatterjee, distance, linear, partial, rank, serial
 from .. import config
@@ -314,6 +315,21 @@ def pvalue_floor(measure: "Measure", x: np.ndarray, y: np.ndarray) -> float:
         if values is not None:
             return attainable_minimum(values)
     return permutation_floor(x, y)
+
+
+def presorted_pvalue_floor(measure: "Measure", pair: "allpairs.PresortedPair") -> float:
+    """:func:`pvalue_floor` of a presorted pair; the same value, without grouping the rows when untied.
+
+    Between the enumerated sizes and :data:`pairlens.config.PVALUE_FLOOR_MAX_N`
+    rows a pair with no ties in either column has K = 1, so the floor is
+    1/n! (:func:`pairlens.core.testing.permutation_floor` computes
+    exp(0 - ln n!), the same bits); the ties are read off the sorted orders in
+    O(n) instead of two ``np.unique`` calls.
+    """
+    n = pair.n
+    if config.PVALUE_FLOOR_ENUMERATE_MAX_N < n <= config.PVALUE_FLOOR_MAX_N and pair.untied():
+        return float(math.exp(0.0 - special.gammaln(n + 1.0)))
+    return pvalue_floor(measure, pair.x, pair.y)
 
 
 def _floored(compute: Callable[[np.ndarray, np.ndarray, PairContext], TestResult], name: str):

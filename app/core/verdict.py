@@ -279,51 +279,65 @@ def _set_q(ev: _Evidence, results, q_values) -> None:
             ev.q[m] = float(q)
 
 
+def _dependence_may_count(results, alpha: float) -> bool:
+    """Whether a dependence test (dcor, dcor_bc, xi) of ``results`` could end with q < alpha."""
+    return any(_may_be_significant(results.get(m), alpha) for m in DEPENDENCE_MEASURES)
+
+
 def _gather_data(ev: _Evidence, x, y, results, fit, *, with_fit: bool, q_known: bool) -> _Evidence:
     """Everything the rules compare except significance: estimates, Gaussian gaps, influence (and the fit).
 
     Without the q-values (``q_known`` False: the engine's tiles, before they exist)
-    the dCor of the points left after dropping the k most influential ones is
-    computed whenever |r| collapses, significant or not, so the label decided
-    later from the q-values is the one :func:`classify_pair` gives.
+    only what the label's rules read is gathered: the dCor of the points left
+    after dropping the k most influential ones is computed whenever |r|
+    collapses, significant or not, so the label decided later from the q-values
+    is the one :func:`classify_pair` gives; what only the reasons read (class
+    codes, the Gaussian dCor of r, single-point influence) is skipped, and so
+    are the estimates computed here when no dependence test can be significant
+    (rule 5 is then out of reach and rules 3 and 6 read only tested rank
+    correlations).
     """
     from . import distance, gaussian, rank
 
     xa = np.asarray(x, dtype=np.float64).ravel()
     ya = np.asarray(y, dtype=np.float64).ravel()
     keep = np.isfinite(xa) & np.isfinite(ya)
-    xa, ya = xa[keep], ya[keep]
+    if not keep.all():
+        xa, ya = xa[keep], ya[keep]
     ev.n = n = int(xa.size)
     if n < config.MIN_ROWS:
         ev.degenerate = f"only {n} complete rows: nothing can be said about dependence"
         return ev
     for name, v in (("x", xa), ("y", ya)):
-        if np.all(v == v[0]):
+        if v.min() == v.max():
             ev.degenerate = f"{name} is constant: it cannot depend on anything"
             return ev
-    ev.class_codes = tuple((name, k) for name, k in (("x", class_code_levels(xa)), ("y", class_code_levels(ya)))
-                           if k)
+    if q_known:
+        ev.class_codes = tuple((name, k) for name, k in (("x", class_code_levels(xa)),
+                                                         ("y", class_code_levels(ya))) if k)
     for m, res in results.items():
         if res is not None and math.isfinite(res.estimate):
             ev.est[m] = float(res.estimate)
 
     # Estimates the rules compare, computed here when the panel lacks them.
-    dx, dy = xa - xa.mean(), ya - ya.mean()
     if "pearson" not in ev.est:
-        ev.est["pearson"] = _r_from_sums(dx, dy)
+        ev.est["pearson"] = _r_from_sums(xa - xa.mean(), ya - ya.mean())
         ev.computed_here.append("pearson")
-    if "spearman" not in ev.est and "kendall" not in ev.est:
+    rule5_possible = q_known or _dependence_may_count(results, ev.alpha)
+    if rule5_possible and "spearman" not in ev.est and "kendall" not in ev.est:
         ev.est["spearman"] = rank.spearman_estimate(xa, ya)
         ev.computed_here.append("spearman")
-    if "dcor" not in ev.est:
+    if rule5_possible and "dcor" not in ev.est:
         ev.est["dcor"] = distance.dcor_estimate(xa, ya)
         ev.computed_here.append("dcor")
     ev.rank_equiv, ev.rank_source = _rank_equivalent(ev)
     r = ev.r
     if math.isfinite(r):
-        ev.dcor_implied = float(distance.gaussian_dcor(max(-1.0, min(1.0, r))))
-        ref = max(abs(r), abs(ev.rank_equiv)) if math.isfinite(ev.rank_equiv) else abs(r)
-        ev.dcor_ref_implied = float(distance.gaussian_dcor(min(1.0, ref)))
+        if q_known:  # read by the reasons only
+            ev.dcor_implied = float(distance.gaussian_dcor(max(-1.0, min(1.0, r))))
+        if rule5_possible:
+            ref = max(abs(r), abs(ev.rank_equiv)) if math.isfinite(ev.rank_equiv) else abs(r)
+            ev.dcor_ref_implied = float(distance.gaussian_dcor(min(1.0, ref)))
 
     ev.k = min(MAX_DROPPED, max(3, math.ceil(n / 100)), n // 10)
     if not q_known and not _may_be_significant(results.get("pearson"), ev.alpha):
@@ -333,7 +347,7 @@ def _gather_data(ev: _Evidence, x, y, results, fit, *, with_fit: bool, q_known: 
         return ev
     # Influence of single points and of the k most influential ones on r.
     if q_known:  # the single-point change is only ever read by the reasons
-        loo = _loo_r(dx, dy)
+        loo = _loo_r(xa - xa.mean(), ya - ya.mean())
         if math.isfinite(r) and np.isfinite(loo).any():
             change = np.abs(loo - r)
             i = int(np.nanargmax(change))
@@ -826,6 +840,10 @@ def label_from_evidence(gathered: LabelEvidence, q_values: dict[str, float],
     """The label :func:`classify_pair` gives, from :func:`label_evidence` and the q-values
     (``trending`` as there).
 
+    Only the q-values of measures that had a result in :func:`label_evidence`
+    are read: the evidence was gathered for those (a dependence test's q-value
+    arriving without its result would need estimates that were not computed).
+
     Examples
     --------
     >>> from pairlens.core import linear, rank
@@ -842,7 +860,7 @@ def label_from_evidence(gathered: LabelEvidence, q_values: dict[str, float],
     if not isinstance(gathered, LabelEvidence):  # a pair with a categorical side (core.verdict_categorical)
         return gathered.label(q_values or {})
     ev = dataclasses.replace(gathered.evidence, q={}, q_from_p=[], trending=tuple(trending))
-    _set_q(ev, gathered.results, q_values or {})
+    _set_q(ev, gathered.results, {m: q for m, q in (q_values or {}).items() if m in gathered.results})
     for rule in RULES:
         if rule.holds(ev):
             return rule.label

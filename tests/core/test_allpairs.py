@@ -342,3 +342,28 @@ def test_gamma_tail_is_scipy_stats_bit_for_bit():
     assert distance._gamma_sf(math.inf, 2.0, 1.0) == 0.0
     assert math.isnan(distance._gamma_sf(math.nan, 2.0, 1.0))
     assert special.gammaincc(2.0, 1.0) == distance._gamma_sf(1.0, 2.0, 1.0)
+
+
+@pytest.mark.parametrize("n", [3, 8, 9, 30, 1000, 1001])
+@pytest.mark.parametrize("ties", ["none", "x", "both"])
+def test_presorted_pvalue_floor_is_the_per_pair_floor(n, ties):
+    # the per-pair pvalue_floor is the oracle; untied: the closed form 1/n! (Good 2005, ch. 3)
+    from pairlens.core.registry import presorted_pvalue_floor, pvalue_floor
+
+    rng = np.random.default_rng(n)
+    data = rng.normal(size=(n, 2))
+    if ties in ("x", "both"):
+        data[:, 0] = np.round(data[:, 0])
+    if ties == "both":
+        data[:, 1] = np.round(data[:, 1] * 2)
+    prep = allpairs.prepare_columns(data)
+    regular, view, *_ = allpairs.pair_work(prep, 0, 1, 3, spearman=False, kendall=False, distance=False)
+    assert regular
+    pair = allpairs.PresortedPair(view, False, None, None, None)
+    assert pair.untied() == (ties == "none")
+    for measure in MEASURES.values():
+        for seen in (pair, pair.direction(True)):
+            got = presorted_pvalue_floor(measure, seen)
+            assert got == pvalue_floor(measure, seen.x, seen.y), (measure.name, n, ties)
+    if ties == "none" and 8 < n <= 1000:
+        assert got == pytest.approx(math.exp(-math.lgamma(n + 1.0)), rel=1e-12)   # 1/n!, 0.0 past 170!
