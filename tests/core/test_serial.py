@@ -91,10 +91,12 @@ def test_adf_names_the_trending_series():
 
 def test_effective_n_matches_the_ar1_closed_form():
     # Two AR(1) series with coefficients a, b: sum over all lags of rho_x(k) rho_y(k) gives
-    # n* = n (1 - ab) / (1 + ab) for large n: the published closed form of Bretherton et al. (1999,
-    # J. Climate 12:1990-2009, section 5; as quoted in the public Q&A thread talkstats.com/threads/65489).
+    # n* = n (1 - ab) / (1 + ab) for large n: the published closed form of Quenouille (1948,
+    # Biometrika 35:261-267, doi:10.2307/2332345, effective degrees of freedom of the correlation of two
+    # serially correlated series, as stated in its abstract) and Bretherton et al. (1999, J. Climate
+    # 12:1990-2009, section 5; as quoted in the public Q&A thread talkstats.com/threads/65489).
     # No worked numerical example of Bartlett (1935), Dutilleul (1993), Pyper & Peterman (1998) or
-    # Afyouni et al. (2019) was found to check against.
+    # Afyouni et al. (2019) was found to check against (only their abstracts are reachable here).
     n, a, b = 100_000, 0.6, 0.8
     k = np.arange(200)
     assert serial.effective_n(a ** k, b ** k, n) == pytest.approx(n * (1 - a * b) / (1 + a * b), rel=2e-3)
