@@ -899,9 +899,16 @@ def label_evidence(x: np.ndarray, y: np.ndarray, results: dict[str, TestResult],
     Returns
     -------
     LabelEvidence
+        Without a p-value below ``alpha`` nothing is gathered: the label can
+        only be "no evidence of dependence".
     """
-    ev = _gather_data(_Evidence(alpha=float(alpha)), x, y, results or {}, None, with_fit=False, q_known=False)
-    return LabelEvidence(ev, dict(results or {}))
+    results = dict(results or {})
+    if not any(_may_be_significant(res, float(alpha)) for res in results.values()):
+        # No q-value can fall below alpha (q >= p for every adjustment), so rule 4 or rule 1 gives
+        # "no evidence of dependence" whatever the data: nothing to gather (most pairs of a wide table).
+        return LabelEvidence(_Evidence(alpha=float(alpha), degenerate="no measure has p < alpha"), results)
+    ev = _gather_data(_Evidence(alpha=float(alpha)), x, y, results, None, with_fit=False, q_known=False)
+    return LabelEvidence(ev, results)
 
 
 def label_from_evidence(gathered: LabelEvidence, q_values: dict[str, float],
