@@ -7,6 +7,12 @@
   var P = window.pairlens || {};
   var fmt = P.fmt, fmtEst = P.fmtEst, fmtP = P.fmtP;
   function $(id) { return document.getElementById(id); }
+  // "2nd", "3rd", "11th", "21st": the English ordinal of a label step
+  function ordinal(n) {
+    var tens = n % 100, ones = n % 10;
+    if (tens >= 11 && tens <= 13) return n + "th";
+    return n + (ones === 1 ? "st" : ones === 2 ? "nd" : ones === 3 ? "rd" : "th");
+  }
   function el(tag, attrs, text) {
     var node = document.createElement(tag);
     if (attrs) Object.keys(attrs).forEach(function (k) { node.setAttribute(k, attrs[k]); });
@@ -218,7 +224,7 @@
     $("focus-hint").textContent = (m.symmetric ? "" : "rows predict columns; ") +
       (zoomed ? "rows and columns " + (state.r0 + 1) + "–" + Math.min(k, state.r0 + state.n) + " of " + k +
         " (press “all” to see every column)" : k + " columns") +
-      (focus.dataset.labelStep !== "1" ? "; every " + focus.dataset.labelStep + "th name shown: zoom in or hover for the rest" : "");
+      (focus.dataset.labelStep !== "1" ? "; every " + ordinal(Number(focus.dataset.labelStep)) + " name shown: zoom in or hover for the rest" : "");
     drawLegend(m);
     thumbs.forEach(function (fig) {
       var on = fig.dataset.map === state.map;

@@ -173,6 +173,9 @@ def test_wide_maps_label_what_fits_and_zoom_reaches_the_rest(server, page, key):
     assert step > 1   # past 60 columns not every name fits at 10 px and more
     names = page.evaluate("window.pairlensMaps.variables")
     assert [b["text"] for b in labels if b["kind"] == "row"] == names[::step]
+    # the hint says which names are shown, in English ordinals ("every 3rd", "every 12th"; common practice)
+    suffix = "th" if step % 100 in (11, 12, 13) else {1: "st", 2: "nd", 3: "rd"}.get(step % 10, "th")
+    assert f"every {step}{suffix} name shown" in page.inner_text("#focus-hint")
     # Zoom in until every row in view is named; the labels still keep apart and inside the page.
     for _ in range(8):
         if page.get_attribute("#focus-map", "data-label-step") == "1":
