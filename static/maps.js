@@ -5,7 +5,7 @@
   "use strict";
 
   var P = window.pairlens || {};
-  var fmt = P.fmt, fmtEst = P.fmtEst, fmtP = P.fmtP;
+  var fmt = P.fmt, fmtEst = P.fmtEst, fmtP = P.fmtP, fmtCount = P.fmtCount;
   function $(id) { return document.getElementById(id); }
   // "2nd", "3rd", "11th", "21st": the English ordinal of a label step
   function ordinal(n) {
@@ -222,8 +222,8 @@
     $("focus-title").textContent = m.label;
     var zoomed = state.n < k;
     $("focus-hint").textContent = (m.symmetric ? "" : "rows predict columns; ") +
-      (zoomed ? "rows and columns " + (state.r0 + 1) + "–" + Math.min(k, state.r0 + state.n) + " of " + k +
-        " (press “all” to see every column)" : k + " columns") +
+      (zoomed ? "rows and columns " + fmtCount(state.r0 + 1) + "–" + fmtCount(Math.min(k, state.r0 + state.n)) +
+        " of " + fmtCount(k) + " (press “all” to see every column)" : fmtCount(k) + " columns") +
       (focus.dataset.labelStep !== "1" ? "; every " + ordinal(Number(focus.dataset.labelStep)) + " name shown: zoom in or hover for the rest" : "");
     drawLegend(m);
     thumbs.forEach(function (fig) {
@@ -672,8 +672,8 @@
         });
         tbody.appendChild(frag);
         var last = Math.min(offset + PAGE, total);
-        count.textContent = "rows " + (total ? offset + 1 : 0) + "–" + last + " of " + P.fmtCount(total) +
-          " pairs shown by the filters (" + P.fmtCount(d.total) + " in all)";
+        count.textContent = "rows " + fmtCount(total ? offset + 1 : 0) + "–" + fmtCount(last) + " of " + fmtCount(total) +
+          " pairs shown by the filters (" + fmtCount(d.total) + " in all)";
         prev.disabled = offset === 0;
         next.disabled = last >= total;
         $("pair-table").dataset.ready = "1";

@@ -210,6 +210,15 @@ def test_wide_maps_label_what_fits_and_zoom_reaches_the_rest(server, page, key):
         assert _in_viewport(page, "#focus-canvas")
         page.mouse.move(5, 5)
         screenshot(page, "analysis-300", doc=True, full_page=False)
+        # counts grouped in threes with a thin space, as the page header writes them (pairlens.js fmtCount)
+        page.wait_for_selector('#pair-table[data-ready="1"]')
+        assert "(44\u2009850 in all)" in page.inner_text("#pair-count")
+        for shown_from in range(101, 1002, 100):   # ten pages on, past the first thousand rows
+            page.click("#pair-more")
+            want = f"rows {shown_from:,}–".replace(",", "\u2009")
+            page.wait_for_function("(want) => document.getElementById('pair-count').textContent.startsWith(want)",
+                                   arg=want)
+        assert page.inner_text("#pair-count").startswith("rows 1\u2009001–1\u2009100 of 44\u2009850")
 
 
 def test_pair_table_at_six_measures_keeps_names_on_one_line(server, page):
