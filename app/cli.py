@@ -154,8 +154,9 @@ def build_parser(command: str | None = None) -> argparse.ArgumentParser:
         pairs.add_argument("--max-q", type=float, default=None, metavar="Q",
                            help="only rows with q-value at most Q (q-values are over all pairs either way)")
         pairs.add_argument("--path", choices=("auto", "matrix", "pairs"), default="auto",
-                           help="matrix: Pearson and Spearman of all pairs by matrix products; pairs: one pair "
-                                "at a time; auto: the matrix path for wide tables when the measures allow it")
+                           help="matrix: Pearson and Spearman of all pairs by matrix products (other measures "
+                                "pair by pair beside them); pairs: one pair at a time; auto: the matrix path "
+                                "for wide tables when the settings allow it")
 
     inspect = _subparser(sub, "inspect", "everything about one pair",
                          "Every measure, the bivariate Gaussian fit and the verdict for one pair.")

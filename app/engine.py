@@ -94,9 +94,11 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
         (:mod:`pairlens.matrix_path`), the pairs that need their rows by the
         per-pair path; ``"pairs"``: every pair by the per-pair path;
         ``"auto"``: the matrix path for ``config.MATRIX_PATH_MIN_PAIRS`` pairs
-        or more when the settings allow it, no executor or cluster is given and
-        no verdicts are asked for (the verdicts' evidence is gathered in the
-        per-pair tiles).
+        or more when the settings allow it and no executor or cluster is
+        given. When other measures are chosen or verdicts are asked for (their
+        evidence is gathered pair by pair), the tiles compute those and take
+        Pearson and Spearman from the matrix products
+        (:class:`pairlens.matrix_path.MatrixPart`).
     streamed : bool
         The caller streams the table to a file: a matrix-path run may then give
         up to ``config.MATRIX_MAX_PAIR_ROWS`` rows instead of ``MAX_PAIR_ROWS``.
@@ -138,6 +140,21 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
     # refused before any work: too many pair-table rows, or beyond the work budget (app/budget.py)
     check_plan(WorkEstimate(len(pairs), len(settings.run_measures), data.shape[0], settings.budget_permutations()))
     workers = workers or os.cpu_count() or 1
+    part, part_share = None, 0.0
+    part_measures = () if settings.ordered is not None or given is not None else matrix_path.part_measures(
+        path, settings, variables, n_pairs, local=executor is None and cluster is None)
+    if part_measures:
+        # Pearson and Spearman of every pair by matrix products, the rest by the tiles. The products
+        # are a few percent of such a run (1,000 x 1,000, default measures: 4 s of about 2 minutes).
+        part_share = 0.05
+        from .core.wide import WideCancelled
+        try:
+            with one_blas_thread():
+                part = matrix_path.run_part(
+                    data, variables, settings, row_mask, part_measures, threads=workers, cancel=cancel,
+                    progress=None if progress is None else (lambda f: progress(part_share * f, math.nan)))
+        except WideCancelled:
+            raise AnalysisCancelled("analysis cancelled") from None
     owned = executor is None
     if executor is None:
         executor = make_executor(workers=workers, cluster=cluster, n_tasks=len(pairs), n_rows=data.shape[0],
@@ -160,13 +177,14 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
         gc.freeze()
     try:
         for index, rows in executor.run(run_tile, tiles, init_worker,
-                                        (data, variables, settings, row_mask, prepared, verdicts, given),
+                                        (data, variables, settings, row_mask, prepared, verdicts, given, part),
                                         cancel=cancel):
             results[index] = rows
             done_pairs += len(tiles[index])
             if progress is not None:
                 elapsed = time.perf_counter() - started
-                frac = done_pairs / max(len(pairs), 1)
+                # 1.0 exactly when every tile is in (the pages read it as done)
+                frac = 1.0 - (1.0 - part_share) * (1.0 - done_pairs / max(len(pairs), 1))
                 progress(frac, elapsed / frac * (1 - frac) if frac > 0 else math.nan)
             if cancel is not None and cancel():
                 raise AnalysisCancelled("analysis cancelled")

@@ -22,7 +22,8 @@ from .core import linear
 from .core.testing import adjust_pvalues
 from .core.wide import WIDE_MEASURES, pair_matrix
 
-__all__ = ["PATHS", "matrix_applies", "run_matrix", "TopPairTable", "WidePairTable"]
+__all__ = ["PATHS", "matrix_applies", "run_matrix", "TopPairTable", "WidePairTable", "MatrixPart",
+           "part_measures", "run_part"]
 
 PATHS = ("auto", "matrix", "pairs")
 
@@ -378,6 +379,68 @@ class TopPairTable:
         return [r.record() for r in self.rows]
 
 
+class MatrixPart:
+    """Pearson and Spearman of every pair from the matrix form, beside the per-pair tiles.
+
+    An analysis whose other measures (or verdicts) need each pair's rows still
+    takes its Pearson and Spearman results from :func:`pairlens.core.wide.pair_matrix`:
+    the tiles read them here (:meth:`rows`) instead of computing them, and compute
+    a pair's measure themselves only where the matrix form handed it back
+    (``fallback``). Pairs are the upper triangle of ``variables`` in
+    :func:`pairlens.plan.pair_indices` order.
+    """
+
+    def __init__(self, variables, measures, pairs) -> None:
+        self.names = [v.name for v in variables]
+        self.measures = tuple(measures)
+        self.pairs = pairs          # core.wide.WidePairs (q-values not filled: the engine adjusts all rows)
+
+    def rows(self, i: int, j: int) -> dict:
+        """``{measure: PairRow}`` of the pair (i < j) for each measure the matrix form finished."""
+        from .pairtable import PairRow
+
+        p = len(self.names)
+        k = i * p - i * (i + 1) // 2 + (j - i - 1)     # position of (i, j) in the upper triangle
+        out = {}
+        for m in self.measures:
+            a = self.pairs.measures[m]
+            if a.fallback[k]:
+                continue
+            out[m] = PairRow(self.names[i], self.names[j], m, float(a.estimate[k]), float(a.ci_low[k]),
+                             float(a.ci_high[k]), float(a.p_value[k]), float("nan"), int(a.n[k]),
+                             a.notes[a.note[k]], a.methods[a.method[k]])
+        return out
+
+
+def part_measures(path: str, settings, variables, n_pairs: int, *, local: bool = True) -> tuple[str, ...]:
+    """The chosen measures that the matrix form computes beside the per-pair tiles (``()``: none).
+
+    A run that the whole matrix path cannot take (other measures, or verdicts,
+    which need each pair's rows) still gets Pearson and Spearman by matrix
+    products when ``path`` is "matrix", or "auto" with enough pairs on a local
+    run, and the settings allow their matrix form (:func:`matrix_applies`)."""
+    if path not in PATHS:
+        raise SettingsError(f"path must be one of {', '.join(PATHS)}, not {path!r}")
+    subset = tuple(m for m in settings.measures if m in WIDE_MEASURES)
+    if path == "pairs" or not subset or matrix_applies(replace(settings, measures=subset), variables):
+        return ()
+    if path == "auto" and not (local and n_pairs >= config.MATRIX_PATH_MIN_PAIRS):
+        return ()
+    return subset
+
+
+def run_part(data: np.ndarray, variables, settings, row_mask, measures, *, threads: int = 1,
+             progress=None, cancel=None) -> MatrixPart:
+    """The :class:`MatrixPart` of ``measures`` (from :func:`part_measures`) for all pairs of ``variables``;
+    ``progress(fraction)`` after each block, ``cancel()`` polled before each."""
+    cols = [v.columns[0] for v in variables]
+    sub = data[:, cols] if row_mask is None else data[row_mask][:, cols]
+    test = linear.resolved_test(settings.test_for("pearson") or None, settings.permutations)
+    pairs = pair_matrix(sub, measures=measures, pearson_test=test if test in ("moments", "t") else "moments",
+                        confidence=settings.confidence, threads=threads, progress=progress, cancel=cancel)
+    return MatrixPart(variables, measures, pairs)
+
+
 def choose_path(path: str, settings, variables, n_pairs: int, *, local: bool = True) -> bool:
     """True when the matrix path runs: asked for, or ``auto`` with enough pairs, a local run and
     settings it can take."""
@@ -387,6 +450,8 @@ def choose_path(path: str, settings, variables, n_pairs: int, *, local: bool = T
         return False
     why_not = matrix_applies(settings, variables)
     if path == "matrix":
+        if why_not and part_measures(path, settings, variables, n_pairs, local=local):
+            return False    # Pearson/Spearman by matrix products, the other measures pair by pair
         if why_not:
             raise SettingsError(f"path matrix: {why_not}; use the auto or pairs path")
         return True

@@ -10,6 +10,8 @@ when the run ends.
 from __future__ import annotations
 
 import contextlib
+import dataclasses
+import functools
 import math
 from typing import Sequence
 
@@ -39,7 +41,7 @@ def _compute_one(measure_name: str, xv: np.ndarray, yv: np.ndarray, x_name: str,
     if n < config.MIN_ROWS:
         return undefined(n, f"fewer than {config.MIN_ROWS} rows with both values present ({n})")
     ctx = PairContext(confidence=settings.confidence, permutations=settings.permutations,
-                      seed=pair_seed(settings.seed, x_name, y_name, measure_name),
+                      seed=functools.partial(pair_seed, settings.seed, x_name, y_name, measure_name),
                       test=settings.test_for(measure_name), kinds=kinds)
     try:
         return measure.compute(xv, yv, ctx)
@@ -95,7 +97,8 @@ def _presorted_measure(measure: str, pair: "allpairs.PresortedPair", a: Variable
     entry = MEASURES[measure]
     if entry.presorted is not None:
         ctx = PairContext(confidence=settings.confidence, permutations=settings.permutations,
-                          seed=pair_seed(settings.seed, a.name, b.name, measure), test=settings.test_for(measure))
+                          seed=functools.partial(pair_seed, settings.seed, a.name, b.name, measure),
+                          test=settings.test_for(measure))
         res = entry.presorted(pair, ctx)
         if res is not None:
             return res
@@ -155,15 +158,19 @@ def prepare_columns(data: np.ndarray, variables: Sequence[Variable],
 _WORKER_STATE: dict = {}
 
 
-def init_worker(data, variables, settings, row_mask, prepared=None, verdicts=False, given=None) -> None:
+def init_worker(data, variables, settings, row_mask, prepared=None, verdicts=False, given=None,
+                matrix_part=None) -> None:
     """Worker state for a run; ``prepared`` (the sorted columns) is built here when not given.
 
     ``verdicts`` True: each tile also gathers what every pair of single columns
     needs for its verdict label (:func:`pairlens.core.verdict.label_evidence`).
+    ``matrix_part``: a :class:`pairlens.matrix_path.MatrixPart` whose results the
+    tiles take instead of computing those measures pair by pair.
     """
     _WORKER_STATE.clear()
     _WORKER_STATE.update(data=data, variables=variables, settings=settings, row_mask=row_mask,
-                         prepared=prepared, verdicts=verdicts, given=given)
+                         prepared=prepared, verdicts=verdicts, given=given, matrix_part=matrix_part,
+                         rest_settings={})
 
 
 def release_worker() -> None:
@@ -262,21 +269,58 @@ def ordered_rows(data: np.ndarray, xvar: Variable, yvar: Variable, settings: Ana
     return out
 
 
+def _rest_settings(ready: dict) -> AnalysisSettings | None:
+    """The run's settings without the measures whose rows are ``ready``; None when none is left."""
+    s = _WORKER_STATE
+    key = frozenset(ready)
+    if key not in s["rest_settings"]:
+        rest = tuple(m for m in s["settings"].measures if m not in key)
+        s["rest_settings"][key] = dataclasses.replace(s["settings"], measures=rest) if rest else None
+    return s["rest_settings"][key]
+
+
+def _merged(ready: dict, computed: list[PairRow], order: Sequence[str]) -> list[PairRow]:
+    """A pair's rows in the per-pair path's order: the measures of the run, each row from ``ready`` or computed."""
+    by_measure: dict[str, list[PairRow]] = {}
+    for r in computed:
+        by_measure.setdefault(r.measure, []).append(r)
+    out: list[PairRow] = []
+    for m in order:
+        if m in ready:
+            out.append(ready[m])
+        else:
+            out.extend(by_measure.get(m, ()))
+    return out
+
+
+def _computed_rows(prep, xvar: Variable, yvar: Variable, settings: AnalysisSettings) -> list[PairRow]:
+    s = _WORKER_STATE
+    try:
+        rows = fast_pair_rows(prep, xvar, yvar, settings)
+    except ArithmeticError:  # the per-pair path below turns it into a note per measure
+        rows = None
+    if rows is None:
+        rows = compute_pair(s["data"], xvar, yvar, settings, s["row_mask"])
+    return rows
+
+
 def run_tile(tile: list[tuple[int, int]]) -> tuple[list[PairRow], list]:
     """The rows of every pair in the tile, and (when asked) each pair's verdict evidence ``((x, y), ev)``."""
     s = _WORKER_STATE
     prep = _worker_prepared()
+    part = s.get("matrix_part")
     out: list[PairRow] = []
     evidence: list = []
     with one_blas_thread():
         for i, j in tile:
             xvar, yvar = s["variables"][i], s["variables"][j]
-            try:
-                rows = fast_pair_rows(prep, xvar, yvar, s["settings"])
-            except ArithmeticError:  # the per-pair path below turns it into a note per measure
-                rows = None
-            if rows is None:
-                rows = compute_pair(s["data"], xvar, yvar, s["settings"], s["row_mask"])
+            ready = part.rows(i, j) if part is not None else {}
+            if ready:
+                rest = _rest_settings(ready)
+                computed = [] if rest is None else _computed_rows(prep, xvar, yvar, rest)
+                rows = _merged(ready, computed, s["settings"].run_measures)
+            else:
+                rows = _computed_rows(prep, xvar, yvar, s["settings"])
             if s["settings"].ordered is not None:
                 rows = ordered_rows(s["data"], xvar, yvar, s["settings"], s["row_mask"], rows)
             out.extend(rows)

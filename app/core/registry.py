@@ -24,13 +24,41 @@ __all__ = ["PairContext", "Measure", "MEASURES", "PARTIAL_MEASURES", "partial_of
            "measures_for", "get_measure", "measure_names", "parse_tests", "pvalue_floor", "register", "unregister"]
 
 
+class _SeedOnFirstRead:
+    """The data descriptor behind ``PairContext.seed`` (a dataclass descriptor-typed field).
+
+    It holds a ``SeedSequence``, None, or a zero-argument callable that makes the
+    sequence the first time ``seed`` is read. Most default tests draw nothing,
+    and making a pair's sequence (a hash of its names) costs about a tenth of a
+    presorted pair's work on a wide table.
+    """
+
+    def __set_name__(self, owner, name) -> None:
+        self._slot = "_" + name
+
+    def __get__(self, obj, objtype=None):
+        if obj is None:
+            return None                      # the field's default
+        value = obj.__dict__[self._slot]
+        if callable(value):
+            value = obj.__dict__[self._slot] = value()
+        return value
+
+    def __set__(self, obj, value) -> None:
+        obj.__dict__[self._slot] = value
+
+
 @dataclass(frozen=True)
 class PairContext:
-    """What a measure needs besides the data: level, resamples and the pair's seed."""
+    """What a measure needs besides the data: level, resamples and the pair's seed.
+
+    ``seed`` may be given as a callable returning the ``SeedSequence``; it is
+    then called only if a measure reads the seed.
+    """
 
     confidence: float = 0.95
     permutations: int = 0
-    seed: np.random.SeedSequence | None = None
+    seed: np.random.SeedSequence | None = _SeedOnFirstRead()
     test: str = ""          # a method from the measure's ``tests``; "" = its default rule
     kinds: tuple[str, str] = ("numeric", "numeric")   # column kinds of x and y (pairlens.kinds)
     # --given: the conditioning columns on the pair's rows (n, q) and which of them are class codes

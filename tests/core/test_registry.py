@@ -108,3 +108,41 @@ def test_multivariate_measures_accept_groups(measure):
     res = measure.compute(x, y, _ctx())
     assert measure.lower - 1e-12 <= res.estimate <= measure.upper + 1e-12
     assert res.p_value < 0.01
+
+
+@pytest.mark.parametrize("measure", ALL, ids=IDS)
+@pytest.mark.parametrize("permutations", [0, 99])
+def test_a_seed_given_as_a_callable_is_made_only_when_read(measure, permutations):
+    # The tiles hand each pair's seed as a callable; a measure must give the same result as with the
+    # sequence itself, and the callable must run only if the seed is read (at most once).
+    x, y = _data(seed=4, n=40)
+    calls = []
+
+    def make():
+        calls.append(1)
+        return np.random.SeedSequence(11)
+
+    lazy = PairContext(permutations=permutations, seed=make)
+    eager = PairContext(permutations=permutations, seed=np.random.SeedSequence(11))
+    a, b = measure.compute(x, y, lazy), measure.compute(x, y, eager)
+    assert (a.estimate, a.p_value, a.method) == (b.estimate, b.p_value, b.method)
+    assert len(calls) <= 1
+    assert (lazy.seed.entropy, len(calls)) == (11, 1)
+
+
+@pytest.mark.parametrize("permutations", [0, 19])
+def test_presorted_pairs_make_a_seed_only_for_tests_that_draw(permutations, monkeypatch):
+    from pairlens import tiles
+    from pairlens.plan import AnalysisSettings, Variable
+
+    made = []
+    real = tiles.pair_seed
+    monkeypatch.setattr(tiles, "pair_seed", lambda *a: made.append(a[-1]) or real(*a))
+    x, y = _data(seed=5)
+    variables = [Variable("x", (0,)), Variable("y", (1,))]
+    settings = AnalysisSettings(measures=("pearson", "spearman", "kendall", "dcor"), permutations=permutations)
+    prep = tiles.prepare_columns(np.column_stack([x, y]), variables)
+    rows = tiles.fast_pair_rows(prep, variables[0], variables[1], settings)
+    assert len(rows) == 4 and all(r.p_value == r.p_value for r in rows)
+    # the default tests of these four draw nothing; with permutations Pearson's and dCor's do
+    assert sorted(made) == ([] if permutations == 0 else ["dcor", "pearson"])

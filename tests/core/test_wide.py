@@ -195,6 +195,81 @@ def test_auto_takes_the_matrix_path_for_wide_tables_only(monkeypatch):
     assert not isinstance(run_analysis(data, names, with_kendall, workers=1), WidePairTable)
 
 
+def _spy_on_parts(monkeypatch) -> list:
+    """Record the measures of every matrix part an analysis computes beside its tiles."""
+    from pairlens import matrix_path
+
+    seen = []
+    real = matrix_path.run_part
+
+    def spy(data, variables, settings, row_mask, measures, **kw):
+        seen.append(tuple(measures))
+        return real(data, variables, settings, row_mask, measures, **kw)
+
+    monkeypatch.setattr(matrix_path, "run_part", spy)
+    return seen
+
+
+@pytest.mark.parametrize("n, missing, measures, workers", [
+    (25, "pairwise", ("pearson", "spearman", "kendall", "dcor"), 1),
+    (90, "pairwise", ("spearman", "xi", "pearson"), 2),
+    (4, "pairwise", ("pearson", "spearman", "kendall", "dcor"), 1),
+    (40, "complete", ("kendall", "pearson"), 2),
+    (40, "pairwise", ("pearson", "spearman"), 1),          # verdicts only: nothing else left for the tiles
+])
+def test_matrix_part_beside_the_tiles_equals_the_pairs_path(n, missing, measures, workers, monkeypatch):
+    # Oracle: the per-pair path (path="pairs"), the matrix path's reference (issue 19): same rows in
+    # the same order, estimates to 1e-12 and p/q-values to 1e-9, notes, methods, n and verdicts equal.
+    data = _table(n, seed=11)
+    names = [f"c{k}" for k in range(data.shape[1])]
+    settings = AnalysisSettings(measures=measures, missing=missing)
+    seen = _spy_on_parts(monkeypatch)
+    a = run_analysis(data, names, settings, workers=workers, path="matrix", verdicts=True)
+    assert seen == [tuple(m for m in measures if m in wide.WIDE_MEASURES)]
+    b = run_analysis(data, names, settings, workers=workers, path="pairs", verdicts=True)
+    assert len(seen) == 1                                   # the pairs path computes no matrix part
+    assert [(r.x, r.y, r.measure) for r in a.rows] == [(r.x, r.y, r.measure) for r in b.rows]
+    for ra, rb in zip(a.rows, b.rows):
+        where = f"{ra.measure} {ra.x} {ra.y} n={n}"
+        assert (ra.n, ra.note, ra.method) == (rb.n, rb.note, rb.method), where
+        np.testing.assert_allclose(ra.estimate, rb.estimate, rtol=1e-12, atol=1e-15, err_msg=where)
+        np.testing.assert_allclose([ra.p_value, ra.q_value], [rb.p_value, rb.q_value], rtol=1e-9, atol=1e-15,
+                                   err_msg=where)
+        np.testing.assert_allclose([ra.ci_low, ra.ci_high], [rb.ci_low, rb.ci_high], rtol=1e-10, atol=1e-14,
+                                   err_msg=where)
+    assert a.verdicts == b.verdicts
+
+
+def test_matrix_part_is_taken_for_wide_local_runs_only(monkeypatch):
+    from pairlens.executors import SerialExecutor
+
+    data = np.random.default_rng(4).normal(size=(30, 12))
+    names = [f"c{k}" for k in range(12)]
+    monkeypatch.setattr(config, "MATRIX_PATH_MIN_PAIRS", 60)
+    seen = _spy_on_parts(monkeypatch)
+    run_analysis(data, names, AnalysisSettings(measures=("pearson", "kendall")), workers=1)          # 66 pairs
+    run_analysis(data, names, AnalysisSettings(), workers=1, verdicts=True)
+    assert seen == [("pearson",), ("pearson", "spearman")]
+    run_analysis(data[:, :11], names[:11], AnalysisSettings(measures=("pearson", "kendall")), workers=1)  # 55
+    run_analysis(data, names, AnalysisSettings(), executor=SerialExecutor(), verdicts=True)  # not a local run
+    run_analysis(data, names, AnalysisSettings(measures=("kendall", "dcor")), workers=1)   # nothing to take
+    run_analysis(data, names, AnalysisSettings(tests=(("pearson", "permutation"),), permutations=9), workers=1)
+    assert len(seen) == 2
+
+
+def test_matrix_part_reports_progress_and_cancels(monkeypatch):
+    from pairlens.engine import AnalysisCancelled
+
+    data = _table(30, seed=5)
+    names = [f"c{k}" for k in range(data.shape[1])]
+    settings = AnalysisSettings(measures=("pearson", "kendall"))
+    seen = []
+    run_analysis(data, names, settings, workers=1, path="matrix", progress=lambda f, s: seen.append(f))
+    assert seen == sorted(seen) and seen[-1] == 1.0 and 0.0 < seen[0] < 1.0
+    with pytest.raises(AnalysisCancelled):
+        run_analysis(data, names, settings, workers=1, path="matrix", cancel=lambda: True)
+
+
 def _wide_result():
     data = _table(30, seed=7)
     rng = np.random.default_rng(7)
