@@ -159,6 +159,26 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
     if executor is None:
         executor = make_executor(workers=workers, cluster=cluster, n_tasks=len(pairs), n_rows=data.shape[0],
                                  resamples=max((settings.permutations_for(m) for m in settings.measures), default=0))
+    collecting = gc.isenabled()
+    if collecting:
+        # A wide run brings millions of result objects here (1,000 columns: 2 million rows and
+        # 500,000 verdict evidences) and every full collection walks all of them; they hold no
+        # reference cycles, so the collector waits until the table is built (measured at 1,000 x
+        # 600: 14 s of a 60 s run went to collections).
+        gc.disable()
+    try:
+        table = _run_tiles(data, names, settings, variables, row_mask, given, pairs, executor, owned, workers,
+                           part, part_share, verdicts, progress, cancel, started, order_note)
+    finally:
+        if collecting:
+            gc.enable()
+    table.seconds = time.perf_counter() - started
+    return table
+
+
+def _run_tiles(data, names, settings, variables, row_mask, given, pairs, executor, owned, workers, part,
+               part_share, verdicts, progress, cancel, started, order_note) -> PairTable:
+    """The per-pair part of :func:`run_analysis`: tiles on ``executor``, q-values, verdict labels."""
     tiles = make_tiles(pairs, getattr(executor, "parallelism", workers))
     results: list[tuple[list[PairRow], list] | None] = [None] * len(tiles)
     done_pairs = 0
@@ -170,7 +190,7 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
         if isinstance(executor, ProcessExecutor):
             # in this process each kernel loads on first use: a small job loads only those it calls
             warm_kernels(settings)
-    frozen = isinstance(executor, ProcessExecutor) and gc.isenabled()
+    frozen = isinstance(executor, ProcessExecutor)
     if frozen:
         # Objects that exist before the fork are never collected in the workers, so
         # their collector does not walk (and copy on write) the parent's whole heap.
@@ -206,7 +226,6 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
     if verdicts:
         table.verdicts = _labels(table, [e for _, tile_evidence in results for e in tile_evidence],
                                  check if settings.ordered is not None else None)
-    table.seconds = time.perf_counter() - started
     return table
 
 

@@ -6,6 +6,7 @@ results back in tile order, so the answer never depends on the executor.
 
 from __future__ import annotations
 
+import gc
 import multiprocessing
 import os
 from concurrent.futures import FIRST_COMPLETED, Future, ProcessPoolExecutor, wait
@@ -50,6 +51,13 @@ class SerialExecutor:
         pass
 
 
+def _collecting_worker(initializer, *initargs) -> None:
+    """A worker's start: its garbage collector on (a forked worker inherits the parent's
+    setting, and the engine pauses the parent's collector while results arrive)."""
+    gc.enable()
+    initializer(*initargs)
+
+
 class ProcessExecutor:
     """Local worker processes; the column data reaches each worker once, at start-up."""
 
@@ -61,7 +69,7 @@ class ProcessExecutor:
         methods = multiprocessing.get_all_start_methods()
         ctx = multiprocessing.get_context("fork" if "fork" in methods else "spawn")
         pool = ProcessPoolExecutor(max_workers=self.parallelism, mp_context=ctx,
-                                   initializer=initializer, initargs=initargs)
+                                   initializer=_collecting_worker, initargs=(initializer, *initargs))
         pending: dict[Future, int] = {}
         next_task = 0
         try:

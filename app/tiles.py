@@ -19,9 +19,9 @@ import numpy as np
 
 from . import config
 from .core import allpairs
-from .core.registry import MEASURES, PairContext, get_measure, measures_for, presorted_pvalue_floor
+from .core.registry import MEASURES, PairContext, get_measure, measures_for, presorted_floored
 from .core.results import TestResult, undefined
-from .core.testing import floor_pvalue, pair_seed
+from .core.testing import pair_seed
 from .pairtable import PairRow
 from .plan import AnalysisSettings, Variable, observed, variable_values
 
@@ -125,9 +125,8 @@ def fast_pair_rows(prep: "allpairs.PreparedColumns", xvar: Variable, yvar: Varia
     for m in measures:
         for a, b, swapped in _directions(m, xvar, yvar):
             seen = pair.direction(swapped)
-            res = _presorted_measure(m, seen, a, b, settings)
-            if res.p_value == res.p_value:  # the registry's floor, as on the per-pair path
-                res = floor_pvalue(res, presorted_pvalue_floor(MEASURES[m], seen))
+            # the registry's floor, as on the per-pair path
+            res = presorted_floored(MEASURES[m], seen, _presorted_measure(m, seen, a, b, settings))
             rows.append(_pair_row(a, b, m, res))
     return rows
 

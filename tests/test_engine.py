@@ -125,6 +125,36 @@ def test_progress_reaches_one_and_cancel_stops():
         run_analysis(data, names, _settings(measures="pearson"), workers=1, cancel=lambda: True)
 
 
+def _collector_on(_task):
+    import gc
+
+    return gc.isenabled()
+
+
+@pytest.mark.parametrize("caller_collects", [True, False])
+def test_the_collector_pause_is_the_engines_own(caller_collects):
+    # the engine pauses this process's garbage collector while results arrive: the caller's setting
+    # comes back after a run and after a cancelled one, and forked workers collect as usual
+    import gc
+
+    from pairlens.executors import ProcessExecutor
+
+    data, names = _table(8, n=200)
+    was = gc.isenabled()
+    try:
+        (gc.enable if caller_collects else gc.disable)()
+        run_analysis(data, names, _settings(measures="pearson,kendall"), workers=2, verdicts=True)
+        assert gc.isenabled() == caller_collects
+        with pytest.raises(AnalysisCancelled):
+            run_analysis(data, names, _settings(measures="kendall"), workers=2, cancel=lambda: True)
+        assert gc.isenabled() == caller_collects
+        gc.disable()
+        seen = [on for _, on in ProcessExecutor(2).run(_collector_on, [0, 1, 2, 3], lambda: None, ())]
+        assert seen == [True] * 4
+    finally:
+        (gc.enable if was else gc.disable)()
+
+
 @pytest.mark.parametrize("bad", [
     dict(measures="pearson,nope"), dict(missing="listwise"), dict(adjust="bonferroni"),
     dict(confidence=1.5), dict(permutations=-1), dict(groups=["g=a,zz"]), dict(columns="a,zz"),

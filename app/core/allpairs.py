@@ -15,6 +15,7 @@ Memory: the prepared columns hold O(n p) numbers; each pair needs O(n) more.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -262,6 +263,20 @@ def _has_ties(values, order):
         if values[order[k]] == values[order[k - 1]]:
             return True
     return False
+
+
+@kernel(cache=True, nogil=True, python_max_n=64)
+def _tie_log_factorials(values, order):
+    """The sum of ln(c!) over the runs of c equal values along a sorted order (0.0 without ties)."""
+    n = order.shape[0]
+    total = 0.0
+    start = 0
+    for i in range(1, n + 1):
+        if i == n or values[order[i]] != values[order[start]]:
+            if i - start > 1:
+                total += math.lgamma(i - start + 1.0)
+            start = i
+    return total
 
 
 @kernel(cache=True, nogil=True, python_max_n=64)
@@ -605,6 +620,20 @@ class PresortedPair:
             v = self.view
             flag = self.shared["untied"] = not (_has_ties(v.x, v.x_order) or _has_ties(v.y, v.y_order))
         return flag
+
+    def tie_log_factorials(self) -> float:
+        """ln of the product of c! over the runs of c tied values in both columns (computed once per pair).
+
+        The multiplicity K of the permutation floor K/n!
+        (:func:`pairlens.core.testing.permutation_floor`) is at most this product:
+        the joint tie counts only divide it.
+        """
+        value = self.shared.get("tie_log")
+        if value is None:
+            v = self.view
+            value = self.shared["tie_log"] = (_tie_log_factorials(v.x, v.x_order)
+                                              + _tie_log_factorials(v.y, v.y_order))
+        return value
 
     def direction(self, swapped: bool) -> "PresortedPair":
         """The same parts seen from the other direction when ``swapped`` differs."""

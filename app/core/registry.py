@@ -21,7 +21,8 @@ from .results import TestResult
 from .testing import all_pairings, attainable_minimum, floor_pvalue, permutation_floor
 
 __all__ = ["PairContext", "Measure", "MEASURES", "PARTIAL_MEASURES", "partial_of", "KINDS", "pair_kind",
-           "measures_for", "get_measure", "measure_names", "parse_tests", "pvalue_floor", "register", "unregister"]
+           "measures_for", "get_measure", "measure_names", "parse_tests", "pvalue_floor", "presorted_floored",
+           "register", "unregister"]
 
 
 class _SeedOnFirstRead:
@@ -358,6 +359,26 @@ def presorted_pvalue_floor(measure: "Measure", pair: "allpairs.PresortedPair") -
     if config.PVALUE_FLOOR_ENUMERATE_MAX_N < n <= config.PVALUE_FLOOR_MAX_N and pair.untied():
         return float(math.exp(0.0 - special.gammaln(n + 1.0)))
     return pvalue_floor(measure, pair.x, pair.y)
+
+
+def presorted_floored(measure: "Measure", pair: "allpairs.PresortedPair", result: TestResult) -> TestResult:
+    """``floor_pvalue(result, presorted_pvalue_floor(measure, pair))``: the same result, the floor
+    computed only when it could raise the p-value.
+
+    Above the enumerated sizes the floor is K/n!, and K is at most the product
+    of c! over the tie runs of both columns
+    (:meth:`pairlens.core.allpairs.PresortedPair.tie_log_factorials`). When that
+    bound is already at most p (or underflows to 0, as at 1,000 rows with a few
+    ties), the floor cannot raise p, and a tied pair's grouping of its rows is
+    skipped.
+    """
+    p, n = result.p_value, pair.n
+    if p == p and config.PVALUE_FLOOR_ENUMERATE_MAX_N < n <= config.PVALUE_FLOOR_MAX_N:
+        # the margin covers the rounding of the log sums (about 1e-12 relative on values near ln n!)
+        log_bound = pair.tie_log_factorials() - float(special.gammaln(n + 1.0)) + 1e-6
+        if log_bound < 0.0 and math.exp(log_bound) <= p:
+            return result
+    return floor_pvalue(result, presorted_pvalue_floor(measure, pair))
 
 
 def _floored(compute: Callable[[np.ndarray, np.ndarray, PairContext], TestResult], name: str):

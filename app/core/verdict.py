@@ -69,8 +69,9 @@ Henze-Zirkler test of :func:`pairlens.core.gaussian.fit_gaussian` (capped at
 
 from __future__ import annotations
 
-import math
+import copy
 import dataclasses
+import math
 from dataclasses import dataclass, field
 from typing import Callable
 
@@ -935,7 +936,10 @@ def label_from_evidence(gathered: LabelEvidence, q_values: dict[str, float],
         return RULES[1].label
     if not isinstance(gathered, LabelEvidence):  # a pair with a categorical side (core.verdict_categorical)
         return gathered.label(q_values or {})
-    ev = dataclasses.replace(gathered.evidence, q={}, q_from_p=[], trending=tuple(trending))
+    # a shallow copy with fresh q fields: what dataclasses.replace gives, at a third of its cost
+    # (it runs once per pair of a wide table, in the engine's process)
+    ev = copy.copy(gathered.evidence)
+    ev.q, ev.q_from_p, ev.trending = {}, [], tuple(trending)
     _set_q(ev, gathered.results, {m: q for m, q in (q_values or {}).items() if m in gathered.results})
     for rule in RULES:
         if rule.holds(ev):

@@ -367,3 +367,36 @@ def test_presorted_pvalue_floor_is_the_per_pair_floor(n, ties):
             assert got == pvalue_floor(measure, seen.x, seen.y), (measure.name, n, ties)
     if ties == "none" and 8 < n <= 1000:
         assert got == pytest.approx(math.exp(-math.lgamma(n + 1.0)), rel=1e-12)   # 1/n!, 0.0 past 170!
+
+
+@pytest.mark.parametrize("n", [9, 12, 40, 300, 1000])
+@pytest.mark.parametrize("ties", ["none", "few", "x", "binary"])
+def test_floored_result_skips_only_floors_that_cannot_raise_p(n, ties):
+    # Oracle: floor_pvalue with the per-pair pvalue_floor (K/n!, Good 2005, ch. 3), for p-values from
+    # 0 and subnormal up to 1, around the floor itself and for every registry measure.
+    from pairlens.core.registry import presorted_floored, pvalue_floor
+    from pairlens.core.results import TestResult
+    from pairlens.core.testing import floor_pvalue
+
+    rng = np.random.default_rng(n + len(ties))
+    data = rng.normal(size=(n, 2))
+    if ties == "few":
+        data[:3, 0] = data[0, 0]
+        data[5:7, 1] = data[5, 1]
+    elif ties == "x":
+        data[:, 0] = np.round(data[:, 0])
+    elif ties == "binary":
+        data = (data > 0.3).astype(float)
+        data[0, 0], data[1, 0], data[0, 1], data[2, 1] = 0.0, 1.0, 0.0, 1.0   # never constant
+    prep = allpairs.prepare_columns(data)
+    regular, view, *_ = allpairs.pair_work(prep, 0, 1, 3, spearman=False, kendall=False, distance=False)
+    pair = allpairs.PresortedPair(view, False, None, None, None)
+    checked_raise = 0
+    for measure in MEASURES.values():
+        floor = pvalue_floor(measure, pair.x, pair.y)
+        for p in (0.0, 5e-324, 1e-300, 1e-30, floor * 0.5, floor, floor * 2.0, 0.01, 1.0):
+            res = TestResult(0.5, p, "m", math.nan, math.nan, n, "")
+            assert presorted_floored(measure, pair, res) == floor_pvalue(res, floor), (measure.name, n, ties, p)
+            checked_raise += floor_pvalue(res, floor) is not res
+    # two-valued columns do raise some p-values: the comparison above covered raised results too
+    assert checked_raise > 0 or ties != "binary"
