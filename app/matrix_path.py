@@ -395,20 +395,26 @@ class MatrixPart:
         self.measures = tuple(measures)
         self.pairs = pairs          # core.wide.WidePairs (q-values not filled: the engine adjusts all rows)
 
-    def rows(self, i: int, j: int) -> dict:
-        """``{measure: PairRow}`` of the pair (i < j) for each measure the matrix form finished."""
+    def rows(self, pairs) -> list[dict]:
+        """For each pair (i < j) of ``pairs``, ``{measure: PairRow}`` of the measures the matrix form finished."""
         from .pairtable import PairRow
 
         p = len(self.names)
-        k = i * p - i * (i + 1) // 2 + (j - i - 1)     # position of (i, j) in the upper triangle
-        out = {}
+        ij = np.asarray(pairs, dtype=np.int64).reshape(-1, 2)
+        i, j = ij[:, 0], ij[:, 1]
+        ks = i * p - i * (i + 1) // 2 + (j - i - 1)     # positions of (i, j) in the upper triangle
+        out = [{} for _ in range(ks.size)]
+        nan = float("nan")
         for m in self.measures:
             a = self.pairs.measures[m]
-            if a.fallback[k]:
-                continue
-            out[m] = PairRow(self.names[i], self.names[j], m, float(a.estimate[k]), float(a.ci_low[k]),
-                             float(a.ci_high[k]), float(a.p_value[k]), float("nan"), int(a.n[k]),
-                             a.notes[a.note[k]], a.methods[a.method[k]])
+            # one gather per field and tile: Python floats without a NumPy scalar per value
+            fields = zip(a.fallback[ks].tolist(), i.tolist(), j.tolist(), a.estimate[ks].tolist(),
+                         a.ci_low[ks].tolist(), a.ci_high[ks].tolist(), a.p_value[ks].tolist(), a.n[ks].tolist(),
+                         a.note[ks].tolist(), a.method[ks].tolist())
+            for slot, (handed_back, ii, jj, est, low, high, pv, n, note, method) in zip(out, fields):
+                if not handed_back:
+                    slot[m] = PairRow(self.names[ii], self.names[jj], m, est, low, high, pv, nan, n,
+                                      a.notes[note], a.methods[method])
         return out
 
 

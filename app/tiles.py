@@ -310,10 +310,10 @@ def run_tile(tile: list[tuple[int, int]]) -> tuple[list[PairRow], list]:
     part = s.get("matrix_part")
     out: list[PairRow] = []
     evidence: list = []
+    finished = part.rows(tile) if part is not None else [{}] * len(tile)
     with one_blas_thread():
-        for i, j in tile:
+        for (i, j), ready in zip(tile, finished):
             xvar, yvar = s["variables"][i], s["variables"][j]
-            ready = part.rows(i, j) if part is not None else {}
             if ready:
                 rest = _rest_settings(ready)
                 computed = [] if rest is None else _computed_rows(prep, xvar, yvar, rest)

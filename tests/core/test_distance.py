@@ -302,6 +302,17 @@ def test_gaussian_dcor_closed_form():
         distance.gaussian_dcor(1.5)
 
 
+def test_gaussian_dcor_of_one_value_is_the_array_formula():
+    grid = np.concatenate([np.linspace(-1.0, 1.0, 2001), [1.0 + 1e-13, -1.0 - 1e-13, 1e-300, np.nan]])
+    whole = distance.gaussian_dcor(grid)
+    one = np.array([distance.gaussian_dcor(float(r)) for r in grid])
+    assert all(isinstance(distance.gaussian_dcor(float(r)), float) for r in grid[:3])
+    np.testing.assert_allclose(one, whole, rtol=4e-16, atol=4e-16, equal_nan=True)
+    assert isinstance(distance.gaussian_dcor(np.float64(0.3)), float)
+    with pytest.raises(ValueError):
+        distance.gaussian_dcor(-1.5)
+
+
 def test_bivariate_normal_sample_matches_theorem_7():
     # Szekely, Rizzo & Bakirov (2007), Theorem 7: population dCor of a bivariate
     # normal with rho = 0.6. Monte Carlo error: the SD of R_n over 8 independent
