@@ -132,9 +132,11 @@
           phaseWrap.hidden = !s.phase;
           left.textContent = s.status === "queued" ? "waiting to start" : seconds(s.seconds_left);
           if (s.status === "queued" || s.status === "running") {
-            // Once every pair is computed only the q-values, figures and saving are left (about a
-            // second for the demo): this interval is what the user waits for between "done" and the maps.
-            window.setTimeout(poll, s.progress >= 0.99 ? 80 : 500);
+            // Once every pair is computed only the q-values, figures and saving are left (a tenth of a
+            // second for the demo): the poll interval is what the user waits for between "done" and the
+            // maps, so it shortens as soon as the end is near (the last pairs can land just after a poll).
+            var nearEnd = s.progress >= 0.99 || (typeof s.seconds_left === "number" && s.seconds_left < 1.5);
+            window.setTimeout(poll, nearEnd ? 80 : 500);
           } else if (!leaving) {
             leaving = true;
             window.location.reload();
