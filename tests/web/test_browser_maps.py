@@ -1,4 +1,4 @@
-"""Readability of the analysis page's maps at 31, 100 and 300 columns, in a real Chromium at 1400 px.
+"""Readability of the analysis page's maps at 31, 100, 300 and 1,000 columns, in a real Chromium at 1400 px.
 
 Generated tables (seeded normal blocks, names of varied length) are analysed
 through the API; the page is then measured: every drawn label inside the page,
@@ -64,6 +64,8 @@ def server(tmp_path_factory):
         100: _submit(srv, _csv(100, 80, 100), "wide100.csv", ["pearson", "spearman"], {"pearson": "t"}),
         300: _submit(srv, _csv(300, 40, 300), "wide300.csv", ["pearson"], {"pearson": "t"}),
         "six": _submit(srv, _csv(8, 120, 6), "six.csv", ["pearson", "spearman", "kendall", "dcor", "dcor_bc", "xi"]),
+        # 499,500 pairs with their verdicts: Pearson from the matrix products, the evidence pair by pair
+        1000: _submit(srv, _csv(1000, 30, 1000), "wide1000.csv", ["pearson"], {"pearson": "t"}),
     }
     for aid in analyses.values():
         status = srv.wait_done(aid, timeout=900)
@@ -219,6 +221,31 @@ def test_wide_maps_label_what_fits_and_zoom_reaches_the_rest(server, page, key):
             page.wait_for_function("(want) => document.getElementById('pair-count').textContent.startsWith(want)",
                                    arg=want)
         assert page.inner_text("#pair-count").startswith("rows 1\u2009001–1\u2009100 of 44\u2009850")
+
+
+def test_a_thousand_columns_overview_zoom_into_a_block_and_click(server, page):
+    _open(page, server, 1000)
+    names = page.evaluate("window.pairlensMaps.variables")
+    assert len(names) == 1000
+    overview = page.evaluate("window.pairlensMaps.state")
+    assert overview["n"] == 1000            # the overview draws every column
+    assert int(page.get_attribute("#focus-map", "data-label-step")) > 1
+    _check_labels(page.evaluate(_LABELS))
+    for _ in range(3):                      # into a block
+        page.click("#zoom-in")
+        page.wait_for_function("document.getElementById('focus-map').dataset.ready === '1'")
+        _next_frame(page)
+    view = page.evaluate("window.pairlensMaps.state")
+    assert view["n"] < 200 and 0 <= view["r0"] <= 1000 - view["n"]
+    zoomed = page.evaluate(_LABELS)
+    _check_labels(zoomed)
+    step = int(page.get_attribute("#focus-map", "data-label-step"))
+    assert [b["text"] for b in zoomed if b["kind"] == "row"] == names[view["r0"]:view["r0"] + view["n"]:step]
+    i, j = view["r0"] + view["n"] // 2, view["r0"] + view["n"] // 2 - 3
+    shown = _click_cell(page, i, j)
+    assert {shown["x"], shown["y"]} == {names[i], names[j]} and shown["n"] == 30
+    assert _in_viewport(page, "#focus-canvas")
+    assert page.errors == []
 
 
 def test_pair_table_at_six_measures_keeps_names_on_one_line(server, page):
