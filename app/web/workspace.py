@@ -387,8 +387,11 @@ class Workspace:
 
         table = self._tables.get(dataset.sha256)
         if table is None:
-            table = self._tables.put(dataset.sha256, load_file_isolated(self.store.blob_path(dataset.sha256),
-                                                                        dataset.name))
+            with self._key_lock(("table", dataset.sha256)):  # a click during the warm-up waits for its parse
+                table = self._tables.get(dataset.sha256)
+                if table is None:
+                    table = self._tables.put(dataset.sha256, load_file_isolated(
+                        self.store.blob_path(dataset.sha256), dataset.name))
         return table
 
     def dataset_json(self, dataset: DatasetRow) -> dict:
@@ -573,6 +576,10 @@ class Workspace:
         self.heatmaps(row, None, self.default_difference(table.measures))
         self.pair_rows(row)
         self.significance_counts(row)
+        self.table(self.dataset(row.dataset_id))  # the first click's points come from the parsed table
+        # Not warmed: the pair table's arrays (pair_grid). Parsing the stored rows of 499,500 pairs holds
+        # the interpreter about 4 s, which here would delay the page itself when it is opened right
+        # after the analysis ends; built on the page's first request, it delays the first click instead.
 
     def _key_lock(self, key) -> threading.Lock:
         with self._locks_guard:
@@ -643,6 +650,9 @@ class Workspace:
         if cached is not None and not self._results(row).get("labels_changed_grid"):
             return cached
         with self._key_lock(key):
+            cached = self._figures.get(key)  # built by another request (or the warm-up) while this one waited
+            if cached is not None and not self._results(row).get("labels_changed_grid"):
+                return cached
             body = json.loads(str(self.pair_rows(row)["embedded"]))
             self._results(row)["labels_changed_grid"] = False
             return self._figures.put(key, PairGrid(body))
