@@ -43,6 +43,19 @@ def matrix_applies(settings, variables) -> str:
     return ""
 
 
+def _triangle_position(i, j, p):
+    """Position of the pair (i < j) in the row-major upper triangle of p columns (scalars or arrays)."""
+    return i * p - i * (i + 1) // 2 + (j - i - 1)
+
+
+def _matrix_inputs(data: np.ndarray, variables, settings, row_mask):
+    """The columns of ``variables`` on the analysis's rows, and Pearson's test in its matrix form."""
+    cols = [v.columns[0] for v in variables]
+    sub = data[:, cols] if row_mask is None else data[row_mask][:, cols]
+    test = linear.resolved_test(settings.test_for("pearson") or None, settings.permutations)
+    return sub, test if test in ("moments", "t") else "moments"
+
+
 class WidePairTable:
     """The pair table as arrays (one set per measure), in the per-pair table's row order.
 
@@ -101,7 +114,7 @@ class WidePairTable:
         index = {v: k for k, v in enumerate(self.variables)}
         i, j = sorted((index[x], index[y]))
         p = len(self.variables)
-        k = i * p - i * (i + 1) // 2 + (j - i - 1)     # position of (i, j) in the upper triangle
+        k = _triangle_position(i, j, p)
         out = {}
         for m in self.measures:
             a = self.pairs.measures[m]
@@ -172,10 +185,7 @@ def run_matrix(data: np.ndarray, variables, settings, row_mask, per_pair: Callab
     polled before each (True stops the run with :class:`pairlens.core.wide.WideCancelled`)."""
     import time
 
-    cols = [v.columns[0] for v in variables]
-    sub = data[:, cols] if row_mask is None else data[row_mask][:, cols]
-    test = linear.resolved_test(settings.test_for("pearson") or None, settings.permutations)
-    test = test if test in ("moments", "t") else "moments"
+    sub, test = _matrix_inputs(data, variables, settings, row_mask)
     if top is not None:
         return _run_top(sub, variables, settings, per_pair, test, top, progress, cancel, started, threads)
     # the pairs handed back to the per-pair path (Spearman's pairs with missing values and few
@@ -402,7 +412,7 @@ class MatrixPart:
         p = len(self.names)
         ij = np.asarray(pairs, dtype=np.int64).reshape(-1, 2)
         i, j = ij[:, 0], ij[:, 1]
-        ks = i * p - i * (i + 1) // 2 + (j - i - 1)     # positions of (i, j) in the upper triangle
+        ks = _triangle_position(i, j, p)
         out = [{} for _ in range(ks.size)]
         nan = float("nan")
         for m in self.measures:
@@ -439,10 +449,8 @@ def run_part(data: np.ndarray, variables, settings, row_mask, measures, *, threa
              progress=None, cancel=None) -> MatrixPart:
     """The :class:`MatrixPart` of ``measures`` (from :func:`part_measures`) for all pairs of ``variables``;
     ``progress(fraction)`` after each block, ``cancel()`` polled before each."""
-    cols = [v.columns[0] for v in variables]
-    sub = data[:, cols] if row_mask is None else data[row_mask][:, cols]
-    test = linear.resolved_test(settings.test_for("pearson") or None, settings.permutations)
-    pairs = pair_matrix(sub, measures=measures, pearson_test=test if test in ("moments", "t") else "moments",
+    sub, test = _matrix_inputs(data, variables, settings, row_mask)
+    pairs = pair_matrix(sub, measures=measures, pearson_test=test,
                         confidence=settings.confidence, threads=threads, progress=progress, cancel=cancel)
     return MatrixPart(variables, measures, pairs)
 
