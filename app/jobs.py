@@ -55,15 +55,23 @@ def verdict_labels(table) -> dict:
     return {"labels": {pair_key(x, y): label for (x, y), label in table.verdicts.items()}, "complete": True}
 
 
-def _page_cache(pair_table, verdicts: dict) -> dict | None:
-    """The analysis page's default figures, built here so the server's first view is fast."""
+def _page_cache(pair_table, verdicts: dict) -> tuple[dict | None, bytes | None]:
+    """The analysis page's default figures and its pair table's arrays, built here so the server's
+    first views are fast (without them the server builds both itself)."""
+    pages = grid = None
     try:
         from .payloads import precompute_pages
 
-        return precompute_pages(pair_table, verdicts)
+        pages = precompute_pages(pair_table)
     except Exception:  # noqa: BLE001 - without the cache the server builds the figures itself
         traceback.print_exc()
-        return None
+    try:
+        from .pairgrid import PairGrid
+
+        grid = PairGrid.from_table(pair_table, verdicts.get("labels", {})).to_bytes()
+    except Exception:  # noqa: BLE001 - the server builds the grid from the stored rows instead
+        traceback.print_exc()
+    return pages, grid
 
 
 class _Throttle:
@@ -221,12 +229,12 @@ def run_job(data_dir: str, analysis_id: str, *, workers: int | None = None, clus
             from .export import json_records
 
             note_progress(analysis_id, 1.0, 0.0, phase="figures")
-            pages = _page_cache(pair_table, verdicts)
+            pages, grid = _page_cache(pair_table, verdicts)
             records = [r | {"method": m} for r, m in zip(json_records(pair_table.records()),
                                                           (row_.method for row_ in pair_table.rows))]
             saved = _retry_write(store, lambda: store.save_results(
                 analysis_id, variables=list(pair_table.variables), records=records, verdicts=verdicts,
-                seconds=pair_table.seconds, pages=pages))
+                seconds=pair_table.seconds, pages=pages, grid=grid))
             if not saved:
                 _retry_write(store, lambda: store.finish(analysis_id, "cancelled"))
                 return store.get_analysis(analysis_id).status  # type: ignore[union-attr]

@@ -1,4 +1,4 @@
-"""Page payloads built from a finished analysis: the analysis page's maps and wide pair table.
+"""Page payloads built from a finished analysis: the analysis page's maps and the pair table's columns.
 
 Below the web layer: the background job (:mod:`pairlens.jobs`) builds them once
 when an analysis finishes (:func:`precompute_pages`) and the server
@@ -8,15 +8,12 @@ from :mod:`pairlens.figures`, the builders the report uses too.
 
 from __future__ import annotations
 
-import numpy as np
-
-from . import config
 from .core.registry import MEASURES, get_measure
 from .formatting import embed_json
 from .pairtable import PairTable
 
 __all__ = ["MAPS_FORMAT", "pair_key", "default_difference", "heatmap_payload", "pair_columns",
-           "pair_rows_payload", "precompute_pages"]
+           "precompute_pages"]
 
 
 def pair_key(x: str, y: str) -> str:
@@ -60,47 +57,7 @@ def pair_columns(measures) -> list[dict]:
     return columns
 
 
-def pair_rows_payload(table: PairTable, labels: dict) -> dict:
-    """The wide pair table: one row per unordered pair, every measure's estimate and q, the verdict."""
-    position = {v: i for i, v in enumerate(table.variables)}
-    columns = pair_columns(table.measures)
-    col_index = {c["key"]: k for k, c in enumerate(columns)}
-    # Arrays over all rows, then one fancy assignment: a Python loop per field and row took
-    # seconds at 45,000 pairs, and this runs before an analysis is marked done.
-    nvar, ncol = len(table.variables), len(columns)
-    rows_ = table.rows
-    xi = np.fromiter((position[r.x] for r in rows_), dtype=np.int64, count=len(rows_))
-    yi = np.fromiter((position[r.y] for r in rows_), dtype=np.int64, count=len(rows_))
-    sym_key = {m: (col_index[m] if get_measure(m).symmetric else -1) for m in table.measures}
-    base = np.fromiter((sym_key[r.measure] if sym_key[r.measure] >= 0 else col_index[r.measure + ">"]
-                        for r in rows_), dtype=np.int64, count=len(rows_))
-    forward = xi < yi
-    asym = np.fromiter((sym_key[r.measure] < 0 for r in rows_), dtype=bool, count=len(rows_))
-    col = np.where(asym & ~forward, base + 1, base)   # "<" sits right after ">"
-    lo, hi = np.minimum(xi, yi), np.maximum(xi, yi)
-    slot = lo * nvar + hi                              # one slot per unordered pair
-    est = np.full((nvar * nvar, ncol), np.nan)
-    qv = np.full((nvar * nvar, ncol), np.nan)
-    nn = np.zeros(nvar * nvar, dtype=np.int64)
-    est[slot, col] = np.fromiter((r.estimate for r in rows_), dtype=float, count=len(rows_))
-    qv[slot, col] = np.fromiter((r.q_value for r in rows_), dtype=float, count=len(rows_))
-    np.maximum.at(nn, slot, np.fromiter((int(r.n) for r in rows_), dtype=np.int64, count=len(rows_)))
-    used = np.unique(slot)                             # sorted: input order of (x, y)
-    names = table.variables
-    # NaN and infinities become None (JSON null) in one masked pass per array, not per value
-    values = []
-    for arr in (est[used], qv[used]):
-        obj = arr.astype(object)
-        obj[~np.isfinite(arr)] = None
-        values.append(obj.tolist())
-    rows = [[names[a], names[b], n, e, q, labels.get(pair_key(names[a], names[b]))]
-            for a, b, n, e, q in zip((used // nvar).tolist(), (used % nvar).tolist(), nn[used].tolist(), *values)]
-    body = {"columns": columns, "rows": rows, "alpha": config.SIGNIFICANCE_LEVEL}
-    return {"columns": columns, "n_rows": len(rows), "embedded": embed_json(body)}
-
-
-
-def precompute_pages(table: PairTable, verdicts: dict) -> dict:
+def precompute_pages(table: PairTable) -> dict:
     """What the analysis page shows by default, built once by the background job and stored.
 
     JSON-serialisable: the embedded JSON text (already escaped for a page) and
@@ -108,10 +65,8 @@ def precompute_pages(table: PairTable, verdicts: dict) -> dict:
     """
     diff = default_difference(table.measures)
     heat = heatmap_payload(table, list(range(len(table.variables))), diff)
-    rows = pair_rows_payload(table, verdicts.get("labels", {}))
     serial = getattr(table, "serial", None)
     return {"serial_note": serial.message(table.settings.ordered is not None) if serial is not None else None,
             "heatmaps": {"diff": list(diff) if diff else None, "order": heat["order"], "top": heat["top"],
-                         "embedded": str(heat["embedded"]), "format": MAPS_FORMAT},
-            "pairrows": {"columns": rows["columns"], "n_rows": rows["n_rows"], "embedded": str(rows["embedded"])}}
+                         "embedded": str(heat["embedded"]), "format": MAPS_FORMAT}}
 

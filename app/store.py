@@ -79,6 +79,7 @@ CREATE TABLE IF NOT EXISTS results (
     records     BLOB NOT NULL,
     verdicts    BLOB NOT NULL,
     pages       BLOB,
+    grid        BLOB,
     seconds     REAL NOT NULL,
     created     REAL NOT NULL
 );
@@ -174,6 +175,8 @@ class Store:
         con.executescript(_IMMUTABLE_RESULTS)
         if "pages" not in {r[1] for r in con.execute("PRAGMA table_info(results)")}:
             con.execute("ALTER TABLE results ADD COLUMN pages BLOB")
+        if "grid" not in {r[1] for r in con.execute("PRAGMA table_info(results)")}:
+            con.execute("ALTER TABLE results ADD COLUMN grid BLOB")
         if "worker_started" not in {r[1] for r in con.execute("PRAGMA table_info(analyses)")}:
             con.execute("ALTER TABLE analyses ADD COLUMN worker_started INTEGER")
 
@@ -461,8 +464,11 @@ class Store:
             return cur.rowcount == 1
 
     def save_results(self, analysis_id: str, *, variables: list[str], records: list[dict],
-                     verdicts: dict, seconds: float, pages: dict | None = None) -> bool:
+                     verdicts: dict, seconds: float, pages: dict | None = None,
+                     grid: bytes | None = None) -> bool:
         """Write the results and mark the analysis ``done`` in one transaction.
+
+        ``grid``: the pair table as arrays (:meth:`pairlens.pairgrid.PairGrid.to_bytes`), stored as given.
 
         Returns False (and writes nothing) when the analysis is no longer running,
         e.g. it was cancelled or marked interrupted meanwhile.
@@ -476,20 +482,20 @@ class Store:
                               "AND cancel_requested = 0", (now, now, analysis_id))
             if cur.rowcount != 1:
                 return False
-            con.execute("INSERT INTO results (analysis_id, variables, records, verdicts, pages, seconds, "
-                        "created) VALUES (?, ?, ?, ?, ?, ?, ?)",
+            con.execute("INSERT INTO results (analysis_id, variables, records, verdicts, pages, grid, seconds, "
+                        "created) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
                         (analysis_id, json.dumps(variables, ensure_ascii=False), packed_records,
-                         packed_verdicts, packed_pages, float(seconds), now))
+                         packed_verdicts, packed_pages, grid, float(seconds), now))
         return True
 
     def get_results(self, analysis_id: str) -> dict | None:
-        """``{"variables", "records", "verdicts", "pages", "seconds"}`` of a done analysis, else None."""
+        """``{"variables", "records", "verdicts", "pages", "grid", "seconds"}`` of a done analysis, else None."""
         r = self._connection().execute("SELECT * FROM results WHERE analysis_id = ?", (analysis_id,)).fetchone()
         if r is None:
             return None
         return {"variables": json.loads(r["variables"]), "records": _unpack(r["records"]),
                 "verdicts": _unpack(r["verdicts"]), "pages": _unpack(r["pages"]) if r["pages"] else None,
-                "seconds": r["seconds"]}
+                "grid": r["grid"], "seconds": r["seconds"]}
 
     def mark_interrupted(self, owner_token: str, *, alive_pids: set[int] | None = None,
                          reason: str = "", workers: list | None = None) -> list[str]:

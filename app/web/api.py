@@ -117,9 +117,9 @@ def get_pair_table(analysis_id: str, ws: WorkspaceDep, sort: str = "evidence", d
     if download:
         return _json({"detail": "download is csv or json"}, 422)
     page = index[offset:offset + limit]
-    return _json({"total": len(grid.rows), "filtered": int(index.size), "offset": offset,
+    return _json({"total": len(grid), "filtered": int(index.size), "offset": offset,
                   "columns": grid.columns, "verdicts": grid.verdicts(),
-                  "rows": [grid.rows[int(i)] for i in page]})
+                  "rows": [grid.row(i) for i in page]})
 
 
 @router.post("/analyses/{analysis_id}/cancel")
