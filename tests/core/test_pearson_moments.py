@@ -229,3 +229,30 @@ def test_two_dominant_values_against_permutation_test():
                                      alternative="greater", random_state=3).pvalue
         se = math.sqrt(ref * (1 - ref) / 9999)
         assert abs(linear.pearson(x, y).p_value - ref) <= 4 * se + 1e-4, (trial, ref)
+
+
+# Found by the hypothesis test of the verdict (test_label_always_valid): a division by zero.
+_RARE_CASE = ([0.3824370658829851, -1.2155853262448648, 1.3444772025761573, 0.2631808099566607,
+               -0.8040474783808451, -0.7584153672052011, 0.16143838753246917, -0.9024250854019726],
+              [0.0, 0.0, 0.0, 0.0, 0.0, 1.0, 0.0, 0.0])
+
+
+@pytest.mark.parametrize("case", ["found", 0, 1, 2, 3, 4])
+def test_a_column_with_one_rare_value_gets_the_exact_law(case):
+    """y is 0 but at one row. The split law takes the most extreme value of the side with the larger
+    kurtosis (here y's rare value) out, and the rest of y is then constant: T is 0 and the law is
+    exact. Its central sums come from raw power sums and are rounding residue, which once gave
+    moments no law has and a division by zero. Reference: the definition, |S| over all 8!
+    relabellings."""
+    if case == "found":
+        x, y = (np.array(v) for v in _RARE_CASE)
+    else:
+        rng = np.random.default_rng(case)
+        x = rng.uniform(size=8)
+        y = np.zeros(8)
+        y[int(rng.integers(8))] = 1.0
+    xc, yc = x - x.mean(), y - y.mean()
+    assert (yc ** 4).sum() / (yc ** 2).sum() ** 2 > (xc ** 4).sum() / (xc ** 2).sum() ** 2  # y is taken apart
+    every = np.abs(yc[np.array(list(itertools.permutations(range(8))))] @ xc)
+    exact = np.mean(every >= abs(xc @ yc) * (1 - 1e-12))
+    assert linear.pearson(x, y).p_value == pytest.approx(exact, rel=1e-9)
