@@ -235,16 +235,27 @@ def _symmetric(measure: str) -> bool:
 
 def _labels(table: PairTable, evidence: list, check=None) -> dict[tuple[str, str], str]:
     """Each pair's verdict label from its tile's evidence and the analysis's q-values; ``check``, the
-    serial check of an ordered analysis, names the trending columns whose pairs are not tested."""
+    serial check of an ordered analysis, names the trending columns whose pairs are not tested.
+    A tile sends the label itself where the q-values could not change it."""
     from .core.verdict import label_from_evidence
 
-    # q-values of each pair in one pass (PairTable.lookup scans every row: per pair that is
+    out: dict[tuple[str, str], str] = {}
+    pending = []
+    for pair, ev in evidence:
+        out[pair] = ev if isinstance(ev, str) else ""  # "": filled below, in the same order
+        if not isinstance(ev, str):
+            pending.append((pair, ev))
+    if not pending:
+        return out
+    wanted = {pair for pair, _ in pending}
+    wanted |= {(y, x) for x, y in wanted}
+    # q-values of the pending pairs in one pass (PairTable.lookup scans every row: per pair that is
     # quadratic in the number of pairs); the x -> y row for an asymmetric measure, as lookup
     q_of: dict[tuple[str, str], dict[str, float]] = {}
     for r in table.rows:
-        q_of.setdefault((r.x, r.y), {})[r.measure] = float(r.q_value)
-    out: dict[tuple[str, str], str] = {}
-    for (x, y), ev in evidence:
+        if (r.x, r.y) in wanted:
+            q_of.setdefault((r.x, r.y), {})[r.measure] = float(r.q_value)
+    for (x, y), ev in pending:
         q_values = dict(q_of.get((y, x), {}))
         q_values = {m: q for m, q in q_values.items() if _symmetric(m)}
         q_values.update(q_of.get((x, y), {}))

@@ -167,9 +167,13 @@ def init_worker(data, variables, settings, row_mask, prepared=None, verdicts=Fal
     tiles take instead of computing those measures pair by pair.
     """
     _WORKER_STATE.clear()
+    # Each measure's q-values are adjusted over its rows: at most one per ordered pair of variables.
+    # Not bounded here with --given (conditional rows) or --ordered (p-values replaced after the
+    # evidence's measures); the verdict then gathers everything.
+    tests_bound = len(variables) ** 2 if given is None and settings.ordered is None else None
     _WORKER_STATE.update(data=data, variables=variables, settings=settings, row_mask=row_mask,
                          prepared=prepared, verdicts=verdicts, given=given, matrix_part=matrix_part,
-                         rest_settings={})
+                         rest_settings={}, tests_bound=tests_bound)
 
 
 def release_worker() -> None:
@@ -241,7 +245,8 @@ def _label_evidence(data: np.ndarray, prep: "allpairs.PreparedColumns", xvar: Va
     results = {r.measure: TestResult(r.estimate, r.p_value, r.method, r.ci_low, r.ci_high, r.n, r.note)
                for r in rows if r.x == xvar.name}
     try:
-        return label_evidence(xv[keep], yv[keep], results, alpha=config.SIGNIFICANCE_LEVEL)
+        return label_evidence(xv[keep], yv[keep], results, alpha=config.SIGNIFICANCE_LEVEL,
+                              tests=_WORKER_STATE.get("tests_bound"))
     except ArithmeticError:  # values near 1e300 overflow: no verdict, as in the pair view
         return None
 
@@ -304,13 +309,16 @@ def _computed_rows(prep, xvar: Variable, yvar: Variable, settings: AnalysisSetti
 
 
 def run_tile(tile: list[tuple[int, int]]) -> tuple[list[PairRow], list]:
-    """The rows of every pair in the tile, and (when asked) each pair's verdict evidence ``((x, y), ev)``."""
+    """The rows of every pair in the tile, and (when asked) each pair's verdict ``((x, y), ev)``: its
+    label when the q-values cannot change it (:func:`pairlens.core.verdict.settled_label`), else its evidence."""
     s = _WORKER_STATE
     prep = _worker_prepared()
     part = s.get("matrix_part")
     out: list[PairRow] = []
     evidence: list = []
     finished = part.rows(tile) if part is not None else [{}] * len(tile)
+    if s.get("verdicts"):
+        from .core.verdict import settled_label
     with one_blas_thread():
         for (i, j), ready in zip(tile, finished):
             xvar, yvar = s["variables"][i], s["variables"][j]
@@ -329,7 +337,9 @@ def run_tile(tile: list[tuple[int, int]]) -> tuple[list[PairRow], list]:
             if s.get("verdicts"):
                 ev = _label_evidence(s["data"], prep, xvar, yvar, rows, s["row_mask"])
                 if ev is not None:
-                    evidence.append(((xvar.name, yvar.name), ev))
+                    # the label itself when the q-values to come cannot change it (most pairs):
+                    # decided here in parallel, and a string travels to the parent instead of the evidence
+                    evidence.append(((xvar.name, yvar.name), settled_label(ev, s.get("tests_bound")) or ev))
     return out, evidence
 
 

@@ -84,7 +84,7 @@ from .results import TestResult
 from .numbers import fmt_est, fmt_p
 
 __all__ = ["Pattern", "LABELS", "RULES", "Rule", "classify_pair", "influence_on_r", "rank_rank", "LabelEvidence",
-           "label_evidence", "label_from_evidence", "marginals_normal_not_joint"]
+           "label_evidence", "label_from_evidence", "settled_label", "marginals_normal_not_joint"]
 
 LABELS = ("linear", "monotone but curved", "non-monotone", "driven by a few points",
           "no evidence of dependence", "not tested (trending)")
@@ -345,7 +345,23 @@ def _dependence_may_count(results, alpha: float) -> bool:
     return any(_may_be_significant(results.get(m), alpha) for m in DEPENDENCE_MEASURES)
 
 
-def _gather_data(ev: _Evidence, x, y, results, fit, *, with_fit: bool, q_known: bool) -> _Evidence:
+def _surely_backed(ev: _Evidence, results, tests: int | None) -> bool:
+    """Whether a rank correlation backs r (rule 3's "backed") whatever the q-values turn out to be.
+
+    Every adjustment pairlens offers (bh, holm, none) gives q <= min(1, p m) for a
+    family of m tests, so a rank measure with p times an upper bound on m below
+    alpha will have q < alpha.
+    """
+    if not tests or not (math.isfinite(ev.rank_equiv) and math.isfinite(ev.r)):
+        return False
+    if abs(ev.rank_equiv) < FEW_POINTS_SHRINK * abs(ev.r):
+        return False
+    return any(res is not None and res.p_value * tests < ev.alpha
+               for m, res in results.items() if m in RANK_MEASURES)
+
+
+def _gather_data(ev: _Evidence, x, y, results, fit, *, with_fit: bool, q_known: bool,
+                 tests: int | None = None) -> _Evidence:
     """Everything the rules compare except significance: estimates, Gaussian gaps, influence (and the fit).
 
     Without the q-values (``q_known`` False: the engine's tiles, before they exist)
@@ -405,6 +421,10 @@ def _gather_data(ev: _Evidence, x, y, results, fit, *, with_fit: bool, q_known: 
         # Only the label is wanted and the influence rule (2) needs Pearson significant; an
         # adjusted q is never below its p-value, so with p >= alpha rule 2 cannot hold and the
         # O(k n) influence path (most of the label's cost at large n) is not needed.
+        return ev
+    if not q_known and _surely_backed(ev, results, tests):
+        # Rule 3 also needs that no rank correlation backs r; here one will, so the path cannot
+        # change the label (most dependent pairs of a wide table at a few hundred rows or more).
         return ev
     # Influence of single points and of the k most influential ones on r.
     if q_known:  # the single-point change is only ever read by the reasons
@@ -885,7 +905,7 @@ class LabelEvidence:
 
 
 def label_evidence(x: np.ndarray, y: np.ndarray, results: dict[str, TestResult], *,
-                   alpha: float = 0.05) -> LabelEvidence:
+                   alpha: float = 0.05, tests: int | None = None) -> LabelEvidence:
     """The q-independent part of :func:`classify_pair` for one pair (no Gaussian fit).
 
     Parameters
@@ -896,6 +916,11 @@ def label_evidence(x: np.ndarray, y: np.ndarray, results: dict[str, TestResult],
         Measure name -> TestResult as in :func:`classify_pair`.
     alpha : float
         Level at which a q-value counts as significant.
+    tests : int, optional
+        An upper bound on the number of tests in any measure's adjustment
+        family. With it, a pair whose rank correlation will surely be
+        significant and backs r skips the influence path, which can then not
+        change the label (rule 3).
 
     Returns
     -------
@@ -908,7 +933,8 @@ def label_evidence(x: np.ndarray, y: np.ndarray, results: dict[str, TestResult],
         # No q-value can fall below alpha (q >= p for every adjustment), so rule 4 or rule 1 gives
         # "no evidence of dependence" whatever the data: nothing to gather (most pairs of a wide table).
         return LabelEvidence(_Evidence(alpha=float(alpha), degenerate="no measure has p < alpha"), results)
-    ev = _gather_data(_Evidence(alpha=float(alpha)), x, y, results, None, with_fit=False, q_known=False)
+    ev = _gather_data(_Evidence(alpha=float(alpha)), x, y, results, None, with_fit=False, q_known=False,
+                      tests=tests)
     return LabelEvidence(ev, results)
 
 
@@ -945,3 +971,37 @@ def label_from_evidence(gathered: LabelEvidence, q_values: dict[str, float],
         if rule.holds(ev):
             return rule.label
     return RULES[-1].label
+
+
+def settled_label(gathered: LabelEvidence, tests: int | None) -> str | None:
+    """The label of :func:`label_from_evidence` when no q-values can change it, else None.
+
+    The rules read a q-value only through q < alpha. With at most ``tests``
+    tests in a measure's adjustment family, every adjustment pairlens offers
+    gives p <= q <= p ``tests`` (bh, holm, none; a BH q can sit one ulp below
+    its p, hence the margin of :func:`_may_be_significant`). So when each
+    measure's p-value is either not below alpha or below alpha / ``tests``,
+    the label from the p-values is the label from any q-values the analysis
+    can give, and it can be decided before they exist (in the engine's
+    tiles, in parallel). Groups and categorical pairs are left to
+    :func:`label_from_evidence`.
+
+    Examples
+    --------
+    >>> from pairlens.core import linear, rank
+    >>> rng = np.random.default_rng(2)
+    >>> x = rng.normal(size=400)
+    >>> y = x + rng.normal(size=400)
+    >>> res = {"pearson": linear.pearson(x, y), "spearman": rank.spearman(x, y)}
+    >>> settled_label(label_evidence(x, y, res, tests=1000), tests=1000)
+    'linear'
+    """
+    if not tests or not isinstance(gathered, LabelEvidence):
+        return None
+    alpha = gathered.evidence.alpha
+    for res in gathered.results.values():
+        if res is None or not math.isfinite(res.p_value) or not _may_be_significant(res, alpha):
+            continue
+        if not res.p_value * tests * (1.0 + 1e-9) < alpha:
+            return None
+    return label_from_evidence(gathered, {})

@@ -353,3 +353,49 @@ def test_label_from_evidence_agrees_on_trending_pairs():
     assert label_from_evidence(ev, q) == "linear"
     assert label_from_evidence(ev, q, ("x",)) == classify_pair(x, y, results, q, trending=("x",)).label \
         == "not tested (trending)"
+
+
+def test_settled_label_is_the_label_of_every_q_the_bound_allows():
+    """A label decided before the q-values (in the engine's tiles) is classify_pair's label for any
+    q-values the adjustments can give: BH, Holm and no adjustment all give p <= q <= p m for a
+    family of m tests (Benjamini & Hochberg 1995; Holm 1979). The influence path that label_evidence
+    skips when a rank correlation surely backs r is part of the oracle's evidence."""
+    from pairlens.core.verdict import label_evidence, label_from_evidence, settled_label
+
+    rng = np.random.default_rng(41)
+    settled = undecided = 0
+    seen = set()
+    for case in range(60):
+        kind = list(EXPECTED)[case % len(EXPECTED)]
+        n = (12, 25, 60, 150)[case % 4]
+        x, y = _make(kind, seed=case, n=n)
+        results, p = _panel(x, y)
+        for tests in (1, 40, 10_000):
+            evidence = label_evidence(x, y, results, tests=tests)
+            label = settled_label(evidence, tests)
+            uncertain = [m for m, v in p.items() if 0.05 / tests <= v * (1 + 1e-9) and v < 0.05 * (1 + 1e-9)]
+            if label is None:
+                undecided += 1
+                assert uncertain, (kind, n, tests, p)
+            else:
+                settled += 1
+                seen.add(label)
+            for draw in range(4):  # q anywhere in [p, min(1, p m)], both ends included
+                lo_end = {0: 0.0, 1: 1.0}.get(draw, rng.uniform())
+                q = {m: min(1.0, v * (1 + lo_end * (tests - 1))) for m, v in p.items()}
+                expected = classify_pair(x, y, results, q, alpha=0.05).label
+                assert label_from_evidence(evidence, q) == expected, (kind, n, tests, q)
+                assert label in (None, expected), (kind, n, tests, q)
+    # Three points on the diagonal over a weak trend (found by a seeded search): the rank correlations
+    # back r only while their q stays below alpha, so the influence path must not be skipped at m = 40.
+    rng = np.random.default_rng(1)
+    x = rng.normal(size=60)
+    y = 0.3 * x + np.sqrt(1 - 0.3 ** 2) * rng.normal(size=60)
+    x[:3] = y[:3] = [3.0, 3.45, 3.9]
+    results, p = _panel(x, y)
+    q = {m: min(1.0, v * 40) for m, v in p.items()}
+    assert classify_pair(x, y, results, q, alpha=0.05).label == "driven by a few points"
+    assert classify_pair(x, y, results, p, alpha=0.05).label != "driven by a few points"
+    assert label_from_evidence(label_evidence(x, y, results, tests=40), q) == "driven by a few points"
+    assert settled > 60 and undecided > 10  # both branches ran
+    assert {"linear", "no evidence of dependence", "driven by a few points", "non-monotone"} <= seen
