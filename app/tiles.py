@@ -120,7 +120,8 @@ def fast_pair_rows(prep: "allpairs.PreparedColumns", xvar: Variable, yvar: Varia
         distance="distance" in needs)
     if not regular:
         return None  # degenerate pairs: every measure's own note, from the per-pair path
-    pair = allpairs.PresortedPair(view, False, sums, counts, dist_inputs)
+    whole = (prep, i, j) if view.n == prep.counts[i] == prep.counts[j] else None
+    pair = allpairs.PresortedPair(view, False, sums, counts, dist_inputs, whole_columns=whole)
     rows: list[PairRow] = []
     for m in measures:
         for a, b, swapped in _directions(m, xvar, yvar):

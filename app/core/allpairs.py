@@ -366,7 +366,10 @@ class PreparedColumns:
     ``orders[:counts[k], k]`` are the rows where it is present, in ascending
     value (ties by row); ``present`` already folds in the row mask of the
     complete-rows policy. ``finite[k]`` is False when the column holds an
-    infinite value (such pairs take the per-pair path).
+    infinite value (such pairs take the per-pair path). ``distance_sides``
+    caches each column's own part of the distance statistics
+    (:func:`pairlens.core.distance.column_side`) for the pairs that use all of
+    its present rows, filled as pairs meet it.
     """
 
     values: np.ndarray
@@ -376,6 +379,7 @@ class PreparedColumns:
     finite: np.ndarray
     columns: tuple
     slot: dict
+    distance_sides: dict = field(default_factory=dict, compare=False, repr=False)
 
 
 def prepare_columns(data: np.ndarray, row_mask: np.ndarray | None = None,
@@ -583,6 +587,9 @@ class PresortedPair:
     kendall_counts: tuple | None
     distance_inputs: tuple | None
     shared: dict = field(default_factory=dict)   # parts computed once per pair, whichever direction
+    # (prepared columns, slot of x, slot of y) when the pair uses every present row of both columns:
+    # their distance sides are then the columns' own, computed once per column
+    whole_columns: tuple | None = None
 
     @property
     def n(self) -> int:
@@ -608,9 +615,19 @@ class PresortedPair:
         """The pair's centred distance statistics (dCor, its bias-corrected form, Kendall's discordances)."""
         st = self.shared.get("distance")
         if st is None:
-            from .distance import centred_statistics_presorted
+            from .distance import centred_statistics_presorted, column_side
 
-            st = self.shared["distance"] = centred_statistics_presorted(*self.distance_inputs)
+            xc, yc, order, y_order = self.distance_inputs
+            sides = None
+            if self.whole_columns is not None:
+                prep, i, j = self.whole_columns
+                cache = prep.distance_sides
+                if i not in cache:
+                    cache[i] = column_side(xc, order)
+                if j not in cache:
+                    cache[j] = column_side(yc, order[y_order])
+                sides = (cache[i], cache[j])
+            st = self.shared["distance"] = centred_statistics_presorted(xc, yc, order, y_order, sides)
         return st
 
     def untied(self) -> bool:
@@ -640,7 +657,7 @@ class PresortedPair:
         if swapped == self.swapped:
             return self
         return PresortedPair(self.view, swapped, self.rank_sums, self.kendall_counts, self.distance_inputs,
-                             self.shared)
+                             self.shared, self.whole_columns)
 
 
 def warm_kernels() -> None:

@@ -28,7 +28,7 @@ from .. import config
 from .results import TestResult, undefined
 
 __all__ = ["dcor", "dcor_estimate", "dcor_bc", "gaussian_dcor", "distance_statistics", "DistanceStatistics",
-           "METHODS", "centred_statistics_presorted", "dcor_from_statistics", "dcor_bc_from_statistics"]
+           "METHODS", "centred_statistics_presorted", "column_side", "dcor_from_statistics", "dcor_bc_from_statistics"]
 
 METHODS: tuple[str, ...] = ("auto", "fast", "blocked", "naive")
 
@@ -611,6 +611,32 @@ def _sorted_kernels(xc, yc, order, y_order):
 
 
 @kernel(cache=True, nogil=True, python_max_n=64)
+def _side_kernel(v_sorted):
+    """One column's own part of :func:`_sorted_kernels`: row sums in sorted order and third sums."""
+    arow = _row_sums_sorted(v_sorted)
+    return arow, _third_quantities_1d_fused(v_sorted, arow)
+
+
+@kernel(cache=True, nogil=True, python_max_n=64)
+def _cross_kernels(xc, yc, order, y_order, brow_sorted):
+    """The pair's own part of :func:`_sorted_kernels` once both columns' sides are known."""
+    n = xc.shape[0]
+    xv = np.empty(n)
+    yv = np.empty(n)
+    for k in range(n):
+        xv[k] = xc[order[k]]
+        yv[k] = yc[order[k]]
+    yr = np.empty(n, np.int64)
+    for k in range(n):
+        yr[y_order[k]] = k
+    brow = np.empty(n)
+    for k in range(n):
+        brow[k] = brow_sorted[yr[k]]
+    s1, discordant = _cross_sum_discordant(xv, yv, yr)
+    return xv, yv, yr, brow, s1, discordant
+
+
+@kernel(cache=True, nogil=True, python_max_n=64)
 def _third_pass_group(z, arow):
     """Same sums as _third_quantities_1d for Euclidean distances, one O(n^2 d) pass."""
     n = z.shape[0]
@@ -781,11 +807,18 @@ def _fast_statistics(x, y):
     return _fast_statistics_ordered(xc, yc, order, y_order)
 
 
-def _fast_statistics_ordered(xc, yc, order, y_order):
-    """The O(n log n) statistics once the (median-centred) columns are sorted."""
+def _fast_statistics_ordered(xc, yc, order, y_order, sides=None):
+    """The O(n log n) statistics once the (median-centred) columns are sorted; ``sides``: both
+    columns' :func:`column_side`, when known."""
     n = xc.shape[0]
-    xv, yv, yr, arow, brow_sorted, brow, s1, parts_x, parts_y, discordant = _sorted_kernels(
-        xc, yc, np.ascontiguousarray(order, dtype=np.int64), np.ascontiguousarray(y_order, dtype=np.int64))
+    order = np.ascontiguousarray(order, dtype=np.int64)
+    y_order = np.ascontiguousarray(y_order, dtype=np.int64)
+    if sides is None:
+        xv, yv, yr, arow, brow_sorted, brow, s1, parts_x, parts_y, discordant = _sorted_kernels(
+            xc, yc, order, y_order)
+    else:
+        (arow, parts_x), (brow_sorted, parts_y) = sides
+        xv, yv, yr, brow, s1, discordant = _cross_kernels(xc, yc, order, y_order, brow_sorted)
     # numpy's own sums and products, as before (pairwise summation and BLAS give these bits)
     ta = float(arow.sum())
     tb = float(brow.sum())
@@ -1193,8 +1226,21 @@ def distance_statistics(x: np.ndarray, y: np.ndarray, *, method: str = "auto") -
     return _fast_statistics(np.ascontiguousarray(xa[:, 0]), np.ascontiguousarray(ya[:, 0]))
 
 
+def column_side(zc: np.ndarray, order: np.ndarray) -> tuple[np.ndarray, tuple]:
+    """A median-centred column's own part of the distance statistics of any pair on the same rows.
+
+    ``order`` is ``np.argsort(zc, kind="mergesort")``. Returns the row sums
+    a_i. in ascending order of the values and the column's third-moment sums;
+    they depend on the sorted values alone, so an engine that sorts each column
+    once can compute them once per column and pass them to
+    :func:`centred_statistics_presorted` for every pair whose rows are all of
+    the column's rows (the same numbers, bit for bit).
+    """
+    return _side_kernel(np.ascontiguousarray(zc[np.asarray(order, dtype=np.int64)], dtype=np.float64))
+
+
 def centred_statistics_presorted(xc: np.ndarray, yc: np.ndarray, x_order: np.ndarray,
-                                 y_order: np.ndarray) -> DistanceStatistics:
+                                 y_order: np.ndarray, sides=None) -> DistanceStatistics:
     """:func:`distance_statistics` of two columns whose sort orders are already known.
 
     Parameters
@@ -1207,6 +1253,9 @@ def centred_statistics_presorted(xc: np.ndarray, yc: np.ndarray, x_order: np.nda
     y_order : ndarray
         ``np.argsort(yc[x_order], kind="mergesort")`` (int64): positions in x
         order, sorted by y.
+    sides : tuple, optional
+        ``(column_side(xc, x_order), column_side(yc, np.argsort(yc, kind="mergesort")))``
+        when already known; only the pair's cross sums are then computed.
 
     Returns
     -------
@@ -1236,7 +1285,7 @@ def centred_statistics_presorted(xc: np.ndarray, yc: np.ndarray, x_order: np.nda
     >>> st.dcov2 == distance_statistics(x, y).dcov2
     True
     """
-    return _fast_statistics_ordered(xc, yc, x_order, y_order)
+    return _fast_statistics_ordered(xc, yc, x_order, y_order, sides)
 
 
 def dcor_from_statistics(st: DistanceStatistics, *, permutations: int = 0,

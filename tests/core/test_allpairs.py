@@ -400,3 +400,33 @@ def test_floored_result_skips_only_floors_that_cannot_raise_p(n, ties):
             checked_raise += floor_pvalue(res, floor) is not res
     # two-valued columns do raise some p-values: the comparison above covered raised results too
     assert checked_raise > 0 or ties != "binary"
+
+
+@pytest.mark.parametrize("seed,n", [(31, 400), (32, 40), (33, 6)])
+def test_columns_own_distance_parts_computed_once_give_the_same_rows(seed, n):
+    """Pairs on all rows of both columns take each column's own distance sums from a per-column
+    cache (distance.column_side); every field still equals the per-pair path's (the oracle above,
+    which computes them pair by pair). Columns 5 and 6 miss the same rows: their pair uses all of
+    both columns' present rows, while their pairs with the full columns do not."""
+    data, names = _table(seed, n, missing=0.0)
+    data[: max(1, n // 10), 5:7] = np.nan
+    settings = AnalysisSettings(measures=ALL)
+    _assert_rows_equal(_fast_table(data, names, settings), _oracle_rows(data, names, settings))
+    variables = plan_variables(names, settings)
+    prep = prepare_columns(data, variables)
+    for i, j in _pairs(variables):
+        _fast_pair_rows(prep, variables[i], variables[j], settings)
+    # the constant column v3 takes the per-pair path; the others' sides were cached
+    assert set(prep.distance_sides) == {0, 1, 2, 4, 5, 6}
+    st = {}
+    for k in (0, 1):
+        x = data[:, k] - np.median(data[:, k])
+        st[k] = distance.column_side(x, np.argsort(x, kind="mergesort"))
+    x, y = data[:, 0] - np.median(data[:, 0]), data[:, 1] - np.median(data[:, 1])
+    order = np.argsort(x, kind="mergesort")
+    y_order = np.argsort(y[order], kind="mergesort")
+    with_sides = distance.centred_statistics_presorted(x, y, order, y_order, (st[0], st[1]))
+    alone = distance.centred_statistics_presorted(x, y, order, y_order)
+    for name, value in alone._asdict().items():
+        if name != "resample":
+            np.testing.assert_array_equal(np.asarray(getattr(with_sides, name)), np.asarray(value), err_msg=name)
