@@ -226,12 +226,11 @@ def run_job(data_dir: str, analysis_id: str, *, workers: int | None = None, clus
             verdicts = verdict_labels(pair_table)
             if cancel():
                 raise AnalysisCancelled("analysis cancelled")
-            from .export import json_records
+            from .pairrecords import pack_rows
 
             note_progress(analysis_id, 1.0, 0.0, phase="figures")
             pages, grid = _page_cache(pair_table, verdicts)
-            records = [r | {"method": m} for r, m in zip(json_records(pair_table.records()),
-                                                          (row_.method for row_ in pair_table.rows))]
+            records = pack_rows(pair_table.rows)
             saved = _retry_write(store, lambda: store.save_results(
                 analysis_id, variables=list(pair_table.variables), records=records, verdicts=verdicts,
                 seconds=pair_table.seconds, pages=pages, grid=grid))

@@ -463,18 +463,21 @@ class Store:
                               (status, error, now, now, analysis_id))
             return cur.rowcount == 1
 
-    def save_results(self, analysis_id: str, *, variables: list[str], records: list[dict],
+    def save_results(self, analysis_id: str, *, variables: list[str], records: list[dict] | bytes,
                      verdicts: dict, seconds: float, pages: dict | None = None,
                      grid: bytes | None = None) -> bool:
         """Write the results and mark the analysis ``done`` in one transaction.
 
         ``grid``: the pair table as arrays (:meth:`pairlens.pairgrid.PairGrid.to_bytes`), stored as given.
+        ``records``: the pair rows, as JSON records or as :func:`pairlens.pairrecords.pack_rows` bytes
+        (stored as given).
 
         Returns False (and writes nothing) when the analysis is no longer running,
         e.g. it was cancelled or marked interrupted meanwhile.
         """
         now = time.time()
-        packed_records, packed_verdicts = _pack(records), _pack(verdicts)
+        packed_records = records if isinstance(records, bytes) else _pack(records)
+        packed_verdicts = _pack(verdicts)
         packed_pages = _pack(pages) if pages is not None else None
         with self._tx() as con:
             cur = con.execute("UPDATE analyses SET status = 'done', progress = 1, phase = 'done', finished = ?, "
@@ -489,11 +492,15 @@ class Store:
         return True
 
     def get_results(self, analysis_id: str) -> dict | None:
-        """``{"variables", "records", "verdicts", "pages", "grid", "seconds"}`` of a done analysis, else None."""
+        """``{"variables", "records", "rows", "verdicts", "pages", "grid", "seconds"}`` of a done analysis,
+        else None: ``records`` the JSON records, or None and ``rows`` the packed rows
+        (:func:`pairlens.pairrecords.unpack_rows` reads them) when they were stored so."""
         r = self._connection().execute("SELECT * FROM results WHERE analysis_id = ?", (analysis_id,)).fetchone()
         if r is None:
             return None
-        return {"variables": json.loads(r["variables"]), "records": _unpack(r["records"]),
+        packed = bytes(r["records"][:2]) == b"PK"  # a zip archive (.npz), else zlib-compressed JSON
+        return {"variables": json.loads(r["variables"]), "records": None if packed else _unpack(r["records"]),
+                "rows": r["records"] if packed else None,
                 "verdicts": _unpack(r["verdicts"]), "pages": _unpack(r["pages"]) if r["pages"] else None,
                 "grid": r["grid"], "seconds": r["seconds"]}
 

@@ -28,6 +28,7 @@ from ..formatting import embed_json, finite
 from ..pairs import full_detail, pack_points, quick_detail
 from ..pairtable import PairRow, PairTable
 from ..pairgrid import PairGrid
+from ..pairrecords import unpack_rows
 from ..payloads import MAPS_FORMAT, default_difference, heatmap_payload, pair_key
 from ..plan import AnalysisSettings, plan_variables
 from ..ordering import serial_note
@@ -404,9 +405,12 @@ class Workspace:
         if res is None:
             raise Conflict(f"analysis {row.id} has no stored results")
         settings = AnalysisSettings.from_dict(row.settings)
-        rows = [PairRow(r["x"], r["y"], r["measure"], *(math.nan if r[f] is None else r[f] for f in
-                                                          ("estimate", "ci_low", "ci_high", "p_value", "q_value")),
-                        int(r["n"]), r["note"], r.get("method", "")) for r in res["records"]]
+        if res["records"] is None:
+            rows = unpack_rows(res.pop("rows"))
+        else:  # stored as JSON records by an earlier version
+            rows = [PairRow(r["x"], r["y"], r["measure"], *(math.nan if r[f] is None else r[f] for f in
+                                                              ("estimate", "ci_low", "ci_high", "p_value", "q_value")),
+                            int(r["n"]), r["note"], r.get("method", "")) for r in res.pop("records")]
         res["table"] = PairTable(res["variables"], settings.table_measures(), settings, rows, res["seconds"])
         return self._pair_tables.put(row.id, res)
 
@@ -428,9 +432,9 @@ class Workspace:
         return cached
 
     def pair_records(self, row: AnalysisRow) -> list[dict]:
-        from ..export import PAIR_FIELDS
+        from ..export import json_records
 
-        return [{f: r[f] for f in PAIR_FIELDS} for r in self._results(row)["records"]]
+        return json_records(r.record() for r in self.pair_table(row).rows)
 
     def pair_records_json(self, row: AnalysisRow) -> bytes:
         """:meth:`pair_records` serialised once (results never change), as the API sends it."""

@@ -1,4 +1,6 @@
-"""The pair table's arrays (pairlens.pairgrid.PairGrid), stored and read back, against pandas.
+"""What the workspace stores of a finished analysis, read back: the pair table's arrays
+(pairlens.pairgrid.PairGrid) against pandas, and the pair rows (pairlens.pairrecords) against the
+engine's own rows and the JSON records earlier versions stored.
 
 The reference is pandas: the engine's long pair table (one row per pair, measure and
 direction) pivoted to one row per unordered pair with ``DataFrame.pivot``, then
@@ -185,3 +187,67 @@ def test_server_reads_analyses_stored_without_a_grid(tmp_path):
     assert pages[True] == pages[False]
     assert pages[True][0]["total"] == 10 and pages[True][2]["filtered"] == 4
     assert len(pages[True][0]["verdicts"]) >= 2  # the verdict column came through (the p-r pair is dependent)
+
+
+def test_packed_rows_give_back_every_field(analysis):
+    """pack_rows / unpack_rows against the engine's rows: names, measures, notes and methods equal,
+    numbers bit for bit; non-finite numbers come back as NaN, as the JSON records stored them (null)."""
+    import math
+
+    from pairlens.pairrecords import is_packed_rows, pack_rows, unpack_rows
+    from pairlens.pairtable import PairRow
+
+    table, _ = analysis
+    odd = [PairRow("x\u0000</script>", "y é", "pearson", math.inf, -math.inf, math.nan, 0.5, 0.25, 7,
+                   "a note, with \"quotes\"", "t")]
+    rows = table.rows + odd
+    blob = pack_rows(rows)
+    assert is_packed_rows(blob)
+    back = unpack_rows(blob)
+    assert len(back) == len(rows)
+    for a, b in zip(rows, back):
+        assert (a.x, a.y, a.measure, a.n, a.note, a.method) == (b.x, b.y, b.measure, b.n, b.note, b.method)
+        for f in ("estimate", "ci_low", "ci_high", "p_value", "q_value"):
+            want = getattr(a, f)
+            got = getattr(b, f)
+            assert (math.isnan(got) and not math.isfinite(want)) or got == want, (a, f)
+    assert type(back[0].n) is int and type(back[0].estimate) is float
+
+
+def test_server_reads_rows_stored_as_json_records(tmp_path):
+    """An analysis whose rows an earlier version stored as JSON records: the server reads them, and
+    every API answer equals the one from the packed rows (the same analysis, its rows re-stored)."""
+    from fastapi.testclient import TestClient
+
+    from live_server import wait_for_analysis
+    from pairlens.config import ServerSettings
+    from pairlens.export import json_records
+    from pairlens.pairrecords import unpack_rows
+    from pairlens.store import _pack
+    from pairlens.web.app import create_app
+
+    rng = np.random.default_rng(8)
+    frame = pd.DataFrame(rng.normal(size=(50, 4)), columns=["u", "V", "w", "x"])
+    frame["w"] = np.exp(frame["u"]) + rng.normal(scale=0.1, size=50)
+    data_dir = tmp_path / "ws"
+    with TestClient(create_app(ServerSettings(data_dir=data_dir, max_upload_mb=1))) as client:
+        ds = client.post("/api/datasets", files={"file": ("t.csv", frame.to_csv(index=False).encode(), "text/csv")})
+        aid = client.post(f"/api/datasets/{ds.json()['id']}/analyses",
+                          json={"measures": ["pearson", "spearman", "xi"], "seed": 4}).json()["id"]
+        assert wait_for_analysis(client, aid, timeout=90.0)["status"] == "done"
+
+    def answers():
+        with TestClient(create_app(ServerSettings(data_dir=data_dir, max_upload_mb=1))) as client:
+            return [client.get(f"/api/analyses/{aid}/pairs").json(),
+                    client.get(f"/api/analyses/{aid}/pair-table").json(),
+                    client.get(f"/api/analyses/{aid}/pair", params={"x": "u", "y": "w"}).json()["measures"]]
+
+    packed = answers()
+    with sqlite3.connect(data_dir / "pairlens.sqlite3") as con:
+        blob = con.execute("SELECT records FROM results").fetchone()[0]
+        rows = unpack_rows(blob)
+        records = [r | {"method": row.method} for r, row in zip(json_records(x.record() for x in rows), rows)]
+        con.execute("DROP TRIGGER results_are_final")  # the server creates it again on start
+        con.execute("UPDATE results SET records = ?", (_pack(records),))
+    assert answers() == packed
+    assert len(packed[0]) == 6 * 4 and {r["measure"] for r in packed[0]} == {"pearson", "spearman", "xi"}
