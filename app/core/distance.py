@@ -580,37 +580,6 @@ def _third_quantities_1d_fused(xs, arow):
 
 
 @kernel(cache=True, nogil=True, python_max_n=64)
-def _sorted_kernels(xc, yc, order, y_order):
-    """The compiled steps of the fast path in one call: gathers, row sums, cross sum, third sums.
-
-    x in its order, y in x order, y positions in y order, the row sums
-    (x order; y order and x order) and S1 = sum a_ij b_ij, then the
-    third-moment sums of each side. Gathers and kernels are the ones the
-    separate steps used, so the numbers are the same.
-    """
-    n = xc.shape[0]
-    xv = np.empty(n)
-    yv = np.empty(n)
-    for k in range(n):
-        xv[k] = xc[order[k]]
-        yv[k] = yc[order[k]]
-    yr = np.empty(n, np.int64)
-    y_sorted = np.empty(n)
-    for k in range(n):
-        yr[y_order[k]] = k
-        y_sorted[k] = yv[y_order[k]]
-    arow = _row_sums_sorted(xv)
-    brow_sorted = _row_sums_sorted(y_sorted)
-    brow = np.empty(n)
-    for k in range(n):
-        brow[k] = brow_sorted[yr[k]]
-    s1, discordant = _cross_sum_discordant(xv, yv, yr)
-    parts_x = _third_quantities_1d_fused(xv, arow)
-    parts_y = _third_quantities_1d_fused(y_sorted, brow_sorted)
-    return xv, yv, yr, arow, brow_sorted, brow, s1, parts_x, parts_y, discordant
-
-
-@kernel(cache=True, nogil=True, python_max_n=64)
 def _side_kernel(v_sorted):
     """One column's own part of :func:`_sorted_kernels`: row sums in sorted order and third sums."""
     arow = _row_sums_sorted(v_sorted)
@@ -634,6 +603,27 @@ def _cross_kernels(xc, yc, order, y_order, brow_sorted):
         brow[k] = brow_sorted[yr[k]]
     s1, discordant = _cross_sum_discordant(xv, yv, yr)
     return xv, yv, yr, brow, s1, discordant
+
+
+@kernel(cache=True, nogil=True, python_max_n=64)
+def _sorted_kernels(xc, yc, order, y_order):
+    """The compiled steps of the fast path in one call: gathers, row sums, cross sum, third sums.
+
+    x in its order, y in x order, y positions in y order, the row sums
+    (x order; y order and x order) and S1 = sum a_ij b_ij, then the
+    third-moment sums of each side: both sides (:func:`_side_kernel`) and the
+    pair's cross part (:func:`_cross_kernels`).
+    """
+    n = xc.shape[0]
+    x_sorted = np.empty(n)
+    y_sorted = np.empty(n)
+    for k in range(n):
+        x_sorted[k] = xc[order[k]]
+        y_sorted[k] = yc[order[y_order[k]]]
+    arow, parts_x = _side_kernel(x_sorted)
+    brow_sorted, parts_y = _side_kernel(y_sorted)
+    xv, yv, yr, brow, s1, discordant = _cross_kernels(xc, yc, order, y_order, brow_sorted)
+    return xv, yv, yr, arow, brow_sorted, brow, s1, parts_x, parts_y, discordant
 
 
 @kernel(cache=True, nogil=True, python_max_n=64)
