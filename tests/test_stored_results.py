@@ -251,3 +251,36 @@ def test_server_reads_rows_stored_as_json_records(tmp_path):
         con.execute("UPDATE results SET records = ?", (_pack(records),))
     assert answers() == packed
     assert len(packed[0]) == 6 * 4 and {r["measure"] for r in packed[0]} == {"pearson", "spearman", "xi"}
+
+
+def test_a_verdict_the_pair_view_learns_reaches_the_pair_table(tmp_path):
+    """When the full pair view's verdict differs from the stored label, the pair table shows the pair
+    view's (the workspace writes it into the loaded grid). Here the stored label is made stale on
+    purpose; the reference is the label /pair returns, classify_pair's."""
+    from fastapi.testclient import TestClient
+
+    from live_server import wait_for_analysis
+    from pairlens.config import ServerSettings
+    from pairlens.web.app import create_app
+
+    rng = np.random.default_rng(12)
+    frame = pd.DataFrame(rng.normal(size=(80, 3)), columns=["a", "b", "c"])
+    frame["b"] = frame["a"] + rng.normal(scale=0.5, size=80)
+    app = create_app(ServerSettings(data_dir=tmp_path / "ws", max_upload_mb=1))
+    with TestClient(app) as client:
+        ds = client.post("/api/datasets", files={"file": ("t.csv", frame.to_csv(index=False).encode(), "text/csv")})
+        aid = client.post(f"/api/datasets/{ds.json()['id']}/analyses", json={"seed": 1}).json()["id"]
+        assert wait_for_analysis(client, aid, timeout=90.0)["status"] == "done"
+
+        def shown():
+            rows = client.get(f"/api/analyses/{aid}/pair-table", params={"text": "b"}).json()["rows"]
+            return {(r[0], r[1]): r[5] for r in rows}
+
+        assert shown()[("a", "b")] == "linear"
+        ws = app.state.workspace
+        row = ws.analysis(aid)
+        ws.pair_grid(row).set_verdict("a", "b", "stale label")   # as if stored by an older rule table
+        ws.verdicts(row)["labels"].pop(pair_key("a", "b"))
+        assert shown()[("a", "b")] == "stale label"
+        label = client.get(f"/api/analyses/{aid}/pair", params={"x": "b", "y": "a"}).json()["pattern"]["label"]
+        assert label == "linear" and shown()[("a", "b")] == label
