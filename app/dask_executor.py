@@ -144,8 +144,10 @@ def _source_fingerprint() -> str:
     # Equal version numbers do not mean equal code (editable installs, local patches); results
     # are only bit-for-bit equal when every process runs the same sources of the computation.
     root = Path(__file__).resolve().parent
+    # every module whose code runs in a tile: the tiles' own, --ordered and --given rows, the matrix part's share
     files = [root / "__init__.py", root / "config.py", root / "engine.py", root / "tiles.py", root / "plan.py",
-             root / "pairtable.py", Path(__file__).resolve(),
+             root / "pairtable.py", root / "ordering.py", root / "given.py", root / "matrix_path.py",
+             Path(__file__).resolve(),
              *(root / "core").rglob("*.py")]
     digest = hashlib.sha256()
     for path in sorted(set(files)):

@@ -27,8 +27,8 @@ from .executors import Executor, ProcessExecutor, SerialExecutor, make_executor
 from .ordering import mark_trending, serial_check, serial_note, time_order, trending_sides  # noqa: F401 - serial_note re-exported
 from .pairtable import PairRow, PairTable
 from .plan import AnalysisSettings, Variable, analysis_row_mask, pair_indices, plan_variables
-from .tiles import (compute_pair, init_worker, make_tiles, one_blas_thread, prepare_columns, release_worker,
-                    run_tile, warm_kernels)
+from .tiles import (CarriedTile, compute_pair, init_worker, make_tiles, one_blas_thread, prepare_columns,
+                    release_worker, run_tile, warm_kernels)
 
 # Names kept importable from here for callers written before the split.
 _pairs = pair_indices
@@ -98,7 +98,8 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
         given. When other measures are chosen or verdicts are asked for (their
         evidence is gathered pair by pair), the tiles compute those and take
         Pearson and Spearman from the matrix products
-        (:class:`pairlens.matrix_path.MatrixPart`).
+        (:class:`pairlens.matrix_path.MatrixPart`), on any executor: the
+        products run here, a tile sent to Dask carries its pairs' share.
     streamed : bool
         The caller streams the table to a file: a matrix-path run may then give
         up to ``config.MATRIX_MAX_PAIR_ROWS`` rows instead of ``MAX_PAIR_ROWS``.
@@ -142,7 +143,7 @@ def run_analysis(data: np.ndarray, names: Sequence[str], settings: AnalysisSetti
     workers = workers or os.cpu_count() or 1
     part, part_share = None, 0.0
     part_measures = () if settings.ordered is not None or given is not None else matrix_path.part_measures(
-        path, settings, variables, n_pairs, local=executor is None and cluster is None)
+        path, settings, variables, n_pairs)
     if part_measures:
         # Pearson and Spearman of every pair by matrix products, the rest by the tiles. The products
         # are a few percent of such a run (1,000 x 1,000, default measures: 4 s of about 2 minutes).
@@ -183,7 +184,12 @@ def _run_tiles(data, names, settings, variables, row_mask, given, pairs, executo
     results: list[tuple[list[PairRow], list] | None] = [None] * len(tiles)
     done_pairs = 0
     prepared = None
-    if isinstance(executor, (SerialExecutor, ProcessExecutor)):
+    shares_memory = isinstance(executor, (SerialExecutor, ProcessExecutor))
+    if part is not None and not shares_memory:
+        # Remote workers (Dask) get each tile's own share of the matrix part with the tile, not the whole part.
+        tiles = [CarriedTile(tile, part.share(tile)) for tile in tiles]
+        part = None
+    if shares_memory:
         # Sorted once here; forked workers share the orders copy-on-write, and the
         # kernels they call are already loaded. Remote workers sort for themselves.
         prepared = prepare_columns(data, variables, row_mask)

@@ -11,7 +11,8 @@ are built only when something asks for them, and which the writers in
 
 from __future__ import annotations
 
-from dataclasses import replace
+import copy
+from dataclasses import fields, replace
 from typing import Callable
 
 import numpy as np
@@ -20,7 +21,7 @@ from . import config
 from .errors import SettingsError
 from .core import linear
 from .core.testing import adjust_pvalues
-from .core.wide import WIDE_MEASURES, pair_matrix
+from .core.wide import WIDE_MEASURES, MeasureArrays, WidePairs, pair_matrix
 
 __all__ = ["PATHS", "matrix_applies", "run_matrix", "TopPairTable", "WidePairTable", "MatrixPart",
            "part_measures", "run_part"]
@@ -404,15 +405,40 @@ class MatrixPart:
         self.names = [v.name for v in variables]
         self.measures = tuple(measures)
         self.pairs = pairs          # core.wide.WidePairs (q-values not filled: the engine adjusts all rows)
+        self._keys = None           # a share's sorted triangle positions (:meth:`share`)
+
+    def _positions(self, i: np.ndarray, j: np.ndarray) -> np.ndarray:
+        ks = _triangle_position(i, j, len(self.names))
+        if self._keys is None:      # every pair of the run, in triangle order
+            return ks
+        # a share of the pairs (:meth:`share`): their triangle positions, kept sorted
+        at = np.searchsorted(self._keys, ks)
+        if at.size and (at.max() >= self._keys.size or not np.array_equal(self._keys[at], ks)):
+            raise KeyError("pairs outside this share of the matrix part")
+        return at
+
+    def share(self, pairs) -> "MatrixPart":
+        """The results of ``pairs`` (i < j) only: what a tile carries to a worker that does not share
+        this process's memory (a Dask worker): about 60 bytes a pair and measure instead of the whole part."""
+        ij = np.asarray(pairs, dtype=np.int64).reshape(-1, 2)
+        ks = np.unique(self._positions(ij[:, 0], ij[:, 1]))
+        gathered = {}
+        for m in self.measures:
+            a = self.pairs.measures[m]
+            gathered[m] = MeasureArrays(**{f.name: (getattr(a, f.name)[ks] if f.name not in ("methods", "notes")
+                                                    else getattr(a, f.name)) for f in fields(MeasureArrays)})
+        out = copy.copy(self)
+        out._keys = ks if self._keys is None else self._keys[ks]
+        out.pairs = WidePairs(self.pairs.i[ks], self.pairs.j[ks], gathered)
+        return out
 
     def rows(self, pairs) -> list[dict]:
         """For each pair (i < j) of ``pairs``, ``{measure: PairRow}`` of the measures the matrix form finished."""
         from .pairtable import PairRow
 
-        p = len(self.names)
         ij = np.asarray(pairs, dtype=np.int64).reshape(-1, 2)
         i, j = ij[:, 0], ij[:, 1]
-        ks = _triangle_position(i, j, p)
+        ks = self._positions(i, j)
         out = [{} for _ in range(ks.size)]
         nan = float("nan")
         for m in self.measures:
@@ -428,19 +454,21 @@ class MatrixPart:
         return out
 
 
-def part_measures(path: str, settings, variables, n_pairs: int, *, local: bool = True) -> tuple[str, ...]:
+def part_measures(path: str, settings, variables, n_pairs: int) -> tuple[str, ...]:
     """The chosen measures that the matrix form computes beside the per-pair tiles (``()``: none).
 
     A run that the whole matrix path cannot take (other measures, or verdicts,
     which need each pair's rows) still gets Pearson and Spearman by matrix
-    products when ``path`` is "matrix", or "auto" with enough pairs on a local
-    run, and the settings allow their matrix form (:func:`matrix_applies`)."""
+    products when ``path`` is "matrix", or "auto" with enough pairs, and the
+    settings allow their matrix form (:func:`matrix_applies`). On every executor:
+    the products run in this process, and tiles sent to Dask workers carry
+    their pairs' share (:meth:`MatrixPart.share`)."""
     if path not in PATHS:
         raise SettingsError(f"path must be one of {', '.join(PATHS)}, not {path!r}")
     subset = tuple(m for m in settings.measures if m in WIDE_MEASURES)
     if path == "pairs" or not subset or matrix_applies(replace(settings, measures=subset), variables):
         return ()
-    if path == "auto" and not (local and n_pairs >= config.MATRIX_PATH_MIN_PAIRS):
+    if path == "auto" and n_pairs < config.MATRIX_PATH_MIN_PAIRS:
         return ()
     return subset
 
@@ -464,7 +492,7 @@ def choose_path(path: str, settings, variables, n_pairs: int, *, local: bool = T
         return False
     why_not = matrix_applies(settings, variables)
     if path == "matrix":
-        if why_not and part_measures(path, settings, variables, n_pairs, local=local):
+        if why_not and part_measures(path, settings, variables, n_pairs):
             return False    # Pearson/Spearman by matrix products, the other measures pair by pair
         if why_not:
             raise SettingsError(f"path matrix: {why_not}; use the auto or pairs path")

@@ -309,12 +309,28 @@ def _computed_rows(prep, xvar: Variable, yvar: Variable, settings: AnalysisSetti
     return rows
 
 
-def run_tile(tile: list[tuple[int, int]]) -> tuple[list[PairRow], list]:
+class CarriedTile:
+    """A tile's pairs with their share of the matrix part (:meth:`pairlens.matrix_path.MatrixPart.share`),
+    for workers that do not share the engine's memory (Dask): each carries only its own pairs' results."""
+
+    __slots__ = ("pairs", "part")
+
+    def __init__(self, pairs: list[tuple[int, int]], part) -> None:
+        self.pairs = pairs
+        self.part = part
+
+    def __len__(self) -> int:
+        return len(self.pairs)
+
+
+def run_tile(tile: "list[tuple[int, int]] | CarriedTile") -> tuple[list[PairRow], list]:
     """The rows of every pair in the tile, and (when asked) each pair's verdict ``((x, y), ev)``: its
     label when the q-values cannot change it (:func:`pairlens.core.verdict.settled_label`), else its evidence."""
     s = _WORKER_STATE
     prep = _worker_prepared()
     part = s.get("matrix_part")
+    if isinstance(tile, CarriedTile):
+        tile, part = tile.pairs, tile.part
     out: list[PairRow] = []
     evidence: list = []
     finished = part.rows(tile) if part is not None else [{}] * len(tile)

@@ -212,6 +212,36 @@ def test_cluster_run_equals_local_run_bit_for_bit(cluster):
     assert all(c["pid"] != os.getpid() for c in counts.values())
 
 
+def test_wide_table_with_verdicts_takes_the_matrix_part_and_spreads_its_tiles(cluster, monkeypatch):
+    # A wide table's Pearson and Spearman come from the matrix products in this process (issue 19);
+    # each tile sent to the cluster carries its pairs' share of them. Reference: the same analysis
+    # run locally (whole part in memory), whose matrix part tests/core/test_wide.py checks against
+    # the per-pair path; one estimate against scipy.stats.
+    from pairlens import matrix_path
+
+    _wait_for_two_workers(cluster)
+    data, names = _vineyard_table(n=80, seed=17, extra_noise_columns=33)        # 40 columns, 780 pairs
+    settings = AnalysisSettings.from_options(measures="pearson,spearman,kendall,dcor", seed=3)
+    monkeypatch.setattr(config, "MATRIX_PATH_MIN_PAIRS", 700)                     # auto takes the part here
+    parts = []
+    real = matrix_path.run_part
+    monkeypatch.setattr(matrix_path, "run_part", lambda *a, **k: parts.append(a[4]) or real(*a, **k))
+    local = run_analysis(data, names, settings, workers=1, verdicts=True)
+    with DaskExecutor(cluster.address) as ex:
+        remote = run_analysis(data, names, settings, executor=ex, verdicts=True)
+        counts = ex.client.run(worker_tile_counts)
+        run_id = ex.last_run_id
+    assert parts == [("pearson", "spearman")] * 2
+    _assert_same_tables(local, remote)
+    assert remote.verdicts == local.verdicts and len(remote.verdicts) == 780
+    per_worker = [c["tiles"].get(run_id, 0) for c in counts.values()]
+    assert sum(per_worker) == _n_tiles(names, settings, 2) and all(v > 0 for v in per_worker), per_worker
+    x, y = data[:, 0], data[:, 1]
+    keep = ~np.isnan(x) & ~np.isnan(y)
+    assert remote.lookup(names[0], names[1])["spearman"].estimate == pytest.approx(
+        ss.spearmanr(x[keep], y[keep])[0], abs=1e-12)                                 # scipy.stats.spearmanr
+
+
 def test_two_analyses_at_once_on_one_cluster_each_match_local(cluster):
     # One worker process holds one analysis' state at a time; overlapping runs must not mix data.
     _wait_for_two_workers(cluster)

@@ -9,6 +9,7 @@ get an absolute slack of 1e-15.
 from __future__ import annotations
 
 import csv
+import dataclasses
 import io
 import json
 
@@ -240,7 +241,7 @@ def test_matrix_part_beside_the_tiles_equals_the_pairs_path(n, missing, measures
     assert a.verdicts == b.verdicts
 
 
-def test_matrix_part_is_taken_for_wide_local_runs_only(monkeypatch):
+def test_matrix_part_is_taken_for_wide_runs_only(monkeypatch):
     from pairlens.executors import SerialExecutor
 
     data = np.random.default_rng(4).normal(size=(30, 12))
@@ -249,12 +250,87 @@ def test_matrix_part_is_taken_for_wide_local_runs_only(monkeypatch):
     seen = _spy_on_parts(monkeypatch)
     run_analysis(data, names, AnalysisSettings(measures=("pearson", "kendall")), workers=1)          # 66 pairs
     run_analysis(data, names, AnalysisSettings(), workers=1, verdicts=True)
-    assert seen == [("pearson",), ("pearson", "spearman")]
+    run_analysis(data, names, AnalysisSettings(), executor=SerialExecutor(), verdicts=True)  # a given executor too
+    assert seen == [("pearson",), ("pearson", "spearman"), ("pearson", "spearman")]
     run_analysis(data[:, :11], names[:11], AnalysisSettings(measures=("pearson", "kendall")), workers=1)  # 55
-    run_analysis(data, names, AnalysisSettings(), executor=SerialExecutor(), verdicts=True)  # not a local run
     run_analysis(data, names, AnalysisSettings(measures=("kendall", "dcor")), workers=1)   # nothing to take
     run_analysis(data, names, AnalysisSettings(tests=(("pearson", "permutation"),), permutations=9), workers=1)
-    assert len(seen) == 2
+    assert len(seen) == 3
+
+
+class _RemoteLikeExecutor:
+    """Runs tiles in this process like Dask would: the initializer's arguments and every task go
+    through pickle, so nothing the engine holds in memory reaches a tile any other way."""
+
+    parallelism = 2
+
+    def __init__(self):
+        self.tasks = []
+
+    def run(self, fn, tasks, initializer, initargs, cancel=None):
+        import pickle
+
+        initializer(*pickle.loads(pickle.dumps(initargs)))
+        for index, task in enumerate(tasks):
+            self.tasks.append(task)
+            yield index, fn(pickle.loads(pickle.dumps(task)))
+
+    def close(self):
+        pass
+
+
+def test_tiles_on_remote_workers_carry_their_share_of_the_matrix_part(monkeypatch):
+    # Oracle: the same analysis with the whole part in the workers' memory (serial executor),
+    # itself checked against the per-pair path above; here rows, p/q-values and labels are equal bit for bit.
+    from pairlens.executors import SerialExecutor
+    from pairlens.tiles import CarriedTile
+
+    data = _table(40, seed=13)
+    rng = np.random.default_rng(13)
+    data = np.column_stack([data, rng.normal(size=(40, 11)) + data[:, :1]])   # 190 pairs: tiles of 6
+    names = [f"c{k}" for k in range(data.shape[1])]
+    settings = AnalysisSettings(measures=("pearson", "spearman", "kendall", "dcor"))
+    seen = _spy_on_parts(monkeypatch)
+    local = run_analysis(data, names, settings, executor=SerialExecutor(), path="matrix", verdicts=True)
+    remote_like = _RemoteLikeExecutor()
+    carried = run_analysis(data, names, settings, executor=remote_like, path="matrix", verdicts=True)
+    assert len(seen) == 2 and len(remote_like.tasks) > 1
+    assert all(isinstance(t, CarriedTile) for t in remote_like.tasks) and max(map(len, remote_like.tasks)) > 1
+    # each tile carries its own pairs' results only
+    assert [len(t.part.pairs.i) for t in remote_like.tasks] == [len(t.pairs) for t in remote_like.tasks]
+    assert _bits(carried.rows) == _bits(local.rows)
+    assert carried.verdicts == local.verdicts and len(carried.verdicts) == len(names) * (len(names) - 1) // 2
+
+
+def _bits(rows) -> list:
+    """Each row's fields, floats as their IEEE bits (NaN equal to NaN, -0.0 apart from 0.0)."""
+    import struct
+
+    return [tuple(struct.pack("<d", v) if isinstance(v, float) else v for v in dataclasses.astuple(r)) for r in rows]
+
+
+def test_a_share_of_the_matrix_part_gives_the_same_rows_and_refuses_other_pairs():
+    from pairlens import matrix_path
+    from pairlens.plan import pair_indices, plan_variables
+
+    data = _table(30, seed=2)
+    names = [f"c{k}" for k in range(data.shape[1])]
+    settings = AnalysisSettings(measures=("pearson", "spearman"))
+    variables = plan_variables(names, settings)
+    part = matrix_path.run_part(data, variables, settings, None, ("pearson", "spearman"))
+    pairs = pair_indices(variables)
+    tile = pairs[5:17]
+    share = part.share(tile)
+
+    def bits(found):
+        return [{m: _bits([row]) for m, row in d.items()} for d in found]
+
+    assert bits(share.rows(tile)) == bits(part.rows(tile)) and sum(map(len, part.rows(tile))) > 0
+    assert bits(share.rows(tile[::-1])) == bits(part.rows(tile[::-1]))
+    inner = share.share(tile[3:6])                      # a share of a share
+    assert bits(inner.rows(tile[3:6])) == bits(part.rows(tile[3:6]))
+    with pytest.raises(KeyError):
+        share.rows(pairs[:1])
 
 
 def test_matrix_part_reports_progress_and_cancels(monkeypatch):
