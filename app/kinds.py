@@ -107,8 +107,27 @@ def resolve(table, categorical=(), numeric=()) -> dict[str, ColumnKind]:
     return kinds
 
 
+def _check_named_columns_are_analysed(table, settings) -> None:
+    """A column the settings name but the reader left out (dates, free text, empty, too many levels)
+    fails with the reader's reason, not as an unknown column."""
+    left_out = {c.name: c for c in getattr(table, "info", ()) if not c.used}
+    named = [*(settings.columns or ()), *settings.given, *(m for _, members in settings.groups for m in members),
+             *settings.categorical, *settings.numeric]
+    bad = [n for n in dict.fromkeys(named) if n in left_out]
+    if not bad:
+        return
+    listed = ", ".join(f"{n!r} ({left_out[n].reason})" for n in bad[:5]) + (" ..." if len(bad) > 5 else "")
+    fix = "leave it out of the options" if len(bad) == 1 else "leave them out of the options"
+    dated = [n for n in bad if left_out[n].kind == "datetime"]
+    if dated:
+        fix += f"; to put the rows in time order by a date column, use --ordered {dated[0]}"
+    raise SettingsError(f"{listed} {'was' if len(bad) == 1 else 'were'} left out when the file was read "
+                        f"and cannot be analysed: {fix}")
+
+
 def settle(table, settings):
     """``settings`` with ``categorical`` listing every categorical column of the run (idempotent)."""
+    _check_named_columns_are_analysed(table, settings)
     kinds = resolve(table, settings.categorical, settings.numeric)
     grouped = {m for _, members in settings.groups for m in members}
     selected = set(kinds) if settings.columns is None else set(settings.columns) | grouped

@@ -119,3 +119,26 @@ def test_cli_pairs_and_inspect_on_a_mixed_table(tmp_path):
     table = subprocess.run([sys.executable, "-m", "pairlens.cli", "inspect", str(path), "--x", "site", "--y", "dose"],
                            capture_output=True, text=True, timeout=300)
     assert table.returncode == 0 and "adjusted standardised residuals" in table.stdout
+
+
+def test_a_named_column_the_reader_left_out_fails_with_its_reason(tmp_path):
+    # A date column and a 30-level text column are read but left out (app/ingest.py); naming one
+    # in an option says why, not "unknown column" (the column is in the user's file).
+    lines = _mixed_csv().decode().splitlines()
+    dated = [lines[0] + ",when"] + [f"{line},2026-01-{1 + i % 28:02d}" for i, line in enumerate(lines[1:])]
+    path = tmp_path / "dated.csv"
+    path.write_text("\n".join(dated) + "\n")
+    t = load_bytes(path.read_bytes(), "dated.csv")
+    assert "when" not in t.columns and "many" not in t.columns
+    with pytest.raises(SettingsError, match=r"'when' \(datetime column\) was left out .* use --ordered when"):
+        settle(t, AnalysisSettings(columns=("when", "growth", "height")))
+    with pytest.raises(SettingsError, match=r"'many' \(.*more than 20 levels.*\) was left out"):
+        settle(t, AnalysisSettings(given=("many",)))
+    with pytest.raises(SettingsError, match=r"'when' .*, 'many' .* were left out"):
+        settle(t, AnalysisSettings(groups=(("g", ("when", "many")),)))
+    with pytest.raises(SettingsError, match="unknown column"):             # not in the file at all
+        run_analysis(t.data, t.columns, settle(t, AnalysisSettings(columns=("nowhere", "growth"))), workers=1)
+    out = subprocess.run([sys.executable, "-m", "pairlens.cli", "pairs", str(path), "--columns", "when,growth"],
+                         capture_output=True, text=True, timeout=300)
+    assert out.returncode == 2 and "Traceback" not in out.stderr
+    assert out.stderr.strip().count("\n") == 0 and "--ordered when" in out.stderr
