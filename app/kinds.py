@@ -120,7 +120,8 @@ def _check_named_columns_are_analysed(table, settings) -> None:
     fix = "leave it out of the options" if len(bad) == 1 else "leave them out of the options"
     dated = [n for n in bad if left_out[n].kind == "datetime"]
     if dated:
-        fix += f"; to put the rows in time order by a date column, use --ordered {dated[0]}"
+        fix += (f"; to put the rows in time order by a date column, use --ordered {dated[0]} "
+                "(command line; ordered= in the library)")
     raise SettingsError(f"{listed} {'was' if len(bad) == 1 else 'were'} left out when the file was read "
                         f"and cannot be analysed: {fix}")
 
