@@ -208,11 +208,10 @@ def run_job(data_dir: str, analysis_id: str, *, workers: int | None = None, clus
             table = load_bytes(store.read_blob(dataset.sha256), dataset.name)
             from .kinds import settle
 
+            from .ordering import check_served_order
+
             settings = settle(table, AnalysisSettings.from_dict(row.settings))  # column kinds (issue 18)
-            if settings.ordered and settings.ordered in table.times:
-                raise SettingsError(f"ordered: {settings.ordered!r} holds dates; the dashboard and the API sort by a "
-                                    "numeric column only (the command line and the library sort by dates): add a "
-                                    "numeric time column, or use rows in file order")
+            check_served_order(table, settings)  # also checked at submit; kept for analyses queued before
             # time left from the up-front estimate until the first tile reports a measured one
             from .budget import estimate_work
             from .plan import plan_variables

@@ -18,7 +18,8 @@ from .errors import SettingsError
 from .pairtable import PairRow
 from .plan import AnalysisSettings
 
-__all__ = ["time_order", "serial_check", "serial_note", "mark_trending", "trending_sides", "with_time_column"]
+__all__ = ["time_order", "serial_check", "serial_note", "mark_trending", "trending_sides", "with_time_column",
+           "check_served_order"]
 
 
 def with_time_column(table, ordered: str | None):
@@ -47,6 +48,15 @@ def with_time_column(table, ordered: str | None):
                      "as dates or times; their rows are left out")
     return dataclasses.replace(table, columns=[*table.columns, ordered],
                                data=np.column_stack([table.data, seconds]), notes=notes)
+
+
+def check_served_order(table, settings: AnalysisSettings) -> None:
+    """Refuse ``ordered`` by a date column where the dashboard and the API run the analysis: they
+    sort by a numeric column only (the command line and the library sort by dates)."""
+    if settings.ordered and settings.ordered in (getattr(table, "times", {}) or {}):
+        raise SettingsError(f"ordered: {settings.ordered!r} holds dates; the dashboard and the API sort by a "
+                            "numeric column only (the command line and the library sort by dates): add a "
+                            "numeric time column, or use rows in file order")
 
 
 def time_order(data: np.ndarray, names: Sequence[str], settings: AnalysisSettings

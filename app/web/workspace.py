@@ -31,7 +31,7 @@ from ..pairgrid import PairGrid
 from ..pairrecords import unpack_rows
 from ..payloads import MAPS_FORMAT, default_difference, heatmap_payload, pair_key
 from ..plan import AnalysisSettings, plan_variables
-from ..ordering import serial_note
+from ..ordering import check_served_order, serial_note
 from ..store import AnalysisRow, DatasetRow, Store, UploadTooLarge
 from .models import AnalysisRequest
 
@@ -312,6 +312,7 @@ class Workspace:
         from ..kinds import settle
 
         settings = settle(self.table(dataset), settings)  # column kinds; a bad --categorical fails now
+        check_served_order(self.table(dataset), settings)  # ordered by a date column: refused now, not in the job
         variables = plan_variables(dataset.summary["numeric"], settings)  # unknown columns fail now, not in the job
         # beyond the work budget or the pair-table limit: refused now, with the estimate (app/budget.py)
         check_plan(estimate_work(len(variables), len(settings.run_measures), dataset.n_rows,
