@@ -207,7 +207,6 @@ def run_job(data_dir: str, analysis_id: str, *, workers: int | None = None, clus
             note_progress(analysis_id, 0.0, None, phase="reading data")
             table = load_bytes(store.read_blob(dataset.sha256), dataset.name)
             from .kinds import settle
-
             from .ordering import check_served_order
 
             settings = settle(table, AnalysisSettings.from_dict(row.settings))  # column kinds (issue 18)

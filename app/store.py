@@ -498,7 +498,9 @@ class Store:
         r = self._connection().execute("SELECT * FROM results WHERE analysis_id = ?", (analysis_id,)).fetchone()
         if r is None:
             return None
-        packed = bytes(r["records"][:2]) == b"PK"  # a zip archive (.npz), else zlib-compressed JSON
+        from .pairrecords import is_packed_rows
+
+        packed = is_packed_rows(r["records"])  # a zip archive (.npz), else zlib-compressed JSON
         return {"variables": json.loads(r["variables"]), "records": None if packed else _unpack(r["records"]),
                 "rows": r["records"] if packed else None,
                 "verdicts": _unpack(r["verdicts"]), "pages": _unpack(r["pages"]) if r["pages"] else None,

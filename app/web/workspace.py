@@ -311,8 +311,9 @@ class Workspace:
             raise SettingsError(str(exc)) from None
         from ..kinds import settle
 
-        settings = settle(self.table(dataset), settings)  # column kinds; a bad --categorical fails now
-        check_served_order(self.table(dataset), settings)  # ordered by a date column: refused now, not in the job
+        table = self.table(dataset)
+        settings = settle(table, settings)  # column kinds; a bad --categorical fails now
+        check_served_order(table, settings)  # ordered by a date column: refused now, not in the job
         variables = plan_variables(dataset.summary["numeric"], settings)  # unknown columns fail now, not in the job
         # beyond the work budget or the pair-table limit: refused now, with the estimate (app/budget.py)
         check_plan(estimate_work(len(variables), len(settings.run_measures), dataset.n_rows,
